@@ -1,0 +1,5 @@
+"""Allow ``python -m simcheck``."""
+
+from simcheck.cli import main
+
+raise SystemExit(main())

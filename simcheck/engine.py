@@ -1,0 +1,639 @@
+"""Coverage and achieved margin of an interval method, at one n or along a curve.
+
+Paths (chosen by ``path="auto"``, or forced):
+
+``exact``
+    No simulation. Proportion methods on iid 0/1 data by binomial
+    enumeration (double enumeration for two proportions); normal data with
+    the z interval, the t interval (one sample) or the pooled t interval with
+    equal SDs through the exact laws of the sample mean and variance.
+``sufficient``
+    Normal data with methods that need only the sample mean and variance:
+    two draws per replicate (a normal mean and a chi-square variance)
+    instead of n.
+``nested`` (curves)
+    One draw of ``n_max`` values per replicate; running sums give the
+    sufficient statistics of every prefix length, so the whole curve costs
+    about one simulation at ``n_max`` and all n share the same draws (common
+    random numbers).
+``full``
+    Plain simulation of (replicates, n) blocks.
+
+Randomness: replicates are cut into fixed blocks whose size depends only on
+the number of columns drawn; block ``i`` of group a draws from the stream at
+spawn key ``(STAGE_MAIN, i)`` below the root (group b ``(STAGE_GROUP_B, i)``,
+bootstrap resampling ``(STAGE_BOOTSTRAP, i)``). Chunks group whole blocks to
+bound memory, so results do not depend on the chunk size.
+
+References
+----------
+.. [1] Morris, T. P., White, I. R. & Crowther, M. J. (2019). Using simulation
+   studies to evaluate statistical methods. Statistics in Medicine 38,
+   2074-2102 (Monte Carlo standard errors of coverage-type measures).
+.. [2] Kupper, L. L. & Hafner, K. B. (1989). How appropriate are popular
+   sample size formulas? The American Statistician 43, 101-105; Beal, S. L.
+   (1989). Sample size determination for confidence intervals on the
+   population mean and on the difference between two population means.
+   Biometrics 45, 969-977 (exact law of the t interval's half-width).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Callable, Iterable, Sequence
+
+import numpy as np
+from scipy import special, stats
+
+from simcheck import rng as rngmod
+from simcheck.design import Design
+from simcheck.errors import InputError
+from simcheck.intervals import Summary, get_method
+from simcheck.intervals.base import Method
+from simcheck.results import CheckResult, CurveResult
+
+PATHS = ("auto", "exact", "sufficient", "nested", "full")
+
+#: draw-buffer budget of one chunk; temporaries add a small multiple of it
+CHUNK_BYTES = 4 << 20
+#: cap on stored half-widths (float32) used for the median and 90th percentile
+QUANTILE_BYTES = 64 << 20
+#: half-width values kept in a CheckResult for figures
+KEEP_MARGINS = 10_000
+
+Progress = Callable[[int, int], None] | None
+
+
+# --------------------------------------------------------------------------
+# public API
+# --------------------------------------------------------------------------
+def check(
+    design: Design,
+    n: int,
+    *,
+    replicates: int = 10_000,
+    rng: rngmod.RngLike = None,
+    path: str = "auto",
+    progress: Progress = None,
+    chunk_bytes: int = CHUNK_BYTES,
+) -> CheckResult:
+    """Coverage, misses, achieved margin and assurance of ``design`` at ``n``.
+
+    Parameters
+    ----------
+    design : Design
+        Data model(s), estimand, interval method, confidence, target margin.
+    n : int
+        Sample size of group a (two-sample: group b has ``design.n_b(n)``).
+    replicates : int
+        Number of simulated samples (ignored by the exact path).
+    rng : int, SeedSequence or Generator, optional
+        Root of all random streams (SPEC 7).
+    path : {"auto", "exact", "sufficient", "full"}
+        Computation path; "auto" takes the cheapest valid one.
+    progress : callable, optional
+        ``progress(done, total)`` called after each chunk of replicates.
+    chunk_bytes : int
+        Memory budget of one chunk's draw buffer; does not change results.
+
+    Returns
+    -------
+    CheckResult
+
+    References
+    ----------
+    .. [1] Morris, White & Crowther (2019), Statistics in Medicine 38:2074-2102.
+    """
+    rows = _evaluate(design, [n], replicates, rng, path, progress, chunk_bytes, curve=False)
+    return rows[0]
+
+
+def curve(
+    design: Design,
+    n_values: Iterable[int],
+    *,
+    replicates: int = 10_000,
+    rng: rngmod.RngLike = None,
+    path: str = "auto",
+    progress: Progress = None,
+    chunk_bytes: int = CHUNK_BYTES,
+) -> CurveResult:
+    """:func:`check` for every n in ``n_values`` (sorted, duplicates dropped).
+
+    Methods that work on sufficient statistics share one nested draw of the
+    largest n (common random numbers); bootstrap methods are evaluated at
+    each n separately, so give them a coarse grid.
+    """
+    ns = sorted({_as_n(v) for v in n_values})
+    if not ns:
+        raise InputError("n", "no sample sizes to evaluate")
+    rows = _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve=True)
+    return CurveResult(rows=tuple(rows))
+
+
+def available_paths(design: Design) -> list[str]:
+    """The paths valid for ``design``, cheapest first."""
+    method = get_method(design.estimand, design.method)
+    out = []
+    if _exact_kind(design, method):
+        out.append("exact")
+    if _sufficient_ok(design, method):
+        out.append("sufficient")
+    if method.kind in ("summary", "log", "summary2", "count", "count2"):
+        out.append("nested")
+    out.append("full")
+    return out
+
+
+# --------------------------------------------------------------------------
+# dispatch
+# --------------------------------------------------------------------------
+def _as_n(v) -> int:
+    if isinstance(v, bool) or not float(v).is_integer():
+        raise InputError("n", f"must be a whole number, got {v!r}")
+    return int(v)
+
+
+def _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve):
+    if path not in PATHS:
+        raise InputError("simulation.path", f"must be one of {', '.join(PATHS)}, got {path!r}")
+    if isinstance(replicates, bool) or not isinstance(replicates, (int, np.integer)) or replicates < 1:
+        raise InputError("simulation.replicates", f"must be a whole number >= 1, got {replicates!r}")
+    method = get_method(design.estimand, design.method)
+    min_n = 1 if method.kind in ("count", "count2") else 2
+    for n in ns:
+        if n < min_n:
+            raise InputError("n", f"must be >= {min_n} for the {design.method} interval, got {n}")
+    if design.two_sample:
+        for n in ns:
+            if design.n_b(n) < min_n:
+                raise InputError("simulation.ratio", f"gives group b only {design.n_b(n)} observations at n = {n}")
+    if design.clusters is not None or design.population is not None:
+        from simcheck import engine_clustered
+
+        return engine_clustered.evaluate(design, ns, replicates, rng, path, progress, chunk_bytes)
+
+    valid = available_paths(design)
+    if path == "auto":
+        chosen = valid[0]
+        if chosen == "nested" and (not curve or len(ns) == 1):
+            chosen = "full"
+    else:
+        chosen = path
+        if chosen == "nested" and not curve:
+            chosen = "full"
+        if chosen not in valid:
+            raise InputError("simulation.path", f"path {path!r} is not available for this design; available: {', '.join(valid)}")
+    root, seed = rngmod.root_sequence(rng)
+    if chosen == "exact":
+        return _exact(design, method, ns, seed)
+    if chosen == "sufficient":
+        return [_sufficient(design, method, n, replicates, root, seed, progress, chunk_bytes) for n in ns]
+    if chosen == "nested":
+        return _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes, nested=True)
+    rows = []
+    for n in ns:
+        rows.extend(_simulate(design, method, [n], replicates, root, seed, progress, chunk_bytes, nested=False))
+    return rows
+
+
+# --------------------------------------------------------------------------
+# exact path
+# --------------------------------------------------------------------------
+def _normal(model):
+    return model.normal_params() if model is not None else None
+
+
+def _exact_kind(design: Design, method: Method) -> str | None:
+    if design.estimand == "proportion" and method.kind == "count" and design.model.bernoulli_p() is not None:
+        return "binomial"
+    if design.estimand == "proportion-diff" and method.kind == "count2":
+        if design.model.bernoulli_p() is not None and design.model_b.bernoulli_p() is not None:
+            return "binomial2"
+    if design.estimand == "mean" and method.kind == "summary" and _normal(design.model):
+        if design.method in ("z", "t"):
+            return "normal1"
+    if design.estimand == "mean-diff" and method.kind == "summary2":
+        na, nb = _normal(design.model), _normal(design.model_b)
+        if na and nb:
+            if design.method == "z":
+                return "normal2"
+            if design.method == "t" and math.isclose(na[1], nb[1], rel_tol=1e-12):
+                return "normal2"
+    return None
+
+
+def _exact(design: Design, method: Method, ns: Sequence[int], seed) -> list[CheckResult]:
+    from simcheck import exact as exactmod
+
+    kind = _exact_kind(design, method)
+    conf, margin = design.confidence, design.margin
+    rows = []
+    if kind == "binomial":
+        p = design.model.bernoulli_p()
+        measures = exactmod.binomial_curve(method.func, ns, p, conf, margin)
+        for n, m in zip(ns, measures):
+            rows.append(_row_from_measures(design, n, m, seed, "exact-binomial"))
+        return rows
+    if kind == "binomial2":
+        pa, pb = design.model.bernoulli_p(), design.model_b.bernoulli_p()
+        for n in ns:
+            m = exactmod.two_binomial_measures(method.func, n, pa, design.n_b(n), pb, conf, margin)
+            rows.append(_row_from_measures(design, n, m, seed, "exact-binomial"))
+        return rows
+    # normal data: the half-width is c * s with s^2 ~ sigma^2 chi2(df) / df
+    alpha = 1.0 - conf
+    z = stats.norm.ppf(1 - alpha / 2)
+    for n in ns:
+        if kind == "normal1":
+            mu, sd = design.model.normal_params()
+            scale, df = sd / math.sqrt(n), n - 1
+        else:
+            nb = design.n_b(n)
+            _, sda = design.model.normal_params()
+            _, sdb = design.model_b.normal_params()
+            if design.method == "z":
+                scale, df = math.sqrt(sda**2 / n + sdb**2 / nb), None
+            else:
+                scale, df = sda * math.sqrt(1 / n + 1 / nb), n + nb - 2
+        if design.method == "z":
+            hw = z * scale
+            values, weights = np.array([hw]), np.array([1.0])
+            mean_hw = med = p90 = hw
+            assurance = None if margin is None else float(hw <= margin * (1 + 1e-12))
+        else:
+            if df is None:
+                df = n - 1
+            tq = stats.t.ppf(1 - alpha / 2, df)
+            c = tq * scale  # hw = c * sqrt(W / df), W ~ chi2(df)
+            log_c4 = 0.5 * math.log(2.0 / df) + special.gammaln((df + 1) / 2) - special.gammaln(df / 2)
+            mean_hw = c * math.exp(log_c4)
+            med = c * math.sqrt(stats.chi2.ppf(0.5, df) / df)
+            p90 = c * math.sqrt(stats.chi2.ppf(0.9, df) / df)
+            assurance = None if margin is None else float(stats.chi2.cdf(df * (margin / c) ** 2, df))
+            probs = (np.arange(400) + 0.5) / 400
+            values = c * np.sqrt(stats.chi2.ppf(probs, df) / df)
+            weights = np.full(400, 1 / 400)
+        m = {
+            "coverage": conf,
+            "miss_low": alpha / 2,
+            "miss_high": alpha / 2,
+            "margin_mean": mean_hw,
+            "margin_median": med,
+            "margin_p90": p90,
+            "assurance": assurance,
+            "margin_values": values,
+            "margin_weights": weights,
+        }
+        rows.append(_row_from_measures(design, n, m, seed, "exact-normal"))
+    return rows
+
+
+def _row_from_measures(design, n, m, seed, path) -> CheckResult:
+    nb = design.n_b(n)
+    a = m.get("assurance")
+    return CheckResult(
+        n=int(n),
+        replicates=0,
+        true_value=float(design.true_value),
+        coverage=float(m["coverage"]),
+        coverage_mcse=0.0,
+        miss_low=float(m["miss_low"]),
+        miss_high=float(m["miss_high"]),
+        margin_mean=float(m["margin_mean"]),
+        margin_median=float(m["margin_median"]),
+        margin_p90=float(m["margin_p90"]),
+        assurance=None if a is None else float(a),
+        assurance_mcse=None if a is None else 0.0,
+        method=design.method,
+        seed=seed,
+        exact=True,
+        estimand=design.estimand,
+        confidence=design.confidence,
+        target_margin=design.margin,
+        n_b=nb,
+        observations=int(n + (nb or 0)),
+        path=path,
+        notes=_notes(design),
+        margin_values=np.asarray(m.get("margin_values")) if m.get("margin_values") is not None else None,
+        margin_weights=np.asarray(m.get("margin_weights")) if m.get("margin_weights") is not None else None,
+    )
+
+
+def _notes(design: Design) -> tuple[str, ...]:
+    out = []
+    for m in (design.model, design.model_b):
+        if m is not None and m.true_value_note:
+            out.append(m.true_value_note)
+    return tuple(out)
+
+
+# --------------------------------------------------------------------------
+# measures accumulated over replicates
+# --------------------------------------------------------------------------
+class _Acc:
+    """Counts and half-widths for k sample sizes, accumulated chunk by chunk."""
+
+    def __init__(self, k: int, total: int, margin: float | None) -> None:
+        self.k, self.total, self.margin = k, total, margin
+        self.covered = np.zeros(k, np.int64)
+        self.low = np.zeros(k, np.int64)
+        self.high = np.zeros(k, np.int64)
+        self.assured = np.zeros(k, np.int64)
+        self.hw_sum = np.zeros(k, np.float64)
+        self.degenerate = np.zeros(k, np.int64)
+        self.keep = int(min(total, max(KEEP_MARGINS, QUANTILE_BYTES // (4 * k))))
+        self.hw = np.empty((self.keep, k), np.float32)
+        self.seen = 0
+
+    def add(self, lo: np.ndarray, hi: np.ndarray, truth, degenerate=None) -> None:
+        """lo, hi of shape (b, k); truth broadcastable to them."""
+        self.low += np.count_nonzero(hi < truth, axis=0)
+        self.high += np.count_nonzero(lo > truth, axis=0)
+        hw = (hi - lo) * 0.5
+        self.hw_sum += hw.sum(axis=0)
+        if self.margin is not None:
+            # tolerance for half-widths equal to the margin in exact arithmetic
+            self.assured += np.count_nonzero(hw <= self.margin * (1 + 1e-12), axis=0)
+        if degenerate is not None:
+            self.degenerate += np.count_nonzero(degenerate, axis=0)
+        b = hw.shape[0]
+        if self.seen < self.keep:
+            take = min(b, self.keep - self.seen)
+            self.hw[self.seen : self.seen + take] = hw[:take]
+        self.seen += b
+
+    def finish(self) -> None:
+        # coverage = not missed on either side (NaN limits count as misses nowhere
+        # and as not covering: they are counted below)
+        self.covered = self.total - self.low - self.high
+
+    def row(self, j: int, design: Design, n: int, replicates: int, seed, path: str, nan_count: int = 0) -> CheckResult:
+        R = replicates
+        cov = (self.covered[j] - nan_count) / R
+        hw_kept = self.hw[: min(self.keep, self.seen), j].astype(np.float64)
+        med = float(np.median(hw_kept)) if hw_kept.size else math.nan
+        p90 = float(np.quantile(hw_kept, 0.9)) if hw_kept.size else math.nan
+        assurance = None if self.margin is None else self.assured[j] / R
+        nb = design.n_b(n)
+        notes = list(_notes(design))
+        if self.keep < R:
+            notes.append(f"margin median and 90th percentile from the first {self.keep} replicates")
+        if self.degenerate[j]:
+            notes.append(f"{int(self.degenerate[j])} samples had all values equal (degenerate; zero-width interval)")
+        return CheckResult(
+            n=int(n),
+            replicates=int(R),
+            true_value=float(design.true_value),
+            coverage=float(cov),
+            coverage_mcse=_mcse(cov, R),
+            miss_low=float(self.low[j] / R),
+            miss_high=float(self.high[j] / R),
+            margin_mean=float(self.hw_sum[j] / R),
+            margin_median=med,
+            margin_p90=p90,
+            assurance=None if assurance is None else float(assurance),
+            assurance_mcse=None if assurance is None else _mcse(assurance, R),
+            method=design.method,
+            seed=seed,
+            exact=False,
+            estimand=design.estimand,
+            confidence=design.confidence,
+            target_margin=design.margin,
+            n_b=nb,
+            observations=int(n + (nb or 0)),
+            degenerate=int(self.degenerate[j]),
+            path=path,
+            notes=tuple(notes),
+            margin_values=hw_kept[:KEEP_MARGINS].copy(),
+            margin_weights=None,
+        )
+
+
+def _mcse(p: float, r: int) -> float:
+    """Monte Carlo SE of a share: sqrt(p (1 - p) / R) (Morris et al. 2019, Table 6)."""
+    return float(math.sqrt(max(p * (1.0 - p), 0.0) / r))
+
+
+# --------------------------------------------------------------------------
+# blocks and chunks
+# --------------------------------------------------------------------------
+def block_size(columns: int) -> int:
+    """Replicates per random block for draws of ``columns`` values (fixed by design)."""
+    return int(max(1, min(1024, (1 << 18) // max(columns, 1))))
+
+
+def _plan(total: int, columns: int, chunk_bytes: int, arrays: int) -> tuple[list[tuple[int, int]], int, int]:
+    """Blocks, blocks per chunk and rows of the chunk buffer."""
+    bs = block_size(columns)
+    blocks = rngmod.blocks(total, bs)
+    per_chunk = max(1, chunk_bytes // max(1, bs * columns * 8 * arrays))
+    rows = min(total, per_chunk * bs)
+    return blocks, per_chunk, rows
+
+
+def _chunks(blocks: list[tuple[int, int]], per_chunk: int):
+    """Yield (index of first block, blocks) for groups of whole blocks."""
+    for i in range(0, len(blocks), per_chunk):
+        yield i, blocks[i : i + per_chunk]
+
+
+def _fill(model, root, stage: int, first: int, blocks, columns: int, buf: np.ndarray) -> np.ndarray:
+    """Draw each block from its own stream into consecutive rows of ``buf``."""
+    rows = blocks[-1][1] - blocks[0][0]
+    out = buf[:rows]
+    off = blocks[0][0]
+    for bi, (s, e) in enumerate(blocks):
+        g = rngmod.generator(root, stage, first + bi)
+        model.draw(g, (e - s, columns), out=out[s - off : e - off])
+    return out
+
+
+# --------------------------------------------------------------------------
+# sufficient statistics for normal data
+# --------------------------------------------------------------------------
+def _sufficient_ok(design: Design, method: Method) -> bool:
+    if method.kind == "summary" and not method.needs_m3:
+        return _normal(design.model) is not None
+    if method.kind == "summary2":
+        return _normal(design.model) is not None and _normal(design.model_b) is not None
+    return False
+
+
+def _suff_draw(model, n, root, stage, first, blocks):
+    _, sd = model.normal_params()
+    rows = blocks[-1][1] - blocks[0][0]
+    mean = np.empty(rows)
+    var = np.empty(rows)
+    off = blocks[0][0]
+    for bi, (s, e) in enumerate(blocks):
+        g = rngmod.generator(root, stage, first + bi)
+        g.standard_normal(out=mean[s - off : e - off])
+        var[s - off : e - off] = g.standard_gamma((n - 1) / 2.0, size=e - s)
+    mean *= sd / math.sqrt(n)  # centred on the true mean
+    var *= 2.0 * sd * sd / (n - 1)  # sigma^2 chi2(n-1) / (n-1)
+    return Summary(n=n, mean=mean, var=var, sd_true=sd)
+
+
+def _sufficient(design, method, n, replicates, root, seed, progress, chunk_bytes) -> CheckResult:
+    acc = _Acc(1, replicates, design.margin)
+    bs = block_size(2)
+    blocks = rngmod.blocks(replicates, bs)
+    per = max(1, (1 << 16) // bs)
+    nb = design.n_b(n)
+    for i in range(0, len(blocks), per):
+        grp = blocks[i : i + per]
+        a = _suff_draw(design.model, n, root, rngmod.STAGE_MAIN, i, grp)
+        if method.kind == "summary":
+            lo, hi = method.func(a, design.confidence)
+        else:
+            b = _suff_draw(design.model_b, nb, root, rngmod.STAGE_GROUP_B, i, grp)
+            lo, hi = method.func(a, b, design.confidence)
+        acc.add(np.asarray(lo).reshape(-1, 1), np.asarray(hi).reshape(-1, 1), 0.0)
+        if progress:
+            progress(grp[-1][1], replicates)
+    acc.finish()
+    return acc.row(0, design, n, replicates, seed, "sufficient")
+
+
+# --------------------------------------------------------------------------
+# simulation (full and nested)
+# --------------------------------------------------------------------------
+def _moments(d: np.ndarray, ns: Sequence[int], nested: bool, need_m3: bool):
+    """Prefix sums of d, d^2 (and d^3) at each n in ns; d is (b, n_max)."""
+    if not nested:
+        s1 = d.sum(axis=1, keepdims=True)
+        s2 = np.einsum("ij,ij->i", d, d)[:, None]
+        s3 = np.einsum("ij,ij,ij->i", d, d, d)[:, None] if need_m3 else None
+        return s1, s2, s3
+    idx = np.asarray(ns) - 1
+    c = np.cumsum(d, axis=1)
+    s1 = c[:, idx]
+    sq = d * d
+    s2 = np.cumsum(sq, axis=1)[:, idx]
+    s3 = None
+    if need_m3:
+        sq *= d
+        s3 = np.cumsum(sq, axis=1)[:, idx]
+    return s1, s2, s3
+
+
+def _summary(s1, s2, s3, n, sd_true) -> Summary:
+    mean = s1 / n
+    var = (s2 - s1 * mean) / (n - 1)
+    np.maximum(var, 0.0, out=var)
+    m3 = None
+    if s3 is not None:
+        m3 = s3 / n - 3.0 * mean * (s2 / n) + 2.0 * mean**3
+    return Summary(n=n, mean=mean, var=var, m3=m3, sd_true=sd_true)
+
+
+def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes, nested) -> list[CheckResult]:
+    kind = method.kind
+    two = design.two_sample
+    ns_arr = np.asarray(ns, dtype=np.int64)
+    nbs = [design.n_b(n) for n in ns] if two else None
+    ncol_a = int(ns_arr.max())
+    ncol_b = int(max(nbs)) if two else 0
+    columns = ncol_a + ncol_b
+    k = len(ns)
+    acc = _Acc(k, replicates, design.margin)
+    arrays = 4 if nested else 1
+    nan_total = np.zeros(k, np.int64)
+
+    mu_a = design.model.mean
+    mu_b = design.model_b.mean if two else 0.0
+    truth_raw = design.true_value
+    # shift-equivariant methods work on values centred on the true mean
+    centred = method.shift_equivariant
+    all_blocks, per_chunk, rows = _plan(replicates, columns, chunk_bytes, arrays)
+    buf_a = np.empty((rows, ncol_a))
+    buf_b = np.empty((rows, ncol_b)) if two else None
+    n_eval = ns_arr  # broadcasts over the columns of the prefix sums
+
+    for first, blocks in _chunks(all_blocks, per_chunk):
+        xa = _fill(design.model, root, rngmod.STAGE_MAIN, first, blocks, ncol_a, buf_a)
+        xb = _fill(design.model_b, root, rngmod.STAGE_GROUP_B, first, blocks, ncol_b, buf_b) if two else None
+        degenerate = None
+        truth = 0.0 if centred else truth_raw
+        if kind in ("summary", "summary2"):
+            xa -= mu_a
+            sa = _summary(*_moments(xa, ns, nested, method.needs_m3), n_eval, design.model.sd)
+            if kind == "summary":
+                lo, hi = method.func(sa, design.confidence)
+            else:
+                xb -= mu_b
+                sb = _summary(*_moments(xb, nbs, nested, False), np.asarray(nbs), design.model_b.sd)
+                lo, hi = method.func(sa, sb, design.confidence)
+        elif kind == "log":
+            if np.any(xa <= 0):
+                raise InputError("method.interval", f"{design.method} needs strictly positive data; model {design.model.describe()} gave values <= 0")
+            np.log(xa, out=xa)
+            shift = math.log(mu_a)  # centre the logs for precision; undone below
+            xa -= shift
+            s = _summary(*_moments(xa, ns, nested, False), n_eval, None)
+            s = Summary(n=s.n, mean=s.mean + shift, var=s.var)
+            lo, hi = method.func(s, design.confidence)
+        elif kind in ("count", "count2"):
+            ca = _counts(xa, ns, nested)
+            if kind == "count":
+                lo, hi = method.func(ca, n_eval, design.confidence)
+            else:
+                cb = _counts(xb, nbs, nested)
+                lo, hi = method.func(ca, n_eval, cb, np.asarray(nbs), design.confidence)
+        elif kind in ("sample", "sample2"):
+            xa -= mu_a
+            if two:
+                xb -= mu_b
+            lo, hi, degenerate = _bootstrap_blocks(method, design, xa, xb, ns[0], nbs[0] if two else None, root, first, blocks)
+        else:  # pragma: no cover - registry kinds are fixed
+            raise InputError("method.interval", f"method kind {kind!r} cannot be simulated here")
+        lo = np.asarray(lo, dtype=np.float64)
+        hi = np.asarray(hi, dtype=np.float64)
+        if lo.ndim == 1:
+            lo, hi = lo[:, None], hi[:, None]
+        bad = np.isnan(lo) | np.isnan(hi)
+        if bad.any():
+            nan_total += np.count_nonzero(bad, axis=0)
+        acc.add(lo, hi, truth, None if degenerate is None else np.asarray(degenerate).reshape(-1, 1))
+        if progress:
+            progress(blocks[-1][1], replicates)
+    acc.finish()
+    path = "nested" if nested else "simulation"
+    rows = []
+    for j, n in enumerate(ns):
+        r = acc.row(j, design, n, replicates, seed, path, nan_count=int(nan_total[j]))
+        if nan_total[j]:
+            r = _with_note(r, f"{int(nan_total[j])} intervals could not be computed and count as not covering")
+        rows.append(r)
+    return rows
+
+
+def _with_note(r: CheckResult, note: str) -> CheckResult:
+    from dataclasses import replace
+
+    return replace(r, notes=tuple(r.notes) + (note,))
+
+
+def _counts(x: np.ndarray, ns, nested: bool) -> np.ndarray:
+    if not nested:
+        return x.sum(axis=1, keepdims=True)
+    return np.cumsum(x, axis=1)[:, np.asarray(ns) - 1]
+
+
+def _bootstrap_blocks(method, design, xa, xb, n, nb, root, first, blocks):
+    """Resampling per random block, each with its own stream (chunk-size free)."""
+    lo = np.empty(xa.shape[0])
+    hi = np.empty(xa.shape[0])
+    deg = np.zeros(xa.shape[0], dtype=bool)
+    off = blocks[0][0]
+    for bi, (s, e) in enumerate(blocks):
+        g = rngmod.generator(root, rngmod.STAGE_BOOTSTRAP, first + bi)
+        sl = slice(s - off, e - off)
+        if xb is None:
+            out = method.func(xa[sl, :n], design.confidence, rng=g, resamples=design.resamples)
+        else:
+            out = method.func(xa[sl, :n], xb[sl, :nb], design.confidence, rng=g, resamples=design.resamples)
+        lo[sl], hi[sl], deg[sl] = out
+    return lo, hi, deg

@@ -1,0 +1,710 @@
+"""Closed-form sample sizes for a target confidence-interval half-width.
+
+These are the textbook margin-of-error formulas that simcheck checks by
+simulation: they assume a normal sampling distribution, a known (planning)
+standard deviation or proportion and independent observations, corrected for
+a finite population and for clustering by a design effect. The result is the
+baseline that :mod:`simcheck.search` starts from and compares against.
+
+Order of the corrections (one-sample): the simple-random-sampling size
+``n0 = m^2 V / B^2`` (``m`` the z or t multiple, ``V`` the unit variance) is
+multiplied by the design effect, then reduced by the finite population
+correction ``n0 / (1 + (n0 - 1) / N)``, then rounded up.
+
+Two-sample estimands (difference a - b) allocate ``n_b = ceil(ratio * n_a)``
+with ``n_a = m^2 deff (V_a + V_b / ratio) / B^2``. With ``multiplier="t"`` a
+difference of means iterates on the Welch--Satterthwaite degrees of freedom
+computed from the planning SDs and the rounded group sizes; one-sample ``t``
+iterates on ``n - 1`` degrees of freedom (also when clustered: the formula
+does not switch to cluster degrees of freedom).
+
+This module depends only on numpy, scipy and :mod:`simcheck.errors`.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any, Callable
+
+import numpy as np
+from scipy import stats
+
+from simcheck.errors import Collector, InputError
+from simcheck.results import _clean
+
+__all__ = [
+    "ESTIMANDS",
+    "TWO_SAMPLE",
+    "FormulaResult",
+    "sample_size",
+    "ceil_robust",
+    "z_value",
+    "t_value",
+    "design_effect_from_icc",
+    "fpc_n",
+    "welch_df",
+]
+
+ESTIMANDS = ("mean", "proportion", "mean-diff", "proportion-diff")
+TWO_SAMPLE = ("mean-diff", "proportion-diff")
+MULTIPLIERS = ("z", "t")
+
+#: Largest n the formulas report; beyond it the inputs are almost surely a unit mistake.
+N_LIMIT = 1e15
+
+
+# ---------------------------------------------------------------------------
+# small pure helpers
+
+
+def ceil_robust(x: Any, rel: float = 1e-9) -> Any:
+    """Round up, treating values within ``rel`` (relative) of an integer as that integer.
+
+    Floating-point arithmetic turns an exact 100 into 100.0000000001 now and
+    then; a plain ``ceil`` would then ask for one unit too many. Values
+    further than ``rel * max(1, |x|)`` from the nearest integer are rounded up.
+
+    Parameters
+    ----------
+    x : float or array_like
+        Finite value(s).
+    rel : float
+        Relative tolerance, >= 0.
+
+    Returns
+    -------
+    int or numpy.ndarray of int64
+        A Python int for a scalar input, an int64 array otherwise.
+
+    Examples
+    --------
+    >>> ceil_robust(100.0000000001), ceil_robust(384.15), ceil_robust(99.9999999999)
+    (100, 385, 100)
+    """
+    if not (rel >= 0 and math.isfinite(rel)):
+        raise ValueError(f"rel must be a finite number >= 0, got {rel!r}")
+    arr = np.asarray(x, dtype=float)
+    if not np.all(np.isfinite(arr)):
+        raise ValueError(f"ceil_robust needs finite values, got {x!r}")
+    nearest = np.round(arr)
+    close = np.abs(arr - nearest) <= rel * np.maximum(1.0, np.abs(arr))
+    out = np.where(close, nearest, np.ceil(arr))
+    if out.ndim == 0:
+        return int(out)
+    return out.astype(np.int64)
+
+
+def _check_confidence(confidence: float) -> float:
+    c = Collector()
+    v = c.number("confidence", confidence, low=0, high=1, low_open=True, high_open=True)
+    c.raise_if_any()
+    return float(v)
+
+
+def z_value(confidence: float) -> float:
+    """Two-sided standard normal multiple: the ``(1 + confidence) / 2`` quantile.
+
+    Computed as the upper ``(1 - confidence) / 2`` tail point so that levels
+    close to 1 keep their precision.
+    """
+    c = _check_confidence(confidence)
+    return float(stats.norm.isf((1.0 - c) / 2.0))
+
+
+def t_value(confidence: float, df: float) -> float:
+    """Two-sided Student t multiple with ``df`` degrees of freedom (df > 0, may be fractional)."""
+    c = _check_confidence(confidence)
+    col = Collector()
+    d = col.number("df", df, low=0, low_open=True)
+    col.raise_if_any()
+    return float(stats.t.isf((1.0 - c) / 2.0, d))
+
+
+def design_effect_from_icc(icc: float, m: float, cv: float = 0.0) -> float:
+    """Design effect of cluster sampling from the intracluster correlation.
+
+    ``1 + ((cv^2 + 1) m - 1) icc``; with ``cv = 0`` (equal cluster sizes) this is
+    Kish's ``1 + (m - 1) icc``.
+
+    Parameters
+    ----------
+    icc : float
+        Intracluster correlation, in [0, 1).
+    m : float
+        (Mean) cluster size, >= 1.
+    cv : float
+        Coefficient of variation of the cluster sizes, SD computed with
+        divisor k (the number of clusters), >= 0.
+
+    References
+    ----------
+    .. [1] Kish, L. (1965). *Survey Sampling*. Wiley, New York.
+    .. [2] Eldridge, S. M., Ashby, D. and Kerry, S. (2006). Sample size for
+       cluster randomized trials: effect of coefficient of variation of
+       cluster size and analysis method. *International Journal of
+       Epidemiology* 35, 1292-1300.
+    """
+    c = Collector()
+    r = c.number("icc", icc, low=0, high=1, high_open=True)
+    mm = c.number("cluster_size", m, low=1)
+    v = c.number("cluster_size_cv", cv, low=0)
+    c.raise_if_any()
+    return 1.0 + ((v * v + 1.0) * mm - 1.0) * r
+
+
+def fpc_n(n0: Any, N: float) -> Any:
+    """Finite population correction of a sample size: ``n0 / (1 + (n0 - 1) / N)``.
+
+    Exact for the variance factor ``(N - n) / (N - 1)`` of sampling without
+    replacement. Accepts arrays for ``n0``.
+
+    References
+    ----------
+    .. [1] Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, New York.
+    """
+    if not (isinstance(N, (int, float, np.integer, np.floating)) and not isinstance(N, bool)):
+        raise InputError("population_size", f"must be a number, got {N!r}")
+    if not (math.isfinite(float(N)) and N >= 1):
+        raise InputError("population_size", f"must be a finite number >= 1, got {N!r}")
+    n0a = np.asarray(n0, dtype=float)
+    out = n0a / (1.0 + (n0a - 1.0) / float(N))
+    return float(out) if out.ndim == 0 else out
+
+
+def welch_df(var_a: float, n_a: float, var_b: float, n_b: float) -> float:
+    """Welch--Satterthwaite degrees of freedom for ``var_a / n_a + var_b / n_b``.
+
+    References
+    ----------
+    .. [1] Welch, B. L. (1947). The generalization of "Student's" problem when
+       several different population variances are involved. *Biometrika* 34, 28-35.
+    .. [2] Satterthwaite, F. E. (1946). An approximate distribution of estimates
+       of variance components. *Biometrics Bulletin* 2, 110-114.
+    """
+    a = var_a / n_a
+    b = var_b / n_b
+    return (a + b) ** 2 / (a * a / (n_a - 1) + b * b / (n_b - 1))
+
+
+# ---------------------------------------------------------------------------
+# the result
+
+
+@dataclass(frozen=True)
+class FormulaResult:
+    """A closed-form sample size and how it was obtained.
+
+    ``n`` is the size of the one sample, or of group a for a two-sample
+    estimand (then ``n_b = ceil(ratio * n)``). ``n_unrounded`` is the value
+    before rounding up (for ``t``, at the final degrees of freedom).
+    ``multiplier`` is the z or t value used; ``multiplier_kind`` says which.
+    ``clusters`` (and ``clusters_b``) are ``ceil(n / cluster_size)`` when a
+    cluster size is known, else None.
+    """
+
+    estimand: str
+    n: int
+    n_b: int | None
+    n_unrounded: float
+    multiplier: float
+    multiplier_kind: str
+    design_effect: float
+    clusters: int | None
+    clusters_b: int | None
+    confidence: float
+    margin: float
+    ratio: float | None
+    df: float | None
+    iterations: int | None
+    n_before_fpc: float | None
+    population_size: int | None
+    cluster_size: float | None
+    sd: float | None
+    sd_b: float | None
+    p: float | None
+    p_b: float | None
+    assumptions: tuple[str, ...]
+    formula: str
+
+    @property
+    def n_total(self) -> int:
+        return self.n + (self.n_b or 0)
+
+    def to_dict(self) -> dict[str, Any]:
+        """The JSON object of ``simcheck formula --json`` (contract keys first)."""
+        d = {
+            "n": self.n,
+            "n_b": self.n_b,
+            "n_total": self.n_total,
+            "n_unrounded": self.n_unrounded,
+            "multiplier": self.multiplier,
+            "design_effect": self.design_effect,
+            "clusters": self.clusters,
+            "estimand": self.estimand,
+            "confidence": self.confidence,
+            "margin": self.margin,
+            "multiplier_kind": self.multiplier_kind,
+            "df": self.df,
+            "iterations": self.iterations,
+            "ratio": self.ratio,
+            "clusters_b": self.clusters_b,
+            "clusters_total": None if self.clusters is None else self.clusters + (self.clusters_b or 0),
+            "cluster_size": self.cluster_size,
+            "population_size": self.population_size,
+            "n_before_fpc": self.n_before_fpc,
+            "sd": self.sd,
+            "sd_b": self.sd_b,
+            "p": self.p,
+            "p_b": self.p_b,
+            "assumptions": list(self.assumptions),
+            "formula": self.formula,
+        }
+        return _clean(d)
+
+    def to_frame(self):
+        """One-row pandas DataFrame of :meth:`to_dict` (assumptions joined by " | ")."""
+        import pandas as pd
+
+        d = self.to_dict()
+        d["assumptions"] = " | ".join(d["assumptions"])
+        return pd.DataFrame([d])
+
+
+# ---------------------------------------------------------------------------
+# validation
+
+
+def _opt(c: Collector, field: str, value: Any, **kw) -> Any:
+    """Check an optional number; None stays None."""
+    if value is None:
+        return None
+    return c.number(field, value, **kw)
+
+
+def _proportion(c: Collector, field: str, value: Any) -> float | None:
+    if value is None:
+        return None
+    if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
+        c.add(field, f"must be a number, got {value!r}")
+        return None
+    v = float(value)
+    if math.isfinite(v) and v in (0.0, 1.0):
+        c.add(
+            field,
+            f"a proportion of {value!r} has no sampling variance; give the value you expect, e.g. "
+            f"{'0.01' if v == 0.0 else '0.99'}",
+        )
+        return None
+    return c.number(field, value, low=0, high=1, low_open=True, high_open=True)
+
+
+def _validate(
+    estimand, margin, confidence, sd, sd_b, p, p_b, multiplier, population_size,
+    design_effect, icc, cluster_size, cluster_size_cv, ratio,
+) -> dict[str, Any]:
+    c = Collector()
+    if estimand is None:
+        c.add("--estimand", f"is required: one of {', '.join(ESTIMANDS)}")
+    elif estimand not in ESTIMANDS:
+        c.add("--estimand", f"must be one of {', '.join(ESTIMANDS)}, got {estimand!r}")
+        estimand = None
+    two = estimand in TWO_SAMPLE
+    is_mean = estimand in ("mean", "mean-diff")
+    is_prop = estimand in ("proportion", "proportion-diff")
+
+    if margin is None:
+        c.add("--margin", "is required: the target half-width of the interval, > 0")
+    else:
+        margin = c.number("--margin", margin, low=0, low_open=True)
+        if margin is not None and is_prop and margin >= 1:
+            c.add("--margin", f"must be < 1 for a proportion (0.05 means 5 percentage points), got {margin!r}")
+            margin = None
+    confidence = c.number("--confidence", confidence, low=0, high=1, low_open=True, high_open=True)
+
+    if multiplier not in MULTIPLIERS:
+        c.add("--multiplier", f"must be z or t, got {multiplier!r}")
+        multiplier = None
+    elif multiplier == "t" and is_prop:
+        c.add("--multiplier", "t applies to means only; proportions use z")
+
+    sd = _opt(c, "--sd", sd, low=0, low_open=True)
+    sd_b = _opt(c, "--sd-b", sd_b, low=0, low_open=True)
+    p = _proportion(c, "--p", p)
+    p_b = _proportion(c, "--p-b", p_b)
+    population_size = _opt(c, "--population-size", population_size, low=2, integer=True)
+    design_effect = _opt(c, "--design-effect", design_effect, low=0, low_open=True)
+    icc = _opt(c, "--icc", icc, low=0, high=1, high_open=True)
+    cluster_size = _opt(c, "--cluster-size", cluster_size, low=1)
+    cluster_size_cv = _opt(c, "--cluster-size-cv", cluster_size_cv, low=0)
+    if ratio is not None:
+        ratio = c.number("--ratio", ratio, low=0, low_open=True)
+
+    # combinations (only when the estimand is known)
+    if is_prop:
+        if sd is not None:
+            c.add("--sd", f"does not apply to a {estimand} estimand (give --p)")
+        if sd_b is not None:
+            c.add("--sd-b", f"does not apply to a {estimand} estimand (give --p-b)")
+    if is_mean:
+        if p is not None:
+            c.add("--p", f"does not apply to a {estimand} estimand (give --sd)")
+        if p_b is not None:
+            c.add("--p-b", f"does not apply to a {estimand} estimand (give --sd-b)")
+        if sd is None and "--sd" not in {pr.field for pr in c.problems}:
+            c.add("--sd", f"is required for a {estimand} estimand: the planning standard deviation")
+    if estimand is not None and not two:
+        if sd_b is not None and not is_prop:
+            c.add("--sd-b", "applies to two-sample estimands only (mean-diff)")
+        if p_b is not None and not is_mean:
+            c.add("--p-b", "applies to two-sample estimands only (proportion-diff)")
+        if ratio is not None and ratio != 1.0:
+            c.add("--ratio", "applies to two-sample estimands only (mean-diff, proportion-diff)")
+    if two and population_size is not None:
+        c.add("--population-size", "applies to one-sample estimands only (mean, proportion)")
+    if design_effect is not None and icc is not None:
+        c.add("--design-effect", "give either --design-effect or --icc with --cluster-size, not both")
+    if icc is not None and cluster_size is None and "--cluster-size" not in {pr.field for pr in c.problems}:
+        c.add("--icc", "needs --cluster-size (the mean number of observations per cluster)")
+    if cluster_size_cv is not None and icc is None and "--icc" not in {pr.field for pr in c.problems}:
+        c.add("--cluster-size-cv", "needs --icc and --cluster-size (it enters the design effect through the ICC)")
+    if (
+        cluster_size is not None
+        and icc is None
+        and design_effect is None
+        and not {"--icc", "--design-effect"} & {pr.field for pr in c.problems}
+    ):
+        c.add("--cluster-size", "needs --icc (or --design-effect) to say how alike observations in a cluster are")
+    c.raise_if_any()
+    return dict(
+        estimand=estimand, margin=margin, confidence=confidence, sd=sd, sd_b=sd_b, p=p, p_b=p_b,
+        multiplier=multiplier, population_size=population_size, design_effect=design_effect, icc=icc,
+        cluster_size=cluster_size, cluster_size_cv=cluster_size_cv, ratio=ratio,
+    )
+
+
+# ---------------------------------------------------------------------------
+# the computation
+
+
+def _g(x: float) -> str:
+    """Short number text for formulas."""
+    return f"{x:.6g}"
+
+
+def _too_large(value: float) -> None:
+    if not math.isfinite(value) or value > N_LIMIT:
+        raise InputError(
+            "--margin",
+            f"gives n = {value:.3g}, too large to be a sample size; check the units of --margin and --sd",
+        )
+
+
+def _iterate(
+    needed: Callable[[int], float], start: int, lo: int, n_min: int, n_max: int | None = None
+) -> tuple[int, float, int]:
+    """Smallest n >= n_min with ceil_robust(needed(n)) <= n, for ``needed`` non-increasing in n.
+
+    ``needed(n)`` is the unrounded n the formula asks for when the multiple is
+    evaluated at the degrees of freedom of n. First the fixed-point iteration
+    n <- ceil(needed(n)) from ``start`` (a lower bound such as the z answer),
+    which converges in a step or two for all but tiny n; then bisection
+    between the last failing and the first passing n guarantees that n - 1
+    fails. ``lo`` is an n known to fail (or n_min - 1).
+
+    Returns (n, needed(n), number of evaluations of the multiple).
+    """
+    cache: dict[int, float] = {}
+
+    def need(n: int) -> float:
+        if n not in cache:
+            cache[n] = needed(n)
+        return cache[n]
+
+    def ok(n: int) -> bool:
+        v = need(n)
+        # a tiny df gives a huge (even infinite) requirement: a plain failure
+        return v <= n + 1 and ceil_robust(v) <= n
+
+    n = max(start, n_min, lo + 1)
+    if n_max is not None:
+        n = min(n, n_max)
+    while not ok(n):
+        lo = n
+        _too_large(need(n))
+        n = max(ceil_robust(need(n)), n + 1)
+        if n_max is not None and n >= n_max:
+            n = n_max
+            break
+    hi = n
+    while hi - lo > 1:
+        mid = (lo + hi) // 2
+        if ok(mid):
+            hi = mid
+        else:
+            lo = mid
+    return hi, need(hi), len(cache)
+
+
+def sample_size(
+    estimand: str,
+    margin: float,
+    *,
+    confidence: float = 0.95,
+    sd: float | None = None,
+    sd_b: float | None = None,
+    p: float | None = None,
+    p_b: float | None = None,
+    multiplier: str = "z",
+    population_size: int | None = None,
+    design_effect: float | None = None,
+    icc: float | None = None,
+    cluster_size: float | None = None,
+    cluster_size_cv: float | None = None,
+    ratio: float | None = 1.0,
+) -> FormulaResult:
+    """Closed-form n for a confidence interval of half-width at most ``margin``.
+
+    Parameters
+    ----------
+    estimand : {"mean", "proportion", "mean-diff", "proportion-diff"}
+        Two-sample estimands are the difference a - b.
+    margin : float
+        Target half-width B, > 0 (< 1 for proportions).
+    confidence : float
+        Confidence level in (0, 1).
+    sd, sd_b : float, optional
+        Planning SDs of group a and b (b defaults to a). Required for means.
+    p, p_b : float, optional
+        Planning proportions in (0, 1); p = 0.5 (the largest variance) is
+        assumed when none is given, and p_b defaults to p.
+    multiplier : {"z", "t"}
+        ``z``: normal multiple (known SD). ``t``: smallest n with
+        ``t(n-1) * sd * sqrt(deff) / sqrt(n) <= B`` (times the FPC factor);
+        for mean-diff the Welch--Satterthwaite df of the planned groups.
+        Means only.
+    population_size : int, optional
+        Finite population size N >= 2 (one-sample): n0 / (1 + (n0 - 1) / N).
+    design_effect : float, optional
+        Design effect given directly (> 0). Not together with ``icc``.
+    icc, cluster_size, cluster_size_cv : float, optional
+        Design effect from the ICC and the (mean) cluster size, and the CV of
+        cluster sizes. ``cluster_size`` also gives the number of clusters
+        ``ceil(n / cluster_size)``, also with a direct ``design_effect``.
+    ratio : float
+        Allocation ratio n_b / n_a for two-sample estimands, > 0.
+
+    Returns
+    -------
+    FormulaResult
+
+    Raises
+    ------
+    InputError
+        All problems with the inputs at once; fields are the option names
+        (``--margin``).
+
+    Notes
+    -----
+    One-sample: ``n0 = m^2 V / B^2`` with V = sd^2 or p (1 - p); then
+    ``n0 * deff``; then the FPC; then rounded up by :func:`ceil_robust`.
+    Two-sample: ``n_a = m^2 deff (V_a + V_b / ratio) / B^2`` and
+    ``n_b = ceil(ratio * n_a)``; for ``t`` the Welch--Satterthwaite df of
+    (sd_a^2, n_a, sd_b^2, n_b).
+
+    References
+    ----------
+    .. [1] Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, New York.
+    .. [2] Kish, L. (1965). *Survey Sampling*. Wiley, New York.
+    .. [3] Eldridge, S. M., Ashby, D. and Kerry, S. (2006). Sample size for
+       cluster randomized trials: effect of coefficient of variation of
+       cluster size and analysis method. *International Journal of
+       Epidemiology* 35, 1292-1300.
+    .. [4] Welch, B. L. (1947). The generalization of "Student's" problem when
+       several different population variances are involved. *Biometrika* 34, 28-35.
+    """
+    v = _validate(
+        estimand, margin, confidence, sd, sd_b, p, p_b, multiplier, population_size,
+        design_effect, icc, cluster_size, cluster_size_cv, ratio,
+    )
+    estimand, B, conf = v["estimand"], v["margin"], v["confidence"]
+    two = estimand in TWO_SAMPLE
+    kind = v["multiplier"]
+    N = v["population_size"]
+    m = v["cluster_size"]
+    assumptions: list[str] = []
+    steps: list[str] = []
+
+    # unit variances
+    if estimand in ("mean", "mean-diff"):
+        sa = v["sd"]
+        sb = v["sd_b"] if v["sd_b"] is not None else sa
+        if two and v["sd_b"] is None:
+            assumptions.append(f"sd_b = sd_a = {_g(sa)} assumed (not given)")
+        var_a, var_b = sa * sa, sb * sb
+        pa = pb = None
+    else:
+        pa = v["p"]
+        if pa is None:
+            pa = 0.5
+            assumptions.append("p = 0.5 assumed (most conservative)" if not two else
+                               "p_a = 0.5 assumed (most conservative)")
+        pb = v["p_b"]
+        if two and pb is None:
+            pb = pa
+            if v["p"] is None:
+                assumptions[-1] = "p_a = p_b = 0.5 assumed (most conservative)"
+            else:
+                assumptions.append(f"p_b = p_a = {_g(pa)} assumed (not given)")
+        var_a = pa * (1 - pa)
+        var_b = pb * (1 - pb) if two else None
+        sa = sb = None
+
+    # design effect
+    deff = 1.0
+    if v["design_effect"] is not None:
+        deff = v["design_effect"]
+        if deff < 1:
+            assumptions.append(f"design effect {_g(deff)} < 1 as given (gain over simple random sampling)")
+    elif v["icc"] is not None:
+        cv = v["cluster_size_cv"] or 0.0
+        deff = design_effect_from_icc(v["icc"], m, cv)
+        if v["cluster_size_cv"] is None:
+            steps.append(f"deff = 1 + (m - 1) ICC = 1 + ({_g(m)} - 1) * {_g(v['icc'])} = {_g(deff)} (Kish)")
+        else:
+            steps.append(
+                f"deff = 1 + ((cv^2 + 1) m - 1) ICC = 1 + (({_g(cv)}^2 + 1) * {_g(m)} - 1) * {_g(v['icc'])}"
+                f" = {_g(deff)} (Eldridge, Ashby & Kerry 2006)"
+            )
+
+    K = 1.0 if not two else (v["ratio"] if v["ratio"] is not None else 1.0)
+    z = z_value(conf)
+    vname = "sd^2" if estimand in ("mean", "mean-diff") else "p (1 - p)"
+
+    df = None
+    iterations = None
+    n_before_fpc = None
+    n_b = None
+
+    if not two:
+        def base(mult: float) -> float:
+            return mult * mult * var_a * deff / (B * B)
+
+        def final(mult: float) -> float:
+            x = base(mult)
+            return fpc_n(x, N) if N is not None else x
+
+        nz_un = final(z)
+        _too_large(nz_un)
+        if kind == "z":
+            mult = z
+            n_un = nz_un
+            n = ceil_robust(n_un)
+        else:
+            def needed(n_: int) -> float:
+                return final(t_value(conf, n_ - 1))
+
+            nz = ceil_robust(nz_un)
+            n, n_un, iterations = _iterate(needed, nz, lo=max(1, nz - 1), n_min=2, n_max=N)
+            df = float(n - 1)
+            mult = t_value(conf, df)
+        x0 = base(mult) / deff
+        mname = "z" if kind == "z" else f"t({n - 1})"
+        steps.insert(0, f"n0 = {mname}^2 {vname} / B^2 = {_g(mult)}^2 * {_g(var_a)} / {_g(B)}^2 = {_g(x0)}")
+        if deff != 1.0:
+            steps.append(f"n0 * deff = {_g(x0)} * {_g(deff)} = {_g(x0 * deff)}")
+        if N is not None:
+            n_before_fpc = x0 * deff
+            steps.append(f"FPC: n0 / (1 + (n0 - 1) / N) = {_g(n_before_fpc)} / (1 + ({_g(n_before_fpc)} - 1) / {N})"
+                         f" = {_g(n_un)}")
+    else:
+        def base_a(mult: float, nb_over_na_inv: float) -> float:
+            return mult * mult * deff * (var_a + var_b * nb_over_na_inv) / (B * B)
+
+        nz_un = base_a(z, 1.0 / K)
+        _too_large(nz_un)
+        if kind == "z":
+            mult = z
+            n_un = nz_un
+            n = ceil_robust(n_un)
+        else:
+            def nb_of(n_: int) -> int:
+                return ceil_robust(K * n_)
+
+            def needed(n_: int) -> float:
+                nb_ = nb_of(n_)
+                if nb_ < 2:
+                    # group b needs two observations for an SD: not yet enough
+                    return float(n_ + 1)
+                d = welch_df(var_a, n_, var_b, nb_)
+                # the actual n_a / n_b, so that rounding n_b up is credited
+                return base_a(t_value(conf, d), n_ / nb_)
+
+            nz = ceil_robust(nz_un)
+            # rounding n_b up can make n_a below the z answer suffice: search from 1
+            n, _, iterations = _iterate(needed, nz, lo=1, n_min=2)
+            df = welch_df(var_a, n, var_b, nb_of(n))
+            mult = t_value(conf, df)
+            n_un = base_a(mult, 1.0 / K)
+        n_b = ceil_robust(K * n)
+        mname = "z" if kind == "z" else f"t({_g(df)})"
+        vb = "sd_b^2" if estimand == "mean-diff" else "p_b (1 - p_b)"
+        va = "sd_a^2" if estimand == "mean-diff" else "p_a (1 - p_a)"
+        dtext = " deff" if deff != 1.0 else ""
+        steps.insert(
+            0,
+            f"n_a = {mname}^2{dtext} ({va} + {vb} / K) / B^2 = {_g(mult)}^2"
+            + (f" * {_g(deff)}" if deff != 1.0 else "")
+            + f" * ({_g(var_a)} + {_g(var_b)} / {_g(K)}) / {_g(B)}^2 = {_g(n_un)}",
+        )
+        steps.append(f"n_b = ceil(K n_a) = ceil({_g(K)} * {n}) = {n_b}")
+
+    if kind == "t":
+        if two:
+            assumptions.append("t multiple with Welch-Satterthwaite degrees of freedom from the planning SDs")
+        else:
+            assumptions.append("t multiple with n - 1 degrees of freedom")
+    else:
+        if estimand in ("mean", "mean-diff"):
+            assumptions.append("SD known (z multiple)")
+        else:
+            assumptions.append("normal approximation to the sampling distribution (z multiple)")
+    if v["design_effect"] is None and v["icc"] is None:
+        assumptions.append("independent observations (simple random sampling, design effect 1)")
+
+    clusters = clusters_b = None
+    if m is not None:
+        clusters = ceil_robust(n / m)
+        if n_b is not None:
+            clusters_b = ceil_robust(n_b / m)
+        steps.append(f"clusters = ceil(n / m) = ceil({n} / {_g(m)}) = {clusters}"
+                     + (f"; group b ceil({n_b} / {_g(m)}) = {clusters_b}" if clusters_b is not None else ""))
+    steps.append(f"n = ceil({_g(n_un)}) = {n}" if not two else f"n_a = ceil({_g(n_un)}) = {n}")
+    if iterations is not None:
+        steps.append(f"t iteration: {iterations} evaluations of the t multiple")
+
+    return FormulaResult(
+        estimand=estimand,
+        n=int(n),
+        n_b=None if n_b is None else int(n_b),
+        n_unrounded=float(n_un),
+        multiplier=float(mult),
+        multiplier_kind=kind,
+        design_effect=float(deff),
+        clusters=clusters,
+        clusters_b=clusters_b,
+        confidence=float(conf),
+        margin=float(B),
+        ratio=float(K) if two else None,
+        df=df,
+        iterations=iterations,
+        n_before_fpc=n_before_fpc,
+        population_size=N,
+        cluster_size=m,
+        sd=sa,
+        sd_b=sb if two else None,
+        p=pa,
+        p_b=pb if two else None,
+        assumptions=tuple(assumptions),
+        formula="; ".join(steps),
+    )

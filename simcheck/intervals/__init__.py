@@ -1,0 +1,10 @@
+"""Interval methods as pure vectorised functions (see :mod:`simcheck.intervals.base`)."""
+
+from simcheck.intervals.base import ESTIMANDS, REGISTRY, Method, Summary, get_method, methods_for, register
+
+# Importing the submodules fills REGISTRY.
+from simcheck.intervals import mean as _mean  # noqa: F401
+from simcheck.intervals import proportion as _proportion  # noqa: F401
+from simcheck.intervals import bootstrap as _bootstrap  # noqa: F401
+
+__all__ = ["ESTIMANDS", "REGISTRY", "Method", "Summary", "get_method", "methods_for", "register"]

@@ -1,0 +1,228 @@
+"""Result objects: frozen dataclasses with ``to_dict()`` and ``to_frame()``.
+
+``to_dict()`` gives exactly the JSON objects of the command-line contract
+(INTERFACE.md) plus documented extra keys; NaN and infinities become None so
+the output is valid JSON.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+
+def _clean(value: Any) -> Any:
+    """Make a value JSON-safe: numpy scalars to Python, NaN/inf to None."""
+    if isinstance(value, dict):
+        return {k: _clean(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_clean(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return [_clean(v) for v in value.tolist()]
+    if isinstance(value, (np.bool_,)):
+        return bool(value)
+    if isinstance(value, np.integer):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        v = float(value)
+        return v if math.isfinite(v) else None
+    return value
+
+
+@dataclass(frozen=True)
+class CheckResult:
+    """Coverage and achieved margin of one interval method at one n.
+
+    ``n`` is the sample size of group a (or the number of clusters); ``n_b``
+    the size of group b for two-sample estimands. Proportions (coverage,
+    misses, assurance) are shares of replicates; on an exact path they are
+    exact probabilities and the MCSEs are 0.
+    """
+
+    n: int
+    replicates: int
+    true_value: float
+    coverage: float
+    coverage_mcse: float
+    miss_low: float
+    miss_high: float
+    margin_mean: float
+    margin_median: float
+    margin_p90: float
+    assurance: float | None
+    assurance_mcse: float | None
+    method: str
+    seed: int | None
+    exact: bool
+    estimand: str = "mean"
+    confidence: float = 0.95
+    target_margin: float | None = None
+    n_b: int | None = None
+    observations: int | None = None
+    degenerate: int = 0
+    path: str = "simulation"
+    notes: tuple[str, ...] = ()
+    # Distribution of the achieved half-width, for figures (not in to_dict):
+    # simulated values (weights None) or exact support points with weights.
+    margin_values: np.ndarray | None = field(default=None, repr=False, compare=False)
+    margin_weights: np.ndarray | None = field(default=None, repr=False, compare=False)
+
+    def to_dict(self) -> dict[str, Any]:
+        d = {
+            "n": self.n,
+            "replicates": self.replicates,
+            "true_value": self.true_value,
+            "coverage": self.coverage,
+            "coverage_mcse": self.coverage_mcse,
+            "miss_low": self.miss_low,
+            "miss_high": self.miss_high,
+            "margin_mean": self.margin_mean,
+            "margin_median": self.margin_median,
+            "margin_p90": self.margin_p90,
+            "assurance": self.assurance,
+            "assurance_mcse": self.assurance_mcse,
+            "method": self.method,
+            "seed": self.seed,
+            "exact": self.exact,
+            "estimand": self.estimand,
+            "confidence": self.confidence,
+            "target_margin": self.target_margin,
+            "n_b": self.n_b,
+            "observations": self.observations,
+            "degenerate": self.degenerate,
+            "path": self.path,
+            "notes": list(self.notes),
+        }
+        return _clean(d)
+
+    def to_frame(self):
+        import pandas as pd
+
+        d = self.to_dict()
+        d["notes"] = " | ".join(d["notes"])
+        return pd.DataFrame([d])
+
+
+@dataclass(frozen=True)
+class CurveResult:
+    """One :class:`CheckResult` per n, in increasing n."""
+
+    rows: tuple[CheckResult, ...]
+
+    @property
+    def n(self) -> np.ndarray:
+        return np.array([r.n for r in self.rows], dtype=np.int64)
+
+    def column(self, name: str) -> np.ndarray:
+        return np.array([getattr(r, name) if getattr(r, name) is not None else np.nan for r in self.rows], dtype=float)
+
+    def at(self, n: int) -> CheckResult:
+        for r in self.rows:
+            if r.n == n:
+                return r
+        raise KeyError(n)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"rows": [r.to_dict() for r in self.rows]}
+
+    def to_frame(self):
+        import pandas as pd
+
+        if not self.rows:
+            return pd.DataFrame()
+        return pd.concat([r.to_frame() for r in self.rows], ignore_index=True)
+
+
+@dataclass(frozen=True)
+class SearchResult:
+    """The smallest n meeting the coverage and assurance targets.
+
+    ``n`` is None when the targets are not reached by the search ceiling;
+    then ``best_coverage`` / ``best_coverage_n`` say how close it came and
+    ``methods_that_reach`` names methods that do reach them.
+    """
+
+    n: int | None
+    reached: bool
+    n_formula: int | None
+    n_range: tuple[int, int] | None
+    coverage: float | None
+    coverage_mcse: float | None
+    assurance: float | None
+    assurance_mcse: float | None
+    replicates_used: int
+    targets: dict[str, Any]
+    method: str
+    seed: int | None
+    n_b: int | None = None
+    n_first: int | None = None
+    stop_reason: str = ""
+    exact: bool = False
+    best_coverage: float | None = None
+    best_coverage_n: int | None = None
+    methods_that_reach: tuple[str, ...] = ()
+    notes: tuple[str, ...] = ()
+    # Evaluations made during the search, for figures (not in to_dict).
+    curve: CurveResult | None = field(default=None, repr=False, compare=False)
+    at_n: CheckResult | None = field(default=None, repr=False, compare=False)
+
+    @property
+    def ratio_to_formula(self) -> float | None:
+        if self.n is None or not self.n_formula:
+            return None
+        return self.n / self.n_formula
+
+    def to_dict(self) -> dict[str, Any]:
+        d = {
+            "n": self.n,
+            "reached": self.reached,
+            "n_formula": self.n_formula,
+            "n_range": list(self.n_range) if self.n_range is not None else None,
+            "coverage": self.coverage,
+            "coverage_mcse": self.coverage_mcse,
+            "assurance": self.assurance,
+            "assurance_mcse": self.assurance_mcse,
+            "replicates_used": self.replicates_used,
+            "targets": self.targets,
+            "method": self.method,
+            "seed": self.seed,
+            "n_b": self.n_b,
+            "n_first": self.n_first,
+            "ratio_to_formula": self.ratio_to_formula,
+            "stop_reason": self.stop_reason,
+            "exact": self.exact,
+            "best_coverage": self.best_coverage,
+            "best_coverage_n": self.best_coverage_n,
+            "methods_that_reach": list(self.methods_that_reach),
+            "notes": list(self.notes),
+        }
+        return _clean(d)
+
+    def to_frame(self):
+        import pandas as pd
+
+        d = self.to_dict()
+        d["n_range"] = None if d["n_range"] is None else f"{d['n_range'][0]}-{d['n_range'][1]}"
+        d["targets"] = str(d["targets"])
+        d["methods_that_reach"] = ", ".join(d["methods_that_reach"])
+        d["notes"] = " | ".join(d["notes"])
+        return pd.DataFrame([d])
+
+
+@dataclass(frozen=True)
+class MethodComparison:
+    """Searches for several interval methods on the same draws."""
+
+    by_method: tuple[SearchResult, ...]
+    best: str | None
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"by_method": [r.to_dict() for r in self.by_method], "best": self.best}
+
+    def to_frame(self):
+        import pandas as pd
+
+        return pd.concat([r.to_frame() for r in self.by_method], ignore_index=True)

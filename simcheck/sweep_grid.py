@@ -1,0 +1,311 @@
+"""Sweep files: read, validate and expand into cells.
+
+A sweep file names a base scenario, a task and, under ``[vary]``, dotted
+scenario keys with lists of values; every combination of values is one
+*cell*. The whole grid is validated before any work starts, so an overnight
+run never stops at cell 317 on a typo.
+
+Each cell is identified by its *key*: the SHA-256 of the canonical JSON of
+everything that decides its result (the resolved scenario, the task and its
+arguments, and the sweep's root seed). The key names the cell's row in the
+store and, through :func:`simcheck.rng.key_from_text`, its random stream, so
+a cell's result depends on nothing else: not on worker count, backend, order
+or interruptions.
+"""
+
+from __future__ import annotations
+
+import copy
+import difflib
+import hashlib
+import itertools
+import json
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from simcheck.errors import Collector, InputError, Problem
+
+TASKS = ("search", "check", "curve")
+SWEEP_KEYS = ("title", "base", "task", "n", "n_min", "n_max", "seed", "vary")
+
+
+@dataclass(frozen=True)
+class Cell:
+    """One combination of the varied values, validated into a scenario."""
+
+    index: int
+    values: dict[str, Any]
+    scenario: Any = field(repr=False)
+    key: str = ""
+
+    def label(self) -> str:
+        """The values as ``{data.cv=0.5, method.interval='t'}`` (for messages)."""
+        return cell_label(self.values)
+
+
+@dataclass(frozen=True)
+class SweepSpec:
+    """A validated sweep file (before expansion)."""
+
+    path: Path
+    text: str
+    base_path: Path
+    base_text: str
+    task: str
+    seed: int
+    vary: tuple[tuple[str, tuple[Any, ...]], ...]
+    n: tuple[int, ...] | None = None
+    n_min: int | None = None
+    n_max: int | None = None
+    title: str | None = None
+
+    @property
+    def size(self) -> int:
+        """Number of cells in the grid."""
+        return math.prod(len(v) for _, v in self.vary)
+
+    def task_kwargs(self) -> dict[str, Any]:
+        """Keyword arguments of :func:`simcheck.tasks.run_task` besides scenario, task and seed."""
+        if self.task == "check":
+            return {"n": list(self.n or ())}
+        if self.task == "curve":
+            return {"n_min": self.n_min, "n_max": self.n_max}
+        return {}
+
+    def combinations(self) -> list[dict[str, Any]]:
+        """Every combination of the varied values, in file order (last key fastest)."""
+        keys = [k for k, _ in self.vary]
+        return [dict(zip(keys, combo)) for combo in itertools.product(*(v for _, v in self.vary))]
+
+
+def cell_label(values: dict[str, Any]) -> str:
+    return "{" + ", ".join(f"{k}={v!r}" for k, v in values.items()) + "}"
+
+
+def cell_key(scenario_dict: dict[str, Any], task: str, task_kwargs: dict[str, Any], root_seed: int) -> str:
+    """SHA-256 (hex) of the canonical JSON of what decides a cell's result."""
+    payload = {"scenario": scenario_dict, "task": task, "seed": int(root_seed)}
+    payload.update({k: v for k, v in task_kwargs.items() if v is not None})
+    text = json.dumps(payload, sort_keys=True, separators=(",", ":"), allow_nan=False, default=_json_default)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def _json_default(value: Any) -> Any:
+    # numpy scalars and tuples in a resolved scenario must hash like the plain values they are
+    if hasattr(value, "item"):
+        return value.item()
+    if isinstance(value, (set, frozenset)):
+        return sorted(value)
+    raise TypeError(f"cannot hash a value of type {type(value).__name__}")
+
+
+def _flatten_vary(table: dict[str, Any], prefix: str, out: dict[str, Any]) -> None:
+    # `[vary] data.cv = [...]` without quotes arrives as nested tables; both spellings mean the same key
+    for k, v in table.items():
+        name = f"{prefix}.{k}" if prefix else k
+        if isinstance(v, dict):
+            _flatten_vary(v, name, out)
+        else:
+            out[name] = v
+
+
+def _canonical(value: Any) -> str:
+    return json.dumps(value, sort_keys=True, default=str)
+
+
+def read_sweep(path: str | Path) -> SweepSpec:
+    """Read and validate a sweep file (the sweep-level keys only).
+
+    Raises
+    ------
+    InputError
+        All problems at once, prefixed with the file name.
+    """
+    path = Path(path)
+    source = str(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError("SWEEP", f"file not found: {source}") from None
+    except OSError as exc:
+        raise InputError("SWEEP", f"cannot read {source}: {exc.strerror or exc}") from None
+    try:
+        table = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError("", f"not valid TOML: {exc}", source=source) from None
+
+    c = Collector()
+    for k in table:
+        if k not in SWEEP_KEYS:
+            close = difflib.get_close_matches(k, SWEEP_KEYS, n=1)
+            hint = f" (did you mean '{close[0]}'?)" if close else f" (known: {', '.join(SWEEP_KEYS)})"
+            c.add(k, f"unknown key{hint}")
+
+    title = table.get("title")
+    if title is not None and not isinstance(title, str):
+        c.add("title", f"must be a string, got {title!r}")
+
+    task = table.get("task")
+    if task is None:
+        c.add("task", f"required: one of {', '.join(TASKS)}")
+    elif task not in TASKS:
+        close = difflib.get_close_matches(str(task), TASKS, n=1)
+        hint = f" (did you mean '{close[0]}'?)" if close else ""
+        c.add("task", f"must be one of {', '.join(TASKS)}, got {task!r}{hint}")
+
+    n_values: tuple[int, ...] | None = None
+    if "n" in table:
+        raw = table["n"]
+        if task is not None and task != "check":
+            c.add("n", "only for task = 'check'")
+        elif not isinstance(raw, list) or not raw:
+            c.add("n", f"must be a non-empty list of sample sizes, got {raw!r}")
+        else:
+            got = [c.number(f"n[{i}]", v, low=1, integer=True) for i, v in enumerate(raw)]
+            if all(v is not None for v in got):
+                if len(set(got)) != len(got):
+                    c.add("n", f"each sample size at most once, got {raw!r}")
+                n_values = tuple(sorted(got))  # type: ignore[arg-type]
+    elif task == "check":
+        c.add("n", "required for task = 'check': a list of sample sizes, e.g. n = [50, 100]")
+
+    bounds: dict[str, int | None] = {"n_min": None, "n_max": None}
+    for name in bounds:
+        if name in table:
+            if task is not None and task != "curve":
+                c.add(name, "only for task = 'curve' (for search, set simulation." + name + " in the scenario)")
+            else:
+                bounds[name] = c.number(name, table[name], low=1, integer=True)  # type: ignore[assignment]
+    if bounds["n_min"] is not None and bounds["n_max"] is not None and bounds["n_min"] > bounds["n_max"]:
+        c.add("n_max", f"must be >= n_min ({bounds['n_min']}), got {bounds['n_max']}")
+
+    seed = None
+    if "seed" in table:
+        seed = c.number("seed", table["seed"], low=0, integer=True)
+
+    vary: list[tuple[str, tuple[Any, ...]]] = []
+    raw_vary = table.get("vary", {})
+    if not isinstance(raw_vary, dict):
+        c.add("vary", "must be a table of dotted scenario keys with lists of values")
+    else:
+        flat: dict[str, Any] = {}
+        _flatten_vary(raw_vary, "", flat)
+        for k, values in flat.items():
+            if not isinstance(values, list) or not values:
+                c.add(f"vary.{k}", f"must be a non-empty list of values, got {values!r}")
+                continue
+            seen = [_canonical(v) for v in values]
+            if len(set(seen)) != len(seen):
+                c.add(f"vary.{k}", f"each value at most once, got {values!r}")
+                continue
+            vary.append((k, tuple(values)))
+
+    base_path = None
+    base_text = ""
+    base = table.get("base")
+    if base is None:
+        c.add("base", "required: the scenario file, relative to the sweep file")
+    elif not isinstance(base, str) or not base:
+        c.add("base", f"must be a file name, got {base!r}")
+    else:
+        base_path = (path.parent / base) if not Path(base).is_absolute() else Path(base)
+        try:
+            base_text = base_path.read_text(encoding="utf-8")
+        except FileNotFoundError:
+            c.add("base", f"file not found: {base_path}")
+        except OSError as exc:
+            c.add("base", f"cannot read {base_path}: {exc.strerror or exc}")
+    c.raise_if_any(source)
+
+    if seed is None:
+        seed = _base_seed(base_path, base_text, source)
+    return SweepSpec(
+        path=path,
+        text=text,
+        base_path=base_path,  # type: ignore[arg-type]
+        base_text=base_text,
+        task=task,  # type: ignore[arg-type]
+        seed=int(seed),
+        vary=tuple(vary),
+        n=n_values,
+        n_min=bounds["n_min"],
+        n_max=bounds["n_max"],
+        title=title,
+    )
+
+
+def _base_seed(base_path: Path, base_text: str, source: str) -> int:
+    # The root seed defaults to the base scenario's simulation.seed; without one a
+    # re-run could not reproduce, so resuming would mix two different experiments.
+    from simcheck.scenario import scenario_from_dict
+
+    try:
+        scen = scenario_from_dict(tomllib.loads(base_text), source=str(base_path), base_dir=base_path.parent)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError("", f"not valid TOML: {exc}", source=str(base_path)) from None
+    seed = getattr(scen, "seed", None)
+    if seed is None:
+        raise InputError(
+            "seed",
+            "a sweep needs a root seed: set seed = ... in the sweep file or simulation.seed in the base scenario",
+            source=source,
+        )
+    return int(seed)
+
+
+def expand(spec: SweepSpec) -> list[Cell]:
+    """Validate every cell of the grid and return them in grid order.
+
+    Each cell is the base scenario with the cell's values set at their dotted
+    keys, validated by :func:`simcheck.scenario.scenario_from_dict`.
+
+    Raises
+    ------
+    InputError
+        For the first invalid cell, naming its values and the problem (one
+        line), and how many other cells are invalid.
+    """
+    from simcheck.scenario import scenario_from_dict, set_dotted
+
+    source = str(spec.path)
+    try:
+        base_table = tomllib.loads(spec.base_text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError("", f"not valid TOML: {exc}", source=str(spec.base_path)) from None
+
+    cells: list[Cell] = []
+    bad: list[tuple[dict[str, Any], InputError]] = []
+    kwargs = spec.task_kwargs()
+    keys: dict[str, int] = {}
+    for i, values in enumerate(spec.combinations()):
+        table = copy.deepcopy(base_table)
+        try:
+            for k, v in values.items():
+                set_dotted(table, k, copy.deepcopy(v))
+            scen = scenario_from_dict(table, source=str(spec.base_path), base_dir=spec.base_path.parent)
+        except InputError as exc:
+            bad.append((values, exc))
+            continue
+        key = cell_key(scen.to_dict(), spec.task, kwargs, spec.seed)
+        if key in keys:
+            # two spellings of the same scenario (e.g. a value equal to the default) would share a row
+            other = cells[keys[key]]
+            bad.append((values, InputError("", f"resolves to the same scenario as cell {other.label()}")))
+            continue
+        keys[key] = len(cells)
+        cells.append(Cell(index=i, values=values, scenario=scen, key=key))
+    if bad:
+        values, exc = bad[0]
+        detail = "; ".join(str(p) for p in exc.problems)
+        more = f" (and {len(bad) - 1} more invalid cells)" if len(bad) > 1 else ""
+        raise InputError([Problem(f"cell {cell_label(values)}", detail + more)], source=source)
+    return cells
+
+
+def load_sweep(path: str | Path) -> tuple[SweepSpec, list[Cell]]:
+    """Read a sweep file and validate its whole grid."""
+    spec = read_sweep(path)
+    return spec, expand(spec)
