@@ -61,6 +61,10 @@ CHUNK_BYTES = 4 << 20
 QUANTILE_BYTES = 64 << 20
 #: half-width values kept in a CheckResult for figures
 KEEP_MARGINS = 10_000
+#: along a curve, the margin median and 90th percentile come from this many
+#: replicates per n (partitioning every replicate at every n would cost more
+#: than the simulation itself); mean and assurance always use all replicates
+CURVE_QUANTILE_REPLICATES = 4_000
 
 Progress = Callable[[int, int], None] | None
 
@@ -341,18 +345,24 @@ class _Acc:
         self.low = np.zeros(k, np.int64)
         self.high = np.zeros(k, np.int64)
         self.assured = np.zeros(k, np.int64)
-        self.hw_sum = np.zeros(k, np.float64)
+        self.block_sums: list[np.ndarray] = []
         self.degenerate = np.zeros(k, np.int64)
-        self.keep = int(min(total, max(KEEP_MARGINS, QUANTILE_BYTES // (4 * k))))
+        cap = QUANTILE_BYTES // (4 * k) if k == 1 else CURVE_QUANTILE_REPLICATES
+        self.keep = int(min(total, cap))
         self.hw = np.empty((self.keep, k), np.float32)
         self.seen = 0
 
-    def add(self, lo: np.ndarray, hi: np.ndarray, truth, degenerate=None) -> None:
-        """lo, hi of shape (b, k); truth broadcastable to them."""
+    def add(self, lo: np.ndarray, hi: np.ndarray, truth, degenerate=None, starts=None) -> None:
+        """lo, hi of shape (b, k); truth broadcastable to them.
+
+        ``starts`` are the row offsets of the random blocks in this chunk: float
+        sums are taken per block and added in block order at the end, so they
+        do not depend on how blocks were grouped into chunks.
+        """
         self.low += np.count_nonzero(hi < truth, axis=0)
         self.high += np.count_nonzero(lo > truth, axis=0)
         hw = (hi - lo) * 0.5
-        self.hw_sum += hw.sum(axis=0)
+        self.block_sums.append(np.add.reduceat(hw, starts if starts is not None else [0], axis=0))
         if self.margin is not None:
             # tolerance for half-widths equal to the margin in exact arithmetic
             self.assured += np.count_nonzero(hw <= self.margin * (1 + 1e-12), axis=0)
@@ -365,16 +375,22 @@ class _Acc:
         self.seen += b
 
     def finish(self) -> None:
-        # coverage = not missed on either side (NaN limits count as misses nowhere
-        # and as not covering: they are counted below)
+        # coverage = not missed on either side; NaN limits are neither and are
+        # taken off the covered count by the caller
         self.covered = self.total - self.low - self.high
+        self.hw_sum = np.concatenate(self.block_sums).sum(axis=0) if self.block_sums else np.zeros(self.k)
+        kept = self.hw[: min(self.keep, self.seen)]
+        if kept.shape[0]:
+            # one partition pass for all columns (column slices are strided)
+            q = np.quantile(kept, [0.5, 0.9], axis=0)
+            self.q50, self.q90 = q[0].astype(np.float64), q[1].astype(np.float64)
+        else:
+            self.q50 = self.q90 = np.full(self.k, np.nan)
 
     def row(self, j: int, design: Design, n: int, replicates: int, seed, path: str, nan_count: int = 0) -> CheckResult:
         R = replicates
         cov = (self.covered[j] - nan_count) / R
-        hw_kept = self.hw[: min(self.keep, self.seen), j].astype(np.float64)
-        med = float(np.median(hw_kept)) if hw_kept.size else math.nan
-        p90 = float(np.quantile(hw_kept, 0.9)) if hw_kept.size else math.nan
+        med, p90 = float(self.q50[j]), float(self.q90[j])
         assurance = None if self.margin is None else self.assured[j] / R
         nb = design.n_b(n)
         notes = list(_notes(design))
@@ -406,7 +422,7 @@ class _Acc:
             degenerate=int(self.degenerate[j]),
             path=path,
             notes=tuple(notes),
-            margin_values=hw_kept[:KEEP_MARGINS].copy(),
+            margin_values=self.hw[: min(self.seen, KEEP_MARGINS), j].astype(np.float64),
             margin_weights=None,
         )
 
@@ -490,7 +506,7 @@ def _sufficient(design, method, n, replicates, root, seed, progress, chunk_bytes
         else:
             b = _suff_draw(design.model_b, nb, root, rngmod.STAGE_GROUP_B, i, grp)
             lo, hi = method.func(a, b, design.confidence)
-        acc.add(np.asarray(lo).reshape(-1, 1), np.asarray(hi).reshape(-1, 1), 0.0)
+        acc.add(np.asarray(lo).reshape(-1, 1), np.asarray(hi).reshape(-1, 1), 0.0, starts=[s - grp[0][0] for s, _ in grp])
         if progress:
             progress(grp[-1][1], replicates)
     acc.finish()
@@ -507,25 +523,40 @@ def _moments(d: np.ndarray, ns: Sequence[int], nested: bool, need_m3: bool):
         s2 = np.einsum("ij,ij->i", d, d)[:, None]
         s3 = np.einsum("ij,ij,ij->i", d, d, d)[:, None] if need_m3 else None
         return s1, s2, s3
-    idx = np.asarray(ns) - 1
-    c = np.cumsum(d, axis=1)
-    s1 = c[:, idx]
+    cols = _columns(ns)
     sq = d * d
-    s2 = np.cumsum(sq, axis=1)[:, idx]
-    s3 = None
-    if need_m3:
-        sq *= d
-        s3 = np.cumsum(sq, axis=1)[:, idx]
+    cube = sq * d if need_m3 else None
+    # running sums in place: the draws are not needed afterwards
+    s1 = np.cumsum(d, axis=1, out=d)[:, cols]
+    s2 = np.cumsum(sq, axis=1, out=sq)[:, cols]
+    s3 = np.cumsum(cube, axis=1, out=cube)[:, cols] if need_m3 else None
     return s1, s2, s3
 
 
+def _columns(ns) -> slice | np.ndarray:
+    """Column index of each prefix length; a view-making slice when evenly spaced."""
+    idx = np.asarray(ns, dtype=np.int64) - 1
+    if len(idx) > 1:
+        step = idx[1] - idx[0]
+        if step > 0 and np.all(np.diff(idx) == step):
+            return slice(int(idx[0]), int(idx[-1]) + 1, int(step))
+    elif len(idx) == 1:
+        return slice(int(idx[0]), int(idx[0]) + 1)
+    return idx
+
+
 def _summary(s1, s2, s3, n, sd_true) -> Summary:
-    mean = s1 / n
-    var = (s2 - s1 * mean) / (n - 1)
-    np.maximum(var, 0.0, out=var)
+    """Summary from power sums (centred data); overwrites s1 and s2 in place."""
+    inv_n = 1.0 / np.asarray(n, dtype=np.float64)
+    mean = np.multiply(s1, inv_n, out=s1)
     m3 = None
     if s3 is not None:
-        m3 = s3 / n - 3.0 * mean * (s2 / n) + 2.0 * mean**3
+        m3 = s3 * inv_n - 3.0 * mean * (s2 * inv_n) + 2.0 * mean**3
+    tmp = mean * mean
+    tmp *= np.asarray(n, dtype=np.float64)
+    var = np.subtract(s2, tmp, out=s2)
+    var *= 1.0 / (np.asarray(n, dtype=np.float64) - 1.0)
+    np.maximum(var, 0.0, out=var)
     return Summary(n=n, mean=mean, var=var, m3=m3, sd_true=sd_true)
 
 
@@ -596,7 +627,8 @@ def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes,
         bad = np.isnan(lo) | np.isnan(hi)
         if bad.any():
             nan_total += np.count_nonzero(bad, axis=0)
-        acc.add(lo, hi, truth, None if degenerate is None else np.asarray(degenerate).reshape(-1, 1))
+        starts = [s - blocks[0][0] for s, _ in blocks]
+        acc.add(lo, hi, truth, None if degenerate is None else np.asarray(degenerate).reshape(-1, 1), starts=starts)
         if progress:
             progress(blocks[-1][1], replicates)
     acc.finish()
@@ -619,7 +651,7 @@ def _with_note(r: CheckResult, note: str) -> CheckResult:
 def _counts(x: np.ndarray, ns, nested: bool) -> np.ndarray:
     if not nested:
         return x.sum(axis=1, keepdims=True)
-    return np.cumsum(x, axis=1)[:, np.asarray(ns) - 1]
+    return np.cumsum(x, axis=1, out=x)[:, _columns(ns)]
 
 
 def _bootstrap_blocks(method, design, xa, xb, n, nb, root, first, blocks):

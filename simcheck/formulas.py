@@ -292,7 +292,7 @@ def _proportion(c: Collector, field: str, value: Any) -> float | None:
     if math.isfinite(v) and v in (0.0, 1.0):
         c.add(
             field,
-            f"a proportion of {value!r} has no sampling variance; give the value you expect, e.g. "
+            f"a proportion of {v:g} has no sampling variance; give the value you expect, e.g. "
             f"{'0.01' if v == 0.0 else '0.99'}",
         )
         return None
@@ -587,8 +587,12 @@ def sample_size(
     n_b = None
 
     if not two:
+        # ratios of SDs to B first: sd^2 or B^2 alone may overflow or underflow
+        ua = math.sqrt(var_a) if sa is None else sa
+
         def base(mult: float) -> float:
-            return mult * mult * var_a * deff / (B * B)
+            r = mult * ua / B
+            return r * r * deff
 
         def final(mult: float) -> float:
             x = base(mult)
@@ -605,7 +609,7 @@ def sample_size(
                 return final(t_value(conf, n_ - 1))
 
             nz = ceil_robust(nz_un)
-            n, n_un, iterations = _iterate(needed, nz, lo=max(1, nz - 1), n_min=2, n_max=N)
+            n, n_un, iterations = nz, nz_un, 1
             df = float(n - 1)
             mult = t_value(conf, df)
         x0 = base(mult) / deff
@@ -618,46 +622,40 @@ def sample_size(
             steps.append(f"FPC: n0 / (1 + (n0 - 1) / N) = {_g(n_before_fpc)} / (1 + ({_g(n_before_fpc)} - 1) / {N})"
                          f" = {_g(n_un)}")
     else:
-        def base_a(mult: float, nb_over_na_inv: float) -> float:
-            return mult * mult * deff * (var_a + var_b * nb_over_na_inv) / (B * B)
+        ra = (math.sqrt(var_a) if sa is None else sa) / B
+        rb = (math.sqrt(var_b) if sb is None else sb) / B
 
-        nz_un = base_a(z, 1.0 / K)
+        def base_a(mult: float) -> float:
+            return mult * mult * deff * (ra * ra + rb * rb / K)
+
+        nz_un = base_a(z)
         _too_large(nz_un)
         if kind == "z":
             mult = z
             n_un = nz_un
             n = ceil_robust(n_un)
         else:
-            def nb_of(n_: int) -> int:
-                return ceil_robust(K * n_)
-
             def needed(n_: int) -> float:
-                nb_ = nb_of(n_)
+                nb_ = ceil_robust(K * n_)
                 if nb_ < 2:
                     # group b needs two observations for an SD: not yet enough
                     return float(n_ + 1)
-                d = welch_df(var_a, n_, var_b, nb_)
-                # the actual n_a / n_b, so that rounding n_b up is credited
-                return base_a(t_value(conf, d), n_ / nb_)
+                return base_a(t_value(conf, welch_df(ra * ra, n_, rb * rb, nb_)))
 
             nz = ceil_robust(nz_un)
-            # rounding n_b up can make n_a below the z answer suffice: search from 1
-            n, _, iterations = _iterate(needed, nz, lo=1, n_min=2)
-            df = welch_df(var_a, n, var_b, nb_of(n))
+            n, n_un, iterations = _iterate(needed, nz, lo=max(1, nz - 1), n_min=2)
+            df = welch_df(ra * ra, n, rb * rb, ceil_robust(K * n))
             mult = t_value(conf, df)
-            n_un = base_a(mult, 1.0 / K)
         n_b = ceil_robust(K * n)
         mname = "z" if kind == "z" else f"t({_g(df)})"
         vb = "sd_b^2" if estimand == "mean-diff" else "p_b (1 - p_b)"
         va = "sd_a^2" if estimand == "mean-diff" else "p_a (1 - p_a)"
         dtext = " deff" if deff != 1.0 else ""
-        steps.insert(
-            0,
+        steps.append(
             f"n_a = {mname}^2{dtext} ({va} + {vb} / K) / B^2 = {_g(mult)}^2"
             + (f" * {_g(deff)}" if deff != 1.0 else "")
             + f" * ({_g(var_a)} + {_g(var_b)} / {_g(K)}) / {_g(B)}^2 = {_g(n_un)}",
         )
-        steps.append(f"n_b = ceil(K n_a) = ceil({_g(K)} * {n}) = {n_b}")
 
     if kind == "t":
         if two:
@@ -672,14 +670,17 @@ def sample_size(
     if v["design_effect"] is None and v["icc"] is None:
         assumptions.append("independent observations (simple random sampling, design effect 1)")
 
+    if not two:
+        steps.append(f"n = ceil({_g(n_un)}) = {n}")
+    else:
+        steps.append(f"n_a = ceil({_g(n_un)}) = {n}; n_b = ceil(K n_a) = ceil({_g(K)} * {n}) = {n_b}")
     clusters = clusters_b = None
     if m is not None:
         clusters = ceil_robust(n / m)
         if n_b is not None:
             clusters_b = ceil_robust(n_b / m)
         steps.append(f"clusters = ceil(n / m) = ceil({n} / {_g(m)}) = {clusters}"
-                     + (f"; group b ceil({n_b} / {_g(m)}) = {clusters_b}" if clusters_b is not None else ""))
-    steps.append(f"n = ceil({_g(n_un)}) = {n}" if not two else f"n_a = ceil({_g(n_un)}) = {n}")
+                     + (f", group b ceil({n_b} / {_g(m)}) = {clusters_b}" if clusters_b is not None else ""))
     if iterations is not None:
         steps.append(f"t iteration: {iterations} evaluations of the t multiple")
 

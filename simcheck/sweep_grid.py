@@ -15,7 +15,6 @@ or interruptions.
 
 from __future__ import annotations
 
-import copy
 import difflib
 import hashlib
 import itertools
@@ -164,7 +163,7 @@ def read_sweep(path: str | Path) -> SweepSpec:
         elif not isinstance(raw, list) or not raw:
             c.add("n", f"must be a non-empty list of sample sizes, got {raw!r}")
         else:
-            got = [c.number(f"n[{i}]", v, low=1, integer=True) for i, v in enumerate(raw)]
+            got = [c.number(f"n[{i}]", v, low=2, integer=True) for i, v in enumerate(raw)]
             if all(v is not None for v in got):
                 if len(set(got)) != len(got):
                     c.add("n", f"each sample size at most once, got {raw!r}")
@@ -178,7 +177,7 @@ def read_sweep(path: str | Path) -> SweepSpec:
             if task is not None and task != "curve":
                 c.add(name, "only for task = 'curve' (for search, set simulation." + name + " in the scenario)")
             else:
-                bounds[name] = c.number(name, table[name], low=1, integer=True)  # type: ignore[assignment]
+                bounds[name] = c.number(name, table[name], low=2, integer=True)  # type: ignore[assignment]
     if bounds["n_min"] is not None and bounds["n_max"] is not None and bounds["n_min"] > bounds["n_max"]:
         c.add("n_max", f"must be >= n_min ({bounds['n_min']}), got {bounds['n_max']}")
 
@@ -243,7 +242,9 @@ def _base_seed(base_path: Path, base_text: str, source: str) -> int:
     from simcheck.scenario import scenario_from_dict
 
     try:
-        scen = scenario_from_dict(tomllib.loads(base_text), source=str(base_path), base_dir=base_path.parent)
+        scen = scenario_from_dict(
+            tomllib.loads(base_text), source=str(base_path), base_dir=str(base_path.resolve().parent)
+        )
     except tomllib.TOMLDecodeError as exc:
         raise InputError("", f"not valid TOML: {exc}", source=str(base_path)) from None
     seed = getattr(scen, "seed", None)
@@ -276,16 +277,17 @@ def expand(spec: SweepSpec) -> list[Cell]:
     except tomllib.TOMLDecodeError as exc:
         raise InputError("", f"not valid TOML: {exc}", source=str(spec.base_path)) from None
 
+    base_dir = str(spec.base_path.resolve().parent)
     cells: list[Cell] = []
     bad: list[tuple[dict[str, Any], InputError]] = []
     kwargs = spec.task_kwargs()
     keys: dict[str, int] = {}
     for i, values in enumerate(spec.combinations()):
-        table = copy.deepcopy(base_table)
+        table = base_table
         try:
             for k, v in values.items():
-                set_dotted(table, k, copy.deepcopy(v))
-            scen = scenario_from_dict(table, source=str(spec.base_path), base_dir=spec.base_path.parent)
+                table = set_dotted(table, k, v)  # returns a deep copy; the base stays as read
+            scen = scenario_from_dict(table, source=str(spec.base_path), base_dir=base_dir)
         except InputError as exc:
             bad.append((values, exc))
             continue

@@ -1,1 +1,575 @@
-"""(being written)"""
+"""Bootstrap intervals for a mean and a difference of two means.
+
+Kinds ``sample`` and ``sample2`` of :mod:`simcheck.intervals.base`: the
+functions receive raw replicate samples as a float (R, n) block, a numpy
+Generator owned by the caller for this block, and the number of resamples.
+They return ``(lower, upper, degenerate)``.
+
+How the work is organised (why it is fast)
+------------------------------------------
+A coverage study needs R x B resample means of n observations each
+(2,000 x 1,999 x 50 = 2e8 gathered values for a typical study). Three things
+keep that cheap without changing what is computed:
+
+* **Pair tables.** The sum of n indices drawn uniformly with replacement is
+  the sum of n/2 *pair sums*, and one uniform integer on [0, n^2) is exactly
+  a pair of independent uniform indices on [0, n). So each replicate gets a
+  table of its n^2 pair sums (n <= ``_PAIR_MAX_N``; a single-value tail
+  serves odd n) and a resample costs n/2 gathers instead of n. The joint law
+  of the resample sums is exactly that of ordinary resampling.
+* **Exact bounded integers from raw bits.** Indices come from 16-bit (or
+  32-bit) raw words of ``rng`` through Lemire's multiply-and-shift with
+  rejection, which is exactly uniform and several times faster than
+  ``Generator.integers`` with a bound.
+* **Chunking.** Replicates are processed a few at a time and long resample
+  runs are tiled, so the working set stays near ``_TILE_ELEMS`` values and
+  the peak extra memory stays below ``MEMORY_BOUND`` whatever R, n and B.
+
+Each replicate has its own independent resamples (no resampling plan is
+shared between replicates), so replicate intervals are independent and the
+engine's Monte Carlo standard errors are valid.
+
+Quantiles are those of :func:`scipy.stats.bootstrap` (which calls
+``scipy.stats.quantile`` with its default ``method='linear'``, i.e. the
+linear interpolation of the sorted resample statistics also used by
+``np.percentile``). They are read from rows sorted with ``np.sort``: numpy's
+SIMD sort of a (k, B) block was measured faster than ``np.partition`` at the
+needed order statistics on the target machine (see
+``tests/benchmarks/bench_bootstrap.py``, which prints both timings), and
+BCa needs different order statistics in each row anyway.
+
+Degenerate samples
+------------------
+A sample whose values are all equal has a degenerate bootstrap distribution.
+Its interval is the zero-width interval at the sample mean (for two samples:
+both groups constant, at the difference of means) and its ``degenerate``
+flag is set; it is counted, never dropped, and never raises or warns.
+
+Zero-SD resamples (bootstrap-t)
+-------------------------------
+A resample whose values are all equal has s* = 0. Its studentised value is
+taken as the limit t* = +inf when mean* > mean, -inf when mean* < mean and 0
+when mean* = mean (both within rounding). Quantiles interpolate with the
+rule that an interpolation touching -inf (+inf) on the side it leans to is
+-inf (+inf), so an interval endpoint can be infinite when more than alpha/2
+of the resamples are constant - the honest answer for such samples. "All
+equal" for a resample is decided with a rounding tolerance (sum of squared
+deviations below ``16 eps n^2 max d^2``), since sums of squares of a
+constant resample are not exactly zero in floating point.
+
+References
+----------
+Efron, B. and Tibshirani, R. J. (1993). *An Introduction to the Bootstrap*.
+Chapman & Hall. Ch. 12 (bootstrap-t), ch. 13 (percentile), ch. 14 (BCa,
+sec. 14.3: acceleration from the jackknife), ch. 11 (jackknife).
+
+Lemire, D. (2019). Fast random integer generation in an interval. *ACM
+Transactions on Modeling and Computer Simulation* 29(1), 3:1-3:12.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy.special import ndtr, ndtri
+
+from simcheck.errors import Collector
+from simcheck.intervals.base import Method, register
+
+#: Upper bound on the extra memory (bytes) one call allocates, whatever R, n, B.
+MEMORY_BOUND = 64 * 2**20
+#: Gathered values per tile; keeps the working set in cache (about 3 MB).
+_TILE_ELEMS = 2**18
+#: Largest n that uses pair tables (the table of n^2 sums stays in cache).
+_PAIR_MAX_N = 128
+_EPS = np.finfo(np.float64).eps
+
+REFERENCE = (
+    "Efron, B. and Tibshirani, R. J. (1993). An Introduction to the Bootstrap. Chapman & Hall."
+)
+
+
+# ----------------------------------------------------------- random indices
+
+
+def _uniform_ints(rng: np.random.Generator, size: int, s: int) -> np.ndarray:
+    """``size`` independent integers uniform on [0, s), exactly.
+
+    Lemire's multiply-and-shift on raw 16- or 32-bit words, rejecting the
+    words whose low part falls below 2^L mod s.
+    """
+    if s <= 1:
+        return np.zeros(size, dtype=np.uint32)
+    # 16-bit words when the rejection share is small, else 32-bit words.
+    if s <= 2**16 and (2**16 % s) * 64 <= 2**16:
+        bits, word, wide = 16, np.uint16, np.uint32
+    elif s <= 2**32:
+        bits, word, wide = 32, np.uint32, np.uint64
+    else:
+        return rng.integers(0, s, size=size, dtype=np.int64)
+    per = 64 // bits
+    thr = (2**bits) % s
+    mask = wide(2**bits - 1)
+    sw = wide(s)
+
+    def raw(k: int) -> np.ndarray:
+        r = rng.integers(0, 2**64, size=-(-k // per), dtype=np.uint64).view(word)[:k]
+        return np.multiply(r, sw, dtype=wide)
+
+    w = raw(size)
+    if thr:
+        bad = np.flatnonzero((w & mask) < thr)
+        while bad.size:
+            fresh = raw(bad.size)
+            w[bad] = fresh
+            bad = bad[(fresh & mask) < thr]
+    w >>= wide(bits)
+    return w
+
+
+class _Resampler:
+    """Resample sums (and sums of squares) of a chunk of replicate samples.
+
+    Parameters
+    ----------
+    x : ndarray, shape (k, n)
+        The chunk's samples (already centred when squares are wanted).
+    squares : bool
+        Also return the resample sums of squares.
+    """
+
+    def __init__(self, x: np.ndarray, squares: bool) -> None:
+        k, n = x.shape
+        self.k, self.n, self.squares = k, n, squares
+        self.pairs = 2 <= n <= _PAIR_MAX_N
+        if self.pairs:
+            self.m, self.odd = divmod(n, 2)
+            self.units = self.m + self.odd
+            self.table = self._pair_table(x)
+            self.table2 = self._pair_table(x * x) if squares else None
+        else:
+            self.m, self.odd, self.units = 0, 0, n
+            self.table = np.ascontiguousarray(x)
+            self.table2 = np.ascontiguousarray(x * x) if squares else None
+
+    def _pair_table(self, v: np.ndarray) -> np.ndarray:
+        k, n = v.shape
+        t = (v[:, :, None] + v[:, None, :]).reshape(k, n * n)
+        return np.concatenate([t, v], axis=1) if self.odd else t
+
+    def _indices(self, rng: np.random.Generator, nb: int) -> np.ndarray:
+        k, n = self.k, self.n
+        if not self.pairs:
+            return _uniform_ints(rng, k * n * nb, n).reshape(k, n, nb)
+        idx = np.empty((k, self.units, nb), dtype=np.intp)
+        idx[:, : self.m, :] = _uniform_ints(rng, k * self.m * nb, n * n).reshape(k, self.m, nb)
+        if self.odd:
+            # the single-value tail sits after the n^2 pair sums in the table
+            idx[:, self.m, :] = _uniform_ints(rng, k * nb, n).reshape(k, nb) + n * n
+        return idx
+
+    def sums(self, rng: np.random.Generator, resamples: int) -> tuple[np.ndarray, np.ndarray | None]:
+        k = self.k
+        s = np.empty((k, resamples))
+        q = np.empty((k, resamples)) if self.squares else None
+        nb = max(1, min(resamples, _TILE_ELEMS // max(1, k * self.units)))
+        g = np.empty((self.units, nb))
+        for b0 in range(0, resamples, nb):
+            b1 = min(resamples, b0 + nb)
+            idx = self._indices(rng, b1 - b0)
+            gv = g[:, : b1 - b0]
+            for j in range(k):
+                np.take(self.table[j], idx[j], out=gv, mode="clip")
+                np.add.reduce(gv, axis=0, out=s[j, b0:b1])
+                if q is not None:
+                    np.take(self.table2[j], idx[j], out=gv, mode="clip")
+                    np.add.reduce(gv, axis=0, out=q[j, b0:b1])
+        return s, q
+
+
+def _rows_per_chunk(units: int, resamples: int, groups: int) -> int:
+    """Replicates per chunk: about one tile of gathers, and per-chunk
+    statistic arrays (a handful of (k, B) float arrays per group) far below
+    the memory bound."""
+    by_tile = _TILE_ELEMS // max(1, units * resamples)
+    by_memory = (MEMORY_BOUND // 8) // (16 * groups * resamples)
+    return int(max(1, min(by_tile if by_tile >= 1 else 1, by_memory, 4096)))
+
+
+# ----------------------------------------------------------------- helpers
+
+
+def _check(confidence: float, resamples: int) -> float:
+    c = Collector()
+    c.number("target.confidence", confidence, low=0, high=1, low_open=True, high_open=True)
+    c.number("method.resamples", resamples, low=1, integer=True)
+    c.raise_if_any()
+    return (1.0 - float(confidence)) / 2.0
+
+
+def _block(x, name: str) -> np.ndarray:
+    a = np.asarray(x, dtype=np.float64)
+    if a.ndim == 1:
+        a = a[None, :]
+    if a.ndim != 2 or a.shape[1] < 1:
+        raise ValueError(f"{name}: expected an (R, n) block of samples with n >= 1, got shape {a.shape}")
+    return a
+
+
+def _lerp(lo: np.ndarray, hi: np.ndarray, g: np.ndarray) -> np.ndarray:
+    """lo + g (hi - lo) with the limits for infinite neighbours."""
+    with np.errstate(invalid="ignore"):
+        v = lo + g * (hi - lo)
+    v = np.where(g == 0, lo, v)
+    v = np.where(lo == hi, lo, v)
+    v = np.where(np.isneginf(lo) & (g < 1), -np.inf, v)
+    v = np.where(np.isposinf(hi) & (g > 0), np.inf, v)
+    return v
+
+
+def _quantile_sorted(a: np.ndarray, p) -> np.ndarray:
+    """Linear-interpolation quantile (scipy.stats.quantile 'linear',
+    np.percentile default) of rows of ``a`` that are already sorted, at
+    level(s) ``p`` (scalar or one per row)."""
+    k, b = a.shape
+    p = np.broadcast_to(np.asarray(p, dtype=np.float64), (k,))
+    h = (b - 1) * np.clip(p, 0.0, 1.0)
+    f = np.clip(np.floor(h), 0, b - 1).astype(np.intp)
+    g = h - f
+    f1 = np.minimum(f + 1, b - 1)
+    lo = np.take_along_axis(a, f[:, None], axis=1)[:, 0]
+    hi = np.take_along_axis(a, f1[:, None], axis=1)[:, 0]
+    return _lerp(lo, hi, g)
+
+
+def _bca_levels(share: np.ndarray, accel: np.ndarray, alpha: float) -> tuple[np.ndarray, np.ndarray]:
+    """BCa adjusted levels (Efron & Tibshirani 1993, eq. 14.10), computed as
+    scipy.stats.bootstrap does; a bias share of 0 or 1 (z0 = -inf or +inf)
+    takes its limit, levels 0 or 1 (the interval collapses to the extreme
+    resample)."""
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        z0 = ndtri(share)
+        za = float(ndtri(alpha))
+        num1 = z0 + za
+        a1 = ndtr(z0 + num1 / (1 - accel * num1))
+        num2 = z0 - za
+        a2 = ndtr(z0 + num2 / (1 - accel * num2))
+    lim = np.where(share >= 1, 1.0, 0.0)
+    edge = (share <= 0) | (share >= 1)
+    return np.where(edge, lim, a1), np.where(edge, lim, a2)
+
+
+def _bias_share(stat_b: np.ndarray, stat: np.ndarray, tol: np.ndarray) -> np.ndarray:
+    """Share of resample statistics below the sample statistic, ties counted
+    half (scipy.stats.bootstrap: (#(< t) + #(<= t)) / 2B). Ties are decided
+    within a rounding tolerance, so exact ties of discrete data (equal sums
+    summed in another order) count as ties."""
+    b = stat_b.shape[1]
+    below = np.count_nonzero(stat_b < (stat - tol)[:, None], axis=1)
+    upto = np.count_nonzero(stat_b <= (stat + tol)[:, None], axis=1)
+    return (below + upto) / (2.0 * b)
+
+
+def _constant(x: np.ndarray) -> np.ndarray:
+    return x.min(axis=1) == x.max(axis=1)
+
+
+def _sum_tol(x: np.ndarray) -> np.ndarray:
+    """Rounding bound for a resample sum of x (row-wise)."""
+    n = x.shape[1]
+    return 4.0 * n * n * _EPS * np.abs(x).max(axis=1)
+
+
+# ------------------------------------------------------------- one sample
+
+
+def _one_sample(x, confidence, rng, resamples, method):
+    alpha = _check(confidence, resamples)
+    x = _block(x, "x")
+    r_total, n = x.shape
+    b = int(resamples)
+    mean = x.mean(axis=1)
+    lower = np.empty(r_total)
+    upper = np.empty(r_total)
+    units = (n // 2 + n % 2) if 2 <= n <= _PAIR_MAX_N else n
+    rows = _rows_per_chunk(units, b, 1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for r0 in range(0, r_total, rows):
+            xc = x[r0 : r0 + rows]
+            mc = mean[r0 : r0 + rows]
+            if method == "t":
+                lower[r0 : r0 + rows], upper[r0 : r0 + rows] = _t_chunk(xc, mc, rng, b, alpha)
+                continue
+            s_b, _ = _Resampler(xc, squares=False).sums(rng, b)
+            if method == "bca":
+                tot = xc.sum(axis=1)
+                share = _bias_share(s_b, tot, _sum_tol(xc))
+                e = xc - mc[:, None]
+                accel = (e**3).sum(axis=1) / (6.0 * (e**2).sum(axis=1) ** 1.5)
+                p_lo, p_hi = _bca_levels(share, accel, alpha)
+            else:
+                p_lo, p_hi = alpha, 1.0 - alpha
+            s_b.sort(axis=1)
+            s_b /= n
+            lower[r0 : r0 + rows] = _quantile_sorted(s_b, p_lo)
+            upper[r0 : r0 + rows] = _quantile_sorted(s_b, p_hi)
+    degenerate = _constant(x)
+    lower[degenerate] = mean[degenerate]
+    upper[degenerate] = mean[degenerate]
+    return lower, upper, degenerate
+
+
+def _t_chunk(xc, mc, rng, b, alpha):
+    n = xc.shape[1]
+    d = xc - mc[:, None]
+    s_b, q_b = _Resampler(d, squares=True).sums(rng, b)
+    dmax2 = (d * d).max(axis=1)
+    ss_b = np.maximum(q_b - s_b * s_b / n, 0.0)
+    zero = ss_b <= (16.0 * _EPS * n * n * dmax2)[:, None]
+    dev_b = s_b / n
+    se_b = np.sqrt(ss_b / (max(n - 1, 1) * n))
+    t_b = _studentise(dev_b, se_b, zero, (4.0 * n * _EPS * np.sqrt(dmax2))[:, None])
+    t_b.sort(axis=1)
+    se = np.sqrt((d * d).sum(axis=1) / (max(n - 1, 1) * n))
+    t_lo = _quantile_sorted(t_b, alpha)
+    t_hi = _quantile_sorted(t_b, 1.0 - alpha)
+    return _endpoints(mc, se, t_lo, t_hi)
+
+
+def _studentise(dev_b, se_b, zero, dev_tol):
+    """t* = dev*/se*, with the limits for zero-SD resamples (module docstring)."""
+    t_b = dev_b / np.where(zero, 1.0, se_b)
+    lim = np.where(dev_b > dev_tol, np.inf, np.where(dev_b < -dev_tol, -np.inf, 0.0))
+    return np.where(zero, lim, t_b)
+
+
+def _endpoints(est, se, t_lo, t_hi):
+    # se > 0 for every non-degenerate sample; inf * se keeps the sign
+    with np.errstate(invalid="ignore"):
+        lo = est - t_hi * se
+        hi = est - t_lo * se
+    return lo, hi
+
+
+def percentile_mean(x, confidence, *, rng, resamples):
+    """Bootstrap percentile interval for the mean.
+
+    Parameters
+    ----------
+    x : array_like, shape (R, n)
+        R replicate samples of n values.
+    confidence : float
+        Confidence level in (0, 1).
+    rng : numpy.random.Generator
+        Stream owned by the caller for this block.
+    resamples : int
+        Bootstrap resamples per sample (B).
+
+    Returns
+    -------
+    lower, upper : ndarray, shape (R,)
+        The alpha/2 and 1 - alpha/2 quantiles of the B resample means.
+    degenerate : ndarray of bool, shape (R,)
+        Samples with all values equal (zero-width interval at the mean).
+
+    References
+    ----------
+    Efron, B. and Tibshirani, R. J. (1993). *An Introduction to the
+    Bootstrap*. Chapman & Hall, ch. 13.
+    """
+    return _one_sample(x, confidence, rng, resamples, "percentile")
+
+
+def bca_mean(x, confidence, *, rng, resamples):
+    """Bias-corrected and accelerated (BCa) bootstrap interval for the mean.
+
+    The bias correction z0 is the normal quantile of the share of resample
+    means below the sample mean (ties counted half, as scipy.stats.bootstrap
+    does); the acceleration is the closed-form jackknife value for the mean,
+    a = sum(e^3) / (6 (sum e^2)^1.5) with e = x - mean (the leave-one-out
+    means are (sum - x_i)/(n - 1), so no loop over observations).
+
+    Parameters and returns as :func:`percentile_mean`; the quantile levels
+    are the adjusted alpha1, alpha2.
+
+    References
+    ----------
+    Efron, B. and Tibshirani, R. J. (1993). *An Introduction to the
+    Bootstrap*. Chapman & Hall, ch. 14 (sec. 14.3).
+    """
+    return _one_sample(x, confidence, rng, resamples, "bca")
+
+
+def t_mean(x, confidence, *, rng, resamples):
+    """Bootstrap-t (studentised) interval for the mean.
+
+    t* = (mean* - mean) / (s*/sqrt(n)); the interval is
+    (mean - t*_{1-alpha/2} s/sqrt(n), mean - t*_{alpha/2} s/sqrt(n)).
+    Zero-SD resamples follow the rules in the module docstring.
+
+    Parameters and returns as :func:`percentile_mean`.
+
+    References
+    ----------
+    Efron, B. and Tibshirani, R. J. (1993). *An Introduction to the
+    Bootstrap*. Chapman & Hall, ch. 12.
+    """
+    return _one_sample(x, confidence, rng, resamples, "t")
+
+
+# ------------------------------------------------------------- two samples
+
+
+def _two_sample(xa, xb, confidence, rng, resamples, method):
+    alpha = _check(confidence, resamples)
+    xa = _block(xa, "xa")
+    xb = _block(xb, "xb")
+    if xa.shape[0] != xb.shape[0]:
+        raise ValueError(f"xa and xb must hold the same number of replicates, got {xa.shape[0]} and {xb.shape[0]}")
+    r_total, na = xa.shape
+    nb = xb.shape[1]
+    b = int(resamples)
+    ma, mb = xa.mean(axis=1), xb.mean(axis=1)
+    diff = ma - mb
+    lower = np.empty(r_total)
+    upper = np.empty(r_total)
+    ua = (na // 2 + na % 2) if 2 <= na <= _PAIR_MAX_N else na
+    ub = (nb // 2 + nb % 2) if 2 <= nb <= _PAIR_MAX_N else nb
+    rows = _rows_per_chunk(max(ua, ub), b, 2)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for r0 in range(0, r_total, rows):
+            sl = slice(r0, r0 + rows)
+            a, c = xa[sl], xb[sl]
+            if method == "t":
+                lower[sl], upper[sl] = _t2_chunk(a, c, ma[sl], mb[sl], rng, b, alpha)
+                continue
+            sa, _ = _Resampler(a, squares=False).sums(rng, b)
+            sb, _ = _Resampler(c, squares=False).sums(rng, b)
+            sa /= na
+            sb /= nb
+            sa -= sb  # resample differences of means
+            del sb
+            if method == "bca":
+                tol = _sum_tol(a) / na + _sum_tol(c) / nb
+                share = _bias_share(sa, a.sum(axis=1) / na - c.sum(axis=1) / nb, tol)
+                ea = a - ma[sl, None]
+                ec = c - mb[sl, None]
+                # scipy.stats.bootstrap's multi-sample jackknife: each group's
+                # leave-one-out values enter with weight 1/n_j^3 and 1/n_j^2;
+                # group b's deviations enter with the opposite sign.
+                num = (ea**3).sum(axis=1) / na**3 - (ec**3).sum(axis=1) / nb**3
+                den = (ea**2).sum(axis=1) / na**2 + (ec**2).sum(axis=1) / nb**2
+                accel = num / (6.0 * den**1.5)
+                p_lo, p_hi = _bca_levels(share, accel, alpha)
+            else:
+                p_lo, p_hi = alpha, 1.0 - alpha
+            sa.sort(axis=1)
+            lower[sl] = _quantile_sorted(sa, p_lo)
+            upper[sl] = _quantile_sorted(sa, p_hi)
+    degenerate = _constant(xa) & _constant(xb)
+    lower[degenerate] = diff[degenerate]
+    upper[degenerate] = diff[degenerate]
+    return lower, upper, degenerate
+
+
+def _t2_chunk(a, c, ma, mb, rng, b, alpha):
+    na, nb = a.shape[1], c.shape[1]
+    da = a - ma[:, None]
+    dc = c - mb[:, None]
+    sa, qa = _Resampler(da, squares=True).sums(rng, b)
+    sb, qb = _Resampler(dc, squares=True).sums(rng, b)
+    da2, dc2 = (da * da).max(axis=1), (dc * dc).max(axis=1)
+    ssa = np.maximum(qa - sa * sa / na, 0.0)
+    ssb = np.maximum(qb - sb * sb / nb, 0.0)
+    zero = (ssa <= (16.0 * _EPS * na * na * da2)[:, None]) & (ssb <= (16.0 * _EPS * nb * nb * dc2)[:, None])
+    dev_b = sa / na - sb / nb
+    se_b = np.sqrt(ssa / (max(na - 1, 1) * na) + ssb / (max(nb - 1, 1) * nb))
+    tol = (4.0 * na * _EPS * np.sqrt(da2) + 4.0 * nb * _EPS * np.sqrt(dc2))[:, None]
+    t_b = _studentise(dev_b, se_b, zero, tol)
+    t_b.sort(axis=1)
+    se = np.sqrt((da * da).sum(axis=1) / (max(na - 1, 1) * na) + (dc * dc).sum(axis=1) / (max(nb - 1, 1) * nb))
+    return _endpoints(ma - mb, se, _quantile_sorted(t_b, alpha), _quantile_sorted(t_b, 1.0 - alpha))
+
+
+def percentile_diff(xa, xb, confidence, *, rng, resamples):
+    """Bootstrap percentile interval for mean_a - mean_b.
+
+    Each group is resampled independently (stratified resampling).
+
+    Parameters
+    ----------
+    xa : array_like, shape (R, na)
+    xb : array_like, shape (R, nb)
+        Replicate samples of the two groups.
+    confidence : float
+        Confidence level in (0, 1).
+    rng : numpy.random.Generator
+        Stream owned by the caller for this block.
+    resamples : int
+        Bootstrap resamples per replicate.
+
+    Returns
+    -------
+    lower, upper : ndarray, shape (R,)
+    degenerate : ndarray of bool, shape (R,)
+        Both groups constant (zero-width interval at the difference).
+
+    References
+    ----------
+    Efron, B. and Tibshirani, R. J. (1993). *An Introduction to the
+    Bootstrap*. Chapman & Hall, ch. 13; ch. 8 for resampling two samples
+    separately (from memory).
+    """
+    return _two_sample(xa, xb, confidence, rng, resamples, "percentile")
+
+
+def bca_diff(xa, xb, confidence, *, rng, resamples):
+    """BCa bootstrap interval for mean_a - mean_b (stratified resampling).
+
+    The acceleration combines both groups' closed-form jackknife terms as
+    scipy.stats.bootstrap does for multi-sample statistics.
+
+    Parameters and returns as :func:`percentile_diff`.
+
+    References
+    ----------
+    Efron, B. and Tibshirani, R. J. (1993). *An Introduction to the
+    Bootstrap*. Chapman & Hall, ch. 14.
+    """
+    return _two_sample(xa, xb, confidence, rng, resamples, "bca")
+
+
+def t_diff(xa, xb, confidence, *, rng, resamples):
+    """Bootstrap-t interval for mean_a - mean_b with the unpooled standard
+    error sqrt(s_a^2/n_a + s_b^2/n_b) (stratified resampling).
+
+    Parameters and returns as :func:`percentile_diff`.
+
+    References
+    ----------
+    Efron, B. and Tibshirani, R. J. (1993). *An Introduction to the
+    Bootstrap*. Chapman & Hall, ch. 12.
+    """
+    return _two_sample(xa, xb, confidence, rng, resamples, "t")
+
+
+_REFS = {
+    "bootstrap-percentile": (REFERENCE + " Ch. 13 (percentile interval).",),
+    "bootstrap-bca": (REFERENCE + " Ch. 14 (BCa interval).",),
+    "bootstrap-t": (REFERENCE + " Ch. 12 (bootstrap-t interval).",),
+}
+_SUMMARIES = {
+    "bootstrap-percentile": "bootstrap percentile interval",
+    "bootstrap-bca": "bias-corrected and accelerated (BCa) bootstrap interval",
+    "bootstrap-t": "studentised bootstrap (bootstrap-t) interval",
+}
+
+for _name, _one, _two in (
+    ("bootstrap-percentile", percentile_mean, percentile_diff),
+    ("bootstrap-bca", bca_mean, bca_diff),
+    ("bootstrap-t", t_mean, t_diff),
+):
+    register(Method(_name, "mean", "sample", _one, shift_equivariant=True,
+                    summary=_SUMMARIES[_name] + " for a mean", references=_REFS[_name]))
+    register(Method(_name, "mean-diff", "sample2", _two, shift_equivariant=True,
+                    summary=_SUMMARIES[_name] + " for a difference of two means (groups resampled separately)",
+                    references=_REFS[_name]))

@@ -1,0 +1,209 @@
+"""``simcheck check SCENARIO --n N``: coverage and achieved margin at one n.
+
+Also holds the pieces ``simcheck curve`` shares: the progress display (on
+stderr only) and the readable report of scenario and results.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from typing import Any, Sequence
+
+from simcheck import CAUTION
+from simcheck.cli._common import add_json, add_sim_overrides, emit_json, note, table
+
+#: how run_task's arguments are called on the command line
+CLI_FIELDS = {
+    "n": "--n",
+    "n_min": "--n-min",
+    "n_max": "--n-max",
+    "step": "--step",
+    "method": "--method",
+    "replicates": "--replicates",
+    "seed": "--seed",
+}
+
+
+def add_parser(subparsers) -> None:
+    p = subparsers.add_parser(
+        "check",
+        help="coverage and achieved margin at one n",
+        description=(
+            "Simulate many samples of size N from the scenario's data model and report how often "
+            "the interval covers the true value (with its Monte Carlo standard error), the misses "
+            "below and above, the achieved half-width (mean, median, 90th percentile) and the "
+            "assurance: the share of samples whose half-width is at most the target margin. "
+            "Where mathematics allows (0/1 data, normal data with z or t) the numbers are exact."
+        ),
+    )
+    p.add_argument("scenario", metavar="SCENARIO", help="scenario file (TOML)")
+    p.add_argument("--n", type=int, required=True, metavar="N",
+                   help="sample size to check (group a for two-sample estimands; clusters when clustered)")
+    add_method_option(p)
+    add_sim_overrides(p)
+    add_json(p)
+    p.set_defaults(run=run)
+
+
+def add_method_option(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--method", metavar="NAME",
+                   help="interval method to use (default: the first in the scenario's method.interval)")
+
+
+def run(args: argparse.Namespace) -> int:
+    from simcheck.scenario import load_scenario
+    from simcheck.tasks import run_task
+
+    scenario = load_scenario(args.scenario)
+    seed = run_seed(scenario, args.seed)
+    with Progress() as prog:
+        res = run_task(scenario, "check", n=args.n, method=args.method, replicates=args.replicates,
+                       seed=seed, progress=prog, fields=CLI_FIELDS)
+    if args.json:
+        emit_json(res.to_dict())
+        return 0
+    sys.stdout.write(report(scenario, [res]) + "\n")
+    return 0
+
+
+def run_seed(scenario, seed: int | None) -> int:
+    """The run's root seed; when neither --seed nor the file gives one, draw it and say so."""
+    from simcheck.tasks import resolve_seed
+
+    root, drawn = resolve_seed(scenario, seed)
+    if drawn:
+        note(f"simcheck: no seed given; using seed {root} (add --seed {root} to repeat this run)")
+    return root
+
+
+# --- readable output ----------------------------------------------------------------
+def _g(x: Any, digits: int = 4) -> str:
+    if x is None:
+        return "-"
+    if isinstance(x, float):
+        return f"{x:.{digits}g}"
+    return str(x)
+
+
+def _p(x: Any) -> str:
+    return "-" if x is None else f"{x:.4f}"
+
+
+def report(scenario, rows: Sequence[Any]) -> str:
+    """Scenario header, one table row per result, exactness and the caution line."""
+    d = scenario.design.with_method(rows[0].method) if rows else scenario.design
+    lines = [scenario.title, ""]
+    if d.two_sample:
+        lines.append(f"data a:      {d.model.describe()}")
+        lines.append(f"data b:      {d.model_b.describe()}  (n_b = {d.ratio:g} x n)")
+    else:
+        lines.append(f"data:        {d.model.describe()}")
+    if d.clusters is not None:
+        cl = d.clusters
+        size = f"size {cl.size}" if cl.size is not None else f"size mean {cl.size_mean:g}, CV {cl.size_cv:g}"
+        lines.append(f"clusters:    ICC {cl.icc:g}, {size}, {cl.effect} effect (n counts clusters)")
+    if d.population is not None:
+        pop = d.population
+        fpc = "with" if pop.fpc else "without"
+        lines.append(f"population:  {pop.size} units, sampled without replacement ({fpc} finite population correction)")
+    what = {"mean": "mean", "proportion": "proportion", "mean-diff": "difference of means a - b",
+            "proportion-diff": "difference of proportions a - b"}[d.estimand]
+    lines.append(f"true value:  {_g(float(d.true_value), 6)} ({what})")
+    for m in (d.model, d.model_b):
+        if m is not None and m.true_value_note:
+            lines.append(f"             note: {m.true_value_note}")
+    lines.append(f"method:      {d.method} interval, {d.confidence:.4g} confidence, target margin {_g(d.margin, 6)}")
+    if rows:
+        r0 = rows[0]
+        sim = "exact (no simulation)" if all(r.exact for r in rows) else f"{r0.replicates} replicates"
+        lines.append(f"run:         {sim}, seed {r0.seed}")
+    lines.append("")
+    two = d.two_sample
+    headers = ["n"] + (["n_b"] if two else []) + [
+        "coverage", "+/- mcse", "miss low", "miss high",
+        "margin mean", "median", "p90", "assurance", "+/- mcse",
+    ]
+    body = []
+    for r in rows:
+        row = [str(r.n)] + ([str(r.n_b)] if two else []) + [
+            _p(r.coverage), _p(r.coverage_mcse), _p(r.miss_low), _p(r.miss_high),
+            _g(r.margin_mean), _g(r.margin_median), _g(r.margin_p90),
+            _p(r.assurance), _p(r.assurance_mcse),
+        ]
+        if r.exact and not all(x.exact for x in rows):
+            row[0] += "*"
+        body.append(row)
+    lines.append(table(headers, body))
+    lines.append("")
+    if rows and all(r.exact for r in rows):
+        lines.append("exact: computed by enumeration or exact law, not simulation (MCSE 0).")
+    elif any(r.exact for r in rows):
+        lines.append("* exact: computed by enumeration or exact law, not simulation (MCSE 0).")
+    lines.append(f"coverage = share of intervals that contain the true value (nominal {d.confidence:.4g}); "
+                 f"assurance = share with half-width <= {_g(d.margin, 6)}.")
+    notes: list[str] = []
+    for r in rows:
+        for t in r.notes:
+            if t not in notes:
+                notes.append(t)
+        if r.degenerate:
+            t = f"n = {r.n}: {r.degenerate} replicates gave a degenerate interval"
+            notes.append(t)
+    for t in notes:
+        lines.append(f"note: {t}")
+    lines.append("")
+    lines.append(CAUTION)
+    return "\n".join(lines)
+
+
+# --- progress (stderr only) -----------------------------------------------------
+class Progress:
+    """``progress(done, total)`` for the engine, shown only when a run is slow.
+
+    On a terminal a tqdm bar appears after ``delay`` seconds; otherwise
+    (logs, pipes) a plain line at most every ``every`` seconds once the run
+    has taken ``quiet`` seconds. Never writes to stdout.
+    """
+
+    def __init__(self, delay: float = 2.0, quiet: float = 10.0, every: float = 30.0, stream=None) -> None:
+        self.stream = stream if stream is not None else sys.stderr
+        self.tty = bool(getattr(self.stream, "isatty", lambda: False)())
+        self.delay, self.quiet, self.every = delay, quiet, every
+        self.start = time.monotonic()
+        self.last = None
+        self.bar = None
+
+    def __call__(self, done: int, total: int) -> None:
+        now = time.monotonic()
+        elapsed = now - self.start
+        if self.tty:
+            if self.bar is None:
+                if elapsed < self.delay:
+                    return
+                from tqdm import tqdm
+
+                self.bar = tqdm(total=total, file=self.stream, unit="rep", leave=False, dynamic_ncols=True)
+            if self.bar.total != total:
+                self.bar.total = total
+            self.bar.n = min(done, total)
+            self.bar.refresh()
+            return
+        if elapsed < self.quiet or (self.last is not None and now - self.last < self.every):
+            return
+        self.last = now
+        share = 100.0 * done / total if total else 100.0
+        self.stream.write(f"simcheck: {share:.0f}% done ({done} of {total}), {elapsed:.0f} s\n")
+        self.stream.flush()
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+            self.bar = None
+
+    def __enter__(self) -> "Progress":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()

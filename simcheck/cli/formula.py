@@ -1,0 +1,110 @@
+"""``simcheck formula``: the closed-form n (the baseline simcheck checks)."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from simcheck.cli._common import add_json, emit_json, fmt, table
+from simcheck.formulas import ESTIMANDS, sample_size
+
+
+def add_parser(subparsers) -> None:
+    p = subparsers.add_parser(
+        "formula",
+        help="closed-form n (the baseline)",
+        description=(
+            "Closed-form sample size for a confidence interval of half-width at most --margin: "
+            "n0 = m^2 V / B^2 (m the z or t multiple, V = sd^2 or p (1 - p)), times the design "
+            "effect, then the finite population correction, rounded up. Two-sample estimands "
+            "(difference a - b) use n_a = m^2 deff (V_a + V_b / K) / B^2 and n_b = ceil(K n_a). "
+            "These formulas assume a normal sampling distribution and a known SD or proportion; "
+            "`simcheck check` and `simcheck search` test whether n really delivers the interval."
+        ),
+    )
+    p.add_argument("--estimand", choices=ESTIMANDS, metavar="E",
+                   help="what is estimated: mean, proportion, mean-diff or proportion-diff (difference a - b)")
+    p.add_argument("--margin", type=float, metavar="B",
+                   help="target half-width of the interval, > 0, in the data's units (0.05 = 5 points for proportions); required")
+    p.add_argument("--confidence", type=float, default=0.95, metavar="C",
+                   help="confidence level in (0, 1) (default 0.95)")
+    p.add_argument("--sd", type=float, metavar="S",
+                   help="planning standard deviation of the data (group a); required for mean and mean-diff")
+    p.add_argument("--sd-b", dest="sd_b", type=float, metavar="S",
+                   help="planning standard deviation of group b (mean-diff; default: the same as --sd)")
+    p.add_argument("--p", type=float, metavar="P",
+                   help="expected proportion in (0, 1) (group a); default 0.5, the most conservative")
+    p.add_argument("--p-b", dest="p_b", type=float, metavar="P",
+                   help="expected proportion of group b (proportion-diff; default: the same as --p)")
+    p.add_argument("--multiplier", choices=("z", "t"), default="z",
+                   help="z (known SD, default) or t: iterate n until t(n-1) * sd / sqrt(n) <= B "
+                        "(mean-diff: Welch-Satterthwaite df); means only")
+    p.add_argument("--population-size", dest="population_size", type=float, metavar="N",
+                   help="finite population size, a whole number >= 2: applies n0 / (1 + (n0 - 1) / N) (one-sample)")
+    p.add_argument("--design-effect", dest="design_effect", type=float, metavar="D",
+                   help="design effect given directly (> 0); or give --icc and --cluster-size instead")
+    p.add_argument("--icc", type=float, metavar="R",
+                   help="intracluster correlation in [0, 1): design effect 1 + (m - 1) ICC (needs --cluster-size)")
+    p.add_argument("--cluster-size", dest="cluster_size", type=float, metavar="M",
+                   help="(mean) observations per cluster, >= 1; also gives the number of clusters ceil(n / M)")
+    p.add_argument("--cluster-size-cv", dest="cluster_size_cv", type=float, metavar="V",
+                   help="coefficient of variation of cluster sizes (SD with divisor k), >= 0: "
+                        "design effect 1 + ((V^2 + 1) M - 1) ICC")
+    p.add_argument("--ratio", type=float, metavar="K",
+                   help="allocation ratio for two-sample estimands: n_b = K * n_a, > 0 (default 1)")
+    add_json(p)
+    p.set_defaults(run=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    res = sample_size(
+        args.estimand,
+        args.margin,
+        confidence=args.confidence,
+        sd=args.sd,
+        sd_b=args.sd_b,
+        p=args.p,
+        p_b=args.p_b,
+        multiplier=args.multiplier,
+        population_size=args.population_size,
+        design_effect=args.design_effect,
+        icc=args.icc,
+        cluster_size=args.cluster_size,
+        cluster_size_cv=args.cluster_size_cv,
+        ratio=args.ratio,
+    )
+    if args.json:
+        emit_json(res.to_dict())
+        return 0
+    sys.stdout.write(render(res) + "\n")
+    return 0
+
+
+def render(res) -> str:
+    """Human-readable text: what was assumed, the formula, and n."""
+    conf = f"{res.confidence * 100:g}%"
+    lines = [f"Closed-form sample size: {res.estimand}, {conf} confidence, margin {res.margin:g}", ""]
+    lines.append("Assumed:")
+    lines += [f"  - {a}" for a in res.assumptions]
+    lines.append("")
+    lines.append("Formula:")
+    lines += [f"  {s}" for s in res.formula.split("; ")]
+    lines.append("")
+    kind = "z" if res.multiplier_kind == "z" else f"t (df {fmt(res.df, 2) if res.df % 1 else int(res.df)})"
+    rows = [["multiplier", f"{kind} = {res.multiplier:.6f}"], ["design effect", f"{res.design_effect:g}"]]
+    if res.n_b is None:
+        rows.append(["n", res.n])
+    else:
+        rows += [["n (group a)", res.n], ["n_b (group b)", res.n_b], ["n total", res.n_total]]
+    if res.clusters is not None:
+        if res.clusters_b is None:
+            rows.append(["clusters", res.clusters])
+        else:
+            rows += [["clusters (group a)", res.clusters], ["clusters (group b)", res.clusters_b]]
+    lines.append(table(["quantity", "value"], rows))
+    lines.append("")
+    lines.append(
+        "n is the formula's answer under a normal sampling distribution; "
+        "`simcheck search` checks it by simulation under your data model."
+    )
+    return "\n".join(lines)

@@ -1,0 +1,144 @@
+"""``simcheck sweep``: run every cell of a sweep file into a store, resumably."""
+
+from __future__ import annotations
+
+import argparse
+import signal
+import sys
+import time
+
+from simcheck.cli._common import add_json, emit_json, note
+
+# Plain progress lines (stderr not a terminal) at most this often, in seconds.
+PLAIN_EVERY = 30.0
+
+
+def add_parser(subparsers) -> None:
+    p = subparsers.add_parser(
+        "sweep",
+        help="run every combination of a sweep file into a store (resumable)",
+        description=(
+            "Run every cell (combination of [vary] values) of a sweep file and store each result in an "
+            "SQLite file as soon as it finishes. The whole grid is validated first. Re-running the same "
+            "command resumes: only cells the store lacks (or that failed) are run. Ctrl-C or kill stops; "
+            "only the cells in flight are lost. Results do not depend on --jobs, the backend or interruptions."
+        ),
+    )
+    p.add_argument("sweep", metavar="SWEEP", help="sweep file (TOML): base, task, [vary]")
+    p.add_argument("--store", required=True, metavar="FILE.sqlite", help="SQLite store (created when missing)")
+    p.add_argument("--jobs", type=int, default=1, metavar="J",
+                   help="local worker processes (default 1); with --backend dask: at most J cells at once")
+    p.add_argument("--backend", choices=("local", "dask"), default=None,
+                   help="local processes (default) or an existing Dask cluster (needs --scheduler)")
+    p.add_argument("--scheduler", metavar="ADDR",
+                   help="Dask scheduler address, e.g. tcp://10.0.0.5:8786 (implies --backend dask)")
+    add_json(p)
+    p.set_defaults(run=run)
+
+
+class _Progress:
+    """tqdm bar on a terminal; otherwise a plain line every PLAIN_EVERY seconds."""
+
+    def __init__(self) -> None:
+        self.tty = sys.stderr.isatty()
+        self.bar = None
+        self.t0 = time.monotonic()
+        self.last = self.t0
+        self.before = 0
+        self.failed = 0
+
+    def start(self, before: int, total: int) -> None:
+        self.before = before
+        self.t0 = self.last = time.monotonic()
+        if before:
+            note(f"sweep: {before} of {total} cells already stored; running the other {total - before}")
+        if self.tty and total > before:
+            from tqdm import tqdm
+
+            self.bar = tqdm(total=total, initial=before, unit="cell", file=sys.stderr, dynamic_ncols=True)
+
+    def cell(self, out, done: int, total: int) -> None:
+        self.failed += out.status != "ok"
+        if self.bar is not None:
+            self.bar.update(1)
+            if self.failed:
+                self.bar.set_postfix(failed=self.failed, refresh=False)
+            return
+        now = time.monotonic()
+        if now - self.last >= PLAIN_EVERY or done == total:
+            self.last = now
+            ran = done - self.before
+            left = (now - self.t0) / ran * (total - done) if ran else float("nan")
+            note(f"sweep: {done}/{total} cells stored ({self.failed} failed), about {_duration(left)} left")
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+            self.bar = None
+
+
+def _duration(seconds: float) -> str:
+    if seconds != seconds:
+        return "?"
+    s = int(round(seconds))
+    h, rem = divmod(s, 3600)
+    m, s = divmod(rem, 60)
+    return f"{h}h{m:02d}m{s:02d}s" if h else (f"{m}m{s:02d}s" if m else f"{s}s")
+
+
+def _sigterm(signum, frame):
+    # `kill PID` stops like Ctrl-C: the finished cells are already stored, the message says how to resume
+    raise KeyboardInterrupt
+
+
+def run(args: argparse.Namespace) -> int:
+    from simcheck.errors import InputError
+    from simcheck.sweep import SweepAborted, SweepInterrupted, run_sweep
+
+    backend = args.backend or ("dask" if args.scheduler else "local")
+    if args.backend == "local" and args.scheduler:
+        raise InputError("--scheduler", "only with --backend dask")
+    progress = _Progress()
+    failures: list[str] = []
+
+    def on_cell(out, done, total):
+        if out.status != "ok" and len(failures) < 5:
+            failures.append(out.error or "")
+        progress.cell(out, done, total)
+
+    old = signal.signal(signal.SIGTERM, _sigterm)
+    resume = f"run the same command again to resume: simcheck sweep {args.sweep} --store {args.store}"
+    try:
+        summary = run_sweep(
+            args.sweep, args.store, jobs=args.jobs, backend=backend, scheduler=args.scheduler,
+            on_start=progress.start, on_cell=on_cell,
+        )
+    except SweepInterrupted as exc:
+        progress.close()
+        s = exc.summary
+        note(f"simcheck: interrupted: {s.stored_ok} of {s.cells_total} cells are stored in {s.store}; {resume}")
+        if args.json:
+            emit_json(s.to_dict())
+        return 130
+    except SweepAborted as exc:
+        progress.close()
+        s = exc.summary
+        note(f"simcheck: sweep stopped: {exc}; {s.stored_ok} of {s.cells_total} cells are stored in {s.store}; {resume}")
+        if args.json:
+            emit_json(s.to_dict())
+        return 1
+    finally:
+        progress.close()
+        signal.signal(signal.SIGTERM, old)
+    for f in failures:
+        note(f"sweep: failed cell: {f}")
+    if summary.failed:
+        note(f"sweep: {summary.failed} cells failed (stored with their error; re-running the command retries them)")
+    if args.json:
+        emit_json(summary.to_dict())
+    else:
+        print(
+            f"{summary.cells_total} cells: {summary.done_before} stored before, {summary.run_now} run now "
+            f"({summary.failed} failed); store: {summary.store}"
+        )
+    return 0

@@ -1,0 +1,901 @@
+"""Scenario files: read, validate and resolve them into the Python API's objects.
+
+A scenario file (TOML, read with the standard library's :mod:`tomllib`) names
+the target (estimand, confidence, margin, assurance, coverage tolerance), the
+data model(s), the interval method(s) and the simulation settings; the format
+is the "Scenario file (TOML)" section of the command-line contract. This
+module is the one place where a scenario is validated: :func:`validate`
+collects *every* problem (file, dotted key, what was expected, what was found)
+and raises a single :class:`~simcheck.errors.InputError`, so the user fixes
+them all in one go.
+
+Defaults and limits (chosen here; documented in :data:`KNOWN_KEYS`):
+
+=============================  ==========================================
+``target.confidence``          0.95, in (0, 1)
+``target.margin``              required, > 0 (the point of the tool)
+``target.assurance``           0.5, in (0, 1)
+``target.coverage_tolerance``  0.005, in [0, 0.5) and below the confidence
+``method.interval``            required: a name or a list of names
+``method.resamples``           1999, whole number in [99, 10**6]
+``simulation.replicates``      10000, whole number in [100, 10**8]
+``simulation.seed``            integer in [0, 2**63 - 1]; when absent the run
+                               picks one from OS entropy and reports it
+                               (:func:`simcheck.tasks.fresh_seed`)
+``simulation.n_min``           2, whole number >= 2
+``simulation.n_max``           5000 (or the population size, if smaller),
+                               whole number > n_min and <= 10**6
+``simulation.ratio``           1.0, in (0, 100]; other values only for
+                               two-sample estimands
+``simulation.budget``          optional, whole number in [100, 10**12]
+``simulation.path``            "auto" (auto, exact, sufficient, nested, full)
+``clusters.effect``            "normal" (normal or gamma)
+``population.fpc``             true
+=============================  ==========================================
+
+An absent seed stays ``None`` in :class:`Scenario` (and in
+:meth:`Scenario.to_dict`, which sweeps hash), so loading is deterministic; the
+seed is drawn when a task runs.
+"""
+
+from __future__ import annotations
+
+import copy
+import csv
+import datetime as _dt
+import difflib
+import math
+import tomllib
+from dataclasses import dataclass, field
+from numbers import Integral, Real
+from pathlib import Path
+from typing import Any, Mapping
+
+from simcheck.design import ESTIMANDS, TWO_SAMPLE, ClusterSpec, Design, PopulationSpec
+from simcheck.errors import Collector, InputError, Problem
+
+__all__ = [
+    "KNOWN_KEYS",
+    "Scenario",
+    "load_scenario",
+    "scenario_from_dict",
+    "set_dotted",
+    "validate",
+]
+
+# --- defaults and limits ------------------------------------------------------
+DEFAULT_CONFIDENCE = 0.95
+DEFAULT_ASSURANCE = 0.5
+DEFAULT_COVERAGE_TOLERANCE = 0.005
+DEFAULT_RESAMPLES = 1999
+DEFAULT_REPLICATES = 10_000
+DEFAULT_N_MIN = 2
+DEFAULT_N_MAX = 5000
+DEFAULT_RATIO = 1.0
+DEFAULT_PATH = "auto"
+REPLICATES_MIN, REPLICATES_MAX = 100, 10**8
+RESAMPLES_MIN, RESAMPLES_MAX = 99, 10**6
+N_LIMIT = 10**6
+SEED_MAX = 2**63 - 1  # fits an SQLite INTEGER (sweep stores)
+BUDGET_MIN, BUDGET_MAX = 100, 10**12
+RATIO_MAX = 100.0
+CLUSTER_SIZE_MAX = 10**5
+POPULATION_MAX = 10**9
+PATHS = ("auto", "exact", "sufficient", "nested", "full")
+CLUSTER_EFFECTS = ("normal", "gamma")
+
+#: Every key of a scenario file (dotted) with what it holds. ``data`` (and
+#: ``data.a`` / ``data.b``) are model tables whose keys the models validate.
+KNOWN_KEYS: dict[str, str] = {
+    "title": "text; default: the file name",
+    "target.estimand": "required: " + " | ".join(ESTIMANDS),
+    "target.confidence": f"nominal confidence level in (0, 1); default {DEFAULT_CONFIDENCE}",
+    "target.margin": "required: target half-width in the data's units, > 0",
+    "target.assurance": f"required share of samples with half-width <= margin, in (0, 1); default {DEFAULT_ASSURANCE}",
+    "target.coverage_tolerance": f"accepted coverage shortfall below the confidence, in [0, 0.5); default {DEFAULT_COVERAGE_TOLERANCE}",
+    "target.event_values": "proportion estimand on a discrete non-0/1 model: the values that count (list of numbers)",
+    "target.event_above": "proportion estimand on a non-0/1 model: values strictly above this number count",
+    "data": "one-sample model table: model = \"...\" and its parameters",
+    "data.a": "two-sample: model table of group a (the difference is a - b)",
+    "data.b": "two-sample: model table of group b",
+    "method.interval": "required: interval method name, or a list of names",
+    "method.resamples": f"bootstrap resamples, whole number in [{RESAMPLES_MIN}, {RESAMPLES_MAX}]; default {DEFAULT_RESAMPLES}",
+    "simulation.replicates": f"simulated samples per n, whole number in [{REPLICATES_MIN}, {REPLICATES_MAX}]; default {DEFAULT_REPLICATES}",
+    "simulation.seed": f"root random seed, integer in [0, {SEED_MAX}]; default: drawn from OS entropy and reported",
+    "simulation.n_min": f"smallest n considered, whole number >= 2; default {DEFAULT_N_MIN}",
+    "simulation.n_max": f"largest n considered, whole number > n_min and <= {N_LIMIT}; default {DEFAULT_N_MAX}",
+    "simulation.ratio": f"n_b / n_a for two-sample estimands, in (0, {RATIO_MAX:g}]; default {DEFAULT_RATIO}",
+    "simulation.budget": f"optional cap on the replicates a search spends, whole number in [{BUDGET_MIN}, {BUDGET_MAX}]",
+    "simulation.path": f"computation path: {' | '.join(PATHS)}; default {DEFAULT_PATH}",
+    "clusters.icc": "intracluster correlation in [0, 1); n then counts clusters",
+    "clusters.size": f"observations per cluster, whole number in [1, {CLUSTER_SIZE_MAX}] (or size_mean and size_cv)",
+    "clusters.size_mean": "mean cluster size, >= 1 (varying sizes)",
+    "clusters.size_cv": "coefficient of variation of the cluster sizes, >= 0 (with size_mean)",
+    "clusters.effect": "distribution of the cluster effect: normal | gamma; default normal",
+    "population.size": f"finite population size, whole number in [2, {POPULATION_MAX}] (default: the rows of file)",
+    "population.fpc": "apply the finite population correction: true | false; default true",
+    "population.file": "CSV file of the population's values (relative to the scenario file)",
+    "population.column": "column of population.file holding the values",
+}
+
+_TOP = ("title", "target", "data", "method", "simulation", "clusters", "population")
+_TABLES: dict[str, tuple[str, ...]] = {}
+for _k in KNOWN_KEYS:
+    if "." in _k and not _k.startswith("data"):
+        _t, _leaf = _k.split(".", 1)
+        _TABLES.setdefault(_t, ())
+        _TABLES[_t] = _TABLES[_t] + (_leaf,)
+_FIXED_KEYS = [k for k in KNOWN_KEYS if not k.startswith("data")]
+
+
+# --- the resolved scenario ----------------------------------------------------
+@dataclass(frozen=True)
+class Scenario:
+    """A validated scenario: the :class:`~simcheck.design.Design` plus the run settings.
+
+    Attributes
+    ----------
+    title : str
+    design : Design
+        The design with the first listed interval method.
+    methods : tuple of str
+        Every listed interval method (``method.interval``), in file order.
+    assurance, coverage_tolerance : float
+        Search targets.
+    replicates : int
+    seed : int or None
+        None when the file gives none (a run then draws one and reports it).
+    n_min, n_max : int
+    budget : int or None
+    path : str
+    source : str or None
+        The file as named by the user (None for a dict).
+    base_dir : str or None
+        Folder that relative file paths are resolved against.
+    table : dict
+        The TOML table as read, with overrides applied.
+    event_values, event_above
+        The event of a proportion estimand on a non-0/1 model.
+    """
+
+    title: str
+    design: Design
+    methods: tuple[str, ...]
+    assurance: float = DEFAULT_ASSURANCE
+    coverage_tolerance: float = DEFAULT_COVERAGE_TOLERANCE
+    replicates: int = DEFAULT_REPLICATES
+    seed: int | None = None
+    n_min: int = DEFAULT_N_MIN
+    n_max: int = DEFAULT_N_MAX
+    budget: int | None = None
+    path: str = DEFAULT_PATH
+    source: str | None = None
+    base_dir: str | None = None
+    table: dict[str, Any] = field(default_factory=dict, compare=False, hash=False, repr=False)
+    event_values: tuple[float, ...] | None = None
+    event_above: float | None = None
+
+    @property
+    def two_sample(self) -> bool:
+        return self.design.two_sample
+
+    def designs(self) -> tuple[Design, ...]:
+        """One Design per listed interval method (the first is :attr:`design`)."""
+        return (self.design,) + tuple(self.design.with_method(m) for m in self.methods[1:])
+
+    def describe_data(self) -> str:
+        """The data model(s) in one line."""
+        d = self.design
+        if d.two_sample:
+            return f"a: {d.model.describe()}; b: {d.model_b.describe()}"
+        return d.model.describe()
+
+    def to_dict(self) -> dict[str, Any]:
+        """The resolved scenario, defaults filled in: itself a valid scenario table.
+
+        JSON-safe and deterministic (equal scenarios give equal dicts), so
+        sweeps hash it; ``scenario_from_dict(s.to_dict())`` gives back ``s``.
+        Keys whose value is absent (no seed, no budget) are left out, as TOML
+        has no null. Model tables are as given (models own their defaults).
+        """
+        d = self.design
+        target: dict[str, Any] = {
+            "estimand": d.estimand,
+            "confidence": float(d.confidence),
+            "margin": float(d.margin),
+            "assurance": float(self.assurance),
+            "coverage_tolerance": float(self.coverage_tolerance),
+        }
+        if self.event_values is not None:
+            target["event_values"] = [float(v) for v in self.event_values]
+        if self.event_above is not None:
+            target["event_above"] = float(self.event_above)
+        sim: dict[str, Any] = {
+            "replicates": int(self.replicates),
+            "n_min": int(self.n_min),
+            "n_max": int(self.n_max),
+            "ratio": float(d.ratio),
+            "path": self.path,
+        }
+        if self.seed is not None:
+            sim["seed"] = int(self.seed)
+        if self.budget is not None:
+            sim["budget"] = int(self.budget)
+        out: dict[str, Any] = {
+            "title": self.title,
+            "target": target,
+            "data": _json_safe(copy.deepcopy(self.table.get("data", {}))),
+            "method": {
+                "interval": self.methods[0] if len(self.methods) == 1 else list(self.methods),
+                "resamples": int(d.resamples),
+            },
+            "simulation": sim,
+        }
+        if d.clusters is not None:
+            out["clusters"] = _json_safe(d.clusters.to_dict())
+        if d.population is not None:
+            pop = d.population.to_dict()
+            given = self.table.get("population", {})
+            if "file" in given:  # as written, not the resolved absolute path
+                pop["file"] = given["file"]
+            out["population"] = _json_safe(pop)
+        return out
+
+    def to_frame(self):
+        """One-row DataFrame: the resolved scenario flattened to dotted keys,
+        plus the true value and the data model description."""
+        import json
+
+        import pandas as pd
+
+        flat: dict[str, Any] = {}
+        _flatten(self.to_dict(), "", flat)
+        row = {k: (json.dumps(v) if isinstance(v, (list, dict)) else v) for k, v in flat.items()}
+        row["true_value"] = float(self.design.true_value)
+        row["model"] = self.describe_data()
+        row["source"] = self.source
+        return pd.DataFrame([row])
+
+
+# --- dotted keys --------------------------------------------------------------
+def set_dotted(table: Mapping[str, Any], key: str, value: Any) -> dict[str, Any]:
+    """A deep copy of ``table`` with ``value`` at the dotted ``key``.
+
+    Missing intermediate tables are created; ``value=None`` removes the key
+    (TOML has no null, so None can only mean "not given").
+
+    Examples
+    --------
+    >>> set_dotted({"data": {"model": "lognormal", "cv": 1.0}}, "data.cv", 2.0)
+    {'data': {'model': 'lognormal', 'cv': 2.0}}
+    """
+    if not isinstance(key, str) or not key or any(not part for part in key.split(".")):
+        raise InputError(str(key), "not a dotted scenario key such as 'data.cv'")
+    if not isinstance(table, Mapping):
+        raise InputError(key, f"cannot set a key in {type(table).__name__}; a table is needed")
+    out = copy.deepcopy(dict(table))
+    parts = key.split(".")
+    node = out
+    for i, part in enumerate(parts[:-1]):
+        nxt = node.get(part)
+        if nxt is None:
+            if value is None:
+                return out
+            nxt = node[part] = {}
+        elif not isinstance(nxt, dict):
+            raise InputError(key, f"cannot set: {'.'.join(parts[: i + 1])} is {nxt!r}, not a table")
+        node = nxt
+    if value is None:
+        node.pop(parts[-1], None)
+    else:
+        node[parts[-1]] = copy.deepcopy(value)
+    return out
+
+
+# --- reading ------------------------------------------------------------------
+def load_scenario(path: str | Path, overrides: Mapping[str, object] | None = None) -> Scenario:
+    """Read and validate a scenario file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The TOML file. Problems are reported prefixed with it as given.
+    overrides : dict, optional
+        Dotted keys and values set before validation, e.g.
+        ``{"simulation.replicates": 1000, "data.cv": 2.0}``.
+
+    Raises
+    ------
+    InputError
+        One error listing every problem: missing file, a folder, unreadable
+        or non-UTF-8 text, TOML syntax (with line and column), bad values.
+    """
+    label = str(path)
+    table = read_table(path)
+    for k, v in (overrides or {}).items():
+        try:
+            table = set_dotted(table, k, v)
+        except InputError as e:
+            raise e.with_source(label) from None
+    p = Path(path)
+    return scenario_from_dict(table, source=label, base_dir=str(p.resolve().parent))
+
+
+def read_table(path: str | Path) -> dict[str, Any]:
+    """The TOML table of a file, or one InputError saying why it cannot be read."""
+    label = str(path)
+    p = Path(path)
+
+    def fail(msg: str) -> InputError:
+        return InputError([Problem("", msg)], source=label)
+
+    if not p.exists():
+        raise fail("no such file")
+    if p.is_dir():
+        raise fail("is a folder, not a scenario file")
+    try:
+        raw = p.read_bytes()
+    except OSError as e:
+        raise fail(f"cannot read the file: {e.strerror or e}") from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as e:
+        raise fail(f"not UTF-8 text (byte {e.start}); a TOML file must be UTF-8") from None
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as e:
+        # tomllib's message ends with "(at line L, column C)"
+        raise fail(f"TOML syntax error: {str(e).splitlines()[0]}") from None
+
+
+def scenario_from_dict(
+    table: Mapping[str, Any],
+    *,
+    source: str | None = None,
+    base_dir: str | Path | None = None,
+) -> Scenario:
+    """Validate a scenario table (as read from TOML) into a :class:`Scenario`.
+
+    ``source`` names the file in error messages; ``base_dir`` resolves
+    relative file paths (empirical models, population files).
+    """
+    return validate(table, source=source, base_dir=base_dir)
+
+
+# --- validation: the one place ------------------------------------------------
+def validate(
+    table: Mapping[str, Any],
+    *,
+    source: str | None = None,
+    base_dir: str | Path | None = None,
+) -> Scenario:
+    """Check every key of a scenario table; raise one InputError with all problems."""
+    if not isinstance(table, Mapping):
+        raise InputError([Problem("", f"a scenario must be a table, got {table!r}")], source=source)
+    table = copy.deepcopy(dict(table))
+    bdir = str(base_dir) if base_dir is not None else None
+    c = Collector()
+
+    _unknown_keys(c, table)
+    _no_nan(c, table, "")
+
+    # title
+    title = table.get("title")
+    if title is None:
+        title = Path(source).stem if source else "untitled scenario"
+    elif not isinstance(title, str) or not title.strip():
+        c.add("title", f"must be a non-empty text, got {title!r}")
+        title = None
+
+    target = _table(c, table, "target", required=True)
+    method = _table(c, table, "method", required=True)
+    sim = _table(c, table, "simulation", required=False)
+    clusters_t = _table(c, table, "clusters", required=False) if "clusters" in table else None
+    pop_t = _table(c, table, "population", required=False) if "population" in table else None
+
+    # [target]
+    estimand = None
+    if target is not None:
+        estimand = _choice(c, target, "target", "estimand", ESTIMANDS, required=True)
+        confidence = _num(c, target, "target", "confidence", DEFAULT_CONFIDENCE, low=0, high=1, low_open=True, high_open=True)
+        margin = _num(c, target, "target", "margin", None, required=True, low=0, low_open=True,
+                      what="the target half-width in the data's units, > 0")
+        assurance = _num(c, target, "target", "assurance", DEFAULT_ASSURANCE, low=0, high=1, low_open=True, high_open=True)
+        tol = _num(c, target, "target", "coverage_tolerance", DEFAULT_COVERAGE_TOLERANCE, low=0, high=0.5, high_open=True)
+        if tol is not None and confidence is not None and tol >= confidence:
+            c.add("target.coverage_tolerance", f"must be below target.confidence ({confidence:g}), got {tol!r}")
+            tol = None
+        event_values, event_above = _event(c, target, estimand)
+    else:
+        confidence = margin = assurance = tol = None
+        event_values = event_above = None
+
+    # [data]
+    model = model_b = None
+    data = table.get("data")
+    if data is None:
+        c.add("data", "missing: a [data] table with model = \"...\" (two-sample: [data.a] and [data.b])")
+    elif not isinstance(data, dict):
+        c.add("data", f"must be a table, got {data!r}")
+    elif estimand in TWO_SAMPLE or (estimand is None and data and set(data) <= {"a", "b"}):
+        # (an invalid estimand is already reported; still check both groups' models)
+        if "model" in data:
+            c.add("data", f"estimand {estimand!r} compares two groups: put their models in [data.a] and [data.b]")
+        else:
+            for k in data:
+                if k not in ("a", "b"):
+                    near = difflib.get_close_matches(str(k), ["a", "b"], n=1, cutoff=0.5)
+                    hint = f"did you mean 'data.{near[0]}'?" if near else "two-sample data has only [data.a] and [data.b]"
+                    c.add(f"data.{k}", f"unknown key; {hint}")
+        model = _group(c, data, "a", bdir) if "model" not in data else None
+        model_b = _group(c, data, "b", bdir) if "model" not in data else None
+    else:
+        if data and "model" not in data and set(data) <= {"a", "b"}:
+            what = f"estimand {estimand!r} is one-sample" if estimand else "a one-sample estimand"
+            c.add("data", f"{what}: give one model in [data]; [data.a] and [data.b] are for mean-diff or proportion-diff")
+        else:
+            model = _model(c, data, "data", bdir)
+
+    if model is not None and (event_values is not None or event_above is not None):
+        model = _wrap_event(c, model, event_values, event_above)
+        if model_b is not None:
+            model_b = _wrap_event(c, model_b, event_values, event_above)
+
+    # [method]
+    methods: list[str] = []
+    resamples = DEFAULT_RESAMPLES
+    if method is not None:
+        methods = _methods(c, method, estimand)
+        resamples = _num(c, method, "method", "resamples", DEFAULT_RESAMPLES, low=RESAMPLES_MIN, high=RESAMPLES_MAX, integer=True)
+
+    # [simulation]
+    sim = sim if sim is not None else {}
+    replicates = _num(c, sim, "simulation", "replicates", DEFAULT_REPLICATES, low=REPLICATES_MIN, high=REPLICATES_MAX, integer=True)
+    seed = _seed(c, sim)
+    n_min = _num(c, sim, "simulation", "n_min", DEFAULT_N_MIN, low=2, high=N_LIMIT - 1, integer=True)
+    n_max = _num(c, sim, "simulation", "n_max", None, low=3, high=N_LIMIT, integer=True)
+    ratio = _num(c, sim, "simulation", "ratio", DEFAULT_RATIO, low=0, high=RATIO_MAX, low_open=True)
+    if ratio is not None and ratio != 1.0 and estimand is not None and estimand not in TWO_SAMPLE:
+        c.add("simulation.ratio", f"only for two-sample estimands ({', '.join(TWO_SAMPLE)}); estimand is {estimand!r}, got {ratio!r}")
+    budget = _num(c, sim, "simulation", "budget", None, low=BUDGET_MIN, high=BUDGET_MAX, integer=True)
+    path = _choice(c, sim, "simulation", "path", PATHS, default=DEFAULT_PATH)
+
+    clusters = _clusters(c, clusters_t) if clusters_t is not None else None
+    population = _population(c, pop_t, bdir) if pop_t is not None else None
+
+    # n range (the population bounds n when units are sampled without replacement)
+    n_max_given = "n_max" in sim
+    if n_max is None and not n_max_given:
+        n_max = DEFAULT_N_MAX
+        if population is not None and clusters is None:
+            n_max = min(n_max, population.size)
+    if population is not None and clusters is None and n_max is not None and n_max_given and n_max > population.size:
+        c.add("simulation.n_max", f"must be <= population.size ({population.size}) when sampling without replacement, got {n_max}")
+        n_max = None
+    if n_min is not None and n_max is not None and n_max <= n_min:
+        default = "" if n_max_given else " (the default)"
+        c.add("simulation.n_max", f"must be > simulation.n_min ({n_min}), got {n_max}{default}")
+
+    # the combination: Design's constructor is the one check of model / estimand / method
+    design = None
+    designs: list[Design] = []
+    if not c.problems and model is not None and methods:
+        try:
+            design = Design(
+                model=model,
+                estimand=estimand,
+                method=methods[0],
+                confidence=confidence,
+                margin=margin,
+                model_b=model_b,
+                ratio=ratio,
+                resamples=resamples,
+                clusters=clusters,
+                population=population,
+            )
+        except InputError as e:
+            _extend_design(c, e, estimand)
+        if design is not None:
+            designs.append(design)
+            for m in methods[1:]:
+                try:
+                    designs.append(design.with_method(m))
+                except InputError as e:
+                    _extend_design(c, e, estimand)
+        # clustered and finite-population designs have their own engine paths
+        if designs and path != "auto" and clusters is None and population is None:
+            _check_path(c, designs, path)
+
+    _dedupe(c)
+    c.raise_if_any(source=source)
+    assert design is not None  # every path without a design recorded a problem
+    return Scenario(
+        title=title,
+        design=design,
+        methods=tuple(methods),
+        assurance=assurance,
+        coverage_tolerance=tol,
+        replicates=replicates,
+        seed=seed,
+        n_min=n_min,
+        n_max=n_max,
+        budget=budget,
+        path=path,
+        source=source,
+        base_dir=bdir,
+        table=table,
+        event_values=None if event_values is None else tuple(event_values),
+        event_above=event_above,
+    )
+
+
+# --- validation helpers -------------------------------------------------------
+def _unknown_keys(c: Collector, table: dict[str, Any]) -> None:
+    for k in table:
+        if k not in _TOP:
+            c.add(str(k), f"unknown key; {_suggest(str(k), '', _TOP)}")
+    for t, keys in _TABLES.items():
+        sub = table.get(t)
+        if isinstance(sub, dict):
+            for k in sub:
+                if k not in keys:
+                    c.add(f"{t}.{k}", f"unknown key; {_suggest(str(k), t, keys)}")
+
+
+def _suggest(leaf: str, table: str, keys: tuple[str, ...]) -> str:
+    near = difflib.get_close_matches(leaf, list(keys), n=1, cutoff=0.6)
+    if near:
+        return f"did you mean {_join(table, near[0])!r}?"
+    # a key written under the wrong table header (TOML keys belong to the last header above them)
+    elsewhere = [k for k in KNOWN_KEYS if k.rsplit(".", 1)[-1] == leaf and k != _join(table, leaf)]
+    if leaf in _TOP and table:
+        return f"did you mean the top-level {leaf!r}? (top-level keys go before the first [table])"
+    if elsewhere:
+        return f"did you mean {elsewhere[0]!r}?"
+    near = difflib.get_close_matches(_join(table, leaf), _FIXED_KEYS, n=1, cutoff=0.6)
+    if near:
+        return f"did you mean {near[0]!r}?"
+    return f"known keys here: {', '.join(keys)}"
+
+
+def _join(table: str, leaf: str) -> str:
+    return f"{table}.{leaf}" if table else leaf
+
+
+def _no_nan(c: Collector, value: Any, name: str) -> None:
+    # NaN is never a meaningful input; the typed checks below refuse infinities
+    # where they make no sense, and models decide for their own parameters.
+    if isinstance(value, dict):
+        for k, v in value.items():
+            _no_nan(c, v, _join(name, str(k)))
+    elif isinstance(value, list):
+        for i, v in enumerate(value):
+            _no_nan(c, v, f"{name}[{i}]")
+    elif isinstance(value, float) and math.isnan(value):
+        c.add(name, "must be a finite number, got nan")
+
+
+def _table(c: Collector, table: dict[str, Any], name: str, *, required: bool) -> dict[str, Any] | None:
+    v = table.get(name)
+    if v is None:
+        if required:
+            keys = ", ".join(k for k in _TABLES[name])
+            c.add(name, f"missing: a [{name}] table is required ({keys})")
+        return None
+    if not isinstance(v, dict):
+        c.add(name, f"must be a table ([{name}]), got {v!r}")
+        return None
+    return v
+
+
+def _is_nan(v: Any) -> bool:
+    return isinstance(v, float) and math.isnan(v)
+
+
+def _num(
+    c: Collector,
+    tbl: dict[str, Any],
+    prefix: str,
+    key: str,
+    default: Any,
+    *,
+    required: bool = False,
+    what: str | None = None,
+    **limits: Any,
+) -> Any:
+    name = f"{prefix}.{key}"
+    if key not in tbl:
+        if required:
+            c.add(name, f"missing (required: {what or KNOWN_KEYS.get(name, 'a number')})")
+        return default
+    v = tbl[key]
+    if _is_nan(v):  # already reported by _no_nan
+        return None
+    return c.number(name, v, **limits)
+
+
+def _choice(
+    c: Collector,
+    tbl: dict[str, Any],
+    prefix: str,
+    key: str,
+    choices: tuple[str, ...],
+    *,
+    required: bool = False,
+    default: str | None = None,
+) -> str | None:
+    name = f"{prefix}.{key}"
+    if key not in tbl:
+        if required:
+            c.add(name, f"missing (required: one of {', '.join(choices)})")
+        return default
+    v = tbl[key]
+    if not isinstance(v, str):
+        c.add(name, f"must be one of {', '.join(choices)} (text), got {v!r}")
+        return None
+    if v not in choices:
+        near = difflib.get_close_matches(v, list(choices), n=1, cutoff=0.5)
+        hint = f"did you mean {near[0]!r}? " if near else ""
+        c.add(name, f"unknown value {v!r}; {hint}choose one of {', '.join(choices)}")
+        return None
+    return v
+
+
+def _event(c: Collector, target: dict[str, Any], estimand: str | None):
+    has_v, has_a = "event_values" in target, "event_above" in target
+    if not (has_v or has_a):
+        return None, None
+    if estimand is not None and estimand not in ("proportion", "proportion-diff"):
+        key = "target.event_values" if has_v else "target.event_above"
+        c.add(key, f"only for proportion estimands (proportion, proportion-diff); estimand is {estimand!r}")
+        return None, None
+    if has_v and has_a:
+        c.add("target.event_above", "give event_values or event_above, not both")
+        return None, None
+    if has_a:
+        a = target["event_above"]
+        if _is_nan(a):
+            return None, None
+        return None, c.number("target.event_above", a)
+    vals = target["event_values"]
+    if isinstance(vals, bool) or not isinstance(vals, list):
+        c.add("target.event_values", f"must be a list of numbers such as [6, 7], got {vals!r}")
+        return None, None
+    if not vals:
+        c.add("target.event_values", "must list at least one value, got []")
+        return None, None
+    out = []
+    for i, v in enumerate(vals):
+        if _is_nan(v):
+            return None, None
+        x = c.number(f"target.event_values[{i}]", v)
+        if x is None:
+            return None, None
+        out.append(float(x))
+    return out, None
+
+
+def _model(c: Collector, tbl: Any, prefix: str, base_dir: str | None):
+    from simcheck.models import make_model
+
+    if not isinstance(tbl, dict):
+        c.add(prefix, f"must be a model table (model = \"...\" and its parameters), got {tbl!r}")
+        return None
+    try:
+        return make_model(tbl, base_dir=base_dir)
+    except InputError as e:
+        c.extend(e.prefixed(prefix))
+        return None
+
+
+def _group(c: Collector, data: dict[str, Any], g: str, base_dir: str | None):
+    if g not in data:
+        c.add(f"data.{g}", f"missing: a two-sample estimand needs [data.a] and [data.b]; [data.{g}] is not given")
+        return None
+    return _model(c, data[g], f"data.{g}", base_dir)
+
+
+def _wrap_event(c: Collector, model, values, above):
+    from simcheck.models.composite import EventModel
+
+    try:
+        return EventModel(model, values=values, above=above)
+    except InputError as e:
+        for p in e.problems:
+            c.add(f"target.{p.field}" if p.field else "target", p.message)
+        return None
+
+
+def _methods(c: Collector, method: dict[str, Any], estimand: str | None) -> list[str]:
+    from simcheck.intervals import REGISTRY, methods_for
+
+    if "interval" not in method:
+        known = f"; for {estimand!r} choose from {', '.join(methods_for(estimand))}" if estimand else ""
+        c.add("method.interval", f"missing (required: an interval method name or a list of names{known})")
+        return []
+    v = method["interval"]
+    names = [v] if isinstance(v, str) else v
+    if not isinstance(names, list) or not names:
+        c.add("method.interval", f"must be a method name or a non-empty list of names, got {v!r}")
+        return []
+    out: list[str] = []
+    for i, m in enumerate(names):
+        name = "method.interval" if isinstance(v, str) else f"method.interval[{i}]"
+        if not isinstance(m, str):
+            c.add(name, f"must be a method name (text), got {m!r}")
+            continue
+        if m in out:
+            c.add(name, f"{m!r} is listed twice")
+            continue
+        if estimand is not None and (estimand, m) not in REGISTRY:
+            known = methods_for(estimand)
+            near = difflib.get_close_matches(m, known, n=1, cutoff=0.5)
+            hint = f"did you mean {near[0]!r}? " if near else ""
+            others = sorted(e for (e, n) in REGISTRY if n == m)
+            where = f"{m!r} is for {', '.join(others)}; " if others else ""
+            c.add(name, f"unknown interval {m!r} for estimand {estimand!r}; {where}{hint}choose one of {', '.join(known)}")
+            continue
+        out.append(m)
+    return out if len(out) == len(names) else []
+
+
+def _seed(c: Collector, sim: dict[str, Any]) -> int | None:
+    if "seed" not in sim:
+        return None
+    v = sim["seed"]
+    # a float seed would silently lose digits above 2**53
+    if isinstance(v, bool) or not isinstance(v, Integral):
+        c.add("simulation.seed", f"must be a whole number (integer) in [0, {SEED_MAX}], got {v!r}")
+        return None
+    if not 0 <= int(v) <= SEED_MAX:
+        c.add("simulation.seed", f"must be in [0, {SEED_MAX}], got {v!r}")
+        return None
+    return int(v)
+
+
+def _clusters(c: Collector, t: dict[str, Any]) -> ClusterSpec | None:
+    n0 = len(c.problems)
+    icc = _num(c, t, "clusters", "icc", None, required=True, low=0, high=1, high_open=True)
+    size = size_mean = size_cv = None
+    if "size" in t:
+        if "size_mean" in t or "size_cv" in t:
+            c.add("clusters.size", "give size (equal clusters) or size_mean and size_cv (varying sizes), not both")
+        else:
+            size = _num(c, t, "clusters", "size", None, low=1, high=CLUSTER_SIZE_MAX, integer=True)
+    elif "size_mean" in t:
+        size_mean = _num(c, t, "clusters", "size_mean", None, low=1, high=CLUSTER_SIZE_MAX)
+        size_cv = _num(c, t, "clusters", "size_cv", None, required=True, low=0,
+                       what="coefficient of variation of the cluster sizes, >= 0")
+    elif "size_cv" in t:
+        c.add("clusters.size_mean", "missing: size_cv needs size_mean (the mean cluster size)")
+    else:
+        c.add("clusters.size", "missing (required: size, or size_mean and size_cv)")
+    effect = _choice(c, t, "clusters", "effect", CLUSTER_EFFECTS, default="normal")
+    if len(c.problems) > n0:
+        return None
+    return ClusterSpec(icc=icc, size=size, size_mean=size_mean, size_cv=size_cv, effect=effect)
+
+
+def _population(c: Collector, t: dict[str, Any], base_dir: str | None) -> PopulationSpec | None:
+    n0 = len(c.problems)
+    size = _num(c, t, "population", "size", None, low=2, high=POPULATION_MAX, integer=True)
+    fpc = t.get("fpc", True)
+    if not isinstance(fpc, bool):
+        c.add("population.fpc", f"must be true or false, got {fpc!r}")
+    file = column = resolved = None
+    if "file" in t:
+        file = t["file"]
+        if not isinstance(file, str) or not file.strip():
+            c.add("population.file", f"must be a file name (text), got {file!r}")
+            file = None
+        column = t.get("column")
+        if column is None:
+            c.add("population.column", "missing (required with population.file: the column holding the values)")
+        elif not isinstance(column, str) or not column.strip():
+            c.add("population.column", f"must be a column name (text), got {column!r}")
+            column = None
+        if file is not None and column is not None:
+            resolved, rows = _population_file(c, file, column, base_dir)
+            if rows is not None:
+                if "size" not in t:
+                    size = rows
+                elif size is not None and size != rows:
+                    c.add("population.size", f"must match the {rows} values in population.file, got {size}")
+    elif "column" in t:
+        c.add("population.column", "only with population.file")
+    if "size" not in t and "file" not in t:
+        c.add("population.size", "missing (required: the number of units in the population)")
+    if len(c.problems) > n0 or size is None:
+        return None
+    return PopulationSpec(size=size, fpc=fpc, file=resolved, column=column)
+
+
+def _population_file(c: Collector, file: str, column: str, base_dir: str | None):
+    p = Path(file)
+    if not p.is_absolute() and base_dir is not None:
+        p = Path(base_dir) / p
+    if not p.is_file():
+        c.add("population.file", f"no such file: {file}" + (" (is a folder)" if p.is_dir() else ""))
+        return None, None
+    try:
+        with open(p, newline="", encoding="utf-8-sig") as fh:
+            reader = csv.DictReader(fh)
+            header = reader.fieldnames or []
+            if column not in header:
+                near = difflib.get_close_matches(column, header, n=1, cutoff=0.5)
+                hint = f"did you mean {near[0]!r}? " if near else ""
+                c.add("population.column", f"no column {column!r} in {file}; {hint}columns: {', '.join(header) or 'none'}")
+                return None, None
+            count = 0
+            for line, row in enumerate(reader, start=2):
+                cell = (row.get(column) or "").strip()
+                if not cell:
+                    continue
+                try:
+                    x = float(cell)
+                except ValueError:
+                    x = math.nan
+                if not math.isfinite(x):
+                    c.add("population.file", f"{file} line {line}: column {column!r} must hold finite numbers, got {cell!r}")
+                    return None, None
+                count += 1
+    except (OSError, UnicodeDecodeError, csv.Error) as e:
+        c.add("population.file", f"cannot read {file}: {e}")
+        return None, None
+    if count < 2:
+        c.add("population.file", f"{file} column {column!r} needs at least 2 values, got {count}")
+        return None, None
+    return str(p.resolve()), count
+
+
+def _extend_design(c: Collector, e: InputError, estimand: str | None) -> None:
+    for p in e.problems:
+        f = p.field
+        # Design calls group a "data"; in a two-sample file it is [data.a]
+        if estimand in TWO_SAMPLE and (f == "data" or f.startswith("data.") and not f.startswith(("data.a", "data.b"))):
+            f = "data.a" + f[4:]
+        c.add(f, p.message)
+
+
+def _check_path(c: Collector, designs: list[Design], path: str) -> None:
+    from simcheck.engine import available_paths
+
+    for d in designs:
+        try:
+            ok = available_paths(d)
+        except InputError as e:
+            c.extend(e)
+            continue
+        if path not in ok:
+            c.add("simulation.path", f"{path!r} is not available for interval {d.method!r} with this model; available: auto, {', '.join(ok)}")
+
+
+def _dedupe(c: Collector) -> None:
+    seen: set[tuple[str, str]] = set()
+    out = []
+    for p in c.problems:
+        if (p.field, p.message) not in seen:
+            seen.add((p.field, p.message))
+            out.append(p)
+    c.problems[:] = out
+
+
+def _json_safe(v: Any) -> Any:
+    if isinstance(v, dict):
+        return {str(k): _json_safe(x) for k, x in v.items()}
+    if isinstance(v, (list, tuple)):
+        return [_json_safe(x) for x in v]
+    if isinstance(v, (_dt.date, _dt.time, _dt.datetime)):
+        return v.isoformat()
+    if hasattr(v, "item") and not isinstance(v, (str, bytes)):  # numpy scalar
+        return v.item()
+    return v
+
+
+def _flatten(d: dict[str, Any], prefix: str, out: dict[str, Any]) -> None:
+    for k, v in d.items():
+        name = _join(prefix, k)
+        if isinstance(v, dict):
+            _flatten(v, name, out)
+        else:
+            out[name] = v

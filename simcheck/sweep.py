@@ -1,0 +1,356 @@
+"""Sweeps: run every cell of a grid, store each as it finishes, resume.
+
+The driver validates the whole grid (:mod:`simcheck.sweep_grid`), opens the
+store (:mod:`simcheck.sweep_store`), and hands the cells the store lacks to
+joblib: local processes (``backend="local"``, ``jobs`` workers) or an existing
+Dask cluster through joblib's dask backend (``backend="dask"``). Results
+stream back in completion order and the driver writes each one at once, in
+its own transaction; workers never touch the store.
+
+Re-running the same sweep resumes: cells stored with status ``'ok'`` are
+skipped, cells stored with status ``'error'`` are run again (an error may have
+been a lack of memory or a since-fixed bug; a result never is), and cells new
+to the grid are added, keeping the rows of cells no longer in it.
+
+Every cell draws from its own stream,
+``SeedSequence(root_seed, spawn_key=(key_from_text(cell_key),))``, so its
+result is bitwise the same whatever the worker count, backend, order or number
+of interruptions.
+"""
+
+from __future__ import annotations
+
+import os
+import socket
+import time
+import traceback
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Callable
+
+import numpy as np
+
+from simcheck.errors import InputError
+from simcheck.rng import key_from_text
+from simcheck.sweep_grid import Cell, SweepSpec, expand, read_sweep
+from simcheck.sweep_store import StoredCell, SweepStore
+
+BACKENDS = ("local", "dask")
+
+#: ``cell_func(scenario, task, seed, **task_kwargs) -> dict`` computes one cell
+CellFunc = Callable[..., dict]
+
+
+@dataclass(frozen=True)
+class CellOutcome:
+    """What a worker sends back to the driver for one cell."""
+
+    cell_key: str
+    status: str
+    result: dict[str, Any] | None
+    error: str | None
+    traceback: str | None
+    seconds: float
+    worker: str
+
+
+@dataclass(frozen=True)
+class SweepSummary:
+    """Counts of one sweep invocation."""
+
+    cells_total: int
+    done_before: int
+    run_now: int
+    failed: int
+    store: str
+    interrupted: bool = False
+    pending: int = 0
+
+    @property
+    def stored_ok(self) -> int:
+        return self.done_before + self.run_now - self.failed
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "cells_total": self.cells_total,
+            "done_before": self.done_before,
+            "run_now": self.run_now,
+            "failed": self.failed,
+            "remaining": self.pending,
+            "interrupted": self.interrupted,
+            "store": self.store,
+        }
+
+
+class SweepInterrupted(KeyboardInterrupt):
+    """Ctrl-C (or SIGTERM turned into it) during a sweep; finished cells are stored."""
+
+    def __init__(self, summary: SweepSummary) -> None:
+        super().__init__("sweep interrupted")
+        self.summary = summary
+
+
+class SweepAborted(RuntimeError):
+    """The execution machinery failed (e.g. a worker process died); finished cells are stored."""
+
+    def __init__(self, summary: SweepSummary, cause: BaseException) -> None:
+        super().__init__(f"{type(cause).__name__}: {cause}")
+        self.summary = summary
+        self.cause = cause
+
+
+def cell_seed(root_seed: int, cell_key: str) -> int:
+    """The seed of one cell: a pure function of the root seed and the cell key.
+
+    It is the first 63 bits of ``SeedSequence(root_seed,
+    spawn_key=(key_from_text(cell_key),))``, so cells get independent streams,
+    and, being a plain int that the cell's result reports, any single cell can
+    be repeated with ``simcheck check|curve|search --seed S`` on its scenario.
+    """
+    ss = np.random.SeedSequence(int(root_seed), spawn_key=(key_from_text(cell_key),))
+    return int(ss.generate_state(1, dtype=np.uint64)[0] >> np.uint64(1))
+
+
+def run_cell(scenario: Any, task: str, seed: int, **task_kwargs: Any) -> dict[str, Any]:
+    """Compute one cell with :func:`simcheck.tasks.run_task` (the default ``cell_func``).
+
+    A check over a list of n gives ``{"rows": [check, ...]}``, the shape of a curve.
+    """
+    from simcheck.tasks import run_task
+
+    out = run_task(scenario, task, seed=seed, **task_kwargs)
+    if isinstance(out, list):
+        return {"rows": [r.to_dict() for r in out]}
+    return out.to_dict()
+
+
+def _execute(cell_func: CellFunc, cell_key: str, scenario: Any, task: str, kwargs: dict, seed) -> CellOutcome:
+    # Runs in a worker. Any exception of the cell becomes an 'error' row so the
+    # sweep goes on; only the machinery itself (a dead worker) can stop it.
+    worker = f"{socket.gethostname()}:{os.getpid()}"
+    t0 = time.perf_counter()
+    try:
+        result = cell_func(scenario, task, seed, **kwargs)
+        from simcheck.results import _clean
+
+        result = _clean(result)
+        return CellOutcome(cell_key, "ok", result, None, None, time.perf_counter() - t0, worker)
+    except Exception as exc:
+        text = exc.one_line() if isinstance(exc, InputError) else f"{type(exc).__name__}: {exc}"
+        return CellOutcome(
+            cell_key,
+            "error",
+            None,
+            text.replace("\n", " "),
+            traceback.format_exc(),
+            time.perf_counter() - t0,
+            worker,
+        )
+
+
+def _worker_version() -> str:
+    import simcheck
+
+    return simcheck.__version__
+
+
+def connect_dask(scheduler: str | None):
+    """A ``distributed.Client`` for an existing cluster whose workers run this simcheck version.
+
+    Raises
+    ------
+    InputError
+        dask.distributed missing, no address, cluster unreachable, or workers
+        without simcheck (or with another version).
+    """
+    if not scheduler:
+        raise InputError("--scheduler", "--backend dask needs the scheduler address, e.g. tcp://10.0.0.5:8786")
+    try:
+        from distributed import Client
+    except ImportError:
+        raise InputError(
+            "--backend", "dask needs dask.distributed: pip install 'simcheck[distributed]'"
+        ) from None
+    import simcheck
+
+    try:
+        client = Client(scheduler, timeout="20s")
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise InputError("--scheduler", f"cannot connect to {scheduler}: {exc}") from None
+    try:
+        got = client.run(_worker_version)
+    except Exception as exc:
+        client.close()
+        raise InputError(
+            "--scheduler",
+            f"the workers of {scheduler} cannot run simcheck ({type(exc).__name__}: {exc}); "
+            f"install simcheck {simcheck.__version__} on every worker",
+        ) from None
+    wrong = sorted(f"{w} has {v}" for w, v in got.items() if v != simcheck.__version__)
+    if wrong:
+        client.close()
+        raise InputError(
+            "--scheduler", f"workers must run simcheck {simcheck.__version__}: " + ", ".join(wrong)
+        )
+    return client
+
+
+def run_sweep(
+    sweep: str | Path | SweepSpec,
+    store: str | Path,
+    *,
+    jobs: int = 1,
+    backend: str = "local",
+    scheduler: str | None = None,
+    cell_func: CellFunc | None = None,
+    on_start: Callable[[int, int], None] | None = None,
+    on_cell: Callable[[CellOutcome, int, int], None] | None = None,
+) -> SweepSummary:
+    """Run the cells of a sweep that ``store`` lacks, storing each as it finishes.
+
+    Parameters
+    ----------
+    sweep : path or SweepSpec
+        The sweep file (or an already read one).
+    store : path
+        SQLite file; created when missing. Only this process writes to it.
+    jobs : int
+        Local worker processes (``backend="local"``); with ``backend="dask"``
+        at most this many cells run at once when > 1, else all workers.
+    backend : {"local", "dask"}
+    scheduler : str, optional
+        Address of the Dask scheduler (``backend="dask"``).
+    cell_func : callable, optional
+        ``cell_func(scenario, task, seed, **task_kwargs) -> dict``; default
+        :func:`run_cell`. Must be importable by the workers.
+    on_start : callable, optional
+        ``on_start(done_before, total)`` once the store is open.
+    on_cell : callable, optional
+        ``on_cell(outcome, done, total)`` after each cell is stored.
+
+    Returns
+    -------
+    SweepSummary
+
+    Raises
+    ------
+    InputError
+        Bad sweep file, grid cell or options; nothing is run or stored.
+    SweepInterrupted
+        Ctrl-C; every finished cell is stored (carries the summary).
+    SweepAborted
+        The execution machinery failed; every finished cell is stored.
+    """
+    if isinstance(jobs, bool) or not isinstance(jobs, int) or jobs < 1:
+        raise InputError("--jobs", f"must be a whole number >= 1, got {jobs!r}")
+    if backend not in BACKENDS:
+        raise InputError("--backend", f"must be one of {', '.join(BACKENDS)}, got {backend!r}")
+    if backend == "local" and scheduler:
+        raise InputError("--scheduler", "only with --backend dask")
+    spec = sweep if isinstance(sweep, SweepSpec) else read_sweep(sweep)
+    cells = expand(spec)
+    func = cell_func or run_cell
+    # Connect before creating the store: a wrong address must leave nothing behind.
+    client = connect_dask(scheduler) if backend == "dask" else None
+    try:
+        with SweepStore(store) as st:
+            return _drive(spec, cells, st, func, jobs, backend, on_start, on_cell)
+    finally:
+        if client is not None:
+            client.close()
+
+
+def _drive(
+    spec: SweepSpec,
+    cells: list[Cell],
+    st: SweepStore,
+    func: CellFunc,
+    jobs: int,
+    backend: str,
+    on_start,
+    on_cell,
+) -> SweepSummary:
+    import joblib
+
+    status = st.status_by_key()
+    pending = [c for c in cells if status.get(c.key) != "ok"]
+    total = len(cells)
+    before = total - len(pending)
+    run_id = st.begin_run(spec=spec, cells_total=total, cells_before=before, backend=backend, jobs=jobs)
+    if on_start is not None:
+        on_start(before, total)
+    by_key = {c.key: c for c in pending}
+    kwargs = spec.task_kwargs()
+    run_now = failed = 0
+
+    def summary(interrupted: bool = False) -> SweepSummary:
+        return SweepSummary(
+            cells_total=total,
+            done_before=before,
+            run_now=run_now,
+            failed=failed,
+            store=str(st.path),
+            interrupted=interrupted,
+            pending=len(pending) - run_now,
+        )
+
+    if not pending:
+        return summary()
+    tasks = (
+        joblib.delayed(_execute)(func, c.key, c.scenario, spec.task, kwargs, cell_seed(spec.seed, c.key))
+        for c in pending
+    )
+    if backend == "dask":
+        config = joblib.parallel_config(backend="dask")
+        n_jobs = jobs if jobs > 1 else -1
+    else:
+        config = joblib.parallel_config(backend="loky")
+        n_jobs = min(jobs, len(pending))
+    results = None
+    try:
+        with config:
+            # batch_size=1: each cell comes back (and is stored) on its own, as soon as it is done
+            parallel = joblib.Parallel(n_jobs=n_jobs, return_as="generator_unordered", batch_size=1, pre_dispatch="2*n_jobs")
+            results = parallel(tasks)
+            for out in results:
+                cell = by_key[out.cell_key]
+                st.put(
+                    StoredCell(
+                        cell_key=cell.key,
+                        cell_index=cell.index,
+                        task=spec.task,
+                        values=cell.values,
+                        scenario=cell.scenario.to_dict(),
+                        task_args=kwargs,
+                        seed=spec.seed,
+                        status=out.status,
+                        result=out.result,
+                        error=out.error,
+                        traceback=out.traceback,
+                        seconds=out.seconds,
+                        worker=out.worker,
+                    ),
+                    run_id,
+                )
+                run_now += 1
+                failed += out.status != "ok"
+                if on_cell is not None:
+                    on_cell(out, before + run_now, total)
+    except KeyboardInterrupt:
+        _close(results)
+        raise SweepInterrupted(summary(interrupted=True)) from None
+    except InputError:
+        raise
+    except Exception as exc:
+        _close(results)
+        raise SweepAborted(summary(interrupted=True), exc) from exc
+    return summary()
+
+
+def _close(results: Any) -> None:
+    # Closing joblib's generator cancels the cells not yet started and stops the workers.
+    if results is not None and hasattr(results, "close"):
+        try:
+            results.close()
+        except BaseException:
+            pass

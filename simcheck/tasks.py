@@ -1,0 +1,223 @@
+"""Run a scenario: the one place that maps a :class:`~simcheck.scenario.Scenario`
+onto the engine and search calls. Used by the command line and by sweeps.
+
+Tasks:
+
+``check``   :func:`simcheck.engine.check` at one n (or at each n of a list)
+``curve``   :func:`simcheck.engine.curve` over ``n_min..n_max`` (or given n values)
+``search``  :func:`simcheck.search.find_n`, or :func:`simcheck.search.compare`
+            when the scenario lists several interval methods
+
+The root random seed is the ``seed`` argument, else the scenario's
+``simulation.seed``, else one drawn from OS entropy (:func:`fresh_seed`); the
+results carry it, so every run can be repeated.
+"""
+
+from __future__ import annotations
+
+import inspect
+import secrets
+from numbers import Integral
+from typing import Any, Callable, Mapping, Sequence
+
+from simcheck.design import Design
+from simcheck.errors import Collector
+from simcheck.scenario import N_LIMIT, REPLICATES_MAX, REPLICATES_MIN, SEED_MAX, Scenario
+
+TASKS = ("check", "curve", "search")
+
+#: how run_task names its arguments in errors; the CLI passes option names
+DEFAULT_FIELDS = {
+    "task": "task",
+    "n": "n",
+    "n_min": "n_min",
+    "n_max": "n_max",
+    "step": "step",
+    "method": "method",
+    "replicates": "replicates",
+    "seed": "seed",
+}
+
+Progress = Callable[[int, int], None] | None
+
+
+def fresh_seed() -> int:
+    """A seed from OS entropy, for runs whose scenario gives none.
+
+    32 bits: short enough to retype after ``--seed``, and a seed only needs
+    to name a stream, not to be unguessable.
+    """
+    return secrets.randbits(32)
+
+
+def resolve_seed(scenario: Scenario, seed: int | None = None) -> tuple[int, bool]:
+    """The root seed of a run and whether it was drawn at random."""
+    if seed is not None:
+        return int(seed), False
+    if scenario.seed is not None:
+        return int(scenario.seed), False
+    return fresh_seed(), True
+
+
+def run_task(
+    scenario: Scenario,
+    task: str,
+    *,
+    n: int | Sequence[int] | None = None,
+    n_min: int | None = None,
+    n_max: int | None = None,
+    step: int | None = None,
+    method: str | None = None,
+    replicates: int | None = None,
+    seed: int | None = None,
+    progress: Progress = None,
+    fields: Mapping[str, str] | None = None,
+):
+    """Run ``task`` on ``scenario``.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    task : {"check", "curve", "search"}
+    n : int or list of int
+        check: required; a list gives one CheckResult per n (each computed
+        as ``check`` alone would, with the same seed). curve: optional list of
+        n values instead of the range.
+    n_min, n_max : int, optional
+        curve / search range; default the scenario's.
+    step : int, optional
+        curve: spacing of the range (default 1).
+    method : str, optional
+        check / curve / search: the interval method (default: the first
+        listed for check and curve; every listed one for search).
+    replicates, seed : int, optional
+        Override ``simulation.replicates`` / ``simulation.seed``.
+    progress : callable, optional
+        ``progress(done, total)``, passed to the engine.
+    fields : dict, optional
+        Names of the arguments in error messages (the CLI passes ``--n``...).
+
+    Returns
+    -------
+    CheckResult, list of CheckResult, CurveResult, SearchResult or MethodComparison
+
+    Raises
+    ------
+    InputError
+        All problems with the arguments at once.
+    """
+    names = {**DEFAULT_FIELDS, **(fields or {})}
+    c = Collector()
+    if task not in TASKS:
+        c.add(names["task"], f"must be one of {', '.join(TASKS)}, got {task!r}")
+    reps = scenario.replicates
+    if replicates is not None:
+        reps = c.number(names["replicates"], replicates, low=REPLICATES_MIN, high=REPLICATES_MAX, integer=True)
+    if seed is not None:
+        if isinstance(seed, bool) or not isinstance(seed, Integral):
+            c.add(names["seed"], f"must be a whole number in [0, {SEED_MAX}], got {seed!r}")
+        elif not 0 <= int(seed) <= SEED_MAX:
+            c.add(names["seed"], f"must be in [0, {SEED_MAX}], got {seed!r}")
+    design = scenario.design
+    if method is not None:
+        design = _method_design(c, scenario, method, names["method"])
+    n_cap = _n_cap(scenario)
+
+    lo = _n_arg(c, names["n_min"], n_min, n_cap - 1) if n_min is not None else scenario.n_min
+    hi = _n_arg(c, names["n_max"], n_max, n_cap) if n_max is not None else min(scenario.n_max, n_cap)
+    if lo is not None and hi is not None and hi <= lo and task in ("curve", "search"):
+        c.add(names["n_max"], f"must be > n_min ({lo}), got {hi}")
+    n_list: list[int] | None = None
+    if task == "check":
+        if n is None:
+            c.add(names["n"], "required for task 'check': the sample size(s) to check")
+        else:
+            n_list = _n_values(c, names["n"], n, n_cap)
+    elif task == "curve":
+        if n is not None:
+            n_list = _n_values(c, names["n"], n, n_cap)
+        st = 1
+        if step is not None:
+            st = c.number(names["step"], step, low=1, high=N_LIMIT, integer=True)
+        if n_list is None and lo is not None and hi is not None and st is not None and hi > lo:
+            n_list = list(range(lo, hi + 1, st))
+            if n_list[-1] != hi:
+                n_list.append(hi)  # the range's end is always evaluated
+    elif task == "search" and n is not None:
+        c.add(names["n"], "not used by task 'search' (it finds n); give n_min / n_max instead")
+    c.raise_if_any()
+
+    root, _ = resolve_seed(scenario, seed)
+    if task == "check":
+        from simcheck import engine
+
+        out = [
+            engine.check(design, k, replicates=reps, rng=root, path=scenario.path, progress=progress)
+            for k in n_list
+        ]
+        return out[0] if isinstance(n, Integral) else out
+    if task == "curve":
+        from simcheck import engine
+
+        return engine.curve(design, n_list, replicates=reps, rng=root, path=scenario.path, progress=progress)
+
+    from simcheck import search
+
+    kwargs: dict[str, Any] = dict(
+        assurance=scenario.assurance,
+        coverage_tolerance=scenario.coverage_tolerance,
+        replicates=reps,
+        rng=root,
+        n_min=lo,
+        n_max=hi,
+        budget=scenario.budget,
+        progress=progress,
+    )
+    if method is None and len(scenario.methods) > 1:
+        fn = search.compare
+        args: tuple = (design, list(scenario.methods))
+    else:
+        fn = search.find_n
+        args = (design,)
+    if scenario.path != "auto" and "path" in inspect.signature(fn).parameters:
+        kwargs["path"] = scenario.path
+    return fn(*args, **kwargs)
+
+
+def _method_design(c: Collector, scenario: Scenario, method: Any, name: str) -> Design:
+    from simcheck.errors import InputError
+    from simcheck.intervals import REGISTRY, methods_for
+
+    d = scenario.design
+    if not isinstance(method, str) or (d.estimand, method) not in REGISTRY:
+        c.add(name, f"unknown interval {method!r} for estimand {d.estimand!r}; choose one of {', '.join(methods_for(d.estimand))}")
+        return d
+    try:
+        return d.with_method(method)
+    except InputError as e:
+        for p in e.problems:
+            c.add(name, p.message)
+        return d
+
+
+def _n_cap(scenario: Scenario) -> int:
+    # without replacement, n cannot exceed the population (units, not clusters)
+    pop = scenario.design.population
+    if pop is not None and scenario.design.clusters is None:
+        return min(N_LIMIT, pop.size)
+    return N_LIMIT
+
+
+def _n_arg(c: Collector, name: str, v: Any, high: int) -> int | None:
+    return c.number(name, v, low=2, high=high, integer=True)
+
+
+def _n_values(c: Collector, name: str, v: Any, high: int) -> list[int] | None:
+    if isinstance(v, (list, tuple)):
+        if not v:
+            c.add(name, "needs at least one sample size, got an empty list")
+            return None
+        vals = [_n_arg(c, f"{name}[{i}]" if len(v) > 1 else name, x, high) for i, x in enumerate(v)]
+        return None if any(x is None for x in vals) else vals
+    x = _n_arg(c, name, v, high)
+    return None if x is None else [x]
