@@ -359,13 +359,16 @@ class _Acc:
         sums are taken per block and added in block order at the end, so they
         do not depend on how blocks were grouped into chunks.
         """
-        self.low += np.count_nonzero(hi < truth, axis=0)
-        self.high += np.count_nonzero(lo > truth, axis=0)
-        hw = (hi - lo) * 0.5
+        # bool sums along axis 0 are about twice as fast as count_nonzero(axis=0)
+        self.low += (hi < truth).sum(axis=0)
+        self.high += (lo > truth).sum(axis=0)
+        hw = np.subtract(hi, lo)
+        hw *= 0.5
+        # always reduceat: the same summation whatever the grouping of blocks
         self.block_sums.append(np.add.reduceat(hw, starts if starts is not None else [0], axis=0))
         if self.margin is not None:
             # tolerance for half-widths equal to the margin in exact arithmetic
-            self.assured += np.count_nonzero(hw <= self.margin * (1 + 1e-12), axis=0)
+            self.assured += (hw <= self.margin * (1 + 1e-12)).sum(axis=0)
         if degenerate is not None:
             self.degenerate += np.count_nonzero(degenerate, axis=0)
         b = hw.shape[0]

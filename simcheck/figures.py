@@ -471,6 +471,8 @@ def _is_numeric(series) -> bool:
 def _level_text(col: str, value: Any) -> str:
     if isinstance(value, float):
         value = f"{value:g}"
+    if col in ("method.interval", "method"):
+        return f"{value} interval"
     return f"{col} = {value}"
 
 
@@ -537,6 +539,11 @@ def sweep_figure(
     nrows = math.ceil(k / ncols)
     height = 2.9 if nrows == 1 else 2.2 * nrows + 0.5
     x_numeric = _is_numeric(frame[x_col])
+    # Error bars of neighbouring lines would overlap at the same x: shift each line a little.
+    dodge = 0.0
+    if value == "coverage" and line_col is not None and frame[line_col].nunique() > 1:
+        span = (float(frame[x_col].max()) - float(frame[x_col].min())) if x_numeric else float(frame[x_col].nunique())
+        dodge = 0.012 * (span or 1.0)
     x_levels = sorted(frame[x_col].dropna().unique().tolist(), key=lambda v: (str(type(v)), v))
     line_levels = sorted(frame[line_col].dropna().unique().tolist(), key=str) if line_col else [None]
     use_ref = value == "n" and reference is not None and reference in frame.columns
@@ -565,9 +572,11 @@ def sweep_figure(
                 part = part.sort_values(x_col)
                 if part.empty:
                     continue
-                xs = part[x_col].to_numpy() if x_numeric else np.array([x_levels.index(v) for v in part[x_col]])
+                xs = part[x_col].to_numpy(dtype=float) if x_numeric else np.array([x_levels.index(v) for v in part[x_col]], dtype=float)
+                if dodge:
+                    xs = xs + dodge * (i - (len(line_levels) - 1) / 2)
                 ys = part[value].to_numpy(dtype=float)
-                label = str(lev) if line_col is not None else value_label
+                label = _level_text(line_col, lev) if line_col is not None else value_label
                 if value == "coverage" and "coverage_mcse" in part.columns:
                     ax.errorbar(xs, ys, yerr=2 * np.nan_to_num(part["coverage_mcse"].to_numpy(dtype=float)),
                                 color=st["color"], marker=st["marker"], linestyle=st["linestyle"],
@@ -592,7 +601,7 @@ def sweep_figure(
                 _plain_log(axes[0].yaxis)
         if line_col is not None:
             fig.legend(*_legend_items(fig), loc="outside lower center", ncols=min(5, len(line_levels) + 2),
-                       title=line_col, handlelength=2.6)
+                       handlelength=2.6)
         else:
             _outside_legend(fig, axes[0])
     return fig

@@ -28,10 +28,8 @@ from dataclasses import dataclass
 from typing import Any, Callable
 
 import numpy as np
-from scipy import stats
 
 from simcheck.errors import Collector, InputError
-from simcheck.results import _clean
 
 __all__ = [
     "ESTIMANDS",
@@ -95,6 +93,14 @@ def ceil_robust(x: Any, rel: float = 1e-9) -> Any:
     return out.astype(np.int64)
 
 
+def _stats():
+    """scipy.stats, imported on first use: it is slow to import and the command line
+    builds every sub-command's parser (importing this module) on each start."""
+    from scipy import stats
+
+    return stats
+
+
 def _check_confidence(confidence: float) -> float:
     c = Collector()
     v = c.number("confidence", confidence, low=0, high=1, low_open=True, high_open=True)
@@ -109,7 +115,7 @@ def z_value(confidence: float) -> float:
     close to 1 keep their precision.
     """
     c = _check_confidence(confidence)
-    return float(stats.norm.isf((1.0 - c) / 2.0))
+    return float(_stats().norm.isf((1.0 - c) / 2.0))
 
 
 def t_value(confidence: float, df: float) -> float:
@@ -118,7 +124,7 @@ def t_value(confidence: float, df: float) -> float:
     col = Collector()
     d = col.number("df", df, low=0, low_open=True)
     col.raise_if_any()
-    return float(stats.t.isf((1.0 - c) / 2.0, d))
+    return float(_stats().t.isf((1.0 - c) / 2.0, d))
 
 
 def design_effect_from_icc(icc: float, m: float, cv: float = 0.0) -> float:
@@ -260,7 +266,8 @@ class FormulaResult:
             "assumptions": list(self.assumptions),
             "formula": self.formula,
         }
-        return _clean(d)
+        # JSON-safe without importing simcheck.results: non-finite floats become None
+        return {k: (None if isinstance(x, float) and not math.isfinite(x) else x) for k, x in d.items()}
 
     def to_frame(self):
         """One-row pandas DataFrame of :meth:`to_dict` (assumptions joined by " | ")."""
@@ -609,7 +616,7 @@ def sample_size(
                 return final(t_value(conf, n_ - 1))
 
             nz = ceil_robust(nz_un)
-            n, n_un, iterations = nz, nz_un, 1
+            n, n_un, iterations = _iterate(needed, nz, lo=max(1, nz - 1), n_min=2, n_max=N)
             df = float(n - 1)
             mult = t_value(conf, df)
         x0 = base(mult) / deff

@@ -331,6 +331,9 @@ class _Doc:
     def quote(self, text: str) -> None:
         self.blocks.append(("quote", text))
 
+    def code(self, text: str) -> None:
+        self.blocks.append(("code", text))
+
     def items(self, rows: Sequence[str]) -> None:
         self.blocks.append(("ul", list(rows)))
 
@@ -351,6 +354,8 @@ class _Doc:
                 out += ["> " + b, ""]
             elif kind == "ul":
                 out += [f"- {r}" for r in b] + [""]
+            elif kind == "code":
+                out += ["```toml", b.rstrip("\n"), "```", ""]
             elif kind == "table":
                 headers, rows = b
                 esc = lambda s: str(s).replace("|", "\\|")  # noqa: E731
@@ -375,12 +380,14 @@ class _Doc:
                 body.append(f"<p>{_inline(b)}</p>")
             elif kind == "quote":
                 body.append(f'<blockquote class="paste">{_inline(b)}</blockquote>')
+            elif kind == "code":
+                body.append(f"<pre><code>{e(b)}</code></pre>")
             elif kind == "ul":
                 body.append("<ul>" + "".join(f"<li>{_inline(r)}</li>" for r in b) + "</ul>")
             elif kind == "table":
                 headers, rows = b
                 head = "".join(f"<th>{e(h)}</th>" for h in headers)
-                trs = "".join("<tr>" + "".join(f"<td>{e(str(c))}</td>" for c in r) + "</tr>" for r in rows)
+                trs = "".join("<tr>" + "".join(f"<td>{e(str(c), quote=False)}</td>" for c in r) + "</tr>" for r in rows)
                 body.append(f"<table><thead><tr>{head}</tr></thead><tbody>{trs}</tbody></table>")
             elif kind == "figure":
                 data = base64.b64encode(b.png.read_bytes()).decode("ascii")
@@ -391,7 +398,7 @@ class _Doc:
 
 def _inline(text: str) -> str:
     """Escape, then turn the Markdown `code` spans we write into <code>."""
-    parts = html.escape(text).split("`")
+    parts = html.escape(text, quote=False).split("`")
     return "".join(f"<code>{p}</code>" if i % 2 else p for i, p in enumerate(parts))
 
 
@@ -779,7 +786,7 @@ def _sweep_doc(sw: SweepResults, figs: dict[str, Path], base: Path) -> _Doc:
     ])
     if m.get("base_text"):
         doc.para("Base scenario:")
-        doc.items([f"`{line}`" for line in m["base_text"].strip().splitlines() if line.strip()])
+        doc.code(m["base_text"])
     doc.heading("Results")
     cols = [c for c in vary if c in fr.columns]
     want = ["n", "n_formula", "reached", "coverage", "coverage_mcse", "assurance", "miss_low", "miss_high"]

@@ -340,7 +340,8 @@ def read_table(path: str | Path) -> dict[str, Any]:
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as e:
-        raise fail(f"not UTF-8 text (byte {e.start}); a TOML file must be UTF-8") from None
+        line = raw[: e.start].count(b"\n") + 1
+        raise fail(f"not UTF-8 text (line {line}, byte {e.start}); a TOML file must be UTF-8") from None
     try:
         return tomllib.loads(text)
     except tomllib.TOMLDecodeError as e:

@@ -133,18 +133,20 @@ def test_wald_coverage_is_erratic_in_n():
 
 
 def test_wald_coverage_below_nominal_at_p_half_for_moderate_n():
-    # Brown, Cai & DasGupta (2001), section 2.1: even at p = 0.5 the Wald interval
-    # undercovers for moderate n (common knowledge of their Figure 1; from memory).
+    # Brown, Cai & DasGupta (2001), Statistical Science 16:101-133, section 2.1: even
+    # at p = 0.5 the 95% Wald interval undercovers for small and moderate n, e.g.
+    # coverage 0.919 at n = 40 (value from memory).
     curve = binomial_curve(prop("wald"), range(10, 41), 0.5, 0.95)
-    assert max(r["coverage"] for r in curve) < 0.962
-    assert min(r["coverage"] for r in curve) < 0.935
+    assert curve[-1]["n"] == 40 and curve[-1]["coverage"] == pytest.approx(0.919, abs=5e-4)
+    below = [r["coverage"] < 0.95 for r in curve]
+    assert sum(below) > len(curve) / 2
 
 
 @pytest.mark.parametrize("confidence", [0.9, 0.95, 0.99])
 def test_clopper_pearson_never_below_nominal(confidence):
     # Conservative by construction: Clopper & Pearson (1934), Biometrika 26:404-413;
     # Brown, Cai & DasGupta (2001), section 4.2.1.
-    for p in np.linspace(0.001, 0.999, 47):
+    for p in np.linspace(0.001, 0.999, 31):
         curve = binomial_curve(prop("clopper-pearson"), range(1, 121), float(p), confidence)
         assert min(r["coverage"] for r in curve) >= confidence - 1e-12
 

@@ -296,13 +296,6 @@ sds = st.floats(min_value=0.01, max_value=50)
 confs = st.floats(min_value=0.5, max_value=0.999)
 
 
-def _n(**kw):
-    try:
-        return sample_size(**kw).n
-    except InputError:  # an n beyond the reporting limit
-        return None
-
-
 @settings(max_examples=60, deadline=None)
 @given(B1=margins, B2=margins, sd=sds, c=confs, kind=st.sampled_from(["z", "t"]))
 def test_n_decreases_with_margin(B1, B2, sd, c, kind):

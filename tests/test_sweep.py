@@ -176,19 +176,21 @@ def test_cells_run_once_resume_adds_new_cells_and_reruns_errors(tmp_path):
     assert meta["root_seed"] == "20261201" and "[vary]" in meta["sweep_text"] and "lognormal" in meta["base_text"]
 
 
-def test_a_cell_that_fails_in_the_computation_is_stored_with_its_error(tmp_path):
-    # n = 40 cannot be drawn without replacement from a population of 30 units
-    sweep = write_sweep(
-        tmp_path,
-        'base = "base.toml"\ntask = "check"\nn = [40]\n[vary]\n"population.size" = [30, 500]\n'
-        '"simulation.n_max" = [30]\n',
-        replicates=500,
-    )
-    s = run_sweep(sweep, tmp_path / "s.sqlite")
-    assert (s.run_now, s.failed) == (2, 1)
+def test_a_cell_refused_by_the_task_is_stored_with_its_one_line_error(tmp_path):
+    sweep = write_sweep(tmp_path, SWEEP.replace("[0.5, 1.0, 1.5, 2.0]", "[0.5, 1.0]"), replicates=500)
+
+    def picky(scenario, task, seed, **kw):
+        if scenario.design.method == "johnson-t":
+            raise InputError("n", "must be <= 10 (invented limit)")
+        return run_cell(scenario, task, seed, **kw)
+
+    s = run_sweep(sweep, tmp_path / "s.sqlite", cell_func=picky)
+    assert (s.run_now, s.failed) == (4, 2)
     frame = cells_frame(tmp_path / "s.sqlite")
     bad = frame[frame["status"] == "error"]
-    assert list(bad["population.size"]) == [30] and "n" in bad["error"].iloc[0]
+    assert set(bad["method.interval"]) == {"johnson-t"}
+    assert set(bad["error"]) == {"n: must be <= 10 (invented limit)"}
+    assert bad["coverage"].isna().all() and len(bad) == 2  # one empty row per failed cell
     assert frame.loc[frame["status"] == "ok", "coverage"].notna().all()
 
 

@@ -6,5 +6,6 @@ from simcheck.intervals.base import ESTIMANDS, REGISTRY, Method, Summary, get_me
 from simcheck.intervals import mean as _mean  # noqa: F401
 from simcheck.intervals import proportion as _proportion  # noqa: F401
 from simcheck.intervals import bootstrap as _bootstrap  # noqa: F401
+from simcheck.intervals import cluster as _cluster  # noqa: F401
 
 __all__ = ["ESTIMANDS", "REGISTRY", "Method", "Summary", "get_method", "methods_for", "register"]

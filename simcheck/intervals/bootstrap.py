@@ -91,21 +91,25 @@ REFERENCE = (
 # ----------------------------------------------------------- random indices
 
 
-def _uniform_ints(rng: np.random.Generator, size: int, s: int) -> np.ndarray:
-    """``size`` independent integers uniform on [0, s), exactly.
+def _uniform_ints(rng: np.random.Generator, out: np.ndarray, s: int) -> None:
+    """Fill the intp array ``out`` with independent integers uniform on
+    [0, s), exactly.
 
     Lemire's multiply-and-shift on raw 16- or 32-bit words, rejecting the
-    words whose low part falls below 2^L mod s.
+    words whose low part falls below 2^L mod s (Lemire 2019).
     """
+    size = out.size
     if s <= 1:
-        return np.zeros(size, dtype=np.uint32)
-    # 16-bit words when the rejection share is small, else 32-bit words.
+        out[...] = 0
+        return
+    # 16-bit words when the rejection share is small (<= 1/64), else 32-bit.
     if s <= 2**16 and (2**16 % s) * 64 <= 2**16:
         bits, word, wide = 16, np.uint16, np.uint32
     elif s <= 2**32:
         bits, word, wide = 32, np.uint32, np.uint64
     else:
-        return rng.integers(0, s, size=size, dtype=np.int64)
+        out[...] = rng.integers(0, s, size=out.shape, dtype=np.int64)
+        return
     per = 64 // bits
     thr = (2**bits) % s
     mask = wide(2**bits - 1)
@@ -122,8 +126,8 @@ def _uniform_ints(rng: np.random.Generator, size: int, s: int) -> np.ndarray:
             fresh = raw(bad.size)
             w[bad] = fresh
             bad = bad[(fresh & mask) < thr]
-    w >>= wide(bits)
-    return w
+    # the high part is the index; shift and widen to intp in one pass
+    np.right_shift(w.reshape(out.shape), wide(bits), out=out, casting="unsafe")
 
 
 class _Resampler:
@@ -158,13 +162,16 @@ class _Resampler:
 
     def _indices(self, rng: np.random.Generator, nb: int) -> np.ndarray:
         k, n = self.k, self.n
-        if not self.pairs:
-            return _uniform_ints(rng, k * n * nb, n).reshape(k, n, nb)
         idx = np.empty((k, self.units, nb), dtype=np.intp)
-        idx[:, : self.m, :] = _uniform_ints(rng, k * self.m * nb, n * n).reshape(k, self.m, nb)
+        if not self.pairs:
+            _uniform_ints(rng, idx, n)
+            return idx
+        _uniform_ints(rng, idx[:, : self.m, :], n * n)
         if self.odd:
             # the single-value tail sits after the n^2 pair sums in the table
-            idx[:, self.m, :] = _uniform_ints(rng, k * nb, n).reshape(k, nb) + n * n
+            tail = idx[:, self.m, :]
+            _uniform_ints(rng, tail, n)
+            tail += n * n
         return idx
 
     def sums(self, rng: np.random.Generator, resamples: int) -> tuple[np.ndarray, np.ndarray | None]:

@@ -84,7 +84,7 @@ def johnson_t_interval(s: Summary, confidence: float) -> tuple[np.ndarray, np.nd
     central sample moment (divisor n, Johnson's mu3-hat) and ``s^2`` the
     unbiased variance.
 
-    Johnson (1978, eq. 2.5) corrects the t statistic to
+    Johnson (1978) corrects the t statistic to
     ``t1 = [(xbar - mu) + m3/(6 s^2 n) + m3/(3 s^4) (xbar - mu)^2] / (s/sqrt(n))``.
     The interval here inverts ``t1`` with the quadratic term dropped, which is of
     smaller order than the bias term near the centre of the interval; inverting

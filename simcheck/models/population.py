@@ -1,0 +1,178 @@
+"""Finite populations and samples drawn from them without replacement.
+
+A :class:`FinitePopulation` is a fixed array of N unit values, drawn once from
+a data model or read from a CSV column. Its true values are the population
+mean and, for 0/1 populations, the share of events K / N; its variance is
+S^2 with divisor N - 1 (Cochran's convention, under which the variance of the
+mean of n units drawn without replacement is (1 - n/N) S^2 / n).
+
+:func:`sample_indices` draws uniformly random, uniformly *ordered* samples
+without replacement, vectorised over replicates, so that every prefix of a
+sample of n_max units is itself a simple random sample (nested curves).
+
+References
+----------
+.. [1] Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, chapter 2
+   (simple random sampling, the finite population correction).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from simcheck.errors import Collector, InputError
+from simcheck.models.base import Model
+
+#: largest population drawn from a model (8 bytes per unit held in memory)
+DRAW_MAX = 50_000_000
+#: rejection sampling is used when n_max * REJECT_RATIO <= N (collisions are rare)
+REJECT_RATIO = 20
+
+__all__ = ["FinitePopulation", "draw_population", "read_population", "sample_indices", "fpc_factor", "block_columns", "DRAW_MAX"]
+
+
+@dataclass(frozen=True)
+class FinitePopulation:
+    """N fixed unit values.
+
+    Attributes
+    ----------
+    values : ndarray
+        The unit values (read-only float64).
+    source : str
+        Where they came from (for notes).
+    """
+
+    values: np.ndarray = field(repr=False)
+    source: str = "model"
+
+    @property
+    def size(self) -> int:
+        return int(self.values.size)
+
+    @property
+    def mean(self) -> float:
+        return float(self.values.mean())
+
+    @property
+    def S(self) -> float:
+        """Population SD with divisor N - 1."""
+        return float(self.values.std(ddof=1))
+
+    @property
+    def zero_one(self) -> bool:
+        v = self.values
+        return bool(np.all((v == 0.0) | (v == 1.0)))
+
+    @property
+    def events(self) -> int:
+        """Number of units with value 1 (0/1 populations)."""
+        return int(np.count_nonzero(self.values == 1.0))
+
+
+def _frozen(values: np.ndarray, source: str) -> FinitePopulation:
+    v = np.ascontiguousarray(values, dtype=np.float64)
+    v.setflags(write=False)
+    return FinitePopulation(values=v, source=source)
+
+
+def draw_population(model: Model, size: int, rng: np.random.Generator) -> FinitePopulation:
+    """N values drawn once from ``model`` (iid), the fixed population of one evaluation.
+
+    Raises
+    ------
+    InputError
+        ``population.size`` not a whole number in [2, DRAW_MAX].
+    """
+    c = Collector()
+    c.number("population.size", size, low=2, high=DRAW_MAX, integer=True)
+    c.raise_if_any()
+    x = model.draw(rng, (1, int(size))).ravel()
+    return _frozen(x, f"drawn once from {model.describe()}")
+
+
+def read_population(file: str, column: str, size: int | None = None) -> FinitePopulation:
+    """The population from a CSV column (empty cells skipped), read with pandas.
+
+    Raises
+    ------
+    InputError
+        ``population.file`` / ``population.column`` / ``population.size`` problems.
+    """
+    import pandas as pd
+
+    p = Path(file)
+    if not p.is_file():
+        raise InputError("population.file", f"no such file: {file}")
+    try:
+        frame = pd.read_csv(p, usecols=[column], encoding="utf-8-sig")
+    except ValueError as e:
+        raise InputError("population.column", f"no column {column!r} in {file}") from e
+    except Exception as e:  # pandas parser errors: report as a file problem
+        raise InputError("population.file", f"cannot read {file}: {e}".replace("\n", " ")) from e
+    col = pd.to_numeric(frame[column], errors="coerce")
+    raw = frame[column]
+    bad = col.isna() & raw.notna() & (raw.astype(str).str.strip() != "")
+    if bad.any():
+        i = int(np.flatnonzero(bad.to_numpy())[0])
+        raise InputError("population.file", f"{file} line {i + 2}: column {column!r} must hold finite numbers, got {raw.iloc[i]!r}")
+    v = col.dropna().to_numpy(dtype=np.float64)
+    if not np.all(np.isfinite(v)):
+        raise InputError("population.file", f"{file}: column {column!r} must hold finite numbers")
+    if v.size < 2:
+        raise InputError("population.file", f"{file}: column {column!r} needs at least 2 values, got {v.size}")
+    if size is not None and int(size) != v.size:
+        raise InputError("population.size", f"must match the {v.size} values in population.file, got {size}")
+    return _frozen(v, f"read from {p.name}, column {column!r}")
+
+
+def sample_indices(rng: np.random.Generator, N: int, shape: tuple[int, int]) -> np.ndarray:
+    """Indices of ``shape[0]`` samples of ``shape[1]`` units drawn without replacement from N.
+
+    Each row is a uniformly random subset in uniformly random order. Two
+    vectorised algorithms, chosen by (N, n) only so results are reproducible:
+
+    * ``n * REJECT_RATIO <= N``: draw with replacement, then redraw the
+      duplicates until none are left. The kept set is a function of iid
+      uniform draws through set operations only, so its law is invariant
+      under relabelling the units and hence uniform over n-subsets; a random
+      permutation then orders it.
+    * otherwise: iid uniform keys for all N units; the n smallest keys, in key
+      order, are a uniformly random ordered sample.
+    """
+    b, n = int(shape[0]), int(shape[1])
+    if n > N:
+        raise InputError("n", f"must be <= population.size ({N}) when sampling without replacement, got {n}")
+    if n * REJECT_RATIO <= N:
+        idx = rng.integers(0, N, size=(b, n), dtype=np.int64)
+        while True:
+            idx.sort(axis=1)
+            dup = idx[:, 1:] == idx[:, :-1]
+            count = int(np.count_nonzero(dup))
+            if not count:
+                break
+            r, cidx = np.nonzero(dup)
+            idx[r, cidx + 1] = rng.integers(0, N, size=count, dtype=np.int64)
+        order = np.argsort(rng.random((b, n)), axis=1)
+        return np.take_along_axis(idx, order, axis=1)
+    keys = rng.random((b, N))
+    if n < N:
+        idx = np.argpartition(keys, n - 1, axis=1)[:, :n]
+    else:
+        idx = np.broadcast_to(np.arange(N), (b, N)).copy()
+    order = np.argsort(np.take_along_axis(keys, idx, axis=1), axis=1)
+    return np.take_along_axis(idx, order, axis=1)
+
+
+def fpc_factor(n, N: int) -> np.ndarray:
+    """sqrt(1 - n/N), the finite population correction of a half-width (Cochran 1977, ch. 2)."""
+    return np.sqrt(np.maximum(1.0 - np.asarray(n, dtype=float) / float(N), 0.0))
+
+
+def block_columns(N: int, n: int) -> int:
+    """Values held per replicate while sampling (N for the key method, else n)."""
+    return int(n) if n * REJECT_RATIO <= N else int(N)
+

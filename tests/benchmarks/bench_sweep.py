@@ -1,0 +1,101 @@
+"""Sweep benchmark: 24 check cells on 2 local workers against 1 (a ratio measured in one run).
+
+Run:  python tests/benchmarks/bench_sweep.py [--replicates R]
+
+Each cell checks three n (20, 40, 80) of a lognormal scenario (invented
+example) with R replicates (default 60,000: about 0.5-1 s a cell on one core).
+The same sweep runs into a fresh store with ``--jobs 1`` and ``--jobs 2``;
+both stores must hold bitwise the same results.
+
+Printed:
+  (a) speed-up of 2 workers, pool already started (the steady state of an
+      overnight sweep)                                        target >= 1.7x
+  (b) the same including the start of the worker processes (for information)
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sqlite3
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+from simcheck.sweep import run_sweep
+
+BASE = """\
+title = "Repair times at a depot (invented example)"
+
+[target]
+estimand = "mean"
+confidence = 0.95
+margin = 1.0
+
+[data]
+model = "lognormal"
+mean = 6.0
+cv = 1.0
+
+[method]
+interval = "t"
+
+[simulation]
+replicates = {replicates}
+seed = 4242
+"""
+
+SWEEP = """\
+base = "base.toml"
+task = "check"
+n = [20, 40, 80]
+
+[vary]
+"data.cv" = [0.5, 0.75, 1.0, 1.5, 2.0, 3.0]
+"data.mean" = [4.0, 8.0]
+"method.interval" = {methods}
+"""
+
+
+def _rows(store: Path) -> dict[str, str]:
+    return dict(sqlite3.connect(store).execute("SELECT cell_key, result_json FROM cells"))
+
+
+def _timed(sweep: Path, store: Path, jobs: int) -> float:
+    t0 = time.perf_counter()
+    s = run_sweep(sweep, store, jobs=jobs)
+    dt = time.perf_counter() - t0
+    assert s.run_now == s.cells_total and s.failed == 0, s
+    return dt
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--replicates", type=int, default=60000)
+    args = ap.parse_args()
+    with tempfile.TemporaryDirectory() as tmp:
+        d = Path(tmp)
+        (d / "base.toml").write_text(BASE.format(replicates=args.replicates))
+        sweep = d / "sweep.toml"
+        sweep.write_text(SWEEP.format(methods='["t", "johnson-t"]'))
+        warm = d / "warm.toml"
+        warm.write_text(SWEEP.format(methods='["t"]').replace("[0.5, 0.75, 1.0, 1.5, 2.0, 3.0]", "[0.5, 0.75]"))
+
+        t_cold = _timed(sweep, d / "cold2.sqlite", 2)  # includes starting 2 worker processes
+        t1 = _timed(sweep, d / "one.sqlite", 1)
+        _timed(warm, d / "warm.sqlite", 2)  # the pool is reused by the next run
+        t2 = _timed(sweep, d / "two.sqlite", 2)
+        same = _rows(d / "one.sqlite") == _rows(d / "two.sqlite") == _rows(d / "cold2.sqlite")
+
+    print(f"cpus: {os.cpu_count()}, load average: {os.getloadavg()[0]:.2f}, replicates per cell: {args.replicates}")
+    print(f"24 cells, --jobs 1: {t1:.2f} s ({t1 / 24:.2f} s a cell)")
+    print(f"24 cells, --jobs 2: {t2:.2f} s (pool started), {t_cold:.2f} s (cold)")
+    print(f"(a) speed-up of 2 workers, pool started: {t1 / t2:.2f}x  (target >= 1.7x)  {'ok' if t1 / t2 >= 1.7 else 'MISSED'}")
+    print(f"(b) speed-up of 2 workers, cold start:   {t1 / t_cold:.2f}x  (for information)")
+    print(f"stores bitwise identical: {same}")
+    return 0 if same else 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())
