@@ -173,6 +173,8 @@ def _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve):
         for n in ns:
             if design.n_b(n) < min_n:
                 raise InputError("simulation.ratio", f"gives group b only {design.n_b(n)} observations at n = {n}")
+    if method.kind == "cluster" and design.clusters is None:
+        raise InputError("method.interval", f"{design.method!r} needs a [clusters] table (n then counts clusters)")
     if design.clusters is not None or design.population is not None:
         from simcheck import engine_clustered
 
@@ -347,6 +349,7 @@ class _Acc:
         self.assured = np.zeros(k, np.int64)
         self.block_sums: list[np.ndarray] = []
         self.degenerate = np.zeros(k, np.int64)
+        self.nan = np.zeros(k, np.int64)
         cap = QUANTILE_BYTES // (4 * k) if k == 1 else CURVE_QUANTILE_REPLICATES
         self.keep = int(min(total, cap))
         self.hw = np.empty((self.keep, k), np.float32)
@@ -365,7 +368,14 @@ class _Acc:
         hw = np.subtract(hi, lo)
         hw *= 0.5
         # always reduceat: the same summation whatever the grouping of blocks
-        self.block_sums.append(np.add.reduceat(hw, starts if starts is not None else [0], axis=0))
+        sums = np.add.reduceat(hw, starts if starts is not None else [0], axis=0)
+        if np.isnan(sums).any():
+            # an interval that could not be computed: counted, never covering
+            bad = np.isnan(lo) | np.isnan(hi)
+            self.nan += bad.sum(axis=0)
+            hw = np.where(bad, 0.0, hw)
+            sums = np.add.reduceat(hw, starts if starts is not None else [0], axis=0)
+        self.block_sums.append(sums)
         if self.margin is not None:
             # tolerance for half-widths equal to the margin in exact arithmetic
             self.assured += (hw <= self.margin * (1 + 1e-12)).sum(axis=0)
@@ -438,9 +448,44 @@ def _mcse(p: float, r: int) -> float:
 # --------------------------------------------------------------------------
 # blocks and chunks
 # --------------------------------------------------------------------------
+#: values per drawing piece: a piece is drawn and reduced while it sits in the
+#: per-core L2 cache, which keeps a check close to the cost of the draws
+PIECE_VALUES = 1 << 15
+#: pieces per random block (one generator per block amortises its creation)
+PIECES_PER_BLOCK = 16
+
+
+def piece_rows(columns: int) -> int:
+    """Replicates per drawing piece for rows of ``columns`` values."""
+    return int(max(1, PIECE_VALUES // max(columns, 1)))
+
+
 def block_size(columns: int) -> int:
-    """Replicates per random block for draws of ``columns`` values (fixed by design)."""
-    return int(max(1, min(1024, (1 << 18) // max(columns, 1))))
+    """Replicates per random block for draws of ``columns`` values (fixed by design).
+
+    A block's generator is consumed piece by piece (``piece_rows`` replicates
+    at a time), on every path alike, so the numbers depend only on the root,
+    the block index and ``columns`` -- never on chunking or workers.
+    """
+    return piece_rows(columns) * PIECES_PER_BLOCK
+
+
+def unit_rows(columns: int) -> int:
+    """Replicates per work unit on buffered paths (nested curves, bootstrap).
+
+    A unit lies inside one block and is drawn from the block's generator in
+    order; about 1 MiB of values, so the prefix sums and intervals that follow
+    the draw work on cache-resident data. Fixed by ``columns`` alone.
+    """
+    return int(max(1, min(block_size(columns), (1 << 17) // max(columns, 1))))
+
+
+def _units(blocks, rows: int):
+    """Yield (block index, [(start, stop)], is_last_unit_of_block)."""
+    for bi, (s, e) in enumerate(blocks):
+        for us in range(s, e, rows):
+            ue = min(us + rows, e)
+            yield bi, [(us, ue)], ue == e
 
 
 def _plan(total: int, columns: int, chunk_bytes: int, arrays: int) -> tuple[list[tuple[int, int]], int, int]:
@@ -459,14 +504,45 @@ def _chunks(blocks: list[tuple[int, int]], per_chunk: int):
 
 
 def _fill(model, root, stage: int, first: int, blocks, columns: int, buf: np.ndarray) -> np.ndarray:
-    """Draw each block from its own stream into consecutive rows of ``buf``."""
+    """Draw each block from its own stream, piece by piece, into rows of ``buf``."""
     rows = blocks[-1][1] - blocks[0][0]
     out = buf[:rows]
     off = blocks[0][0]
+    pr = piece_rows(columns)
     for bi, (s, e) in enumerate(blocks):
         g = rngmod.generator(root, stage, first + bi)
-        model.draw(g, (e - s, columns), out=out[s - off : e - off])
+        for ps in range(s, e, pr):
+            pe = min(ps + pr, e)
+            model.draw(g, (pe - ps, columns), out=out[ps - off : pe - off])
     return out
+
+
+def _piece_sums(model, root, stage: int, first: int, blocks, columns: int, transform, need_m3: bool):
+    """Power sums per replicate, reducing each piece right after drawing it.
+
+    Same numbers as :func:`_fill` (same pieces from the same streams); only
+    the (rows, 1) sums are kept.
+    """
+    rows = blocks[-1][1] - blocks[0][0]
+    off = blocks[0][0]
+    pr = piece_rows(columns)
+    piece = np.empty((min(pr, rows), columns))
+    s1 = np.empty((rows, 1))
+    s2 = np.empty((rows, 1))
+    s3 = np.empty((rows, 1)) if need_m3 else None
+    for bi, (s, e) in enumerate(blocks):
+        g = rngmod.generator(root, stage, first + bi)
+        for ps in range(s, e, pr):
+            pe = min(ps + pr, e)
+            x = model.draw(g, (pe - ps, columns), out=piece[: pe - ps])
+            if transform is not None:
+                transform(x)
+            sl = slice(ps - off, pe - off)
+            np.sum(x, axis=1, out=s1[sl, 0])
+            np.einsum("ij,ij->i", x, x, out=s2[sl, 0])
+            if need_m3:
+                np.einsum("ij,ij,ij->i", x, x, x, out=s3[sl, 0])
+    return s1, s2, s3
 
 
 # --------------------------------------------------------------------------
@@ -499,7 +575,7 @@ def _sufficient(design, method, n, replicates, root, seed, progress, chunk_bytes
     acc = _Acc(1, replicates, design.margin)
     bs = block_size(2)
     blocks = rngmod.blocks(replicates, bs)
-    per = max(1, (1 << 16) // bs)
+    per = max(1, (1 << 17) // bs)
     nb = design.n_b(n)
     for i in range(0, len(blocks), per):
         grp = blocks[i : i + per]
@@ -574,7 +650,6 @@ def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes,
     k = len(ns)
     acc = _Acc(k, replicates, design.margin)
     arrays = 4 if nested else 1
-    nan_total = np.zeros(k, np.int64)
 
     mu_a = design.model.mean
     mu_b = design.model_b.mean if two else 0.0
@@ -582,54 +657,100 @@ def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes,
     # shift-equivariant methods work on values centred on the true mean
     centred = method.shift_equivariant
     all_blocks, per_chunk, rows = _plan(replicates, columns, chunk_bytes, arrays)
-    buf_a = np.empty((rows, ncol_a))
-    buf_b = np.empty((rows, ncol_b)) if two else None
+    fused_kinds = ("summary", "summary2", "log", "count", "count2")
+    if not nested and kind in fused_kinds:
+        buf_a = buf_b = None  # pieces are reduced as drawn
+    else:
+        ur = min(replicates, unit_rows(columns))
+        buf_a = np.empty((ur, ncol_a))
+        buf_b = np.empty((ur, ncol_b)) if two else None
     n_eval = ns_arr  # broadcasts over the columns of the prefix sums
 
-    for first, blocks in _chunks(all_blocks, per_chunk):
-        xa = _fill(design.model, root, rngmod.STAGE_MAIN, first, blocks, ncol_a, buf_a)
-        xb = _fill(design.model_b, root, rngmod.STAGE_GROUP_B, first, blocks, ncol_b, buf_b) if two else None
+    fused = not nested and kind in ("summary", "summary2", "log", "count", "count2")
+
+    def centre(mu):
+        def f(x):
+            x -= mu
+        return f
+
+    def logs(x):
+        if np.any(x <= 0):
+            raise InputError("method.interval", f"{design.method} needs strictly positive data; model {design.model.describe()} gave values <= 0")
+        np.log(x, out=x)
+        x -= log_shift
+
+    log_shift = math.log(mu_a) if kind == "log" and mu_a > 0 else 0.0
+
+    if fused:
+        work = list(_chunks(all_blocks, per_chunk))
+    else:
+        work = _units(all_blocks, unit_rows(columns))
+    gens: dict[tuple[int, int], np.random.Generator] = {}
+
+    def stream(stage: int, bi: int, last: bool) -> np.random.Generator:
+        # one generator per (stage, block), consumed unit after unit
+        g = gens.get((stage, bi))
+        if g is None:
+            g = gens[(stage, bi)] = rngmod.generator(root, stage, bi)
+        if last:
+            del gens[(stage, bi)]
+        return g
+
+    for first, blocks, *unit in work:
+        xa = xb = None
+        if fused:
+            tr_a = {"summary": centre(mu_a), "summary2": centre(mu_a), "log": logs}.get(kind)
+            ma = _piece_sums(design.model, root, rngmod.STAGE_MAIN, first, blocks, ncol_a, tr_a, method.needs_m3)
+            mb = _piece_sums(design.model_b, root, rngmod.STAGE_GROUP_B, first, blocks, ncol_b, centre(mu_b) if kind == "summary2" else None, False) if two else None
+        else:
+            (s, e), last = blocks[0], unit[0]
+            xa = design.model.draw(stream(rngmod.STAGE_MAIN, first, last), (e - s, ncol_a), out=buf_a[: e - s])
+            if two:
+                xb = design.model_b.draw(stream(rngmod.STAGE_GROUP_B, first, last), (e - s, ncol_b), out=buf_b[: e - s])
         degenerate = None
         truth = 0.0 if centred else truth_raw
         if kind in ("summary", "summary2"):
-            xa -= mu_a
-            sa = _summary(*_moments(xa, ns, nested, method.needs_m3), n_eval, design.model.sd)
+            if not fused:
+                xa -= mu_a
+                ma = _moments(xa, ns, nested, method.needs_m3)
+            sa = _summary(*ma, n_eval, design.model.sd)
             if kind == "summary":
                 lo, hi = method.func(sa, design.confidence)
             else:
-                xb -= mu_b
-                sb = _summary(*_moments(xb, nbs, nested, False), np.asarray(nbs), design.model_b.sd)
+                if not fused:
+                    xb -= mu_b
+                    mb = _moments(xb, nbs, nested, False)
+                sb = _summary(*mb, np.asarray(nbs), design.model_b.sd)
                 lo, hi = method.func(sa, sb, design.confidence)
         elif kind == "log":
-            if np.any(xa <= 0):
-                raise InputError("method.interval", f"{design.method} needs strictly positive data; model {design.model.describe()} gave values <= 0")
-            np.log(xa, out=xa)
-            shift = math.log(mu_a)  # centre the logs for precision; undone below
-            xa -= shift
-            s = _summary(*_moments(xa, ns, nested, False), n_eval, None)
-            s = Summary(n=s.n, mean=s.mean + shift, var=s.var)
+            if not fused:
+                logs(xa)
+                ma = _moments(xa, ns, nested, False)
+            s = _summary(*ma, n_eval, None)
+            s = Summary(n=s.n, mean=s.mean + log_shift, var=s.var)
             lo, hi = method.func(s, design.confidence)
         elif kind in ("count", "count2"):
-            ca = _counts(xa, ns, nested)
+            ca = ma[0] if fused else _counts(xa, ns, nested)
             if kind == "count":
                 lo, hi = method.func(ca, n_eval, design.confidence)
             else:
-                cb = _counts(xb, nbs, nested)
+                cb = mb[0] if fused else _counts(xb, nbs, nested)
                 lo, hi = method.func(ca, n_eval, cb, np.asarray(nbs), design.confidence)
         elif kind in ("sample", "sample2"):
             xa -= mu_a
             if two:
                 xb -= mu_b
-            lo, hi, degenerate = _bootstrap_blocks(method, design, xa, xb, ns[0], nbs[0] if two else None, root, first, blocks)
+            g = stream(rngmod.STAGE_BOOTSTRAP, first, unit[0])
+            if two:
+                lo, hi, degenerate = method.func(xa, xb, design.confidence, rng=g, resamples=design.resamples)
+            else:
+                lo, hi, degenerate = method.func(xa, design.confidence, rng=g, resamples=design.resamples)
         else:  # pragma: no cover - registry kinds are fixed
             raise InputError("method.interval", f"method kind {kind!r} cannot be simulated here")
         lo = np.asarray(lo, dtype=np.float64)
         hi = np.asarray(hi, dtype=np.float64)
         if lo.ndim == 1:
             lo, hi = lo[:, None], hi[:, None]
-        bad = np.isnan(lo) | np.isnan(hi)
-        if bad.any():
-            nan_total += np.count_nonzero(bad, axis=0)
         starts = [s - blocks[0][0] for s, _ in blocks]
         acc.add(lo, hi, truth, None if degenerate is None else np.asarray(degenerate).reshape(-1, 1), starts=starts)
         if progress:
@@ -638,9 +759,9 @@ def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes,
     path = "nested" if nested else "simulation"
     rows = []
     for j, n in enumerate(ns):
-        r = acc.row(j, design, n, replicates, seed, path, nan_count=int(nan_total[j]))
-        if nan_total[j]:
-            r = _with_note(r, f"{int(nan_total[j])} intervals could not be computed and count as not covering")
+        r = acc.row(j, design, n, replicates, seed, path, nan_count=int(acc.nan[j]))
+        if acc.nan[j]:
+            r = _with_note(r, f"{int(acc.nan[j])} intervals could not be computed and count as not covering")
         rows.append(r)
     return rows
 
@@ -656,19 +777,3 @@ def _counts(x: np.ndarray, ns, nested: bool) -> np.ndarray:
         return x.sum(axis=1, keepdims=True)
     return np.cumsum(x, axis=1, out=x)[:, _columns(ns)]
 
-
-def _bootstrap_blocks(method, design, xa, xb, n, nb, root, first, blocks):
-    """Resampling per random block, each with its own stream (chunk-size free)."""
-    lo = np.empty(xa.shape[0])
-    hi = np.empty(xa.shape[0])
-    deg = np.zeros(xa.shape[0], dtype=bool)
-    off = blocks[0][0]
-    for bi, (s, e) in enumerate(blocks):
-        g = rngmod.generator(root, rngmod.STAGE_BOOTSTRAP, first + bi)
-        sl = slice(s - off, e - off)
-        if xb is None:
-            out = method.func(xa[sl, :n], design.confidence, rng=g, resamples=design.resamples)
-        else:
-            out = method.func(xa[sl, :n], xb[sl, :nb], design.confidence, rng=g, resamples=design.resamples)
-        lo[sl], hi[sl], deg[sl] = out
-    return lo, hi, deg

@@ -165,7 +165,7 @@ def _share_mcse(p: np.ndarray, replicates: np.ndarray, exact: np.ndarray) -> np.
 
 def _use_log_x(n_values: np.ndarray) -> bool:
     n_values = n_values[n_values > 0]
-    return n_values.size > 1 and n_values.max() / n_values.min() > 25
+    return n_values.size > 1 and n_values.max() / n_values.min() > 8
 
 
 def _plain_log(axis) -> None:
@@ -306,6 +306,15 @@ def _ecdf(values: np.ndarray, weights: np.ndarray | None) -> tuple[np.ndarray, n
     return uniq, cum / cum[-1] if cum.size else cum
 
 
+def _thin_ecdf(x: np.ndarray, y: np.ndarray, keep: int = 1200) -> tuple[np.ndarray, np.ndarray]:
+    """Keep about ``keep`` steps of a long ECDF: the drawn curve is the same at print
+    resolution, and the vector files stay small and quick to write."""
+    if x.size <= keep:
+        return x, y
+    idx = np.unique(np.linspace(0, x.size - 1, keep).round().astype(np.int64))
+    return x[idx], y[idx]
+
+
 def margin_figure(
     checks: Mapping[str, CheckResult] | CheckResult,
     *,
@@ -356,12 +365,16 @@ def margin_figure(
             st = series_style(i)
             if chk.margin_values is None or np.size(chk.margin_values) == 0:
                 continue
-            x, y = _ecdf(chk.margin_values, chk.margin_weights)
+            x, y = _thin_ecdf(*_ecdf(chk.margin_values, chk.margin_weights))
             # Start the step at 0 and carry it past the target so the curve reads as a distribution function.
             right = max(float(x[-1]), target_margin or float(x[-1])) * 1.03
             x = np.concatenate([[x[0]], x, [right]])
             y = np.concatenate([[0.0], y, [1.0]])
-            ax.step(x, y, where="post", color=st["color"], linestyle=st["linestyle"],
+            # a long ECDF is drawn as a line (a step path of thousands of tiny
+            # treads renders dashes badly); short exact supports keep their steps
+            draw = ax.step if x.size < 200 else ax.plot
+            kw = {"where": "post"} if x.size < 200 else {}
+            draw(x, y, color=st["color"], linestyle=st["linestyle"], **kw,
                     label=f"{name}, n = {chk.n:,}" if len(checks) > 1 else f"half-width at n = {chk.n:,}")
             # One marker where the ECDF crosses the target, for greyscale reading.
             if target_margin is not None and chk.assurance is not None:
@@ -530,7 +543,8 @@ def sweep_figure(
     line_col = (cats[0] if cats else rest[0]) if rest else None
     panel_cols = [c for c in rest if c != line_col]
     if panel_cols:
-        panels = list(frame.groupby(panel_cols, sort=True, dropna=False).groups)
+        by = panel_cols[0] if len(panel_cols) == 1 else panel_cols
+        panels = list(frame.groupby(by, sort=True, dropna=False).groups)
         panels = [p if isinstance(p, tuple) else (p,) for p in panels][:max_panels]
     else:
         panels = [()]

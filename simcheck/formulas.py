@@ -352,12 +352,12 @@ def _validate(
         if sd is not None:
             c.add("--sd", f"does not apply to a {estimand} estimand (give --p)")
         if sd_b is not None:
-            c.add("--sd-b", f"does not apply to a {estimand} estimand (give --p-b)")
+            c.add("--sd-b", f"does not apply to a {estimand} estimand (give {'--p-b' if two else '--p'})")
     if is_mean:
         if p is not None:
             c.add("--p", f"does not apply to a {estimand} estimand (give --sd)")
         if p_b is not None:
-            c.add("--p-b", f"does not apply to a {estimand} estimand (give --sd-b)")
+            c.add("--p-b", f"does not apply to a {estimand} estimand (give {'--sd-b' if two else '--sd'})")
         if sd is None and "--sd" not in {pr.field for pr in c.problems}:
             c.add("--sd", f"is required for a {estimand} estimand: the planning standard deviation")
     if estimand is not None and not two:
@@ -669,6 +669,9 @@ def sample_size(
             assumptions.append("t multiple with Welch-Satterthwaite degrees of freedom from the planning SDs")
         else:
             assumptions.append("t multiple with n - 1 degrees of freedom")
+        if deff != 1.0:
+            assumptions.append("degrees of freedom counted in observations, not clusters (a cluster-level "
+                               "analysis has fewer)")
     else:
         if estimand in ("mean", "mean-diff"):
             assumptions.append("SD known (z multiple)")

@@ -527,6 +527,8 @@ def methods_paragraph(study: StudyResults) -> str:
             cov = (_est(c.coverage, c.coverage_mcse, c.exact, inline=True) if c is not None
                    else _est(r.coverage, r.coverage_mcse, r.exact, inline=True))
             txt = f"{who} smallest such n was {r.n:,} (coverage {cov}"
+            if c is not None and not c.exact and c.replicates != s.replicates:
+                txt += f", from {c.replicates:,} fresh samples at that n"
             ass = c.assurance if c is not None else r.assurance
             if ass is not None:
                 txt += f", assurance {ass:.3f}"
@@ -558,13 +560,14 @@ def study_figures(study: StudyResults) -> dict[str, Any]:
     """The study's figures, by name: ``coverage``, ``margin``, ``misses``."""
     from simcheck import figures as F
 
-    found = {m: s.n for m, s in study.searches.items()}
-    curves = {m: study.curves[m] for m in study.methods if m in study.curves and study.curves[m].rows}
+    label = {m: f"{m} interval" for m in study.methods}
+    found = {label[m]: s.n for m, s in study.searches.items() if m in label}
+    curves = {label[m]: study.curves[m] for m in study.methods if m in study.curves and study.curves[m].rows}
     out: dict[str, Any] = {}
     if curves:
         out["coverage"] = F.coverage_figure(curves, confidence=study.confidence, tolerance=study.coverage_tolerance,
                                             n_formula=study.n_formula, n_found=found, n_label=study.n_label)
-    checks = {m: study.checks[m] for m in study.methods if m in study.checks}
+    checks = {label[m]: study.checks[m] for m in study.methods if m in study.checks}
     if checks and any(c.margin_values is not None for c in checks.values()):
         has_assurance = any(r.assurance is not None for c in curves.values() for r in c.rows)
         out["margin"] = F.margin_figure(checks, target_margin=study.margin, curves=curves if has_assurance else None,
@@ -628,7 +631,8 @@ def _study_doc(study: StudyResults, figs: dict[str, Path], base: Path) -> _Doc:
     table_rows = []
     for m in s.methods:
         r = s.method_row(m)
-        rng = "–" if r["n_range_low"] is None else f"{r['n_range_low']:,}–{r['n_range_high']:,}"
+        lo, hi = r["n_range_low"], r["n_range_high"]
+        rng = "–" if lo is None else (f"{lo:,}" if lo == hi else f"{lo:,}–{hi:,}")
         n_found = "not reached" if r["reached"] is False else _num(r["n_found"])
         table_rows.append([
             m,
@@ -640,7 +644,13 @@ def _study_doc(study: StudyResults, figs: dict[str, Path], base: Path) -> _Doc:
             f"{_num(r['margin_median'])} / {_num(r['margin_p90'])}",
         ])
     doc.table(headers, table_rows)
-    notes = sorted({n for r in list(s.searches.values()) + list(s.checks.values()) for n in r.notes})
+    notes: list[str] = []
+    for m in s.methods:
+        for src in (s.searches.get(m), s.checks.get(m)):
+            for n in (src.notes if src is not None else ()):
+                t = f"{m}: {n}" if len(s.methods) > 1 else n
+                if t not in notes:
+                    notes.append(t)
     if notes:
         doc.para("Notes from the computation:")
         doc.items(notes)
@@ -884,7 +894,8 @@ def write_report(out_dir: str | Path, results: StudyResults | SweepResults) -> R
 # running a scenario for a report
 # ---------------------------------------------------------------------------
 def curve_grid(n_points: Sequence[int | None], n_min: int, n_max: int, points: int = 41) -> list[int]:
-    """Sample sizes for the figure curve: from about half the smallest to 1.5 times the largest marked n.
+    """Sample sizes for the figure curve: from about half the smallest to 1.5 times the largest marked n,
+    geometrically spaced.
 
     The marked n values themselves are always included, so the figures show
     the exact coverage at the formula n and at the n found.
@@ -901,8 +912,9 @@ def curve_grid(n_points: Sequence[int | None], n_min: int, n_max: int, points: i
     if hi - lo + 1 <= points:
         grid = set(range(lo, hi + 1))
     else:
-        step = (hi - lo) / (points - 1)
-        grid = {int(round(lo + i * step)) for i in range(points)}
+        # geometric spacing: coverage and assurance change fastest at small n
+        ratio = (hi / max(lo, 1)) ** (1 / (points - 1))
+        grid = {min(hi, max(lo, int(round(max(lo, 1) * ratio**i)))) for i in range(points)} | {lo, hi}
     return sorted(grid | set(marks))
 
 
@@ -974,7 +986,7 @@ def run_study(scenario, *, seed: int | None = None, progress: Progress = None, p
     say(f"formula n: {n_formula if n_formula is not None else 'not available for this design'}")
     say(f"searching n for {', '.join(methods)} ...")
     common = dict(assurance=scenario.assurance, coverage_tolerance=scenario.coverage_tolerance, replicates=R,
-                  rng=seed, n_min=scenario.n_min, n_max=scenario.n_max, budget=getattr(scenario, "budget", None))
+                  rng=seed, n_min=scenario.n_min, n_max=scenario.n_max, budget=getattr(scenario, "budget", None), path=path)
     searches: dict[str, SearchResult] = {}
     best = None
     if len(methods) > 1:
@@ -990,17 +1002,21 @@ def run_study(scenario, *, seed: int | None = None, progress: Progress = None, p
     curves: dict[str, CurveResult] = {}
     checks: dict[str, CheckResult] = {}
     formula_checks: dict[str, CheckResult] = {}
+    # one grid for every method, so their lines can be compared point by point
+    marks = [n_formula] + [x for r in searches.values() for x in (r.n, r.best_coverage_n)]
+    grid = curve_grid(marks, scenario.n_min, scenario.n_max, points)
     for m in methods:
         d = design.with_method(m)
         r = searches.get(m)
-        marks = [n_formula, None if r is None else r.n, None if r is None else r.best_coverage_n]
-        grid = curve_grid(marks, scenario.n_min, scenario.n_max, points)
         say(f"curve for {m}: {len(grid)} sample sizes from {grid[0]:,} to {grid[-1]:,} ...")
         curves[m] = engine.curve(d, grid, replicates=R, rng=seed, path=path)
         if n_formula is not None and n_formula in set(grid):
             formula_checks[m] = curves[m].at(n_formula)
         n_at = r.n if r is not None and r.n is not None else (r.best_coverage_n if r is not None else None)
-        if n_at is not None:
+        if r is not None and r.at_n is not None and r.at_n.n == n_at and r.at_n.margin_values is not None:
+            # the search's own confirmation run at n: the numbers the decision rests on
+            checks[m] = r.at_n
+        elif n_at is not None:
             say(f"check for {m} at n = {n_at:,} ...")
             checks[m] = engine.check(d, n_at, replicates=R, rng=seed, path=path)
     return StudyResults(

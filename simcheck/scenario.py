@@ -375,6 +375,8 @@ def validate(
         raise InputError([Problem("", f"a scenario must be a table, got {table!r}")], source=source)
     table = copy.deepcopy(dict(table))
     bdir = str(base_dir) if base_dir is not None else None
+    if "base" in table and ("vary" in table or "task" in table) and "target" not in table:
+        raise InputError([Problem("", "this is a sweep file (it has base and vary/task), not a scenario; run it with `simcheck sweep`")], source=source)
     c = Collector()
 
     _unknown_keys(c, table)
@@ -503,9 +505,8 @@ def validate(
                     designs.append(design.with_method(m))
                 except InputError as e:
                     _extend_design(c, e, estimand)
-        # clustered and finite-population designs have their own engine paths
-        if designs and path != "auto" and clusters is None and population is None:
-            _check_path(c, designs, path)
+        if designs:
+            _check_engine(c, designs, path)
 
     _dedupe(c)
     c.raise_if_any(source=source)
@@ -858,10 +859,23 @@ def _extend_design(c: Collector, e: InputError, estimand: str | None) -> None:
         c.add(f, p.message)
 
 
-def _check_path(c: Collector, designs: list[Design], path: str) -> None:
+def _check_engine(c: Collector, designs: list[Design], path: str) -> None:
+    # What the engine would refuse at run time is refused here, at load time:
+    # the computation path, and the rules of clustered / finite-population designs.
     from simcheck.engine import available_paths
+    from simcheck.intervals import get_method
 
     for d in designs:
+        if d.clusters is not None or d.population is not None:
+            from simcheck import engine_clustered
+
+            try:
+                engine_clustered._validate(d, get_method(d.estimand, d.method), [], path)
+            except InputError as e:
+                c.extend(e)
+            continue
+        if path == "auto":
+            continue
         try:
             ok = available_paths(d)
         except InputError as e:

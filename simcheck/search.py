@@ -78,6 +78,7 @@ from simcheck import engine
 from simcheck import rng as rngmod
 from simcheck.design import Design
 from simcheck.errors import Collector, InputError
+from simcheck.intervals import get_method
 from simcheck.results import CheckResult, CurveResult, MethodComparison, SearchResult
 
 __all__ = ["formula_n", "find_n", "compare", "EXACT_SCAN_MAX"]
@@ -90,6 +91,10 @@ STAGE_LOCATE = 102
 STAGE_OTHERS = 103
 #: scores beyond this many MCSE count as a clear pass or a clear fail
 CLEAR_Z = 2.0
+#: confirmation windows cover the n within this many full-replicate MCSE (seen at the locate stage)
+LOCATE_Z = 3.0
+#: largest number of n values of the locate stage's whole-curve evaluation
+LOCATE_MAX = 100
 #: largest number of n values of one whole-curve evaluation
 DENSE_MAX = 400
 #: window moves allowed when the confirmation finds the crossing outside it
@@ -271,8 +276,11 @@ class _Runner:
 def _dense_paths(design: Design, path: str) -> tuple[bool, bool]:
     """(exact, whole-curve) for the design and requested path."""
     if design.clusters is not None or design.population is not None:
-        # the clustered engine evaluates n by n; only exact if it says so
-        return False, False
+        # the clustered / finite-population engine keeps its own paths: all
+        # but the bootstrap evaluate a whole curve from one nested draw
+        # (exactness is probed by the caller)
+        method = get_method(design.estimand, design.method)
+        return False, path != "full" and method.kind not in ("sample", "sample2")
     valid = engine.available_paths(design)
     if path == "auto":
         if valid[0] == "exact":
@@ -355,9 +363,13 @@ def find_n(
         c.number("budget", budget, low=1, integer=True)
     c.number("precision", precision, low=0, high=1, low_open=True)
     c.raise_if_any()
-    budget = int(budget) if budget is not None else 20 * R
+    exact, dense = _dense_paths(design, path)
+    if budget is None:
+        # n-by-n searches confirm about four n per round
+        budget = 20 * R * (1 if dense else 4)
+    budget = int(budget)
 
-    method = engine.get_method(design.estimand, design.method)
+    method = get_method(design.estimand, design.method)
     floor = 1 if method.kind in ("count", "count2") else 2
     lo_n = max(lo_n, floor)
     while design.two_sample and design.n_b(lo_n) < floor:
@@ -379,8 +391,10 @@ def find_n(
     nf = formula_n(design)
     start = nf if nf is not None else DEFAULT_START
     start = min(max(start, lo_n), hi_n)
-    exact, dense = _dense_paths(design, path)
     run = _Runner(design, root, path, progress, dense)
+    if not exact and (design.clusters is not None or design.population is not None) and path in ("auto", "exact"):
+        # the clustered engine decides exactness itself: ask it once, cheaply
+        exact = run.curve([start], min(R, 100), STAGE_BRACKET, 0)[0].exact
     ctx = dict(design=design, targets=targets, targets_d=targets_d, nf=nf, seed=seed, lo_n=lo_n, hi_n=hi_n, R=R)
     if exact:
         return _exact_search(run, start, **ctx)
@@ -476,7 +490,7 @@ def _methods_that_reach(run: _Runner, ctx: dict) -> list[str]:
 # --------------------------------------------------------------------------
 def _exact_search(run: _Runner, start: int, **ctx) -> SearchResult:
     design, targets, lo_n, hi_n = ctx["design"], ctx["targets"], ctx["lo_n"], ctx["hi_n"]
-    scan = engine._exact_kind(design, engine.get_method(design.estimand, design.method)) == "binomial"
+    scan = engine._exact_kind(design, get_method(design.estimand, design.method)) == "binomial"
     notes: list[str] = []
     if scan:
         # binomial coverage oscillates in n: enumerate every n up to the ceiling
@@ -604,9 +618,9 @@ def _simulated_search(run: _Runner, start: int, budget: int, precision: float, *
 
     # -- locate (quarter of the replicates)
     if run.dense:
-        top = min(hi_n, max(hi + 1, int(math.ceil(hi * 1.2))))
+        top = min(hi_n, max(hi + 1, int(math.ceil(hi * 1.1))))
         span = top - lo + 1
-        stride = max(1, int(math.ceil(span / DENSE_MAX)))
+        stride = max(1, int(math.ceil(span / LOCATE_MAX)))
         grid = list(range(lo, top + 1, stride))
         if grid[-1] != top:
             grid.append(top)
@@ -614,18 +628,34 @@ def _simulated_search(run: _Runner, start: int, budget: int, precision: float, *
         cand = _crossing(rows, targets)
         if cand is None:
             cand = top
+        # the window covers every n the locate stage could not tell from the
+        # boundary, plus a pad: |score| <= 1.5 MCSE at a quarter of the
+        # replicates is about 3 MCSE at the full replicates
+        lz = LOCATE_Z * math.sqrt(r_locate / R)
+        band = _band(rows, targets, cand, lz)
         w = max(3, int(math.ceil(precision * cand)), stride)
-        window = list(range(max(lo_n, cand - w), min(hi_n, cand + w) + 1))
+        window = _dense_window(max(lo_n, min(band) - w), min(hi_n, max(band) + w))
     else:
         it = 0
         a, b = lo, hi
+        b_checked = False
         while b - a > max(1, int(precision * b / 2)) and it < 8:
             it += 1
             k = min(4, b - a - 1)
             grid = sorted(set(int(round(a + (b - a) * (i + 1) / (k + 1))) for i in range(k)) - {a, b})
+            if not b_checked:
+                grid.append(b)  # the pilot's passing n, once more on more replicates
             if not grid:
                 break
             rows = run.curve(grid, r_locate, STAGE_LOCATE, it)
+            if not b_checked:
+                b_checked = True
+                if not targets.passes(rows[-1]) and b < hi_n:
+                    a, b, b_checked = b, min(hi_n, 2 * b), False
+                    continue
+                grid, rows = grid[:-1], rows[:-1]
+                if not grid:
+                    continue
             ok = [targets.passes(r) for r in rows]
             new_b = b
             for g, o in zip(reversed(grid), reversed(ok)):
@@ -642,48 +672,70 @@ def _simulated_search(run: _Runner, start: int, budget: int, precision: float, *
 
     # -- confirm on fresh replicates, doubling until clear or the budget is spent
     rnd = 0
-    shifts = 0
-    pooled: list[CheckResult] | None = None
+    moves = 0
+    pooled: dict[int, CheckResult] = {}
     reps = R
     stop = ""
     while True:
-        cost = run.cost(len(window), reps)
-        if pooled is not None and run.used + cost > budget:
-            stop = "replicate budget spent"
-            break
         rows = run.curve(window, reps, rngmod.STAGE_CONFIRM, rnd)
         rnd += 1
-        pooled = rows if pooled is None else [_pool(p, q) for p, q in zip(pooled, rows)]
-        ana = _analyse(pooled, targets, lo_n, hi_n, precision)
-        if ana["shift"] and shifts < MAX_SHIFTS and run.used + run.cost(len(window), R) <= budget:
-            shifts += 1
-            window = _shift(window, ana["shift"], lo_n, hi_n, run.dense, precision)
-            pooled, reps = None, R
-            continue
+        for r in rows:
+            pooled[r.n] = r if r.n not in pooled else _pool(pooled[r.n], r)
+        cur = [pooled[k] for k in window]
+        ana = _analyse(cur, targets, lo_n, hi_n, precision)
         if ana["clear"]:
             stop = "decision clear"
             break
-        reps = pooled[0].replicates  # doubling: the new round matches the pooled total
-        if run.used + run.cost(len(window), reps) > budget:
+        # widening only pays while n_range could still come out narrow enough
+        widen = any(ana["extend"]) and ana["n_range"] is not None and (
+            ana["n_range"][1] - ana["n_range"][0] <= max(1, round(precision * ana["n"])))
+        new = None
+        if moves < MAX_SHIFTS and (ana["shift"] or widen):
+            # the crossing or an end of n_range lies outside the window: move or widen it
+            new = _move(window, ana["shift"], ana["extend"], lo_n, hi_n, run.dense, precision)
+        if new is not None and new != window:
+            moves += 1
+            # n not yet confirmed start at R; the others keep to the doubling schedule
+            next_reps = max(R, min((pooled[k].replicates for k in new if k in pooled), default=R))
+        else:
+            new = window
+            next_reps = max(pooled[k].replicates for k in window)  # doubling: match the pooled total
+        if run.used + run.cost(len(new), next_reps) > budget:
             stop = "replicate budget spent"
             break
-    ana = _analyse(pooled, targets, lo_n, hi_n, precision)
+        window, reps = new, next_reps
+    cur = [pooled[k] for k in window]
+    ana = _analyse(cur, targets, lo_n, hi_n, precision)
     n = ana["n"]
     if n is None:
         # no n of the window holds the targets on the confirmation
-        top_row = pooled[-1]
         if window[-1] >= hi_n:
-            return _not_reached(run, ctx, top_row, ana["n_first"])
-        notes.append("the confirmation did not find the crossing inside its window within the budget; "
-                     f"n is the top of the window, n = {window[-1]}, and is uncertain")
-        n = window[-1]
-        ana["n_range"] = (window[-1], hi_n)
-    at = next(r for r in pooled if r.n == n)
+            return _not_reached(run, ctx, cur[-1], ana["n_first"])
+        above = [r for r in run.rows if r.n > window[-1] and targets.passes(r)]
+        if not above:
+            return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=None,
+                           reached=False, n_range=None, at=None, stop="replicate budget spent", exact=False,
+                           notes=[f"undecided: the replicate budget ({budget}) was spent before any n was confirmed "
+                                  f"to meet the targets (none of n = {window[0]}..{window[-1]} does on the "
+                                  "confirmation); the targets may still be reached at a larger n: raise the budget"],
+                           curve_rows=cur)
+        best_above = min(above, key=lambda r: (r.n, -r.replicates))
+        n = best_above.n
+        pooled[n] = best_above
+        notes.append("the confirmation found no passing n inside its window before the budget was spent; "
+                     f"n = {n} is the smallest larger n that passed in the exploration, and is uncertain")
+        ana["n_range"] = (window[-1] + 1, n)
+        ana["truncated"] = True
+    if ana["truncated"]:
+        notes.append(f"n_range reaches the edge of the confirmed window ({window[0]}-{window[-1]}): "
+                     "the n consistent with the Monte Carlo error may extend beyond it")
+    pooled_rows = cur
+    at = pooled[n]
     low, high = ana["n_range"]
     notes = _formula_note(ctx["nf"], n) + notes
-    total = pooled[0].replicates
+    total = at.replicates
     notes.append(
-        f"confirmed on {total} fresh replicates per n (spawn key STAGE_CONFIRM); "
+        f"confirmed on {total} fresh replicates per n, independent of the exploration stages; "
         f"n_range {low}-{high}: n whose coverage/assurance are within {CLEAR_Z:g} MCSE of the targets"
     )
     if stop == "replicate budget spent":
@@ -695,11 +747,11 @@ def _simulated_search(run: _Runner, start: int, budget: int, precision: float, *
             " (coverage oscillates in n); n is the latter"
         )
     if targets.assurance is not None:
-        binding = "assurance" if targets.score(at) == _z((at.assurance or 0) - targets.assurance, at.assurance or 0, at.replicates, at.exact) else "coverage"
-        notes.append(f"the binding target at n is the {binding}")
+        zc = _z(at.coverage - targets.coverage, at.coverage, at.replicates, at.exact)
+        notes.append(f"the binding target at n is the {'coverage' if zc <= targets.score(at) else 'assurance'}")
     return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=n,
                    reached=True, n_range=(low, high), at=at, stop=stop, exact=False, n_first=ana["n_first"],
-                   notes=notes, curve_rows=pooled)
+                   notes=notes, curve_rows=pooled_rows)
 
 
 def _crossing(rows: Sequence[CheckResult], targets: _Targets) -> int | None:
@@ -713,22 +765,58 @@ def _crossing(rows: Sequence[CheckResult], targets: _Targets) -> int | None:
     return n
 
 
+def _band(rows: Sequence[CheckResult], targets: _Targets, cand: int, lz: float) -> list[int]:
+    """The n next to ``cand`` (contiguous on the grid) whose scores lie within +-lz."""
+    ns = [r.n for r in rows]
+    z = [targets.score(r) for r in rows]
+    i = min(range(len(ns)), key=lambda k: abs(ns[k] - cand))
+    a = b = i
+    while a > 0 and z[a - 1] > -lz:
+        a -= 1
+    while b < len(ns) - 1 and z[b + 1] < lz:
+        b += 1
+    return [ns[a], ns[b], cand]
+
+
 def _sparse_window(c: int, w: int, lo_n: int, hi_n: int) -> list[int]:
     pts = {c - w, c - 1, c, c + w}
     return sorted(p for p in pts if lo_n <= p <= hi_n)
 
 
-def _shift(window: list[int], direction: int, lo_n: int, hi_n: int, dense: bool, precision: float) -> list[int]:
-    """A window of the same kind moved below (-1) or above (+1) the current one."""
-    width = window[-1] - window[0]
-    if direction > 0:
-        centre = min(hi_n, window[-1] + max(1, width // 2) + 1)
+def _dense_window(a: int, b: int) -> list[int]:
+    """Every n of [a, b], thinned to at most DENSE_MAX values (ends kept)."""
+    stride = max(1, int(math.ceil((b - a + 1) / DENSE_MAX)))
+    w = list(range(a, b + 1, stride))
+    if w[-1] != b:
+        w.append(b)
+    return w
+
+
+def _move(window: list[int], shift: int, extend: tuple[bool, bool], lo_n: int, hi_n: int,
+          dense: bool, precision: float) -> list[int] | None:
+    """The next confirmation window: moved (shift -1/+1) or widened at the open ends."""
+    a, b = window[0], window[-1]
+    width = max(3, b - a)
+    if shift > 0:
+        a, b = b - width // 4, b + width
+    elif shift < 0:
+        a, b = a - width, a + width // 4
     else:
-        centre = max(lo_n, window[0] - max(1, width // 2) - 1)
+        step = max(3, width // 2)
+        if extend[0]:
+            a = a - step
+        if extend[1]:
+            b = b + step
+    a, b = max(lo_n, a), min(hi_n, b)
+    if b <= a:
+        return None
     if dense:
-        h = max(3, width // 2)
-        return list(range(max(lo_n, centre - h), min(hi_n, centre + h) + 1))
-    return _sparse_window(centre, max(1, int(math.ceil(precision * centre / 2))), lo_n, hi_n)
+        return _dense_window(a, b)
+    pts = set(window) | {a, b}
+    if shift:
+        c = (a + b) // 2
+        pts = set(_sparse_window(c, max(1, int(math.ceil(precision * c / 2))), lo_n, hi_n)) | {a, b}
+    return sorted(p for p in pts if lo_n <= p <= hi_n)
 
 
 def _analyse(rows: Sequence[CheckResult], targets: _Targets, lo_n: int, hi_n: int, precision: float) -> dict:
@@ -738,7 +826,8 @@ def _analyse(rows: Sequence[CheckResult], targets: _Targets, lo_n: int, hi_n: in
     z = [targets.score(r) for r in rows]
     n = _crossing(rows, targets)
     n_first = next((r.n for r, o in zip(rows, ok) if o), None)
-    out: dict[str, Any] = {"n": n, "n_first": n_first, "shift": 0, "clear": False, "n_range": None}
+    out: dict[str, Any] = {"n": n, "n_first": n_first, "shift": 0, "clear": False, "n_range": None,
+                           "extend": (False, False), "truncated": False}
     if n is None:
         out["shift"] = +1 if ns[-1] < hi_n else 0
         return out
@@ -760,6 +849,8 @@ def _analyse(rows: Sequence[CheckResult], targets: _Targets, lo_n: int, hi_n: in
     high = max(high, n)
     low = min(low, n)
     out["n_range"] = (int(low), int(high))
+    out["extend"] = (not low_found, not high_found)
+    out["truncated"] = not (low_found and high_found)
     out["clear"] = low_found and high_found and (high - low) <= max(1, round(precision * n))
     return out
 

@@ -33,7 +33,7 @@ import numpy as np
 from simcheck.errors import InputError
 from simcheck.rng import key_from_text
 from simcheck.sweep_grid import Cell, SweepSpec, expand, read_sweep
-from simcheck.sweep_store import StoredCell, SweepStore
+from simcheck.sweep_store import StoredCell, SweepStore, dumps
 
 BACKENDS = ("local", "dask")
 
@@ -134,6 +134,7 @@ def _execute(cell_func: CellFunc, cell_key: str, scenario: Any, task: str, kwarg
         from simcheck.results import _clean
 
         result = _clean(result)
+        dumps(result)  # a result the store cannot hold is this cell's error, not the sweep's
         return CellOutcome(cell_key, "ok", result, None, None, time.perf_counter() - t0, worker)
     except Exception as exc:
         text = exc.one_line() if isinstance(exc, InputError) else f"{type(exc).__name__}: {exc}"
@@ -146,6 +147,14 @@ def _execute(cell_func: CellFunc, cell_key: str, scenario: Any, task: str, kwarg
             time.perf_counter() - t0,
             worker,
         )
+
+
+def _worker_init() -> None:
+    # Ctrl-C on a terminal reaches the whole process group; only the driver should
+    # react (it stops the workers and keeps what is stored), not every worker with a traceback.
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
 
 
 def _worker_version() -> str:
@@ -304,7 +313,7 @@ def _drive(
         config = joblib.parallel_config(backend="dask")
         n_jobs = jobs if jobs > 1 else -1
     else:
-        config = joblib.parallel_config(backend="loky")
+        config = joblib.parallel_config(backend="loky", initializer=_worker_init)
         n_jobs = min(jobs, len(pending))
     results = None
     try:

@@ -196,6 +196,11 @@ def read_sweep(path: str | Path) -> SweepSpec:
             if not isinstance(values, list) or not values:
                 c.add(f"vary.{k}", f"must be a non-empty list of values, got {values!r}")
                 continue
+            try:
+                json.dumps(values, allow_nan=False)
+            except (TypeError, ValueError):
+                c.add(f"vary.{k}", "values must be numbers, strings, booleans, lists or tables (no dates, nan or inf)")
+                continue
             seen = [_canonical(v) for v in values]
             if len(set(seen)) != len(seen):
                 c.add(f"vary.{k}", f"each value at most once, got {values!r}")

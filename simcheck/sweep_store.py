@@ -290,7 +290,14 @@ def read_cells(conn: sqlite3.Connection) -> Iterator[dict[str, Any]]:
         yield d
 
 
-_CELL_COLUMNS = ("cell_key", "cell_index", "task", "status", "error", "seconds", "finished_at", "worker", "root_seed")
+# Result fields in the order of the command-line contract (INTERFACE.md); others follow alphabetically.
+_RESULT_ORDER = (
+    "n", "n_b", "reached", "n_formula", "n_range_low", "n_range_high", "coverage", "coverage_mcse",
+    "miss_low", "miss_high", "margin_mean", "margin_median", "margin_p90", "assurance", "assurance_mcse",
+    "replicates", "replicates_used", "true_value", "method", "best", "seed", "exact",
+)
+
+_CELL_COLUMNS = ("status", "task", "error", "seconds", "finished_at", "worker", "root_seed", "cell_index", "cell_key")
 
 
 def _scalar(value: Any) -> Any:
@@ -335,11 +342,11 @@ def result_rows(result: dict[str, Any] | None) -> list[dict[str, Any]]:
 def cells_frame(path: str | Path):
     """The store as a pandas DataFrame: one row per cell (per n for check and curve, per method for comparisons).
 
-    Columns: the cell's bookkeeping (``cell_key``, ``cell_index``, ``task``,
-    ``status``, ``error``, ``seconds``, ``finished_at``, ``worker``,
-    ``root_seed``), then one column per varied dotted key (``data.cv``, ...),
-    then the flattened result fields (nested keys joined with dots, e.g.
-    ``targets.assurance``; ``n_range`` as ``n_range_low`` / ``n_range_high``).
+    Columns: ``status``, one column per varied dotted key (``data.cv``, ...),
+    the flattened result fields (nested keys joined with dots, e.g.
+    ``targets.assurance``; ``n_range`` as ``n_range_low`` / ``n_range_high``),
+    then the cell's bookkeeping (``task``, ``error``, ``seconds``,
+    ``finished_at``, ``worker``, ``root_seed``, ``cell_index``, ``cell_key``).
     Opens the file read-only, so it works while a sweep writes to it.
     """
     import pandas as pd
@@ -374,4 +381,8 @@ def cells_frame(path: str | Path):
         conn.close()
     # a result field never shadows a bookkeeping or varied column
     result_cols = [c for c in result_cols if c not in _CELL_COLUMNS and c not in vary_cols]
-    return pd.DataFrame.from_records(records, columns=list(_CELL_COLUMNS) + vary_cols + result_cols)
+    rank = {c: i for i, c in enumerate(_RESULT_ORDER)}
+    result_cols.sort(key=lambda c: (rank.get(c, len(rank)), c))
+    # what an analyst reads first (status, the varied values, the results), bookkeeping last
+    tail = [c for c in _CELL_COLUMNS if c != "status"]
+    return pd.DataFrame.from_records(records, columns=["status"] + vary_cols + result_cols + tail)

@@ -179,7 +179,8 @@ def run_task(
     else:
         fn = search.find_n
         args = (design,)
-    if scenario.path != "auto" and "path" in inspect.signature(fn).parameters:
+    # compare() forwards its keywords to find_n()
+    if scenario.path != "auto" and "path" in inspect.signature(search.find_n).parameters:
         kwargs["path"] = scenario.path
     return fn(*args, **kwargs)
 

@@ -120,6 +120,7 @@ def test_check_text(capsys):
 def test_check_exact_is_noted(capsys):
     rc, out, _ = cli(capsys, "check", SCEN / "two_shares.toml", "--n", 60)
     assert rc == 0 and "exact (no simulation)" in out and "exact: computed by enumeration" in out
+    assert "newcombe interval" in out and "choose one with --method" in out  # the first of three listed
 
 
 def test_seed_and_replicates_override(capsys):
@@ -214,3 +215,14 @@ def test_progress_bar_on_a_terminal():
         p(10, 100)
         p(100, 100)
     assert "100" in s.getvalue()
+
+
+EXAMPLES = sorted(p for p in SCEN.glob("*.toml") if "base" not in p.read_text().split("[", 1)[0])
+
+
+@pytest.mark.parametrize("path", EXAMPLES, ids=lambda p: p.name)
+def test_every_example_runs(capsys, path):
+    rc, out, err = cli(capsys, "check", path, "--n", 30, "--replicates", 200, "--json")
+    assert rc == 0, err
+    d = json.loads(out)
+    assert d["n"] == 30 and 0.0 <= d["coverage"] <= 1.0

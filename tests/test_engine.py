@@ -149,11 +149,13 @@ def test_nested_curve_consistent_with_separate_checks():
 # --- randomness --------------------------------------------------------------
 def test_results_do_not_depend_on_chunk_size():
     d = Design(model=make_model(LN), method="johnson-t", margin=1.0)
-    a = engine.check(d, 37, replicates=5_000, rng=123, chunk_bytes=1 << 14)
-    b = engine.check(d, 37, replicates=5_000, rng=123, chunk_bytes=1 << 24)
+    assert engine.block_size(37) < 20_000  # several random blocks
+    a = engine.check(d, 37, replicates=20_000, rng=123, chunk_bytes=1 << 14)
+    b = engine.check(d, 37, replicates=20_000, rng=123, chunk_bytes=1 << 24)
     assert a.to_dict() == b.to_dict()
-    ca = engine.curve(d, range(5, 60, 5), replicates=3_000, rng=5, chunk_bytes=1 << 15)
-    cb = engine.curve(d, range(5, 60, 5), replicates=3_000, rng=5, chunk_bytes=1 << 24)
+    assert engine.block_size(55) < 12_000
+    ca = engine.curve(d, range(5, 60, 5), replicates=12_000, rng=5, chunk_bytes=1 << 15)
+    cb = engine.curve(d, range(5, 60, 5), replicates=12_000, rng=5, chunk_bytes=1 << 24)
     assert ca.to_dict() == cb.to_dict()
 
 

@@ -106,6 +106,17 @@ def _assert_valid_files(paths: dict[str, Path]) -> None:
     assert img.ndim == 3 and img.shape[0] > 300 and img.shape[1] > 600
 
 
+@pytest.fixture(scope="module")
+def written(tmp_path_factory, study) -> ReportFiles:
+    return write_report(tmp_path_factory.mktemp("report") / "a", study)
+
+
+def test_report_figure_files_are_valid(written):
+    assert set(written.figures) == {"coverage", "margin", "misses"}
+    for paths in written.figures.values():
+        _assert_valid_files(paths)
+
+
 def test_figures_are_figures_and_files_are_valid(tmp_path, study):
     figs = {
         "coverage": F.coverage_figure(dict(study.curves), confidence=0.95, tolerance=0.005, n_formula=140,
@@ -118,7 +129,9 @@ def test_figures_are_figures_and_files_are_valid(tmp_path, study):
     for name, fig in figs.items():
         assert isinstance(fig, Figure)
         assert all(ax.get_xlabel() for ax in fig.axes if ax.get_visible()), name
-        _assert_valid_files(F.save_figure(fig, tmp_path / name))
+    # the report test covers the multi-method figures' files; here the one-method and exact variants
+    for name in ("coverage1", "margin_exact"):
+        _assert_valid_files(F.save_figure(figs[name], tmp_path / name))
 
 
 def test_figure_marks_what_it_says(study):
@@ -143,16 +156,16 @@ def test_weighted_ecdf_merges_ties():
     assert np.allclose(y, [0.1, 0.6, 1.0])
 
 
-def test_two_renders_are_byte_identical(tmp_path, study):
-    a = write_report(tmp_path / "a", study)
+def test_two_renders_are_byte_identical(tmp_path, study, written):
+    a = written
     b = write_report(tmp_path / "b", study)
     ha, hb = _hashes(a.all_paths()), _hashes(b.all_paths())
     assert ha == hb
     assert len(ha) == 4 + 3 * 3
 
 
-def test_report_documents(tmp_path, study):
-    files = write_report(tmp_path / "rep", study)
+def test_report_documents(study, written):
+    files = written
     assert isinstance(files, ReportFiles)
     d = files.to_dict()
     assert set(d["figures"]) == {"coverage", "margin", "misses"}
@@ -201,7 +214,7 @@ def test_curve_grid_includes_marks_and_stays_in_range():
     assert 139 in g and 700 in g
     assert g[0] >= 10 and g[-1] <= 3000 and g == sorted(set(g))
     assert g[0] <= 70 and g[-1] >= 1000
-    assert curve_grid([5], 2, 12, points=41) == list(range(2, 13))
+    assert curve_grid([5], 2, 12, points=41) == list(range(2, 9))  # 5 / 2 rounded down to 5 * 1.5 rounded up
 
 
 def test_sweep_figure_small_multiples():

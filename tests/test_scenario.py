@@ -26,7 +26,16 @@ from simcheck.scenario import (
 )
 
 ROOT = Path(__file__).resolve().parents[1]
-EXAMPLES = sorted((ROOT / "scenarios").glob("*.toml"))
+
+def _is_sweep(path: Path) -> bool:
+    import tomllib
+
+    return "base" in tomllib.loads(path.read_text())
+
+
+# scenarios/ also holds sweep files (a base scenario and [vary]); those are tested with sweeps
+EXAMPLES = sorted(p for p in (ROOT / "scenarios").glob("*.toml") if not _is_sweep(p))
+SWEEPS = sorted(p for p in (ROOT / "scenarios").glob("*.toml") if _is_sweep(p))
 BAD = sorted((ROOT / "tests" / "bad_scenarios").glob("*.toml"))
 
 
@@ -266,3 +275,22 @@ def test_non_finite_anywhere_is_refused():
         scenario_from_dict(minimal(data__sd=math.nan, simulation__ratio=math.inf))
     fields = {p.field for p in info.value.problems}
     assert {"data.sd", "simulation.ratio"} <= fields
+
+
+def test_scenarios_pickle_for_workers():
+    import pickle
+
+    for path in EXAMPLES:
+        s = load_scenario(path)
+        t = pickle.loads(pickle.dumps(s))
+        assert t.to_dict() == s.to_dict() and t.design.true_value == s.design.true_value
+
+
+def test_a_sweep_file_is_not_a_scenario(tmp_path):
+    f = tmp_path / "grid.toml"
+    f.write_text('base = "turnaround.toml"\ntask = "search"\n[vary]\n"data.cv" = [1.0, 2.0]\n')
+    with pytest.raises(InputError, match="simcheck sweep"):
+        load_scenario(f)
+    for path in SWEEPS:
+        with pytest.raises(InputError, match="simcheck sweep"):
+            load_scenario(path)

@@ -110,11 +110,15 @@ def report(scenario, rows: Sequence[Any]) -> str:
         lines.append(f"population:  {pop.size} units, sampled without replacement ({fpc} finite population correction)")
     what = {"mean": "mean", "proportion": "proportion", "mean-diff": "difference of means a - b",
             "proportion-diff": "difference of proportions a - b"}[d.estimand]
-    lines.append(f"true value:  {_g(float(d.true_value), 6)} ({what})")
+    # the result's true value: for a finite population it is the population's mean, not the model's
+    true = rows[0].true_value if rows else d.true_value
+    lines.append(f"true value:  {_g(float(true), 6)} ({what})")
     for m in (d.model, d.model_b):
         if m is not None and m.true_value_note:
             lines.append(f"             note: {m.true_value_note}")
     lines.append(f"method:      {d.method} interval, {d.confidence:.4g} confidence, target margin {_g(d.margin, 6)}")
+    if len(scenario.methods) > 1:
+        lines.append(f"             (the scenario lists {', '.join(scenario.methods)}; choose one with --method)")
     if rows:
         r0 = rows[0]
         sim = "exact (no simulation)" if all(r.exact for r in rows) else f"{r0.replicates} replicates"

@@ -50,7 +50,9 @@ class _Progress:
     def start(self, before: int, total: int) -> None:
         self.before = before
         self.t0 = self.last = time.monotonic()
-        if before:
+        if before == total:
+            note(f"sweep: all {total} cells are already stored; nothing to run")
+        elif before:
             note(f"sweep: {before} of {total} cells already stored; running the other {total - before}")
         if self.tty and total > before:
             from tqdm import tqdm
@@ -91,6 +93,28 @@ def _sigterm(signum, frame):
     raise KeyboardInterrupt
 
 
+def _version_notice(store: str) -> None:
+    # Cell keys do not include the version (a bug fix must not orphan a night's work),
+    # so say it when a resumed store mixes versions; each row records its own.
+    from pathlib import Path
+
+    import simcheck
+
+    if not Path(store).is_file():
+        return
+    try:
+        from simcheck.sweep_store import open_readonly
+
+        conn = open_readonly(store, "--store")
+        row = conn.execute("SELECT value FROM meta WHERE key = 'simcheck_version'").fetchone()
+        conn.close()
+    except Exception:
+        return  # the store itself is checked (and refused with a clear message) by run_sweep
+    if row and row[0] != simcheck.__version__:
+        note(f"sweep: note: {store} was last written by simcheck {row[0]}; this is {simcheck.__version__} "
+             "(each row records the version that computed it)")
+
+
 def run(args: argparse.Namespace) -> int:
     from simcheck.errors import InputError
     from simcheck.sweep import SweepAborted, SweepInterrupted, run_sweep
@@ -106,6 +130,7 @@ def run(args: argparse.Namespace) -> int:
             failures.append(out.error or "")
         progress.cell(out, done, total)
 
+    _version_notice(args.store)
     old = signal.signal(signal.SIGTERM, _sigterm)
     resume = f"run the same command again to resume: simcheck sweep {args.sweep} --store {args.store}"
     try:

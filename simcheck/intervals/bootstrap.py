@@ -69,6 +69,8 @@ Transactions on Modeling and Computer Simulation* 29(1), 3:1-3:12.
 
 from __future__ import annotations
 
+import sys
+
 import numpy as np
 from scipy.special import ndtr, ndtri
 
@@ -91,104 +93,136 @@ REFERENCE = (
 # ----------------------------------------------------------- random indices
 
 
-def _uniform_ints(rng: np.random.Generator, out: np.ndarray, s: int) -> None:
-    """Fill the intp array ``out`` with independent integers uniform on
-    [0, s), exactly.
+class _IndexSource:
+    """Exactly uniform integers on [0, s) from raw words of ``rng``.
 
-    Lemire's multiply-and-shift on raw 16- or 32-bit words, rejecting the
-    words whose low part falls below 2^L mod s (Lemire 2019).
+    Lemire's multiply-and-shift on 16- or 32-bit words, rejecting the words
+    whose low part falls below 2^L mod s (Lemire 2019). Work buffers are
+    kept between calls: fresh large temporaries cost page faults that were
+    measured to take as long as the arithmetic.
     """
-    size = out.size
-    if s <= 1:
-        out[...] = 0
-        return
-    # 16-bit words when the rejection share is small (<= 1/64), else 32-bit.
-    if s <= 2**16 and (2**16 % s) * 64 <= 2**16:
-        bits, word, wide = 16, np.uint16, np.uint32
-    elif s <= 2**32:
-        bits, word, wide = 32, np.uint32, np.uint64
-    else:
-        out[...] = rng.integers(0, s, size=out.shape, dtype=np.int64)
-        return
-    per = 64 // bits
-    thr = (2**bits) % s
-    mask = wide(2**bits - 1)
-    sw = wide(s)
 
-    def raw(k: int) -> np.ndarray:
-        r = rng.integers(0, 2**64, size=-(-k // per), dtype=np.uint64).view(word)[:k]
-        return np.multiply(r, sw, dtype=wide)
+    _LOW = 0 if sys.byteorder == "little" else 1
 
-    w = raw(size)
-    if thr:
-        bad = np.flatnonzero((w & mask) < thr)
-        while bad.size:
-            fresh = raw(bad.size)
-            w[bad] = fresh
-            bad = bad[(fresh & mask) < thr]
-    # the high part is the index; shift and widen to intp in one pass
-    np.right_shift(w.reshape(out.shape), wide(bits), out=out, casting="unsafe")
+    def __init__(self, rng: np.random.Generator, capacity: int) -> None:
+        self.rng = rng
+        self.capacity = capacity
+        self._w: dict[type, np.ndarray] = {}
+        self._flag = np.empty(capacity, dtype=bool)
+
+    def _buffer(self, wide) -> np.ndarray:
+        if wide not in self._w:
+            self._w[wide] = np.empty(self.capacity, dtype=wide)
+        return self._w[wide]
+
+    def _raw(self, k: int, s: int, bits: int, word, wide, out: np.ndarray) -> None:
+        per = 64 // bits
+        r = self.rng.integers(0, 2**64, size=-(-k // per), dtype=np.uint64).view(word)[:k]
+        np.multiply(r, wide(s), out=out, dtype=wide)
+
+    def fill(self, out: np.ndarray, s: int) -> None:
+        """Fill the intp array ``out`` (any shape, size <= capacity)."""
+        size = out.size
+        if s <= 1:
+            out[...] = 0
+            return
+        # 16-bit words when the rejection share is small (<= 1/64), else 32-bit.
+        if s <= 2**16 and (2**16 % s) * 64 <= 2**16:
+            bits, word, wide, half = 16, np.uint16, np.uint32, np.uint16
+        elif s <= 2**32:
+            bits, word, wide, half = 32, np.uint32, np.uint64, np.uint32
+        else:
+            out[...] = self.rng.integers(0, s, size=out.shape, dtype=np.int64)
+            return
+        w = self._buffer(wide)[:size]
+        self._raw(size, s, bits, word, wide, w)
+        thr = (2**bits) % s
+        if thr:
+            low = w.view(half)[self._LOW :: 2]
+            flag = self._flag[:size]
+            np.less(low, thr, out=flag)
+            bad = np.flatnonzero(flag)
+            while bad.size:
+                fresh = np.empty(bad.size, dtype=wide)
+                self._raw(bad.size, s, bits, word, wide, fresh)
+                w[bad] = fresh
+                bad = bad[fresh.view(half)[self._LOW :: 2] < thr]
+        # the high part is the index; shift and widen to intp in one pass
+        np.right_shift(w.reshape(out.shape), wide(bits), out=out, casting="unsafe")
 
 
 class _Resampler:
-    """Resample sums (and sums of squares) of a chunk of replicate samples.
+    """Resample sums (and sums of squares) of chunks of replicate samples.
+
+    One instance serves every chunk of one call and keeps its buffers, so
+    the arrays returned by :meth:`run` are overwritten by the next call.
 
     Parameters
     ----------
-    x : ndarray, shape (k, n)
-        The chunk's samples (already centred when squares are wanted).
+    n : int
+        Sample size.
+    rows : int
+        Largest chunk (replicates per call of :meth:`run`).
+    resamples : int
+        Resamples per replicate.
     squares : bool
         Also return the resample sums of squares.
+    rng : numpy.random.Generator
+        Source of the resampling indices.
     """
 
-    def __init__(self, x: np.ndarray, squares: bool) -> None:
-        k, n = x.shape
-        self.k, self.n, self.squares = k, n, squares
+    def __init__(self, n: int, rows: int, resamples: int, squares: bool, rng: np.random.Generator) -> None:
+        self.n, self.rows, self.b, self.squares = n, rows, resamples, squares
         self.pairs = 2 <= n <= _PAIR_MAX_N
         if self.pairs:
             self.m, self.odd = divmod(n, 2)
             self.units = self.m + self.odd
-            self.table = self._pair_table(x)
-            self.table2 = self._pair_table(x * x) if squares else None
         else:
             self.m, self.odd, self.units = 0, 0, n
-            self.table = np.ascontiguousarray(x)
-            self.table2 = np.ascontiguousarray(x * x) if squares else None
+        self.nb = max(1, min(resamples, _TILE_ELEMS // max(1, rows * self.units)))
+        self._s = np.empty((rows, resamples))
+        self._q = np.empty((rows, resamples)) if squares else None
+        self._g = np.empty((self.units, self.nb))
+        self._idx = np.empty((rows, self.units, self.nb), dtype=np.intp)
+        self._src = _IndexSource(rng, rows * self.units * self.nb)
 
-    def _pair_table(self, v: np.ndarray) -> np.ndarray:
+    def _table(self, v: np.ndarray) -> np.ndarray:
+        if not self.pairs:
+            return np.ascontiguousarray(v)
         k, n = v.shape
         t = (v[:, :, None] + v[:, None, :]).reshape(k, n * n)
         return np.concatenate([t, v], axis=1) if self.odd else t
 
-    def _indices(self, rng: np.random.Generator, nb: int) -> np.ndarray:
-        k, n = self.k, self.n
-        idx = np.empty((k, self.units, nb), dtype=np.intp)
+    def _indices(self, idx: np.ndarray) -> None:
+        n, src = self.n, self._src
         if not self.pairs:
-            _uniform_ints(rng, idx, n)
-            return idx
-        _uniform_ints(rng, idx[:, : self.m, :], n * n)
+            src.fill(idx, n)
+            return
+        src.fill(idx[:, : self.m, :], n * n)
         if self.odd:
             # the single-value tail sits after the n^2 pair sums in the table
             tail = idx[:, self.m, :]
-            _uniform_ints(rng, tail, n)
+            src.fill(tail, n)
             tail += n * n
-        return idx
 
-    def sums(self, rng: np.random.Generator, resamples: int) -> tuple[np.ndarray, np.ndarray | None]:
-        k = self.k
-        s = np.empty((k, resamples))
-        q = np.empty((k, resamples)) if self.squares else None
-        nb = max(1, min(resamples, _TILE_ELEMS // max(1, k * self.units)))
-        g = np.empty((self.units, nb))
-        for b0 in range(0, resamples, nb):
-            b1 = min(resamples, b0 + nb)
-            idx = self._indices(rng, b1 - b0)
-            gv = g[:, : b1 - b0]
+    def run(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
+        """Sums (k, B) and, if wanted, sums of squares of B resamples of
+        each row of ``x`` (k <= rows)."""
+        k = x.shape[0]
+        table = self._table(x)
+        table2 = self._table(x * x) if self.squares else None
+        s = self._s[:k]
+        q = self._q[:k] if self.squares else None
+        for b0 in range(0, self.b, self.nb):
+            b1 = min(self.b, b0 + self.nb)
+            idx = self._idx[:k, :, : b1 - b0]
+            self._indices(idx)
+            gv = self._g[:, : b1 - b0]
             for j in range(k):
-                np.take(self.table[j], idx[j], out=gv, mode="clip")
+                np.take(table[j], idx[j], out=gv, mode="clip")
                 np.add.reduce(gv, axis=0, out=s[j, b0:b1])
                 if q is not None:
-                    np.take(self.table2[j], idx[j], out=gv, mode="clip")
+                    np.take(table2[j], idx[j], out=gv, mode="clip")
                     np.add.reduce(gv, axis=0, out=q[j, b0:b1])
         return s, q
 
@@ -298,20 +332,23 @@ def _one_sample(x, confidence, rng, resamples, method):
     lower = np.empty(r_total)
     upper = np.empty(r_total)
     units = (n // 2 + n % 2) if 2 <= n <= _PAIR_MAX_N else n
-    rows = _rows_per_chunk(units, b, 1)
+    rows = min(r_total, _rows_per_chunk(units, b, 1))
+    res = _Resampler(n, rows, b, method == "t", rng)
     with np.errstate(divide="ignore", invalid="ignore"):
         for r0 in range(0, r_total, rows):
             xc = x[r0 : r0 + rows]
             mc = mean[r0 : r0 + rows]
             if method == "t":
-                lower[r0 : r0 + rows], upper[r0 : r0 + rows] = _t_chunk(xc, mc, rng, b, alpha)
+                lower[r0 : r0 + rows], upper[r0 : r0 + rows] = _t_chunk(xc, mc, res, alpha)
                 continue
-            s_b, _ = _Resampler(xc, squares=False).sums(rng, b)
+            s_b, _ = res.run(xc)
             if method == "bca":
                 tot = xc.sum(axis=1)
                 share = _bias_share(s_b, tot, _sum_tol(xc))
                 e = xc - mc[:, None]
-                accel = (e**3).sum(axis=1) / (6.0 * (e**2).sum(axis=1) ** 1.5)
+                ss = (e**2).sum(axis=1)
+                # constant samples (ss = 0) are degenerate and overwritten below
+                accel = np.where(ss > 0, (e**3).sum(axis=1) / (6.0 * np.where(ss > 0, ss, 1.0) ** 1.5), 0.0)
                 p_lo, p_hi = _bca_levels(share, accel, alpha)
             else:
                 p_lo, p_hi = alpha, 1.0 - alpha
@@ -325,10 +362,10 @@ def _one_sample(x, confidence, rng, resamples, method):
     return lower, upper, degenerate
 
 
-def _t_chunk(xc, mc, rng, b, alpha):
+def _t_chunk(xc, mc, res, alpha):
     n = xc.shape[1]
     d = xc - mc[:, None]
-    s_b, q_b = _Resampler(d, squares=True).sums(rng, b)
+    s_b, q_b = res.run(d)
     dmax2 = (d * d).max(axis=1)
     ss_b = np.maximum(q_b - s_b * s_b / n, 0.0)
     zero = ss_b <= (16.0 * _EPS * n * n * dmax2)[:, None]
@@ -441,20 +478,21 @@ def _two_sample(xa, xb, confidence, rng, resamples, method):
     upper = np.empty(r_total)
     ua = (na // 2 + na % 2) if 2 <= na <= _PAIR_MAX_N else na
     ub = (nb // 2 + nb % 2) if 2 <= nb <= _PAIR_MAX_N else nb
-    rows = _rows_per_chunk(max(ua, ub), b, 2)
+    rows = min(r_total, _rows_per_chunk(max(ua, ub), b, 2))
+    res_a = _Resampler(na, rows, b, method == "t", rng)
+    res_b = _Resampler(nb, rows, b, method == "t", rng)
     with np.errstate(divide="ignore", invalid="ignore"):
         for r0 in range(0, r_total, rows):
             sl = slice(r0, r0 + rows)
             a, c = xa[sl], xb[sl]
             if method == "t":
-                lower[sl], upper[sl] = _t2_chunk(a, c, ma[sl], mb[sl], rng, b, alpha)
+                lower[sl], upper[sl] = _t2_chunk(a, c, ma[sl], mb[sl], res_a, res_b, alpha)
                 continue
-            sa, _ = _Resampler(a, squares=False).sums(rng, b)
-            sb, _ = _Resampler(c, squares=False).sums(rng, b)
+            sa, _ = res_a.run(a)
+            sb, _ = res_b.run(c)
             sa /= na
             sb /= nb
             sa -= sb  # resample differences of means
-            del sb
             if method == "bca":
                 tol = _sum_tol(a) / na + _sum_tol(c) / nb
                 share = _bias_share(sa, a.sum(axis=1) / na - c.sum(axis=1) / nb, tol)
@@ -465,7 +503,7 @@ def _two_sample(xa, xb, confidence, rng, resamples, method):
                 # group b's deviations enter with the opposite sign.
                 num = (ea**3).sum(axis=1) / na**3 - (ec**3).sum(axis=1) / nb**3
                 den = (ea**2).sum(axis=1) / na**2 + (ec**2).sum(axis=1) / nb**2
-                accel = num / (6.0 * den**1.5)
+                accel = np.where(den > 0, num / (6.0 * np.where(den > 0, den, 1.0) ** 1.5), 0.0)
                 p_lo, p_hi = _bca_levels(share, accel, alpha)
             else:
                 p_lo, p_hi = alpha, 1.0 - alpha
@@ -478,12 +516,12 @@ def _two_sample(xa, xb, confidence, rng, resamples, method):
     return lower, upper, degenerate
 
 
-def _t2_chunk(a, c, ma, mb, rng, b, alpha):
+def _t2_chunk(a, c, ma, mb, res_a, res_b, alpha):
     na, nb = a.shape[1], c.shape[1]
     da = a - ma[:, None]
     dc = c - mb[:, None]
-    sa, qa = _Resampler(da, squares=True).sums(rng, b)
-    sb, qb = _Resampler(dc, squares=True).sums(rng, b)
+    sa, qa = res_a.run(da)
+    sb, qb = res_b.run(dc)
     da2, dc2 = (da * da).max(axis=1), (dc * dc).max(axis=1)
     ssa = np.maximum(qa - sa * sa / na, 0.0)
     ssb = np.maximum(qb - sb * sb / nb, 0.0)

@@ -9,10 +9,30 @@ always passes n >= 2, so n - 1 > 0.
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 from scipy import stats
 
 from simcheck.intervals.base import Method, Summary, register
+
+
+def _t_quantile(q: float, df) -> np.ndarray | float:
+    """t quantile; scalar degrees of freedom are cached (scipy's ppf costs far
+    more than the interval arithmetic on a chunk of replicates)."""
+    if np.ndim(df) == 0:
+        return _t_scalar(float(q), float(df))
+    return stats.t.ppf(q, df)
+
+
+@functools.lru_cache(maxsize=4096)
+def _t_scalar(q: float, df: float) -> float:
+    return float(stats.t.ppf(q, df))
+
+
+@functools.lru_cache(maxsize=64)
+def _z_quantile(q: float) -> float:
+    return float(stats.norm.ppf(q))
 
 
 def _alpha_half(confidence) -> float:
@@ -47,7 +67,7 @@ def z_interval(s: Summary, confidence: float) -> tuple[np.ndarray, np.ndarray]:
     if s.sd_true is None:
         raise ValueError("the z interval needs Summary.sd_true (the known SD)")
     mean = _as_float(s.mean)
-    z = stats.norm.ppf(1.0 - _alpha_half(confidence))
+    z = _z_quantile(1.0 - _alpha_half(confidence))
     half = z * _as_float(s.sd_true) / np.sqrt(_as_float(s.n))
     return mean - half, mean + half
 
@@ -72,8 +92,11 @@ def t_interval(s: Summary, confidence: float) -> tuple[np.ndarray, np.ndarray]:
     """
     n = _as_float(s.n)
     mean = _as_float(s.mean)
-    t = stats.t.ppf(1.0 - _alpha_half(confidence), n - 1.0)
-    half = t * np.sqrt(np.maximum(_as_float(s.var), 0.0) / n)
+    t = _t_quantile(1.0 - _alpha_half(confidence), n - 1.0)
+    # half = sqrt(var * t^2 / n): the per-n factor first, so that only three
+    # passes touch the (replicates, n) arrays in whole-curve evaluations
+    half = np.maximum(_as_float(s.var), 0.0) * (t * t / n)
+    np.sqrt(half, out=half)
     return mean - half, mean + half
 
 
@@ -118,7 +141,7 @@ def johnson_t_interval(s: Summary, confidence: float) -> tuple[np.ndarray, np.nd
     # var == 0 implies m3 == 0: the correction is 0, not 0/0
     shift = np.divide(num, var_b, out=np.zeros(num.shape, dtype=float), where=var_b > 0)
     centre = _as_float(s.mean) + shift
-    t = stats.t.ppf(1.0 - _alpha_half(confidence), n - 1.0)
+    t = _t_quantile(1.0 - _alpha_half(confidence), n - 1.0)
     half = t * np.sqrt(var / n)
     return centre - half, centre + half
 
@@ -152,7 +175,7 @@ def cox_interval(s: Summary, confidence: float) -> tuple[np.ndarray, np.ndarray]
     n = _as_float(s.n)
     var = np.maximum(_as_float(s.var), 0.0)
     centre = _as_float(s.mean) + var / 2.0
-    z = stats.norm.ppf(1.0 - _alpha_half(confidence))
+    z = _z_quantile(1.0 - _alpha_half(confidence))
     half = z * np.sqrt(var / n + var * var / (2.0 * (n - 1.0)))
     return np.exp(centre - half), np.exp(centre + half)
 
@@ -181,7 +204,7 @@ def z_diff_interval(a: Summary, b: Summary, confidence: float) -> tuple[np.ndarr
     if a.sd_true is None or b.sd_true is None:
         raise ValueError("the z interval needs Summary.sd_true for both groups")
     diff = _as_float(a.mean) - _as_float(b.mean)
-    z = stats.norm.ppf(1.0 - _alpha_half(confidence))
+    z = _z_quantile(1.0 - _alpha_half(confidence))
     se = np.sqrt(_as_float(a.sd_true) ** 2 / _as_float(a.n) + _as_float(b.sd_true) ** 2 / _as_float(b.n))
     return diff - z * se, diff + z * se
 
@@ -209,7 +232,7 @@ def t_diff_interval(a: Summary, b: Summary, confidence: float) -> tuple[np.ndarr
     df = na + nb - 2.0
     pooled = ((na - 1.0) * np.maximum(_as_float(a.var), 0.0) + (nb - 1.0) * np.maximum(_as_float(b.var), 0.0)) / df
     se = np.sqrt(pooled * (1.0 / na + 1.0 / nb))
-    t = stats.t.ppf(1.0 - _alpha_half(confidence), df)
+    t = _t_quantile(1.0 - _alpha_half(confidence), df)
     diff = _as_float(a.mean) - _as_float(b.mean)
     return diff - t * se, diff + t * se
 

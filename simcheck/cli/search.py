@@ -1,0 +1,186 @@
+"""``simcheck search SCENARIO``: the smallest n that meets the coverage and assurance targets."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from typing import Any
+
+from simcheck import CAUTION
+from simcheck.cli._common import add_json, add_sim_overrides, emit_json, table
+from simcheck.cli.check import CLI_FIELDS, Progress, add_method_option, run_seed
+from simcheck.errors import Collector
+
+BUDGET_MIN, BUDGET_MAX = 100, 10**12
+
+
+def add_parser(subparsers) -> None:
+    p = subparsers.add_parser(
+        "search",
+        help="smallest n that meets the targets",
+        description=(
+            "Find the smallest n whose simulated coverage is at least the confidence minus the "
+            "coverage tolerance and whose assurance (share of samples with half-width at most the "
+            "target margin) reaches the target. Starts from the closed-form n, brackets, locates "
+            "the crossing cheaply, then confirms it on fresh replicates, doubling them until the "
+            "decision is clear against the Monte Carlo error or the replicate budget is spent. "
+            "With several methods in method.interval, every method is searched on the same draws "
+            "and the one needing the least n is named."
+        ),
+    )
+    p.add_argument("scenario", metavar="SCENARIO", help="scenario file (TOML)")
+    p.add_argument("--budget", type=int, metavar="B",
+                   help="cap on the replicates the search may simulate (overrides simulation.budget; "
+                        "default 20 x replicates)")
+    p.add_argument("--n-min", dest="n_min", type=int, metavar="A", help="smallest n considered (default: simulation.n_min)")
+    p.add_argument("--n-max", dest="n_max", type=int, metavar="B",
+                   help="search ceiling (default: simulation.n_max)")
+    add_method_option(p)
+    add_sim_overrides(p)
+    add_json(p)
+    p.set_defaults(run=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    from simcheck.scenario import load_scenario
+    from simcheck.tasks import run_task
+
+    c = Collector()
+    overrides: dict[str, Any] = {}
+    if args.budget is not None:
+        b = c.number("--budget", args.budget, low=BUDGET_MIN, high=BUDGET_MAX, integer=True)
+        if b is not None:
+            overrides["simulation.budget"] = int(b)
+    c.raise_if_any()
+    scenario = load_scenario(args.scenario, overrides or None)
+    seed = run_seed(scenario, args.seed)
+    with Progress() as prog:
+        res = run_task(scenario, "search", n_min=args.n_min, n_max=args.n_max, method=args.method,
+                       replicates=args.replicates, seed=seed, progress=prog, fields=CLI_FIELDS)
+    if args.json:
+        emit_json(res.to_dict())
+        return 0
+    sys.stdout.write(report(scenario, res) + "\n")
+    return 0
+
+
+# --- readable output ------------------------------------------------------------
+def _p(x: Any) -> str:
+    return "-" if x is None else f"{x:.4f}"
+
+
+def _m(x) -> str:
+    return "-" if x is None else f"{x:g}"
+
+
+def _range(r) -> str:
+    if r.n_range is None:
+        return "-"
+    lo, hi = r.n_range
+    return str(lo) if lo == hi else f"{lo}-{hi}"
+
+
+def _header(scenario, design) -> list[str]:
+    d = design
+    lines = [scenario.title, ""]
+    if d.two_sample:
+        lines.append(f"data a:      {d.model.describe()}")
+        lines.append(f"data b:      {d.model_b.describe()}  (n_b = {d.ratio:g} x n)")
+    else:
+        lines.append(f"data:        {d.model.describe()}")
+    if d.clusters is not None:
+        lines.append(f"clusters:    ICC {d.clusters.icc:g} (n counts clusters)")
+    if d.population is not None:
+        lines.append(f"population:  {d.population.size} units, sampled without replacement")
+    return lines
+
+
+def _targets_line(t: dict) -> str:
+    text = (f"targets:     coverage >= {t['coverage_target']:.4f} "
+            f"({t['confidence']:.4g} confidence - {t['coverage_tolerance']:g} tolerance)")
+    if t.get("margin") is not None and t.get("assurance") is not None:
+        text += f", assurance >= {t['assurance']:g} (share of samples with half-width <= {t['margin']:g})"
+    return text
+
+
+def _one(r, design) -> list[str]:
+    lines = []
+    if r.reached:
+        nb = f"   (group b: n_b = {r.n_b})" if r.n_b is not None else ""
+        lines.append(f"n found:     {r.n}{nb}")
+        lines.append(f"n range:     {_range(r)}   (n consistent with the Monte Carlo error)"
+                     if not r.exact else f"n range:     {_range(r)}   (exact: no Monte Carlo error)")
+        if r.n_first is not None:
+            lines.append(f"first n:     {r.n_first}   (the targets first hold here, but not for every larger n)")
+    else:
+        lines.append(f"n found:     NOT REACHED by the search ceiling n_max")
+    if r.n_formula is not None:
+        ratio = f"   (found / formula = {r.ratio_to_formula:.2f})" if r.ratio_to_formula is not None else ""
+        lines.append(f"formula n:   {r.n_formula}{ratio}")
+    else:
+        lines.append("formula n:   - (no closed form applies)")
+    at = "at n" if r.reached else "at n_max"
+    mc = "" if r.exact else f" +/- {_p(r.coverage_mcse)} (MCSE)"
+    lines.append(f"coverage:    {_p(r.coverage)}{mc}  {at}")
+    if r.assurance is not None:
+        mc = "" if r.exact else f" +/- {_p(r.assurance_mcse)} (MCSE)"
+        lines.append(f"assurance:   {_p(r.assurance)}{mc}  {at}")
+    if not r.reached:
+        lines.append(f"best:        coverage {_p(r.best_coverage)} at n = {r.best_coverage_n}")
+        if r.methods_that_reach:
+            lines.append(f"suggested:   methods that reach the targets here: {', '.join(r.methods_that_reach)}")
+        else:
+            lines.append("suggested:   no other interval method in simcheck reaches the targets by n_max")
+    sim = "exact (no simulation)" if r.exact else f"{r.replicates_used} replicates simulated"
+    lines.append(f"run:         {sim}, seed {r.seed}, method {r.method}")
+    lines.append(f"stopped:     {r.stop_reason}")
+    for t in r.notes:
+        lines.append(f"note: {t}")
+    return lines
+
+
+def report(scenario, res) -> str:
+    """Readable search result: one method in full, or the comparison table."""
+    from simcheck.results import MethodComparison
+
+    design = scenario.design
+    lines = _header(scenario, design)
+    if isinstance(res, MethodComparison):
+        first = res.by_method[0]
+        lines.append(f"confidence:  {design.confidence:.4g}, target margin {_m(design.margin)}")
+        lines.append(_targets_line(first.targets))
+        lines.append("")
+        headers = ["method", "n", "n range", "formula n", "n/formula", "coverage", "+/- mcse",
+                   "assurance", "+/- mcse", "stopped"]
+        rows = []
+        for r in res.by_method:
+            rows.append([
+                r.method, "not reached" if not r.reached else str(r.n), _range(r),
+                "-" if r.n_formula is None else str(r.n_formula),
+                "-" if r.ratio_to_formula is None else f"{r.ratio_to_formula:.2f}",
+                _p(r.coverage), "exact" if r.exact else _p(r.coverage_mcse),
+                _p(r.assurance), "exact" if r.exact else _p(r.assurance_mcse), r.stop_reason,
+            ])
+        lines.append(table(headers, rows))
+        lines.append("")
+        if res.best is not None:
+            lines.append(f"best:        {res.best} (needs the least n; ties broken by coverage)")
+        else:
+            lines.append("best:        none of the methods reaches the targets by n_max")
+        for r in res.by_method:
+            if not r.reached:
+                sug = ", ".join(r.methods_that_reach) or "none"
+                lines.append(f"{r.method}: not reached by n_max (best coverage {_p(r.best_coverage)} at n = "
+                             f"{r.best_coverage_n}); methods that reach it: {sug}")
+        for r in res.by_method:
+            for t in r.notes:
+                lines.append(f"note ({r.method}): {t}")
+    else:
+        d = design.with_method(res.method)
+        lines.append(f"method:      {d.method} interval, {d.confidence:.4g} confidence, target margin {_m(d.margin)}")
+        lines.append(_targets_line(res.targets))
+        lines.append("")
+        lines.extend(_one(res, d))
+    lines.append("")
+    lines.append(CAUTION)
+    return "\n".join(lines)

@@ -1,0 +1,460 @@
+"""Coverage and achieved margin for clustered samples and finite populations.
+
+:func:`simcheck.engine.check` / :func:`~simcheck.engine.curve` dispatch here
+whenever ``design.clusters`` or ``design.population`` is set; the results are
+ordinary :class:`~simcheck.results.CheckResult` rows.
+
+Clustered samples (``design.clusters``)
+    n counts clusters. Data follow :mod:`simcheck.models.clustered`. Each
+    replicate draws k_max clusters; running sums over clusters give every
+    k <= k_max at once (``nested``), or one k per draw (``simulation``).
+    Methods: ``cluster-t`` (ratio estimator, linearisation SE, k - 1 df;
+    :mod:`simcheck.intervals.cluster`) and the methods that ignore the
+    clustering (``t``, ``z``, ``johnson-t`` on all observations;
+    ``wald``, ``wilson``, ... on the pooled count), so a report can show
+    what ignoring the clustering does. ``observations`` is k m for equal
+    sizes, the expected total k size_mean for varying sizes (the notes say
+    which).
+
+    Paths: ``exact`` for ``cluster-t`` and ``z`` with equal sizes, a normal
+    model and normal effects (cluster means are iid normal), and for the
+    proportion methods that use only the pooled count with equal sizes (the
+    count is a sum of k iid beta-binomials: enumeration); ``sufficient``
+    when the within-cluster values are normal (per-cluster sums drawn from
+    their exact law, without the observations) or 0/1 (beta-binomial
+    counts); ``full`` draws every observation.
+
+Finite populations (``design.population``)
+    The population (N values from the model, or from ``population.file``) is
+    drawn once per evaluation from the stream at spawn key
+    ``STAGE_POPULATION`` below the root, so it is reproducible and shared by
+    all n of a curve. Samples are drawn without replacement
+    (:func:`simcheck.models.population.sample_indices`). The true value is
+    the population mean (K / N for 0/1 populations), not the model mean.
+    With ``population.fpc`` the half-width of ``t``, ``z``, ``johnson-t`` and
+    the proportion methods is multiplied by sqrt(1 - n/N) about the point
+    estimate (proportions then clipped to [0, 1]); ``z`` uses the
+    population's S (divisor N - 1). Proportion methods on a 0/1 population
+    are exact by hypergeometric enumeration.
+
+Randomness follows :mod:`simcheck.engine`: block ``i`` of replicates draws
+from the stream ``(STAGE_MAIN, i)``; block sizes depend only on the design
+and n, never on ``chunk_bytes``.
+
+Helpers reused from :mod:`simcheck.engine`: ``_Acc``, ``_mcse`` (through
+``_Acc``), ``_plan``, ``_chunks``, ``block_size``, ``_columns``,
+``_moments``, ``_summary``, ``_counts``, ``_bootstrap_blocks``,
+``_row_from_measures``, ``_exact``, ``_notes``. From :mod:`simcheck.exact`:
+``hypergeometric_measures`` and ``_measures``.
+
+References
+----------
+.. [1] Kish, L. (1965). *Survey Sampling*. Wiley, New York.
+.. [2] Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley,
+   chapters 2 and 6.
+.. [3] Donner, A. & Klar, N. (2000). *Design and Analysis of Cluster
+   Randomization Trials in Health Research*. Arnold, London.
+.. [4] Morris, T. P., White, I. R. & Crowther, M. J. (2019). Using simulation
+   studies to evaluate statistical methods. *Statistics in Medicine* 38,
+   2074-2102.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import replace
+from typing import Sequence
+
+import numpy as np
+from scipy import signal, stats
+
+from simcheck import engine as eng
+from simcheck import exact as exactmod
+from simcheck import rng as rngmod
+from simcheck.design import Design
+from simcheck.errors import Collector, InputError
+from simcheck.intervals import Summary, get_method
+from simcheck.intervals.base import Method
+from simcheck.intervals.cluster import ClusterSums
+from simcheck.models import make_model
+from simcheck.models.clustered import ClusteredModel, SizeLaw, size_law
+from simcheck.models.population import (
+    FinitePopulation,
+    block_columns,
+    draw_population,
+    fpc_factor,
+    read_population,
+    sample_indices,
+)
+from simcheck.results import CheckResult
+
+#: largest pooled count k m enumerated exactly for clustered 0/1 data
+EXACT_COUNT_MAX = 2_000_000
+
+__all__ = ["evaluate", "population_for", "cluster_model_for"]
+
+
+# --------------------------------------------------------------------------
+# entry point
+# --------------------------------------------------------------------------
+def evaluate(design: Design, ns: Sequence[int], replicates: int, rng, path: str, progress, chunk_bytes: int) -> list[CheckResult]:
+    """One :class:`CheckResult` per n in ``ns`` (n = clusters, or units from the population).
+
+    ``path``: "auto", "exact", "sufficient" (clusters only), "nested" or "full".
+    """
+    method = get_method(design.estimand, design.method)
+    _validate(design, method, ns, path)
+    root, seed = rngmod.root_sequence(rng)
+    curve = len(ns) > 1
+    if design.clusters is not None:
+        return _clusters(design, method, list(ns), replicates, root, seed, path, curve, progress, chunk_bytes)
+    return _population(design, method, list(ns), replicates, root, seed, path, curve, progress, chunk_bytes)
+
+
+def _validate(design: Design, method: Method, ns, path: str) -> None:
+    c = Collector()
+    which = "clusters" if design.clusters is not None else "population"
+    if design.clusters is not None and design.population is not None:
+        c.add("population", "cannot be combined with [clusters] (sampling clusters from a finite population is not supported)")
+    if design.two_sample:
+        c.add(which, f"only for the one-sample estimands mean and proportion, not {design.estimand!r}")
+    c.raise_if_any()
+    if design.clusters is not None:
+        if method.kind not in ("cluster", "summary", "count"):
+            c.add("method.interval", f"{design.method!r} is not available with [clusters]; use cluster-t, "
+                  "or t / z / a proportion interval to see the effect of ignoring the clustering")
+    else:
+        pop = design.population
+        if method.kind == "cluster":
+            c.add("method.interval", f"{design.method!r} needs a [clusters] table")
+        if pop.fpc and method.kind in ("log", "sample"):
+            c.add("population.fpc", f"the {design.method} interval has no finite population correction; set population.fpc = false")
+        for n in ns:
+            if n > pop.size:
+                c.add("n", f"must be <= population.size ({pop.size}) when sampling without replacement, got {n}")
+                break
+        if path == "sufficient":
+            c.add("simulation.path", "path 'sufficient' is not available with [population]; use auto, exact, nested or full")
+    c.raise_if_any()
+
+
+# --------------------------------------------------------------------------
+# clustered samples
+# --------------------------------------------------------------------------
+def cluster_model_for(design: Design) -> tuple[ClusteredModel, SizeLaw]:
+    """The two-level data model and the cluster-size law of a clustered design."""
+    cs = design.clusters
+    c = Collector()
+    try:
+        cm = ClusteredModel(design.model, cs.icc, cs.effect)
+    except InputError as e:
+        c.extend(e)
+        cm = None
+    try:
+        law = size_law(cs.size, cs.size_mean, cs.size_cv)
+    except InputError as e:
+        c.extend(e)
+        law = None
+    c.raise_if_any()
+    return cm, law
+
+
+def _cluster_notes(design: Design, cm: ClusteredModel, law: SizeLaw, method: Method) -> list[str]:
+    notes = list(eng._notes(design))
+    notes.append(f"n counts clusters; cluster sizes {law.describe()}")
+    if law.fixed:
+        notes.append(f"observations = clusters x {int(law.a)}")
+    else:
+        notes.append(f"observations = expected total, clusters x {law.mean:g} (sizes vary by sample)")
+    notes.append(cm.describe())
+    if method.kind != "cluster":
+        notes.append(f"the {design.method} interval ignores the clustering (treats all observations as independent)")
+    return notes
+
+
+def _observations(k: int, law: SizeLaw) -> int:
+    return int(k * int(law.a)) if law.fixed else int(round(k * law.mean))
+
+
+def _clusters(design, method, ns, replicates, root, seed, path, curve, progress, chunk_bytes) -> list[CheckResult]:
+    cm, law = cluster_model_for(design)
+    powers = 3 if method.needs_m3 else 2
+    notes = _cluster_notes(design, cm, law, method)
+    exact_kind = _cluster_exact_kind(design, method, cm, law)
+    if path == "exact" and exact_kind is None:
+        raise InputError("simulation.path", "path 'exact' is not available for this clustered design; available: auto, sufficient (normal or 0/1 data), nested, full")
+    if path == "sufficient" and not cm.fast_ok(powers):
+        raise InputError("simulation.path", "path 'sufficient' needs normal or 0/1 data (and a method without the third moment)")
+    if exact_kind is not None and path in ("auto", "exact"):
+        rows = _cluster_exact(design, method, ns, seed, cm, law, exact_kind)
+        return [replace(r, observations=_observations(r.n, law), notes=tuple(list(r.notes) + notes)) for r in rows]
+
+    fast = path != "full" and cm.fast_ok(powers)
+    nested = path == "nested" or (path == "auto" and curve)
+    groups = [ns] if nested else [[n] for n in ns]
+    centre = design.model.mean if method.shift_equivariant else 0.0
+    truth = design.true_value - centre
+    label = ("nested" if nested else ("sufficient" if fast else "simulation"))
+    rows: list[CheckResult] = []
+    for group in groups:
+        K = max(group)
+        per_rep = K * (2 if fast else max(1, math.ceil(law.mean)))
+        all_blocks, per_chunk, _ = eng._plan(replicates, per_rep, chunk_bytes, 1)
+        acc = eng._Acc(len(group), replicates, design.margin)
+        nan_total = np.zeros(len(group), np.int64)
+        for first, blocks in eng._chunks(all_blocks, per_chunk):
+            for bi, (s, e) in enumerate(blocks):
+                g = rngmod.generator(root, rngmod.STAGE_MAIN, first + bi)
+                m = law.draw(g, (e - s, K))
+                s1, s2, s3 = cm.cluster_sums(g, m, centre=centre, powers=powers, fast=fast)
+                lo, hi = _cluster_intervals(design, method, m, s1, s2, s3, group, law.fixed)
+                bad = np.isnan(lo) | np.isnan(hi)
+                if bad.any():
+                    nan_total += np.count_nonzero(bad, axis=0)
+                acc.add(lo, hi, truth)
+            if progress:
+                progress(blocks[-1][1], replicates)
+        acc.finish()
+        for j, k in enumerate(group):
+            r = acc.row(j, design, k, replicates, seed, label, nan_count=int(nan_total[j]))
+            extra = [f"{int(nan_total[j])} intervals could not be computed and count as not covering"] if nan_total[j] else []
+            rows.append(replace(r, observations=_observations(k, law), notes=tuple(list(r.notes) + notes + extra)))
+    return rows
+
+
+def _cluster_intervals(design, method, m, s1, s2, s3, group, fixed_sizes):
+    """(lo, hi) of shape (b, len(group)) from per-cluster sums of the first k clusters."""
+    cols = eng._columns(group)
+    mf = m.astype(np.float64)
+    M = np.cumsum(mf, axis=1)[:, cols]
+    if fixed_sizes:
+        M = M[:1]  # the same in every replicate: one t quantile per k
+    conf = design.confidence
+    if method.kind == "cluster":
+        sums = ClusterSums(
+            k=np.asarray(group, dtype=np.float64),
+            sum_y=np.cumsum(s1, axis=1)[:, cols],
+            sum_m=np.broadcast_to(M, (s1.shape[0], len(group))),
+            sum_yy=np.cumsum(s1 * s1, axis=1)[:, cols],
+            sum_ym=np.cumsum(s1 * mf, axis=1)[:, cols],
+            sum_mm=np.cumsum(mf * mf, axis=1)[:, cols],
+        )
+        lo, hi = method.func(sums, conf)
+    elif method.kind == "summary":
+        S1 = np.cumsum(s1, axis=1)[:, cols]
+        S2 = np.cumsum(s2, axis=1)[:, cols]
+        S3 = np.cumsum(s3, axis=1)[:, cols] if s3 is not None else None
+        summ = eng._summary(S1, S2, S3, M, design.model.sd)
+        lo, hi = method.func(summ, conf)
+    else:  # count: the pooled number of events over all observations
+        x = np.rint(np.cumsum(s1, axis=1)[:, cols])
+        lo, hi = method.func(x, M, conf)
+    shape = (s1.shape[0], len(group))
+    lo = np.broadcast_to(np.asarray(lo, dtype=np.float64), shape)
+    hi = np.broadcast_to(np.asarray(hi, dtype=np.float64), shape)
+    return lo, hi
+
+
+def _cluster_exact_kind(design, method, cm: ClusteredModel, law: SizeLaw) -> str | None:
+    if not law.fixed:
+        return None
+    normal = design.model.normal_params() is not None and (cm.icc == 0 or design.clusters.effect == "normal")
+    if design.estimand == "mean" and normal and design.method in ("cluster-t", "z"):
+        return "normal"
+    if design.estimand == "proportion" and method.kind == "count" and cm.binary:
+        return "betabinomial"
+    return None
+
+
+def _cluster_exact(design, method, ns, seed, cm: ClusteredModel, law: SizeLaw, kind: str) -> list[CheckResult]:
+    m = int(law.a)
+    if kind == "normal":
+        mu, sd = design.model.normal_params()
+        # the cluster means are iid normal with this SD (Kish 1965)
+        tau = sd * math.sqrt(cm.icc + (1.0 - cm.icc) / m)
+        if design.method == "cluster-t":
+            # cluster-t with equal sizes is Student's t on k iid normal cluster means
+            proxy = Design(model=make_model({"model": "normal", "mean": mu, "sd": tau}), estimand="mean",
+                           method="t", confidence=design.confidence, margin=design.margin)
+            rows = eng._exact(proxy, get_method("mean", "t"), ns, seed)
+            return [replace(r, method=design.method, notes=eng._notes(design)) for r in rows]
+        rows = []
+        z = stats.norm.ppf(0.5 + design.confidence / 2)
+        for k in ns:
+            hw = z * sd / math.sqrt(k * m)  # the naive z half-width, fixed
+            miss = float(stats.norm.sf(hw / (tau / math.sqrt(k))))
+            meas = {
+                "coverage": 1.0 - 2.0 * miss, "miss_low": miss, "miss_high": miss,
+                "margin_mean": hw, "margin_median": hw, "margin_p90": hw,
+                "assurance": None if design.margin is None else float(hw <= design.margin * (1 + 1e-12)),
+                "margin_values": np.array([hw]), "margin_weights": np.array([1.0]),
+            }
+            rows.append(eng._row_from_measures(design, k, meas, seed, "exact-normal"))
+        return rows
+    # pooled count of k iid beta-binomial(m) clusters, by convolution
+    rows = []
+    p = cm.mean
+    for k in ns:
+        total = k * m
+        if total > EXACT_COUNT_MAX:
+            raise InputError("n", f"{k} clusters of {m} exceed the exact enumeration limit of {EXACT_COUNT_MAX} observations; use simulation.path = \"full\"")
+        w = _pooled_count_pmf(cm, m, k)
+        x = np.arange(total + 1)
+        lo, hi = method.func(x, np.full(x.shape, total), design.confidence)
+        lo = np.broadcast_to(np.asarray(lo, dtype=float), x.shape)
+        hi = np.broadcast_to(np.asarray(hi, dtype=float), x.shape)
+        meas = exactmod._measures(lo, hi, w, p, design.margin)
+        rows.append(eng._row_from_measures(design, k, meas, seed, "exact-betabinomial"))
+    return rows
+
+
+def _pooled_count_pmf(cm: ClusteredModel, m: int, k: int) -> np.ndarray:
+    """P(sum of k iid cluster counts = x), x = 0..k m (beta-binomial clusters)."""
+    if cm.icc == 0.0:
+        return stats.binom.pmf(np.arange(k * m + 1), k * m, cm.mean)
+    one = stats.betabinom.pmf(np.arange(m + 1), m, cm.alpha, cm.beta)
+    out = np.array([1.0])
+    base = one
+    e = k
+    # convolution power by squaring; FFT rounding leaves |error| ~ 1e-16, clipped
+    while e:
+        if e & 1:
+            out = np.clip(signal.fftconvolve(out, base), 0.0, None)
+        e >>= 1
+        if e:
+            base = np.clip(signal.fftconvolve(base, base), 0.0, None)
+    return out / out.sum()
+
+
+# --------------------------------------------------------------------------
+# finite populations
+# --------------------------------------------------------------------------
+def population_for(design: Design, root: np.random.SeedSequence) -> FinitePopulation:
+    """The fixed population of one evaluation (file, or drawn from ``STAGE_POPULATION``)."""
+    pop = design.population
+    if pop.file is not None:
+        if pop.column is None:
+            raise InputError("population.column", "missing (required with population.file)")
+        return read_population(pop.file, pop.column, pop.size)
+    return draw_population(design.model, pop.size, rngmod.generator(root, rngmod.STAGE_POPULATION))
+
+
+def _population_notes(design: Design, fp: FinitePopulation, method: Method) -> list[str]:
+    notes = list(eng._notes(design))
+    notes.append(f"finite population of {fp.size} units, {fp.source}; samples drawn without replacement")
+    what = "share of events K/N" if design.estimand == "proportion" else "mean"
+    notes.append(f"true value: the population {what} ({fp.mean:.6g}), not the data model's")
+    if design.population.fpc and method.kind in ("summary", "count"):
+        notes.append("finite population correction: half-width x sqrt(1 - n/N)")
+    elif not design.population.fpc:
+        notes.append("no finite population correction (population.fpc = false)")
+    if design.method == "z":
+        notes.append(f"z uses the population SD S = {fp.S:.6g} (divisor N - 1)")
+    return notes
+
+
+def _shrink(centre, lo, hi, f, clip: bool):
+    lo = centre - (centre - lo) * f
+    hi = centre + (hi - centre) * f
+    if clip:
+        return np.clip(lo, 0.0, 1.0), np.clip(hi, 0.0, 1.0)
+    return lo, hi
+
+
+def _fpc_count(func, N: int):
+    """A count interval with its limits pulled towards x/n by sqrt(1 - n/N), clipped to [0, 1]."""
+
+    def corrected(x, n, confidence):
+        lo, hi = func(x, n, confidence)
+        phat = np.asarray(x, dtype=float) / np.asarray(n, dtype=float)
+        return _shrink(phat, np.asarray(lo, float), np.asarray(hi, float), fpc_factor(n, N), clip=True)
+
+    return corrected
+
+
+def _population(design, method, ns, replicates, root, seed, path, curve, progress, chunk_bytes) -> list[CheckResult]:
+    fp = population_for(design, root)
+    N = fp.size
+    for n in ns:
+        if n > N:
+            raise InputError("n", f"must be <= population.size ({N}) when sampling without replacement, got {n}")
+    notes = _population_notes(design, fp, method)
+    fpc = bool(design.population.fpc)
+    kind = method.kind
+    if design.estimand == "proportion" and not fp.zero_one:
+        raise InputError("population.file", "a proportion estimand needs 0/1 population values")
+    exact_ok = kind == "count" and fp.zero_one
+    if path == "exact" and not exact_ok:
+        raise InputError("simulation.path", "path 'exact' is only for proportion intervals on a 0/1 population; available: auto, nested, full")
+    if exact_ok and path in ("auto", "exact"):
+        K = fp.events
+        func = _fpc_count(method.func, N) if fpc else method.func
+        rows = []
+        for n in ns:
+            meas = exactmod.hypergeometric_measures(func, n, N, K, design.confidence, design.margin, fpc=False)
+            r = eng._row_from_measures(design, n, meas, seed, "exact-hypergeometric")
+            rows.append(replace(r, true_value=K / N, notes=tuple(list(r.notes) + notes)))
+        return rows
+
+    nested = kind != "sample" and (path == "nested" or (path == "auto" and curve))
+    groups = [ns] if nested else [[n] for n in ns]
+    centre = fp.mean if method.shift_equivariant else 0.0
+    truth = fp.mean - centre
+    values = fp.values
+    if kind == "log" and np.any(values <= 0):
+        raise InputError("method.interval", f"{design.method} needs strictly positive data; the population has values <= 0")
+    rows: list[CheckResult] = []
+    for group in groups:
+        nmax = max(group)
+        cols_per_rep = block_columns(N, nmax)
+        all_blocks, per_chunk, _ = eng._plan(replicates, cols_per_rep, chunk_bytes, 1)
+        acc = eng._Acc(len(group), replicates, design.margin)
+        nan_total = np.zeros(len(group), np.int64)
+        n_eval = np.asarray(group, dtype=np.int64)
+        f = fpc_factor(n_eval, N)
+        for first, blocks in eng._chunks(all_blocks, per_chunk):
+            for bi, (s, e) in enumerate(blocks):
+                g = rngmod.generator(root, rngmod.STAGE_MAIN, first + bi)
+                x = values[sample_indices(g, N, (e - s, nmax), ordered=nested)]
+                if centre:
+                    x -= centre
+                lo, hi = _population_intervals(design, method, x, group, nested, n_eval, f, fpc, fp, root, first + bi, (s, e))
+                lo = np.asarray(lo, dtype=np.float64).reshape(e - s, -1)
+                hi = np.asarray(hi, dtype=np.float64).reshape(e - s, -1)
+                bad = np.isnan(lo) | np.isnan(hi)
+                if bad.any():
+                    nan_total += np.count_nonzero(bad, axis=0)
+                acc.add(lo, hi, truth)
+            if progress:
+                progress(blocks[-1][1], replicates)
+        acc.finish()
+        label = "nested" if nested else "simulation"
+        for j, n in enumerate(group):
+            r = acc.row(j, design, n, replicates, seed, label, nan_count=int(nan_total[j]))
+            extra = [f"{int(nan_total[j])} intervals could not be computed and count as not covering"] if nan_total[j] else []
+            rows.append(replace(r, true_value=fp.mean, notes=tuple(list(r.notes) + notes + extra)))
+    return rows
+
+
+def _population_intervals(design, method, x, group, nested, n_eval, f, fpc, fp, root, block_index, span):
+    kind = method.kind
+    conf = design.confidence
+    if kind == "summary":
+        s = eng._summary(*eng._moments(x, group, nested, method.needs_m3), n_eval, fp.S)
+        lo, hi = method.func(s, conf)
+        if fpc:
+            lo, hi = _shrink(s.mean, lo, hi, f, clip=False)
+        return lo, hi
+    if kind == "count":
+        cnt = eng._counts(x, group, nested)
+        func = _fpc_count(method.func, fp.size) if fpc else method.func
+        return func(cnt, n_eval, conf)
+    if kind == "log":
+        np.log(x, out=x)
+        shift = math.log(fp.mean)  # centre the logs for precision; undone below
+        x -= shift
+        s = eng._summary(*eng._moments(x, group, nested, False), n_eval, None)
+        return method.func(Summary(n=s.n, mean=s.mean + shift, var=s.var), conf)
+    # sample (bootstrap): one n per draw; resampling from its own stream per block
+    lo, hi, _deg = eng._bootstrap_blocks(method, design, x, None, group[0], None, root, block_index, [span])
+    return lo, hi
