@@ -387,6 +387,32 @@ class _Acc:
             self.hw[self.seen : self.seen + take] = hw[:take]
         self.seen += b
 
+    def add_symmetric(self, centre: np.ndarray, half: np.ndarray, truth, starts=None) -> None:
+        """As :meth:`add` for intervals centre ± half (fewer passes over the data)."""
+        if np.ndim(centre) == 1:
+            centre, half = centre[:, None], half[:, None]
+        dev = centre - truth
+        miss = np.abs(dev) > half
+        low = miss & (dev < 0)
+        n_low = low.sum(axis=0)
+        self.low += n_low
+        self.high += miss.sum(axis=0) - n_low
+        sums = np.add.reduceat(half, starts if starts is not None else [0], axis=0)
+        if np.isnan(sums).any():  # a NaN centre comes with a NaN half here
+            lo, hi = centre - half, centre + half
+            self.low -= n_low
+            self.high -= miss.sum(axis=0) - n_low
+            self.add(lo, hi, truth, starts=starts)
+            return
+        self.block_sums.append(sums)
+        if self.margin is not None:
+            self.assured += (half <= self.margin * (1 + 1e-12)).sum(axis=0)
+        b = half.shape[0]
+        if self.seen < self.keep:
+            take = min(b, self.keep - self.seen)
+            self.hw[self.seen : self.seen + take] = half[:take]
+        self.seen += b
+
     def finish(self) -> None:
         # coverage = not missed on either side; NaN limits are neither and are
         # taken off the covered count by the caller
@@ -714,6 +740,12 @@ def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes,
                 xa -= mu_a
                 ma = _moments(xa, ns, nested, method.needs_m3)
             sa = _summary(*ma, n_eval, design.model.sd)
+            if kind == "summary" and method.centre_half is not None:
+                c, h = method.centre_half(sa, design.confidence)
+                acc.add_symmetric(np.broadcast_to(c, np.shape(sa.mean)), np.broadcast_to(h, np.shape(sa.mean)), truth, starts=_starts(blocks))
+                if progress:
+                    progress(blocks[-1][1], replicates)
+                continue
             if kind == "summary":
                 lo, hi = method.func(sa, design.confidence)
             else:
@@ -751,8 +783,7 @@ def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes,
         hi = np.asarray(hi, dtype=np.float64)
         if lo.ndim == 1:
             lo, hi = lo[:, None], hi[:, None]
-        starts = [s - blocks[0][0] for s, _ in blocks]
-        acc.add(lo, hi, truth, None if degenerate is None else np.asarray(degenerate).reshape(-1, 1), starts=starts)
+        acc.add(lo, hi, truth, None if degenerate is None else np.asarray(degenerate).reshape(-1, 1), starts=_starts(blocks))
         if progress:
             progress(blocks[-1][1], replicates)
     acc.finish()
@@ -764,6 +795,10 @@ def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes,
             r = _with_note(r, f"{int(acc.nan[j])} intervals could not be computed and count as not covering")
         rows.append(r)
     return rows
+
+
+def _starts(blocks) -> list[int]:
+    return [s - blocks[0][0] for s, _ in blocks]
 
 
 def _with_note(r: CheckResult, note: str) -> CheckResult:

@@ -160,6 +160,7 @@ class StudyResults:
             "formula": dict(self.formula) if self.formula else None,
             "best": self.best,
             "by_method": [self.method_row(m) for m in self.methods],
+            "methods_paragraph": methods_paragraph(self),
             "data": dict(self.data),
             "versions": dict(self.versions),
         })
@@ -883,8 +884,6 @@ def write_report(out_dir: str | Path, results: StudyResults | SweepResults) -> R
     results.to_frame().to_csv(table, index=False, lineterminator="\n")
     summary = out / "summary.json"
     d = results.to_dict()
-    if isinstance(results, StudyResults):
-        d["methods_paragraph"] = methods_paragraph(results)
     d["caution"] = CAUTION
     summary.write_text(json.dumps(d, indent=2, sort_keys=True, allow_nan=False) + "\n", encoding="utf-8")
     return ReportFiles(out_dir=out, markdown=md, html=ht, table=table, summary=summary, figures=written)

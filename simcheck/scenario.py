@@ -47,7 +47,7 @@ import difflib
 import math
 import tomllib
 from dataclasses import dataclass, field
-from numbers import Integral, Real
+from numbers import Integral
 from pathlib import Path
 from typing import Any, Mapping
 

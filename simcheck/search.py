@@ -14,12 +14,13 @@ the root, so no stage reuses another's replicates):
    ``[n_min, n_max]``;
 2. *bracket* with single-n checks on a tenth of the replicates, halving or
    doubling n until one n fails and a larger one passes;
-3. *locate* the crossing on a quarter of the replicates: one whole-curve
+3. *locate* the crossing on an eighth of the replicates: one whole-curve
    evaluation of every n in the bracket for methods on sufficient
    statistics (nested draws, common random numbers), coarse-to-fine grids of
    four n per round for methods evaluated n by n (bootstrap, clustered);
 4. *confirm* on fresh replicates (spawn key ``(STAGE_CONFIRM, round)``) a
-   window around the located n (every n of ``n +/- max(3, precision n)`` on
+   window around the located n (every n the locate stage could not tell
+   from the boundary, padded by ``max(3, precision n / 2)``, on
    the whole-curve paths; ``n - w, n - 1, n, n + w`` otherwise). The answer
    is read off the confirmation, not off the noise that placed the window.
    If the decision is not clear, the replicates are doubled (a new round on
@@ -38,8 +39,9 @@ Decision rules (Monte Carlo error, MCSE = sqrt(p (1 - p) / R), Morris et al.
   with the Monte Carlo error: the boundary may lie anywhere in between;
 * the decision is *clear* when both ends of ``n_range`` were found inside the
   confirmation window (or at ``n_min`` / ``n_max``) and
-  ``high - low <= max(1, round(precision * n))`` (default precision 0.05:
-  n is pinned down to within 5 %). With the example of a steep boundary
+  ``high - low <= max(1, round(precision * n))`` (default precision 0.1:
+  n is pinned down to about +-5 %; planning inputs such as an SD or CV are
+  rarely known better). With the example of a steep boundary
   (n - 1 fails and n passes, each by more than 2 MCSE) ``n_range`` is
   ``[n, n]``.
 
@@ -306,7 +308,7 @@ def find_n(
     budget: int | None = None,
     progress: Progress = None,
     path: str = "auto",
-    precision: float = 0.05,
+    precision: float = 0.1,
 ) -> SearchResult:
     """The smallest n whose coverage and assurance meet the targets.
 
@@ -333,7 +335,8 @@ def find_n(
     path : str
         Engine path ("auto" takes the cheapest valid one).
     precision : float
-        Relative width of ``n_range`` at which the decision counts as clear.
+        Largest width of ``n_range``, relative to n, at which the decision
+        counts as clear (default 0.1, i.e. about +-5 %).
 
     Returns
     -------
@@ -575,7 +578,7 @@ def _bracket(passes: Callable[[int], bool], start: int, lo_n: int, hi_n: int) ->
 def _simulated_search(run: _Runner, start: int, budget: int, precision: float, **ctx) -> SearchResult:
     design, targets, lo_n, hi_n, R = ctx["design"], ctx["targets"], ctx["lo_n"], ctx["hi_n"], ctx["R"]
     r_pilot = max(min(R, 200), R // 10)
-    r_locate = max(min(R, 500), R // 4)
+    r_locate = max(min(R, 500), R // 8)
     notes: list[str] = []
 
     # -- bracket (pilot replicates, one stream per step)
@@ -616,7 +619,7 @@ def _simulated_search(run: _Runner, start: int, budget: int, precision: float, *
     if lo is None:
         lo = lo_n  # lo_n passes on the pilot; the window starts there
 
-    # -- locate (quarter of the replicates)
+    # -- locate (an eighth of the replicates)
     if run.dense:
         top = min(hi_n, max(hi + 1, int(math.ceil(hi * 1.1))))
         span = top - lo + 1
@@ -629,11 +632,11 @@ def _simulated_search(run: _Runner, start: int, budget: int, precision: float, *
         if cand is None:
             cand = top
         # the window covers every n the locate stage could not tell from the
-        # boundary, plus a pad: |score| <= 1.5 MCSE at a quarter of the
-        # replicates is about 3 MCSE at the full replicates
+        # boundary, plus a pad: |score| <= 3 sqrt(r_locate / R) at the locate
+        # stage is about 3 MCSE at the full replicates
         lz = LOCATE_Z * math.sqrt(r_locate / R)
         band = _band(rows, targets, cand, lz)
-        w = max(3, int(math.ceil(precision * cand)), stride)
+        w = max(3, int(math.ceil(precision * cand / 2)), stride)
         window = _dense_window(max(lo_n, min(band) - w), min(hi_n, max(band) + w))
     else:
         it = 0

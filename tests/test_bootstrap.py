@@ -112,10 +112,11 @@ def test_closed_form_acceleration_matches_scipy_jackknife():
 
 
 def test_index_source_is_uniform():
-    # Lemire (2019) multiply-and-shift with rejection: exact uniform law,
-    # checked with scipy.stats.chisquare on three ranges (16-bit, 16-bit with
-    # rejection, 32-bit words). Fixed seed; p > 1e-4 (common practice).
-    for s in (7, 2500, 40000):
+    # Threshold rejection + division by a constant: exact uniform law, checked
+    # with scipy.stats.chisquare on 16-bit words (s = 7, 2500, 2**14: with and
+    # without rejection) and 32-bit words (s = 40000). Fixed seed; p > 1e-4
+    # (common practice).
+    for s in (7, 2500, 2**14, 40000):
         src = bs._IndexSource(np.random.default_rng(s), 400_000)
         out = np.empty(400_000, dtype=np.intp)
         src.fill(out, s)
@@ -336,7 +337,7 @@ def test_memory_bounded_for_large_study():
 
 @pytest.mark.parametrize("n", [3, 300])
 def test_memory_bounded_bootstrap_t_and_two_sample(n):
-    x = np.random.default_rng(94).lognormal(size=(400, n))
+    x = np.random.default_rng(94).lognormal(size=(400 if n < 100 else 40, n))
     assert _peak(bs.t_mean, x, 0.95, rng=np.random.default_rng(1), resamples=999) <= bs.MEMORY_BOUND
     assert _peak(bs.t_diff, x, x[:, ::-1], 0.95, rng=np.random.default_rng(1), resamples=999) <= bs.MEMORY_BOUND
 

@@ -71,6 +71,9 @@ class Method:
     needs_true_sd: bool = False
     summary: str = ""
     references: tuple[str, ...] = ()
+    #: optional ``(s, confidence) -> (centre, half)`` for symmetric intervals;
+    #: the engine then skips forming and re-differencing the limits
+    centre_half: Callable | None = field(default=None, repr=False)
 
 
 REGISTRY: dict[tuple[str, str], Method] = {}

@@ -90,6 +90,12 @@ def t_interval(s: Summary, confidence: float) -> tuple[np.ndarray, np.ndarray]:
     ----------
     Student (1908). The probable error of a mean. *Biometrika* 6(1), 1-25.
     """
+    mean, half = t_centre_half(s, confidence)
+    return mean - half, mean + half
+
+
+def t_centre_half(s: Summary, confidence: float) -> tuple[np.ndarray, np.ndarray]:
+    """Centre and half-width of the t interval (see :func:`t_interval`)."""
     n = _as_float(s.n)
     mean = _as_float(s.mean)
     t = _t_quantile(1.0 - _alpha_half(confidence), n - 1.0)
@@ -97,7 +103,7 @@ def t_interval(s: Summary, confidence: float) -> tuple[np.ndarray, np.ndarray]:
     # passes touch the (replicates, n) arrays in whole-curve evaluations
     half = np.maximum(_as_float(s.var), 0.0) * (t * t / n)
     np.sqrt(half, out=half)
-    return mean - half, mean + half
+    return mean, half
 
 
 def johnson_t_interval(s: Summary, confidence: float) -> tuple[np.ndarray, np.ndarray]:
@@ -300,6 +306,7 @@ register(Method(
 ))
 register(Method(
     name="t", estimand="mean", kind="summary", func=t_interval, shift_equivariant=True,
+    centre_half=t_centre_half,
     summary="Student t interval, n - 1 df",
     references=("Student (1908), Biometrika 6:1-25",),
 ))
