@@ -26,9 +26,9 @@ Clustered samples (``design.clusters``)
 
 Finite populations (``design.population``)
     The population (N values from the model, or from ``population.file``) is
-    drawn once per evaluation from the stream at spawn key
-    ``STAGE_POPULATION`` below the root, so it is reproducible and shared by
-    all n of a curve. Samples are drawn without replacement
+    drawn from the stream ``STAGE_POPULATION`` below the root's entropy with
+    its spawn key dropped, so it is reproducible and shared by all n of a
+    curve, all stages of a search and all sweep cells with the same seed. Samples are drawn without replacement
     (:func:`simcheck.models.population.sample_indices`). The true value is
     the population mean (K / N for 0/1 populations), not the model mean.
     With ``population.fpc`` the half-width of ``t``, ``z``, ``johnson-t`` and
@@ -38,12 +38,14 @@ Finite populations (``design.population``)
     are exact by hypergeometric enumeration.
 
 Randomness follows :mod:`simcheck.engine`: block ``i`` of replicates draws
-from the stream ``(STAGE_MAIN, i)``; block sizes depend only on the design
-and n, never on ``chunk_bytes``.
+from the stream ``(STAGE_MAIN, i)`` (bootstrap resampling
+``(STAGE_BOOTSTRAP, i)``), consumed in fixed pieces (:func:`_pieces`);
+block and piece sizes depend only on the design and n, so ``chunk_bytes``
+(accepted for the engine's signature) never changes results: memory is
+bounded by the pieces.
 
-Helpers reused from :mod:`simcheck.engine`: ``_Acc``, ``_mcse`` (through
-``_Acc``), ``_plan``, ``_chunks``, ``block_size``, ``_columns``,
-``_moments``, ``_summary``, ``_counts``, ``_bootstrap_blocks``,
+Helpers reused from :mod:`simcheck.engine`: ``_Acc`` (with ``_mcse``),
+``_columns``, ``_moments``, ``_summary``, ``_counts``,
 ``_row_from_measures``, ``_exact``, ``_notes``. From :mod:`simcheck.exact`:
 ``hypergeometric_measures`` and ``_measures``.
 
@@ -91,7 +93,28 @@ from simcheck.results import CheckResult
 #: largest pooled count k m enumerated exactly for clustered 0/1 data
 EXACT_COUNT_MAX = 2_000_000
 
-__all__ = ["evaluate", "population_for", "cluster_model_for"]
+__all__ = ["evaluate", "available_paths", "exact_available", "population_for", "cluster_model_for"]
+
+
+#: values drawn per piece and pieces per random block: fixed, so the numbers
+#: depend only on the root, the block index and the design (never on chunking)
+PIECE_VALUES = 1 << 17
+PIECES_PER_BLOCK = 8
+
+
+def _pieces(root: np.random.SeedSequence, replicates: int, columns: int):
+    """Yield (block index, block generator, first row, stop row, last piece of block).
+
+    Block ``i`` owns the stream ``(STAGE_MAIN, i)``; its generator is consumed
+    piece by piece in order, so memory stays bounded by PIECE_VALUES values
+    (times a small factor) whatever the number of replicates.
+    """
+    pr = max(1, PIECE_VALUES // max(int(columns), 1))
+    for bi, (s, e) in enumerate(rngmod.blocks(replicates, pr * PIECES_PER_BLOCK)):
+        g = rngmod.generator(root, rngmod.STAGE_MAIN, bi)
+        for ps in range(s, e, pr):
+            pe = min(ps + pr, e)
+            yield bi, g, ps, pe, pe == e
 
 
 # --------------------------------------------------------------------------
@@ -109,6 +132,47 @@ def evaluate(design: Design, ns: Sequence[int], replicates: int, rng, path: str,
     if design.clusters is not None:
         return _clusters(design, method, list(ns), replicates, root, seed, path, curve, progress, chunk_bytes)
     return _population(design, method, list(ns), replicates, root, seed, path, curve, progress, chunk_bytes)
+
+
+def exact_available(design: Design) -> bool:
+    """True when ``path="auto"`` evaluates ``design`` exactly (no simulation) at every n.
+
+    Clusters: ``cluster-t`` or ``z`` with equal sizes, a normal model and
+    normal effects; proportion methods on the pooled count with equal sizes.
+    Populations: proportion methods on a 0/1 population (model-drawn
+    populations are 0/1 exactly when the model is).
+    """
+    method = get_method(design.estimand, design.method)
+    if design.two_sample or (design.clusters is not None and design.population is not None):
+        return False
+    if design.clusters is not None:
+        try:
+            cm, law = cluster_model_for(design)
+        except InputError:
+            return False
+        return _cluster_exact_kind(design, method, cm, law) is not None
+    if design.population is not None:
+        if method.kind != "count":
+            return False
+        return design.population.file is not None or bool(design.model.zero_one)
+    return False
+
+
+def available_paths(design: Design) -> list[str]:
+    """The paths valid for a clustered or finite-population design, cheapest first."""
+    method = get_method(design.estimand, design.method)
+    out = ["exact"] if exact_available(design) else []
+    if design.clusters is not None:
+        try:
+            cm, _ = cluster_model_for(design)
+        except InputError:
+            return ["full"]
+        if cm.fast_ok(3 if method.needs_m3 else 2):
+            out.append("sufficient")
+    if method.kind != "sample":
+        out.append("nested")
+    out.append("full")
+    return out
 
 
 def _validate(design: Design, method: Method, ns, path: str) -> None:
@@ -199,21 +263,18 @@ def _clusters(design, method, ns, replicates, root, seed, path, curve, progress,
     for group in groups:
         K = max(group)
         per_rep = K * (2 if fast else max(1, math.ceil(law.mean)))
-        all_blocks, per_chunk, _ = eng._plan(replicates, per_rep, chunk_bytes, 1)
         acc = eng._Acc(len(group), replicates, design.margin)
         nan_total = np.zeros(len(group), np.int64)
-        for first, blocks in eng._chunks(all_blocks, per_chunk):
-            for bi, (s, e) in enumerate(blocks):
-                g = rngmod.generator(root, rngmod.STAGE_MAIN, first + bi)
-                m = law.draw(g, (e - s, K))
-                s1, s2, s3 = cm.cluster_sums(g, m, centre=centre, powers=powers, fast=fast)
-                lo, hi = _cluster_intervals(design, method, m, s1, s2, s3, group, law.fixed)
-                bad = np.isnan(lo) | np.isnan(hi)
-                if bad.any():
-                    nan_total += np.count_nonzero(bad, axis=0)
-                acc.add(lo, hi, truth)
-            if progress:
-                progress(blocks[-1][1], replicates)
+        for bi, g, ps, pe, last in _pieces(root, replicates, per_rep):
+            m = law.draw(g, (pe - ps, K))
+            s1, s2, s3 = cm.cluster_sums(g, m, centre=centre, powers=powers, fast=fast)
+            lo, hi = _cluster_intervals(design, method, m, s1, s2, s3, group, law.fixed)
+            bad = np.isnan(lo) | np.isnan(hi)
+            if bad.any():
+                nan_total += np.count_nonzero(bad, axis=0)
+            acc.add(lo, hi, truth)
+            if progress and last:
+                progress(pe, replicates)
         acc.finish()
         for j, k in enumerate(group):
             r = acc.row(j, design, k, replicates, seed, label, nan_count=int(nan_total[j]))
@@ -336,7 +397,11 @@ def population_for(design: Design, root: np.random.SeedSequence) -> FinitePopula
         if pop.column is None:
             raise InputError("population.column", "missing (required with population.file)")
         return read_population(pop.file, pop.column, pop.size)
-    return draw_population(design.model, pop.size, rngmod.generator(root, rngmod.STAGE_POPULATION))
+    # The population belongs to the seed, not to one evaluation: its stream
+    # drops the spawn key, so the search's stages (and sweep cells with the
+    # same root seed) all sample the same population.
+    base = np.random.SeedSequence(entropy=root.entropy, pool_size=root.pool_size)
+    return draw_population(design.model, pop.size, rngmod.generator(base, rngmod.STAGE_POPULATION))
 
 
 def _population_notes(design: Design, fp: FinitePopulation, method: Method) -> list[str]:
@@ -407,26 +472,29 @@ def _population(design, method, ns, replicates, root, seed, path, curve, progres
     for group in groups:
         nmax = max(group)
         cols_per_rep = block_columns(N, nmax)
-        all_blocks, per_chunk, _ = eng._plan(replicates, cols_per_rep, chunk_bytes, 1)
         acc = eng._Acc(len(group), replicates, design.margin)
         nan_total = np.zeros(len(group), np.int64)
         n_eval = np.asarray(group, dtype=np.int64)
         f = fpc_factor(n_eval, N)
-        for first, blocks in eng._chunks(all_blocks, per_chunk):
-            for bi, (s, e) in enumerate(blocks):
-                g = rngmod.generator(root, rngmod.STAGE_MAIN, first + bi)
-                x = values[sample_indices(g, N, (e - s, nmax), ordered=nested)]
-                if centre:
-                    x -= centre
-                lo, hi = _population_intervals(design, method, x, group, nested, n_eval, f, fpc, fp, root, first + bi, (s, e))
-                lo = np.asarray(lo, dtype=np.float64).reshape(e - s, -1)
-                hi = np.asarray(hi, dtype=np.float64).reshape(e - s, -1)
-                bad = np.isnan(lo) | np.isnan(hi)
-                if bad.any():
-                    nan_total += np.count_nonzero(bad, axis=0)
-                acc.add(lo, hi, truth)
-            if progress:
-                progress(blocks[-1][1], replicates)
+        boot = None
+        for bi, g, ps, pe, last in _pieces(root, replicates, cols_per_rep):
+            if kind == "sample" and (boot is None or boot[0] != bi):
+                # resampling draws from its own stream per block, consumed piece by piece
+                boot = (bi, rngmod.generator(root, rngmod.STAGE_BOOTSTRAP, bi))
+            x = values[sample_indices(g, N, (pe - ps, nmax), ordered=nested)]
+            if centre:
+                x -= centre
+            lo, hi, deg = _population_intervals(design, method, x, group, nested, n_eval, f, fpc, fp,
+                                                None if boot is None else boot[1])
+            b = pe - ps
+            lo = np.broadcast_to(np.asarray(lo, dtype=np.float64).reshape(b, -1), (b, len(group)))
+            hi = np.broadcast_to(np.asarray(hi, dtype=np.float64).reshape(b, -1), (b, len(group)))
+            bad = np.isnan(lo) | np.isnan(hi)
+            if bad.any():
+                nan_total += np.count_nonzero(bad, axis=0)
+            acc.add(lo, hi, truth, None if deg is None else np.asarray(deg).reshape(-1, 1))
+            if progress and last:
+                progress(pe, replicates)
         acc.finish()
         label = "nested" if nested else "simulation"
         for j, n in enumerate(group):
@@ -436,7 +504,7 @@ def _population(design, method, ns, replicates, root, seed, path, curve, progres
     return rows
 
 
-def _population_intervals(design, method, x, group, nested, n_eval, f, fpc, fp, root, block_index, span):
+def _population_intervals(design, method, x, group, nested, n_eval, f, fpc, fp, boot_rng):
     kind = method.kind
     conf = design.confidence
     if kind == "summary":
@@ -444,17 +512,16 @@ def _population_intervals(design, method, x, group, nested, n_eval, f, fpc, fp, 
         lo, hi = method.func(s, conf)
         if fpc:
             lo, hi = _shrink(s.mean, lo, hi, f, clip=False)
-        return lo, hi
+        return lo, hi, None
     if kind == "count":
         cnt = eng._counts(x, group, nested)
         func = _fpc_count(method.func, fp.size) if fpc else method.func
-        return func(cnt, n_eval, conf)
+        return (*func(cnt, n_eval, conf), None)
     if kind == "log":
         np.log(x, out=x)
         shift = math.log(fp.mean)  # centre the logs for precision; undone below
         x -= shift
         s = eng._summary(*eng._moments(x, group, nested, False), n_eval, None)
-        return method.func(Summary(n=s.n, mean=s.mean + shift, var=s.var), conf)
-    # sample (bootstrap): one n per draw; resampling from its own stream per block
-    lo, hi, _deg = eng._bootstrap_blocks(method, design, x, None, group[0], None, root, block_index, [span])
-    return lo, hi
+        return (*method.func(Summary(n=s.n, mean=s.mean + shift, var=s.var), conf), None)
+    # sample (bootstrap): one n per draw
+    return method.func(x[:, : group[0]], conf, rng=boot_rng, resamples=design.resamples)

@@ -43,6 +43,9 @@ from matplotlib.figure import Figure
 from simcheck import __version__
 from simcheck.results import CheckResult, CurveResult
 
+__all__ = ["coverage_figure", "margin_figure", "miss_figure", "sweep_figure", "save_figure", "figure_bytes",
+           "series_style", "STYLE", "OKABE_ITO"]
+
 # Okabe & Ito (2002) palette, in the order series are given out; black and
 # yellow are kept out of the series list (black is for reference lines,
 # yellow is too light on white paper).
@@ -278,7 +281,13 @@ def coverage_figure(
             nf = found.get(name)
             if nf is not None:
                 who = f" ({name})" if len(curves) > 1 else ""
-                _vline(ax, nf, style=(0, (6, 2)), colour=series_style(i)["color"], label=f"n found = {nf:,}{who}")
+                st = series_style(i)
+                ln = _vline(ax, nf, style=(0, (6, 2)), colour=st["color"], label=f"n found = {nf:,}{who}")
+                if len(curves) > 1:
+                    # the method's marker on top of its line tells the lines apart in greyscale
+                    ln.set_marker(st["marker"])
+                    ln.set_markevery([1])
+                    ln.set_clip_on(False)
         n_all = np.concatenate(all_n) if all_n else np.array([1.0])
         _set_n_axis(ax, n_all, n_label)
         lo, hi = float(np.nanmin(lows)), float(np.nanmax(highs))
@@ -563,6 +572,12 @@ def sweep_figure(
     use_ref = value == "n" and reference is not None and reference in frame.columns
     if value_label is None:
         value_label = {"n": "Required sample size n", "coverage": "Coverage at the fixed n"}.get(value, value)
+    not_reached_y = None
+    any_missing = False
+    if value == "n" and "reached" in frame.columns and (frame["reached"] == False).any():  # noqa: E712
+        top = frame[value].to_numpy(dtype=float)
+        top = top[np.isfinite(top)]
+        not_reached_y = float(top.max()) * 1.4 if top.size else 1.0
     with rc_context(STYLE):
         fig = _new_figure(width, height)
         axes = np.atleast_1d(fig.subplots(nrows, ncols, sharey=True, sharex=True, squeeze=False)).ravel()
@@ -597,6 +612,13 @@ def sweep_figure(
                                 capsize=2, elinewidth=0.8, label=label)
                 else:
                     ax.plot(xs, ys, color=st["color"], marker=st["marker"], linestyle=st["linestyle"], label=label)
+                    if not_reached_y is not None and "reached" in part.columns:
+                        miss = (part["reached"] == False).to_numpy()  # noqa: E712 (a column of bools or None)
+                        if miss.any():
+                            # a search that stopped at its ceiling: a hollow triangle above the data
+                            ax.plot(xs[miss], np.full(int(miss.sum()), not_reached_y), linestyle="none", marker="^",
+                                    markerfacecolor="white", markeredgecolor=st["color"], markersize=5.5, zorder=3)
+                            any_missing = True
             if panel_cols:
                 ax.set_title(", ".join(_level_text(c, v) for c, v in zip(panel_cols, key)), loc="left")
             if not x_numeric:
@@ -613,6 +635,12 @@ def sweep_figure(
             if vals.size > 1 and vals.max() / vals.min() > 25:
                 axes[0].set_yscale("log")
                 _plain_log(axes[0].yaxis)
+        if any_missing:
+            from matplotlib.lines import Line2D
+
+            axes[0].add_line(Line2D([], [], linestyle="none", marker="^", markerfacecolor="white",
+                                    markeredgecolor=REFERENCE_COLOUR, markersize=5.5,
+                                    label="targets not reached by the search ceiling"))
         if line_col is not None:
             fig.legend(*_legend_items(fig), loc="outside lower center", ncols=min(5, len(line_levels) + 2),
                        handlelength=2.6)

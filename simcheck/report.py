@@ -30,6 +30,9 @@ from simcheck import CAUTION, __version__
 from simcheck.errors import InputError
 from simcheck.results import CheckResult, CurveResult, SearchResult
 
+__all__ = ["StudyResults", "SweepResults", "ReportFiles", "run_study", "read_sweep", "write_report", "report",
+           "methods_paragraph", "describe_model", "curve_grid", "formula_for", "is_store", "check_out_dir"]
+
 Progress = Callable[[str], None] | None
 
 ESTIMAND_TEXT = {
@@ -487,10 +490,15 @@ def methods_paragraph(study: StudyResults) -> str:
         parts.append(f"Samples were drawn without replacement from a finite population of "
                      f"{_g(s.data['population'].get('size'))} units.")
     if all_exact:
+        how = ("by enumerating the binomial distribution of the event count"
+               if s.estimand in ("proportion", "proportion-diff")
+               else "from the sampling law of the sample mean and variance")
         parts.append(f"For each candidate sample size n, coverage of {_interval_text(s.methods, s.confidence)} for {est} "
-                     f"was computed exactly by enumerating all possible samples, so it carries no Monte Carlo error.")
+                     f"was computed exactly {how} instead of by simulation, so it carries no Monte Carlo error.")
     else:
-        parts.append(f"For each candidate sample size n we drew {s.replicates:,} independent samples of n {unit} and "
+        what = (f"n observations in group a and {_g(s.data.get('ratio', 1.0))} × n (rounded up) in group b"
+                if "data_a" in s.data else f"n {unit}")
+        parts.append(f"For each candidate sample size n we drew {s.replicates:,} independent samples of {what} and "
                      f"computed {_interval_text(s.methods, s.confidence)} for {est} in each.")
         parts.append("Coverage is the share of intervals that contained the true value; its Monte Carlo standard "
                      "error (MCSE) is sqrt(c(1 − c)/R) for coverage c estimated from R samples"
@@ -504,15 +512,17 @@ def methods_paragraph(study: StudyResults) -> str:
         deff = f.get("design_effect")
         extra = f", design effect {_g(deff)}" if deff not in (None, 1, 1.0) else ""
         fc = [(m, s.formula_checks[m]) for m in s.methods if m in s.formula_checks]
-        parts.append(f"The closed-form formula ({kind} multiple{extra}) gives n = {s.n_formula:,} for a half-width of "
-                     f"{_g(s.margin)}" + (";" if fc else "."))
+        nf_unit = f" {unit}" if unit == "clusters" else ""
+        parts.append(f"The closed-form formula ({kind} multiple{extra}) gives n = {s.n_formula:,}{nf_unit} for a "
+                     f"half-width of {_g(s.margin)}" + (";" if fc else "."))
         if fc:
             said = []
             for m, c in fc:
                 a = f" and assurance {c.assurance:.3f}" if c.assurance is not None else ""
                 who = f" with the {method_text(m)} interval" if len(s.methods) > 1 else ""
                 said.append(f"coverage {_est(c.coverage, c.coverage_mcse, c.exact)}{a}{who}")
-            parts[-1] += " at that n the simulation gave " + "; ".join(said) + "."
+            gave = "the exact computation gave" if all(c.exact for _, c in fc) else "the simulation gave"
+            parts[-1] += f" at that n {gave} " + "; ".join(said) + "."
     crit = [f"coverage at least {_g(round(s.confidence - s.coverage_tolerance, 6))} (the nominal "
             f"{_g(s.confidence)} less a tolerance of {_g(s.coverage_tolerance)})"]
     if s.assurance is not None and s.margin is not None:
@@ -527,7 +537,10 @@ def methods_paragraph(study: StudyResults) -> str:
             c = s.checks.get(m)
             cov = (_est(c.coverage, c.coverage_mcse, c.exact, inline=True) if c is not None
                    else _est(r.coverage, r.coverage_mcse, r.exact, inline=True))
-            txt = f"{who} smallest such n was {r.n:,} (coverage {cov}"
+            txt = f"{who} smallest such n was {r.n:,}"
+            if r.n_b is not None:
+                txt += f" in group a and {r.n_b:,} in group b"
+            txt += f" (coverage {cov}"
             if c is not None and not c.exact and c.replicates != s.replicates:
                 txt += f", from {c.replicates:,} fresh samples at that n"
             ass = c.assurance if c is not None else r.assurance
@@ -627,6 +640,9 @@ def _study_doc(study: StudyResults, figs: dict[str, Path], base: Path) -> _Doc:
         f = s.formula or {}
         doc.para(f"Closed-form n: {s.n_formula:,} ({f.get('multiplier_kind', 'z')} multiple "
                  f"{_num(f.get('multiplier'))}" + (f", n for group b {f['n_b']:,}" if f.get("n_b") else "") + ").")
+        if f.get("formula"):
+            doc.para(f"Formula: `{f['formula']}`" + (f"; it assumes {_join(list(f['assumptions']))}."
+                                                     if f.get("assumptions") else "."))
     headers = ["Method", "Coverage at formula n", "n found", "n consistent with MC error", "Coverage at n found",
                "Below / above", "Assurance", "Half-width median / 90th pct"]
     table_rows = []

@@ -19,13 +19,16 @@ the root, so no stage reuses another's replicates):
    statistics (nested draws, common random numbers), coarse-to-fine grids of
    four n per round for methods evaluated n by n (bootstrap, clustered);
 4. *confirm* on fresh replicates (spawn key ``(STAGE_CONFIRM, round)``) a
-   window around the located n (every n the locate stage could not tell
-   from the boundary, padded by ``max(3, precision n / 2)``, on
-   the whole-curve paths; ``n - w, n - 1, n, n + w`` otherwise). The answer
+   window around the located n: on the whole-curve paths every n the locate
+   stage could not tell from the boundary (score within 3 full-replicate
+   MCSE), padded by ``max(3, precision n / 2)``; n by n, the four n
+   ``n - w, n - 1, n, n + w`` with ``w = ceil(precision n / 2)``. The answer
    is read off the confirmation, not off the noise that placed the window.
    If the decision is not clear, the replicates are doubled (a new round on
    a new key, pooled with the earlier rounds) until it is, or until the
-   replicate budget would be exceeded.
+   replicate budget would be exceeded. A window that misses the crossing
+   is moved; one that cuts an end of ``n_range`` off is widened while
+   ``n_range`` could still come out narrow enough.
 
 Decision rules (Monte Carlo error, MCSE = sqrt(p (1 - p) / R), Morris et al.
 2019):
@@ -329,7 +332,9 @@ def find_n(
         Search range (group a for two-sample designs; clusters when clustered).
     budget : int, optional
         Cap on the replicates the whole search may simulate (see the module
-        notes for how they are counted); default ``20 * replicates``.
+        notes for how they are counted); default ``20 * replicates``, and
+        ``80 * replicates`` for methods evaluated n by n (bootstrap), whose
+        confirmation rounds evaluate about four n each.
     progress : callable, optional
         ``progress(done, total)`` passed to each engine evaluation.
     path : str
@@ -749,9 +754,10 @@ def _simulated_search(run: _Runner, start: int, budget: int, precision: float, *
             f"the targets first hold at n = {ana['n_first']} but hold for every larger confirmed n only from n = {n}"
             " (coverage oscillates in n); n is the latter"
         )
-    if targets.assurance is not None:
-        zc = _z(at.coverage - targets.coverage, at.coverage, at.replicates, at.exact)
-        notes.append(f"the binding target at n is the {'coverage' if zc <= targets.score(at) else 'assurance'}")
+    below = [r for r in pooled_rows if r.n < n and not targets.passes(r)]
+    if below:
+        r = below[-1]
+        notes.append(f"at n = {r.n} the targets are missed: {'; '.join(targets.failing(r))}")
     return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=n,
                    reached=True, n_range=(low, high), at=at, stop=stop, exact=False, n_first=ana["n_first"],
                    notes=notes, curve_rows=pooled_rows)

@@ -342,6 +342,13 @@ def test_memory_bounded_bootstrap_t_and_two_sample(n):
     assert _peak(bs.t_diff, x, x[:, ::-1], 0.95, rng=np.random.default_rng(1), resamples=999) <= bs.MEMORY_BOUND
 
 
+def test_empty_block():
+    lo, hi, deg = bs.bca_mean(np.empty((0, 8)), 0.9, rng=np.random.default_rng(1), resamples=99)
+    assert lo.shape == hi.shape == deg.shape == (0,)
+    lo, hi, deg = bs.t_diff(np.empty((0, 8)), np.empty((0, 3)), 0.9, rng=np.random.default_rng(1), resamples=99)
+    assert lo.shape == (0,)
+
+
 def test_bad_input_names_the_field():
     x = np.ones((2, 5))
     with pytest.raises(InputError, match="target.confidence"):

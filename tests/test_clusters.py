@@ -332,3 +332,21 @@ def test_search_finds_the_number_of_clusters_of_the_design_effect_law():
     naive = search.find_n(d.with_method("t"), assurance=0.5, coverage_tolerance=0.005, replicates=4000, rng=3,
                           n_min=2, n_max=100)
     assert not naive.reached
+
+
+def test_available_paths_and_forced_paths():
+    from simcheck.engine_clustered import available_paths
+
+    normal = Design(model=make_model(NORMAL), method="cluster-t", margin=0.5, clusters=ClusterSpec(icc=0.1, size=5))
+    assert available_paths(normal) == ["exact", "sufficient", "nested", "full"]
+    skewed = Design(model=make_model({"model": "gamma", "mean": 5, "cv": 1}), method="johnson-t", margin=0.5,
+                    clusters=ClusterSpec(icc=0.1, size_mean=5, size_cv=0.3))
+    assert available_paths(skewed) == ["nested", "full"]
+    for path in ("exact", "sufficient"):
+        with pytest.raises(InputError) as e:
+            engine.check(skewed, 10, replicates=200, rng=1, path=path)
+        assert e.value.problems[0].field == "simulation.path"
+    # the third moment needs every observation: full draws; ignoring deff = 1.45
+    # (Eldridge et al. 2006) the naive johnson-t under-covers
+    r = engine.check(skewed, 10, replicates=2000, rng=1)
+    assert r.path == "simulation" and r.coverage < 0.95 - 4 * r.coverage_mcse

@@ -15,7 +15,6 @@ from simcheck import engine
 from simcheck import rng as rngmod
 from simcheck.design import Design, PopulationSpec
 from simcheck.errors import InputError
-from simcheck.intervals.proportion import wald, wilson
 from simcheck.models import make_model
 from simcheck.models.population import draw_population, read_population, sample_indices
 
@@ -163,3 +162,16 @@ def test_errors_name_the_field():
     with pytest.raises(InputError) as e:
         engine.check(d.with_method("cluster-t"), 20, replicates=200, rng=1)
     assert e.value.problems[0].field == "method.interval"
+
+
+def test_bootstrap_without_fpc_and_exact_flag():
+    from simcheck.engine_clustered import exact_available
+
+    model = make_model({"model": "lognormal", "mean": 6.0, "cv": 1.0})
+    d = Design(model=model, method="bootstrap-percentile", margin=0.5, resamples=199,
+               population=PopulationSpec(size=5000, fpc=False))
+    r = engine.check(d, 30, replicates=400, rng=1)
+    assert r.path == "simulation" and 0.5 < r.coverage <= 1.0 and not exact_available(d)
+    p = Design(model=make_model({"model": "bernoulli", "p": 0.3}), estimand="proportion", method="wilson",
+               margin=0.05, population=PopulationSpec(size=500))
+    assert exact_available(p) and engine.check(p, 50, rng=1).exact

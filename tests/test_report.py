@@ -390,3 +390,16 @@ def test_report_cli_bad_override_is_one_line(scenario_report, tmp_path, capsys):
     assert main(["report", str(d / "s.toml"), "--out", str(tmp_path / "x"), "--replicates", "0"]) == 2
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "replicates" in err
+
+
+def test_demo_runs_end_to_end_into_reports_demo(tmp_path, monkeypatch, capsys):
+    monkeypatch.chdir(tmp_path)
+    capsys.readouterr()
+    assert main(["demo", "--replicates", "300", "--json"]) == 0
+    obj = json.loads(capsys.readouterr().out)
+    assert obj["invented"] is True and "(invented example)" in obj["title"]
+    assert obj["n_formula"] == 139  # (1.959964 * 6 / 1)^2 = 138.3 -> 139 (common practice: z formula, SD = CV * mean)
+    assert set(obj["n_found"]) == {"t", "cox"}
+    assert Path(obj["report"]["html"]) == Path("reports/demo/report.html")
+    assert (tmp_path / "reports" / "demo" / "report.html").is_file()
+    assert (tmp_path / "reports" / "demo" / "figures" / "coverage.pdf").is_file()

@@ -74,7 +74,9 @@ def run(args: argparse.Namespace) -> int:
         emit_json(summary)
         return 0
     out = [study.title, ""]
-    out.append(f"formula n (z multiple, SD 6 days, margin 1 day): {study.n_formula}")
+    f = study.formula or {}
+    out.append(f"formula n ({f.get('multiplier_kind', 'z')} multiple, SD {f.get('sd', 0):g} days, "
+               f"margin {study.margin:g} day{'s' if study.margin != 1 else ''}): {study.n_formula}")
     for m, c in study.formula_checks.items():
         out.append(f"  coverage at n = {c.n} with {m}: {c.coverage:.4f} (MCSE {c.coverage_mcse:.4f}), "
                    f"assurance {c.assurance:.3f}")

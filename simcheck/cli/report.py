@@ -70,7 +70,8 @@ def text_summary(files, results) -> str:
             if s is None:
                 continue
             if s.reached:
-                cov = "" if c is None else f"  coverage {c.coverage:.4f} (MCSE {c.coverage_mcse:.4f})"
+                cov = "" if c is None else (f"  coverage {c.coverage:.4f} (exact)" if c.exact
+                                            else f"  coverage {c.coverage:.4f} (MCSE {c.coverage_mcse:.4f})")
                 lines.append(f"n found:     {s.n} with {m}{cov}")
             else:
                 lines.append(f"n found:     none up to {results.n_max} with {m}")

@@ -4,7 +4,7 @@ Run:  python tests/benchmarks/bench_search.py [--quick] [--replicates R]
 
 A whole search (formula start, bracket, locate, confirmation on fresh
 replicates, doubling if needed) on lognormal data (CV 1.5), t interval, 95 %
-confidence, target margin 0.17, assurance target 0.5, coverage tolerance 0.03,
+confidence, target margin 0.14, assurance target 0.5, coverage tolerance 0.03,
 against one engine.check at the n found with the same replicates.
                                                              target <= 4x
 
@@ -46,7 +46,7 @@ def main(argv=None) -> int:
     args = ap.parse_args(argv)
     repeat = 1 if args.quick else 5
     R = args.replicates
-    d = Design(model=make_model({"model": "lognormal", "mean": 1.0, "cv": 1.5}), method="t", margin=0.17)
+    d = Design(model=make_model({"model": "lognormal", "mean": 1.0, "cv": 1.5}), method="t", margin=0.14)
 
     # warm-up: imports and first-call costs are not the search's
     engine.check(d, 50, replicates=200, rng=0)
@@ -67,7 +67,7 @@ def main(argv=None) -> int:
     ratio = t_search / t_check
     ok = ratio <= TARGET
     ref = engine.check(d, 300, replicates=R, rng=8)
-    print(f"scenario: lognormal(mean 1, CV 1.5), t interval, 95 %, margin 0.17, assurance 0.5, tolerance 0.03, R = {R}")
+    print(f"scenario: lognormal(mean 1, CV 1.5), t interval, 95 %, margin 0.14, assurance 0.5, tolerance 0.03, R = {R}")
     print(f"search:   n = {n}, n_range = {res.n_range}, n_formula = {res.n_formula}, stop = {res.stop_reason!r}, "
           f"replicates used = {res.replicates_used}")
     print(f"          coverage {res.coverage:.4f} +/- {res.coverage_mcse:.4f}, assurance {res.assurance:.4f} +/- {res.assurance_mcse:.4f}")
