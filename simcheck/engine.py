@@ -138,6 +138,10 @@ def curve(
 
 def available_paths(design: Design) -> list[str]:
     """The paths valid for ``design``, cheapest first."""
+    if design.clusters is not None or design.population is not None:
+        from simcheck import engine_clustered
+
+        return engine_clustered.available_paths(design)
     method = get_method(design.estimand, design.method)
     out = []
     if _exact_kind(design, method):
@@ -153,6 +157,17 @@ def available_paths(design: Design) -> list[str]:
 # --------------------------------------------------------------------------
 # dispatch
 # --------------------------------------------------------------------------
+def exact_kind(design: Design) -> str | None:
+    """Which exact law evaluates ``design`` (``"binomial"``, ``"binomial2"``,
+    ``"normal1"``, ``"normal2"``), or None; simple random samples only."""
+    return _exact_kind(design, get_method(design.estimand, design.method))
+
+
+def mcse(share: float, replicates: int) -> float:
+    """Monte Carlo SE of a share (Morris, White & Crowther 2019)."""
+    return _mcse(share, replicates)
+
+
 def _as_n(v) -> int:
     if isinstance(v, bool) or not float(v).is_integer():
         raise InputError("n", f"must be a whole number, got {v!r}")

@@ -236,14 +236,14 @@ def _pool(a: CheckResult, b: CheckResult) -> CheckResult:
         a,
         replicates=R,
         coverage=float(cov),
-        coverage_mcse=engine._mcse(cov, R),
+        coverage_mcse=engine.mcse(cov, R),
         miss_low=float(w(a.miss_low, b.miss_low)),
         miss_high=float(w(a.miss_high, b.miss_high)),
         margin_mean=float(w(a.margin_mean, b.margin_mean)),
         margin_median=float(med),
         margin_p90=float(p90),
         assurance=None if ass is None else float(ass),
-        assurance_mcse=None if ass is None else engine._mcse(ass, R),
+        assurance_mcse=None if ass is None else engine.mcse(ass, R),
         degenerate=a.degenerate + b.degenerate,
         notes=tuple(notes),
         margin_values=vals,
@@ -280,12 +280,6 @@ class _Runner:
 
 def _dense_paths(design: Design, path: str) -> tuple[bool, bool]:
     """(exact, whole-curve) for the design and requested path."""
-    if design.clusters is not None or design.population is not None:
-        # the clustered / finite-population engine keeps its own paths: all
-        # but the bootstrap evaluate a whole curve from one nested draw
-        # (exactness is probed by the caller)
-        method = get_method(design.estimand, design.method)
-        return False, path != "full" and method.kind not in ("sample", "sample2")
     valid = engine.available_paths(design)
     if path == "auto":
         if valid[0] == "exact":
@@ -498,7 +492,8 @@ def _methods_that_reach(run: _Runner, ctx: dict) -> list[str]:
 # --------------------------------------------------------------------------
 def _exact_search(run: _Runner, start: int, **ctx) -> SearchResult:
     design, targets, lo_n, hi_n = ctx["design"], ctx["targets"], ctx["lo_n"], ctx["hi_n"]
-    scan = engine._exact_kind(design, get_method(design.estimand, design.method)) == "binomial"
+    # counts (binomial, beta-binomial, hypergeometric) make coverage oscillate in n
+    scan = design.estimand == "proportion"
     notes: list[str] = []
     if scan:
         # binomial coverage oscillates in n: enumerate every n up to the ceiling
