@@ -92,6 +92,31 @@ def test_same_resamples_give_scipys_interval(n, method):
     np.testing.assert_allclose(hi, ref.confidence_interval.high, rtol=1e-10, atol=1e-12)
 
 
+def test_tiled_resampling_has_the_bootstrap_moments(monkeypatch):
+    # Tiny tiles force several resample tiles per replicate (the path for
+    # large n and B). The resample means of ordinary resampling have mean
+    # x-bar and variance m2/n (m2 = central second moment, divisor n)
+    # (Efron & Tibshirani 1993, ch. 5 and 6): check both within 4 MCSE, and
+    # the interval against scipy fed the same distribution.
+    monkeypatch.setattr(bs, "_TILE_ELEMS", 700)
+    g = np.random.default_rng(5)
+    x = g.normal(size=(6, 21))
+    b = 4999
+    dist = _our_distribution(x, b, seed=9)
+    m2 = x.var(axis=1)
+    v = m2 / 21
+    assert np.all(np.abs(dist.mean(axis=1) - x.mean(axis=1)) <= 4 * np.sqrt(v / b))
+    # SE of a sample variance of B near-normal values: v sqrt(2 / (B - 1))
+    assert np.all(np.abs(dist.var(axis=1, ddof=1) - v) <= 4 * v * np.sqrt(2 / (b - 1)) + 1e-12)
+    # tiles draw fresh indices: repeated resample means are rare for continuous data
+    assert all(np.unique(row).size > 0.99 * b for row in dist)
+    lo, hi, _ = bs.percentile_mean(x, 0.9, rng=np.random.default_rng(9), resamples=b)
+    ref = stats.bootstrap((x,), np.mean, axis=-1, vectorized=True, method="percentile", n_resamples=0,
+                          bootstrap_result=SimpleNamespace(bootstrap_distribution=dist), confidence_level=0.9)
+    np.testing.assert_allclose(lo, ref.confidence_interval.low, rtol=1e-10)
+    np.testing.assert_allclose(hi, ref.confidence_interval.high, rtol=1e-10)
+
+
 def test_closed_form_acceleration_matches_scipy_jackknife():
     # Source: scipy.stats._resampling._bca_interval (loop over jackknife
     # resamples) returns a_hat; ours is the closed form for (differences of)
@@ -150,7 +175,9 @@ def test_endpoints_agree_with_scipy_in_distribution(method, ours):
 
 def test_two_sample_endpoints_agree_with_scipy_in_distribution():
     # Source: scipy.stats.bootstrap with two samples (resampled separately,
-    # paired=False), BCa, on the same samples; criterion as above.
+    # paired=False), BCa and percentile, on the same samples; criterion as
+    # above but on absolute differences (endpoints of a difference can be
+    # near zero, where relative differences are unstable).
     g = np.random.default_rng(22)
     xa, xb = g.lognormal(0, 1, (200, 15)), g.gamma(2.0, size=(200, 25))
     b = 1999
