@@ -365,6 +365,7 @@ class _Acc:
         self.block_sums: list[np.ndarray] = []
         self.degenerate = np.zeros(k, np.int64)
         self.nan = np.zeros(k, np.int64)
+        self.unbounded = np.zeros(k, np.int64)
         cap = QUANTILE_BYTES // (4 * k) if k == 1 else CURVE_QUANTILE_REPLICATES
         self.keep = int(min(total, cap))
         self.hw = np.empty((self.keep, k), np.float32)
@@ -390,6 +391,8 @@ class _Acc:
             self.nan += bad.sum(axis=0)
             hw = np.where(bad, 0.0, hw)
             sums = np.add.reduceat(hw, starts if starts is not None else [0], axis=0)
+        if np.isinf(sums).any():
+            self.unbounded += np.isinf(hw).sum(axis=0)
         self.block_sums.append(sums)
         if self.margin is not None:
             # tolerance for half-widths equal to the margin in exact arithmetic
@@ -436,8 +439,11 @@ class _Acc:
         kept = self.hw[: min(self.keep, self.seen)]
         if kept.shape[0]:
             # one partition pass for all columns (column slices are strided)
-            q = np.quantile(kept, [0.5, 0.9], axis=0)
-            self.q50, self.q90 = q[0].astype(np.float64), q[1].astype(np.float64)
+            with np.errstate(invalid="ignore"):  # unbounded intervals (inf) interpolate to NaN
+                q = np.quantile(kept, [0.5, 0.9], axis=0).astype(np.float64)
+            if np.isnan(q).any():
+                q = np.where(np.isnan(q) & np.isinf(kept).any(axis=0), np.inf, q)
+            self.q50, self.q90 = q[0], q[1]
         else:
             self.q50 = self.q90 = np.full(self.k, np.nan)
 
@@ -450,6 +456,8 @@ class _Acc:
         notes = list(_notes(design))
         if self.keep < R:
             notes.append(f"margin median and 90th percentile from the first {self.keep} replicates")
+        if self.unbounded[j]:
+            notes.append(f"{int(self.unbounded[j])} intervals were unbounded (infinite half-width), so the margin mean is infinite")
         if self.degenerate[j]:
             notes.append(f"{int(self.degenerate[j])} samples had all values equal (degenerate; zero-width interval)")
         return CheckResult(
