@@ -195,6 +195,11 @@ def connect_dask(scheduler: str | None):
             f"the workers of {scheduler} cannot run simcheck ({type(exc).__name__}: {exc}); "
             f"install simcheck {simcheck.__version__} on every worker",
         ) from None
+    if not got:
+        client.close()
+        raise InputError(
+            "--scheduler", f"the cluster at {scheduler} has no workers; start some (dask worker {scheduler}) and run again"
+        )
     wrong = sorted(f"{w} has {v}" for w, v in got.items() if v != simcheck.__version__)
     if wrong:
         client.close()
@@ -224,8 +229,8 @@ def run_sweep(
     store : path
         SQLite file; created when missing. Only this process writes to it.
     jobs : int
-        Local worker processes (``backend="local"``); with ``backend="dask"``
-        at most this many cells run at once when > 1, else all workers.
+        Local worker processes (``backend="local"``); not used with
+        ``backend="dask"``, where every worker thread of the cluster runs cells.
     backend : {"local", "dask"}
     scheduler : str, optional
         Address of the Dask scheduler (``backend="dask"``).
@@ -311,7 +316,7 @@ def _drive(
     )
     if backend == "dask":
         config = joblib.parallel_config(backend="dask")
-        n_jobs = jobs if jobs > 1 else -1
+        n_jobs = -1  # every worker thread of the cluster
     else:
         config = joblib.parallel_config(backend="loky", initializer=_worker_init)
         n_jobs = min(jobs, len(pending))

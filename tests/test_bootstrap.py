@@ -11,6 +11,7 @@ Statistical assertions are within 4 Monte Carlo standard errors, fixed seeds.
 
 from __future__ import annotations
 
+import os
 import tracemalloc
 import warnings
 from types import SimpleNamespace
@@ -51,15 +52,20 @@ def test_six_methods_registered():
 
 
 def _our_distribution(x, resamples, seed):
-    """Our resample means, drawn exactly as the interval function draws them."""
+    """Our resample means, drawn exactly as the interval function draws them:
+    tasks of fixed rows, task i with its own generator from the call's rng."""
     r_total, n = x.shape
-    units = (n // 2 + n % 2) if 2 <= n <= bs._PAIR_MAX_N else n
-    rows = min(r_total, bs._rows_per_chunk(units, resamples, 1))
-    res = bs._Resampler(n, rows, resamples, False, np.random.default_rng(seed))
+    rows = bs._rows_per_chunk(bs._units(n), resamples, 1)
+    task_rows = rows * bs._CHUNKS_PER_TASK
+    entropy = bs._task_entropy(np.random.default_rng(seed))
+    res = bs._Resampler(n, min(r_total, rows), resamples, False, None)
     out = np.empty((r_total, resamples))
-    for r0 in range(0, r_total, rows):
-        s, _ = res.run(x[r0 : r0 + rows])
-        out[r0 : r0 + rows] = s / n
+    for i, t0 in enumerate(range(0, r_total, task_rows)):
+        res.reseed(bs._task_generator(entropy, i))
+        for r0 in range(t0, min(r_total, t0 + task_rows), rows):
+            r1 = min(r_total, t0 + task_rows, r0 + rows)
+            s, _ = res.run(x[r0:r1])
+            out[r0:r1] = s / n
     return out
 
 
@@ -240,9 +246,11 @@ def test_bca_covers_better_than_percentile_on_skewed_data():
     # Source: Efron & Tibshirani (1993) ch. 14 and ch. 22 (from memory): BCa is
     # second-order accurate, the percentile interval only first-order; on
     # lognormal(0, 1) data at n = 20 BCa's coverage is higher (both below
-    # 95%). Paired difference over 4,000 samples must exceed 4 MCSE.
+    # 95%). Paired difference over 10,000 samples must exceed 4 MCSE (the
+    # difference is about 0.014 with a per-sample SD of 0.21, so 10,000
+    # samples put it about 6.7 MCSE from zero; 4,000 gave only about 4).
     g = np.random.default_rng(51)
-    r = 4000
+    r = 10_000
     x = g.lognormal(0, 1, (r, 20))
     lo, hi, _ = bs.percentile_mean(x, 0.95, rng=np.random.default_rng(52), resamples=999)
     pct = _covers(lo, hi, LOGNORMAL_MEAN)
@@ -344,6 +352,49 @@ def test_two_sample_reproducible():
         np.testing.assert_array_equal(u, v)
 
 
+@pytest.mark.parametrize("f", [bs.percentile_mean, bs.bca_mean, bs.t_mean])
+def test_same_result_for_any_thread_count(f):
+    # Tasks have fixed rows and their own generators, so 1, 2 and 3 threads
+    # give bitwise identical endpoints. n = 30, B = 999: tasks of 136 rows,
+    # so 400 replicates make three tasks (one short).
+    x = np.random.default_rng(95).lognormal(size=(400, 30))
+    assert bs._rows_per_chunk(bs._units(30), 999, 1) * bs._CHUNKS_PER_TASK < 200
+    runs = [f(x, 0.9, rng=np.random.default_rng(5), resamples=999, threads=t) for t in (1, 2, 3)]
+    for other in runs[1:]:
+        for u, v in zip(runs[0], other):
+            np.testing.assert_array_equal(u, v)
+
+
+@pytest.mark.parametrize("f", [bs.percentile_diff, bs.bca_diff, bs.t_diff])
+def test_two_sample_same_result_for_any_thread_count(f):
+    g = np.random.default_rng(96)
+    xa, xb = g.lognormal(size=(300, 30)), g.gamma(2.0, size=(300, 41))
+    runs = [f(xa, xb, 0.9, rng=np.random.default_rng(5), resamples=999, threads=t) for t in (1, 2, 3)]
+    for other in runs[1:]:
+        for u, v in zip(runs[0], other):
+            np.testing.assert_array_equal(u, v)
+
+
+def test_thread_count_from_environment(monkeypatch):
+    monkeypatch.delenv("SIMCHECK_THREADS", raising=False)
+    assert bs.bootstrap_threads() == min(4, os.cpu_count() or 1)
+    monkeypatch.setenv("SIMCHECK_THREADS", " 3 ")
+    assert bs.bootstrap_threads() == 3
+    x = np.random.default_rng(97).exponential(size=(20, 8))
+    for bad in ("0", "-2", "2.5", "many"):
+        monkeypatch.setenv("SIMCHECK_THREADS", bad)
+        with pytest.raises(ValueError, match="SIMCHECK_THREADS"):
+            bs.bootstrap_threads()
+        with pytest.raises(ValueError, match="SIMCHECK_THREADS"):
+            bs.bca_mean(x, 0.9, rng=np.random.default_rng(1), resamples=99)
+    # the keyword overrides the environment, and is checked itself
+    lo, _, _ = bs.bca_mean(x, 0.9, rng=np.random.default_rng(1), resamples=99, threads=2)
+    assert lo.shape == (20,)
+    for bad in (0, True, 1.5):
+        with pytest.raises(ValueError, match="threads"):
+            bs.t_diff(x, x, 0.9, rng=np.random.default_rng(1), resamples=99, threads=bad)
+
+
 def _peak(f, *args, **kw):
     tracemalloc.start()
     try:
@@ -355,18 +406,23 @@ def _peak(f, *args, **kw):
 
 @pytest.mark.slow
 def test_memory_bounded_for_large_study():
-    # R = 20,000, n = 50, B = 1,999 (2e9 resampled values if materialised):
-    # tracemalloc peak within the documented bound (input not counted).
-    x = np.random.default_rng(93).lognormal(size=(20_000, 50))
-    peak = _peak(bs.bca_mean, x, 0.95, rng=np.random.default_rng(1), resamples=1999)
+    # R = 5,000, n = 50, B = 1,999 (5e8 resampled values, 4 GB, if
+    # materialised): tracemalloc peak within the documented bound (input not
+    # counted).
+    x = np.random.default_rng(93).lognormal(size=(5_000, 50))
+    # all MAX_THREADS threads at once, each with its own buffers
+    peak = _peak(bs.bca_mean, x, 0.95, rng=np.random.default_rng(1), resamples=1999, threads=bs.MAX_THREADS)
     assert peak <= bs.MEMORY_BOUND
 
 
 @pytest.mark.parametrize("n", [3, 300])
 def test_memory_bounded_bootstrap_t_and_two_sample(n):
     x = np.random.default_rng(94).lognormal(size=(400 if n < 100 else 40, n))
-    assert _peak(bs.t_mean, x, 0.95, rng=np.random.default_rng(1), resamples=999) <= bs.MEMORY_BOUND
-    assert _peak(bs.t_diff, x, x[:, ::-1], 0.95, rng=np.random.default_rng(1), resamples=999) <= bs.MEMORY_BOUND
+    # all MAX_THREADS threads at once (tracemalloc sees every thread)
+    kw = dict(rng=np.random.default_rng(1), resamples=999, threads=bs.MAX_THREADS)
+    assert _peak(bs.t_mean, x, 0.95, **kw) <= bs.MEMORY_BOUND
+    kw["rng"] = np.random.default_rng(1)
+    assert _peak(bs.t_diff, x, x[:, ::-1], 0.95, **kw) <= bs.MEMORY_BOUND
 
 
 def test_empty_block():

@@ -27,7 +27,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("sweep", metavar="SWEEP", help="sweep file (TOML): base, task, [vary]")
     p.add_argument("--store", required=True, metavar="FILE.sqlite", help="SQLite store (created when missing)")
     p.add_argument("--jobs", type=int, default=1, metavar="J",
-                   help="local worker processes (default 1); with --backend dask: at most J cells at once")
+                   help="local worker processes (default 1); not used with --backend dask (every cluster worker runs cells)")
     p.add_argument("--backend", choices=("local", "dask"), default=None,
                    help="local processes (default) or an existing Dask cluster (needs --scheduler)")
     p.add_argument("--scheduler", metavar="ADDR",
@@ -130,6 +130,8 @@ def run(args: argparse.Namespace) -> int:
             failures.append(out.error or "")
         progress.cell(out, done, total)
 
+    if backend == "dask" and args.jobs != 1:
+        note("sweep: note: --jobs is not used with --backend dask; every worker thread of the cluster runs cells")
     _version_notice(args.store)
     old = signal.signal(signal.SIGTERM, _sigterm)
     resume = f"run the same command again to resume: simcheck sweep {args.sweep} --store {args.store}"

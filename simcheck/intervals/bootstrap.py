@@ -25,6 +25,18 @@ keep that cheap without changing what is computed:
   runs are tiled, so the working set stays near ``_TILE_ELEMS`` values and
   the peak extra memory stays below ``MEMORY_BOUND`` whatever R, n and B.
 
+* **Threads.** The replicates of a call are split into *tasks* of a fixed
+  number of rows that depends only on (n, B) (never on the thread count),
+  and task i resamples with its own generator, seeded from entropy drawn
+  once from ``rng`` at the start of the call with spawn key (i,). Tasks run
+  on a thread pool (numpy releases the GIL in the gathers, reductions,
+  sorts, integer divisions and bulk draws that make up the work), each
+  thread with its own buffers. So the intervals are bitwise identical for
+  any thread count. The count is :func:`bootstrap_threads` (environment
+  variable ``SIMCHECK_THREADS``, default ``min(4, cpu count)``) unless the
+  keyword ``threads`` is given; at most ``MAX_THREADS`` (fewer for very
+  long resample runs) run at once so that the memory bound holds.
+
 Each replicate has its own independent resamples (no resampling plan is
 shared between replicates), so replicate intervals are independent and the
 engine's Monte Carlo standard errors are valid.
@@ -46,7 +58,8 @@ resample that permutes the sample sums its values in another order), where
 scipy's exact comparison splits such ties by the last bit.
 
 Results are a pure function of the block, ``resamples`` and the state of
-``rng``: the same block with the same stream gives the same intervals.
+``rng``: the same block with the same stream gives the same intervals,
+whatever the number of threads.
 
 Degenerate samples
 ------------------
@@ -76,14 +89,27 @@ sec. 14.3: acceleration from the jackknife), ch. 11 (jackknife).
 
 from __future__ import annotations
 
+import os
+import threading
+from concurrent.futures import ThreadPoolExecutor
+
 import numpy as np
 from scipy.special import ndtr, ndtri
 
-from simcheck.errors import Collector
+from simcheck.errors import Collector, InputError
 from simcheck.intervals.base import Method, register
 
-#: Upper bound on the extra memory (bytes) one call allocates, whatever R, n, B.
+#: Upper bound on the extra memory (bytes) one call allocates, whatever R, n, B
+#: and the number of threads.
 MEMORY_BOUND = 64 * 2**20
+#: Most threads one call runs at once; each holds its own buffers (about
+#: ``MEMORY_BOUND / 8`` of tile buffers plus as much for per-chunk
+#: statistics), so MEMORY_BOUND holds for any requested count.
+MAX_THREADS = 4
+#: Resampling chunks per task: a task's rows are fixed by (n, B) alone, and
+#: a few chunks per task keep the per-task generator set-up negligible while
+#: leaving enough tasks to balance the threads.
+_CHUNKS_PER_TASK = 4
 #: Gathered values per tile (about 10 MB of work buffers); larger tiles were
 #: measured no faster, smaller ones slower (per-call overhead).
 _TILE_ELEMS = 2**19
@@ -94,6 +120,88 @@ _EPS = np.finfo(np.float64).eps
 REFERENCE = (
     "Efron, B. and Tibshirani, R. J. (1993). An Introduction to the Bootstrap. Chapman & Hall."
 )
+
+
+# ------------------------------------------------------------------ threads
+
+
+def _positive_threads(value, name: str) -> int:
+    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, np.integer)) or value < 1:
+        raise InputError(name, f"expected a positive whole number of threads, got {value!r}")
+    return int(value)
+
+
+def bootstrap_threads() -> int:
+    """Threads for bootstrap calls: ``SIMCHECK_THREADS`` if set, else
+    ``min(4, os.cpu_count())``.
+
+    Raises
+    ------
+    InputError
+        (a ValueError) ``SIMCHECK_THREADS`` is set but is not a positive
+        whole number; the message names the variable.
+    """
+    raw = os.environ.get("SIMCHECK_THREADS")
+    if raw is None or not raw.strip():
+        return min(4, os.cpu_count() or 1)
+    try:
+        value = int(raw.strip())
+    except ValueError:
+        value = None
+    if value is None or value < 1:
+        raise InputError("SIMCHECK_THREADS", f"expected a positive whole number of threads, got {raw!r}")
+    return value
+
+
+def _resolve_threads(threads) -> int:
+    return bootstrap_threads() if threads is None else _positive_threads(threads, "threads")
+
+
+def _task_entropy(rng: np.random.Generator) -> int:
+    """Entropy for the task generators, drawn once per call from ``rng``."""
+    return np.random.SeedSequence([int(v) for v in rng.integers(0, 2**63, size=4)]).entropy
+
+
+def _task_generator(entropy: int, i: int) -> np.random.Generator:
+    return np.random.Generator(np.random.PCG64(np.random.SeedSequence(entropy, spawn_key=(i,))))
+
+
+def _thread_bytes(rows: int, resamples: int, groups: int) -> int:
+    """Rough peak memory of one thread: tile buffers (indices, gathered
+    values, flags and raw words: about 21 bytes per tile element) and about
+    eight (rows, B) float arrays per group."""
+    return 21 * _TILE_ELEMS + 8 * 8 * groups * rows * resamples
+
+
+def _run_tasks(r_total: int, task_rows: int, rng: np.random.Generator, threads: int, make_state, work,
+               thread_bytes: int = 0) -> None:
+    """Run ``work(r0, r1, generator, state)`` for consecutive row ranges of
+    ``task_rows`` rows; ``state`` (buffers, from ``make_state()``) belongs to
+    the running thread. Task i always gets generator i, whichever thread
+    runs it, so the results do not depend on ``threads``. At most
+    ``MAX_THREADS`` threads, and no more than ``MEMORY_BOUND // thread_bytes``
+    (very long resample runs), run at once."""
+    entropy = _task_entropy(rng)
+    starts = range(0, r_total, task_rows)
+    local = threading.local()
+
+    def task(i: int) -> None:
+        state = getattr(local, "state", None)
+        if state is None:
+            state = local.state = make_state()
+        r0 = starts[i]
+        # np.errstate is per thread (a context variable), so set it in the task
+        with np.errstate(divide="ignore", invalid="ignore"):
+            work(r0, min(r_total, r0 + task_rows), _task_generator(entropy, i), state)
+
+    workers = min(threads, MAX_THREADS, len(starts), max(1, MEMORY_BOUND // max(1, thread_bytes)))
+    if workers <= 1:
+        for i in range(len(starts)):
+            task(i)
+        return
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        for _ in pool.map(task, range(len(starts))):
+            pass
 
 
 # ----------------------------------------------------------- random indices
@@ -163,11 +271,16 @@ class _Resampler:
         Resamples per replicate.
     squares : bool
         Also return the resample sums of squares.
-    rng : numpy.random.Generator
-        Source of the resampling indices.
+    rng : numpy.random.Generator or None
+        Source of the resampling indices; :meth:`reseed` replaces it (each
+        task of a call brings its own generator).
+    tile : int, optional
+        Gathered values per tile (default ``_TILE_ELEMS``); two-sample calls
+        give each group half, so one thread's buffers stay the same size.
     """
 
-    def __init__(self, n: int, rows: int, resamples: int, squares: bool, rng: np.random.Generator) -> None:
+    def __init__(self, n: int, rows: int, resamples: int, squares: bool, rng: np.random.Generator | None,
+                 tile: int | None = None) -> None:
         self.n, self.rows, self.b, self.squares = n, rows, resamples, squares
         self.pairs = 2 <= n <= _PAIR_MAX_N
         if self.pairs:
@@ -175,12 +288,17 @@ class _Resampler:
             self.units = self.m + self.odd
         else:
             self.m, self.odd, self.units = 0, 0, n
-        self.nb = max(1, min(resamples, _TILE_ELEMS // max(1, rows * self.units)))
+        tile = _TILE_ELEMS if tile is None else tile
+        self.nb = max(1, min(resamples, tile // max(1, rows * self.units)))
         self._s = np.empty((rows, resamples))
         self._q = np.empty((rows, resamples)) if squares else None
         self._g = np.empty((self.units, self.nb))
         self._idx = np.empty((rows, self.units, self.nb), dtype=np.intp)
         self._src = _IndexSource(rng, rows * self.units * self.nb)
+
+    def reseed(self, rng: np.random.Generator) -> None:
+        """Draw the following indices from ``rng``."""
+        self._src.rng = rng
 
     def _table(self, v: np.ndarray) -> np.ndarray:
         if not self.pairs:
@@ -225,11 +343,22 @@ class _Resampler:
 
 def _rows_per_chunk(units: int, resamples: int, groups: int) -> int:
     """Replicates per chunk: about one tile of gathers, and per-chunk
-    statistic arrays (a handful of (k, B) float arrays per group) far below
-    the memory bound."""
-    by_tile = _TILE_ELEMS // max(1, units * resamples)
-    by_memory = (MEMORY_BOUND // 8) // (16 * groups * resamples)
+    statistic arrays (a handful of (k, B) float arrays per group) within one
+    thread's share of the memory bound (half of ``MEMORY_BOUND / MAX_THREADS``;
+    the tile buffers take the other half)."""
+    by_tile = _tile(groups) // max(1, units * resamples)
+    by_memory = (MEMORY_BOUND // (2 * MAX_THREADS) // 8) // (16 * groups * resamples)
     return int(max(1, min(by_tile if by_tile >= 1 else 1, by_memory, 4096)))
+
+
+def _tile(groups: int) -> int:
+    """Gathered values per tile for each of ``groups`` resamplers of a thread."""
+    return max(1, _TILE_ELEMS // groups)
+
+
+def _units(n: int) -> int:
+    """Gathers per resample (pair tables halve them)."""
+    return (n // 2 + n % 2) if 2 <= n <= _PAIR_MAX_N else n
 
 
 # ----------------------------------------------------------------- helpers
@@ -321,23 +450,25 @@ def _sum_tol(x: np.ndarray) -> np.ndarray:
 # ------------------------------------------------------------- one sample
 
 
-def _one_sample(x, confidence, rng, resamples, method):
+def _one_sample(x, confidence, rng, resamples, method, threads):
     alpha = _check(confidence, resamples)
     x = _block(x, "x")
+    nthreads = _resolve_threads(threads)
     r_total, n = x.shape
     b = int(resamples)
     mean = x.mean(axis=1)
     lower = np.empty(r_total)
     upper = np.empty(r_total)
-    units = (n // 2 + n % 2) if 2 <= n <= _PAIR_MAX_N else n
-    rows = max(1, min(r_total, _rows_per_chunk(units, b, 1)))
-    res = _Resampler(n, rows, b, method == "t", rng)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        for r0 in range(0, r_total, rows):
-            xc = x[r0 : r0 + rows]
-            mc = mean[r0 : r0 + rows]
+    rows = _rows_per_chunk(_units(n), b, 1)
+
+    def work(t0, t1, g, res):
+        res.reseed(g)
+        for r0 in range(t0, t1, rows):
+            r1 = min(t1, r0 + rows)
+            xc = x[r0:r1]
+            mc = mean[r0:r1]
             if method == "t":
-                lower[r0 : r0 + rows], upper[r0 : r0 + rows] = _t_chunk(xc, mc, res, alpha)
+                lower[r0:r1], upper[r0:r1] = _t_chunk(xc, mc, res, alpha)
                 continue
             s_b, _ = res.run(xc)
             if method == "bca":
@@ -352,8 +483,13 @@ def _one_sample(x, confidence, rng, resamples, method):
                 p_lo, p_hi = alpha, 1.0 - alpha
             s_b.sort(axis=1)
             lo_s, hi_s = _quantiles_sorted(s_b, p_lo, p_hi)
-            lower[r0 : r0 + rows] = lo_s / n
-            upper[r0 : r0 + rows] = hi_s / n
+            lower[r0:r1] = lo_s / n
+            upper[r0:r1] = hi_s / n
+
+    def state():
+        return _Resampler(n, max(1, min(r_total, rows)), b, method == "t", None)
+
+    _run_tasks(r_total, rows * _CHUNKS_PER_TASK, rng, nthreads, state, work, _thread_bytes(rows, b, 1))
     degenerate = _constant(x)
     lower[degenerate] = mean[degenerate]
     upper[degenerate] = mean[degenerate]
@@ -391,7 +527,7 @@ def _endpoints(est, se, t_lo, t_hi):
     return lo, hi
 
 
-def percentile_mean(x, confidence, *, rng, resamples):
+def percentile_mean(x, confidence, *, rng, resamples, threads=None):
     """Bootstrap percentile interval for the mean.
 
     Parameters
@@ -404,6 +540,9 @@ def percentile_mean(x, confidence, *, rng, resamples):
         Stream owned by the caller for this block.
     resamples : int
         Bootstrap resamples per sample (B).
+    threads : int, optional
+        Threads to use; default :func:`bootstrap_threads`. The result does
+        not depend on it.
 
     Returns
     -------
@@ -417,10 +556,10 @@ def percentile_mean(x, confidence, *, rng, resamples):
     Efron, B. and Tibshirani, R. J. (1993). *An Introduction to the
     Bootstrap*. Chapman & Hall, ch. 13.
     """
-    return _one_sample(x, confidence, rng, resamples, "percentile")
+    return _one_sample(x, confidence, rng, resamples, "percentile", threads)
 
 
-def bca_mean(x, confidence, *, rng, resamples):
+def bca_mean(x, confidence, *, rng, resamples, threads=None):
     """Bias-corrected and accelerated (BCa) bootstrap interval for the mean.
 
     The bias correction z0 is the normal quantile of the share of resample
@@ -437,10 +576,10 @@ def bca_mean(x, confidence, *, rng, resamples):
     Efron, B. and Tibshirani, R. J. (1993). *An Introduction to the
     Bootstrap*. Chapman & Hall, ch. 14 (sec. 14.3).
     """
-    return _one_sample(x, confidence, rng, resamples, "bca")
+    return _one_sample(x, confidence, rng, resamples, "bca", threads)
 
 
-def t_mean(x, confidence, *, rng, resamples):
+def t_mean(x, confidence, *, rng, resamples, threads=None):
     """Bootstrap-t (studentised) interval for the mean.
 
     t* = (mean* - mean) / (s*/sqrt(n)); the interval is
@@ -454,18 +593,19 @@ def t_mean(x, confidence, *, rng, resamples):
     Efron, B. and Tibshirani, R. J. (1993). *An Introduction to the
     Bootstrap*. Chapman & Hall, ch. 12.
     """
-    return _one_sample(x, confidence, rng, resamples, "t")
+    return _one_sample(x, confidence, rng, resamples, "t", threads)
 
 
 # ------------------------------------------------------------- two samples
 
 
-def _two_sample(xa, xb, confidence, rng, resamples, method):
+def _two_sample(xa, xb, confidence, rng, resamples, method, threads):
     alpha = _check(confidence, resamples)
     xa = _block(xa, "xa")
     xb = _block(xb, "xb")
     if xa.shape[0] != xb.shape[0]:
         raise ValueError(f"xa and xb must hold the same number of replicates, got {xa.shape[0]} and {xb.shape[0]}")
+    nthreads = _resolve_threads(threads)
     r_total, na = xa.shape
     nb = xb.shape[1]
     b = int(resamples)
@@ -473,14 +613,14 @@ def _two_sample(xa, xb, confidence, rng, resamples, method):
     diff = ma - mb
     lower = np.empty(r_total)
     upper = np.empty(r_total)
-    ua = (na // 2 + na % 2) if 2 <= na <= _PAIR_MAX_N else na
-    ub = (nb // 2 + nb % 2) if 2 <= nb <= _PAIR_MAX_N else nb
-    rows = max(1, min(r_total, _rows_per_chunk(max(ua, ub), b, 2)))
-    res_a = _Resampler(na, rows, b, method == "t", rng)
-    res_b = _Resampler(nb, rows, b, method == "t", rng)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        for r0 in range(0, r_total, rows):
-            sl = slice(r0, r0 + rows)
+    rows = _rows_per_chunk(max(_units(na), _units(nb)), b, 2)
+
+    def work(t0, t1, g, state):
+        res_a, res_b = state
+        res_a.reseed(g)
+        res_b.reseed(g)
+        for r0 in range(t0, t1, rows):
+            sl = slice(r0, min(t1, r0 + rows))
             a, c = xa[sl], xb[sl]
             if method == "t":
                 lower[sl], upper[sl] = _t2_chunk(a, c, ma[sl], mb[sl], res_a, res_b, alpha)
@@ -506,6 +646,13 @@ def _two_sample(xa, xb, confidence, rng, resamples, method):
                 p_lo, p_hi = alpha, 1.0 - alpha
             sa.sort(axis=1)
             lower[sl], upper[sl] = _quantiles_sorted(sa, p_lo, p_hi)
+
+    def state():
+        k = max(1, min(r_total, rows))
+        sq = method == "t"
+        return (_Resampler(na, k, b, sq, None, _tile(2)), _Resampler(nb, k, b, sq, None, _tile(2)))
+
+    _run_tasks(r_total, rows * _CHUNKS_PER_TASK, rng, nthreads, state, work, _thread_bytes(rows, b, 2))
     degenerate = _constant(xa) & _constant(xb)
     lower[degenerate] = diff[degenerate]
     upper[degenerate] = diff[degenerate]
@@ -531,7 +678,7 @@ def _t2_chunk(a, c, ma, mb, res_a, res_b, alpha):
     return _endpoints(ma - mb, se, *_quantiles_sorted(t_b, alpha, 1.0 - alpha))
 
 
-def percentile_diff(xa, xb, confidence, *, rng, resamples):
+def percentile_diff(xa, xb, confidence, *, rng, resamples, threads=None):
     """Bootstrap percentile interval for mean_a - mean_b.
 
     Each group is resampled independently (stratified resampling).
@@ -547,6 +694,9 @@ def percentile_diff(xa, xb, confidence, *, rng, resamples):
         Stream owned by the caller for this block.
     resamples : int
         Bootstrap resamples per replicate.
+    threads : int, optional
+        Threads to use; default :func:`bootstrap_threads`. The result does
+        not depend on it.
 
     Returns
     -------
@@ -560,10 +710,10 @@ def percentile_diff(xa, xb, confidence, *, rng, resamples):
     Bootstrap*. Chapman & Hall, ch. 13; ch. 8 for resampling two samples
     separately (from memory).
     """
-    return _two_sample(xa, xb, confidence, rng, resamples, "percentile")
+    return _two_sample(xa, xb, confidence, rng, resamples, "percentile", threads)
 
 
-def bca_diff(xa, xb, confidence, *, rng, resamples):
+def bca_diff(xa, xb, confidence, *, rng, resamples, threads=None):
     """BCa bootstrap interval for mean_a - mean_b (stratified resampling).
 
     The acceleration combines both groups' closed-form jackknife terms as
@@ -576,10 +726,10 @@ def bca_diff(xa, xb, confidence, *, rng, resamples):
     Efron, B. and Tibshirani, R. J. (1993). *An Introduction to the
     Bootstrap*. Chapman & Hall, ch. 14.
     """
-    return _two_sample(xa, xb, confidence, rng, resamples, "bca")
+    return _two_sample(xa, xb, confidence, rng, resamples, "bca", threads)
 
 
-def t_diff(xa, xb, confidence, *, rng, resamples):
+def t_diff(xa, xb, confidence, *, rng, resamples, threads=None):
     """Bootstrap-t interval for mean_a - mean_b with the unpooled standard
     error sqrt(s_a^2/n_a + s_b^2/n_b) (stratified resampling).
 
@@ -590,7 +740,7 @@ def t_diff(xa, xb, confidence, *, rng, resamples):
     Efron, B. and Tibshirani, R. J. (1993). *An Introduction to the
     Bootstrap*. Chapman & Hall, ch. 12.
     """
-    return _two_sample(xa, xb, confidence, rng, resamples, "t")
+    return _two_sample(xa, xb, confidence, rng, resamples, "t", threads)
 
 
 _REFS = {

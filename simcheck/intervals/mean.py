@@ -101,7 +101,8 @@ def t_centre_half(s: Summary, confidence: float) -> tuple[np.ndarray, np.ndarray
     t = _t_quantile(1.0 - _alpha_half(confidence), n - 1.0)
     # half = sqrt(var * t^2 / n): the per-n factor first, so that only three
     # passes touch the (replicates, n) arrays in whole-curve evaluations
-    half = np.maximum(_as_float(s.var), 0.0) * (t * t / n)
+    half = np.multiply(_as_float(s.var), t * t / n)
+    np.maximum(half, 0.0, out=half)  # rounding can leave a tiny negative variance
     np.sqrt(half, out=half)
     return mean, half
 

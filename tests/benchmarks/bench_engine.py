@@ -43,6 +43,20 @@ def best_of(fn, repeat=3):
     return min(times)
 
 
+def paired(fa, fb, repeat=5):
+    """Best times of fa and fb measured in alternation, so that a busy spell
+    on a shared machine hits both sides of a ratio alike."""
+    ta, tb = [], []
+    for _ in range(repeat):
+        t0 = clock()
+        fa()
+        ta.append(clock() - t0)
+        t0 = clock()
+        fb()
+        tb.append(clock() - t0)
+    return min(ta), min(tb)
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--quick", action="store_true", help="fewer repeats (noisier)")
@@ -70,8 +84,7 @@ def main(argv=None) -> int:
             ln.draw(g, (rows, n), out=buf)
 
     t_draw_np = best_of(draw_only, repeat)
-    t_draw = best_of(draw_in_place, repeat)
-    t_check = best_of(lambda: engine.check(d, n, replicates=R, rng=1), repeat)
+    t_draw, t_check = paired(draw_in_place, lambda: engine.check(d, n, replicates=R, rng=1), 2 * repeat - 1)
     results.append(("(a) check / in-place draws of the same numbers, n=50, 1e6", t_check / t_draw, "<=", 1.2))
     results.append(("(a') check / numpy Generator.lognormal draws", t_check / t_draw_np, "<=", 1.2))
 
@@ -89,8 +102,11 @@ def main(argv=None) -> int:
 
     # (c) whole curve vs one check at n_max and vs separate checks at every n
     Rc = 20_000
-    t_one = best_of(lambda: engine.check(d, 400, replicates=Rc, rng=3), repeat)
-    t_curve = best_of(lambda: engine.curve(d, range(2, 401), replicates=Rc, rng=3), repeat)
+    t_one, t_curve = paired(
+        lambda: engine.check(d, 400, replicates=Rc, rng=3),
+        lambda: engine.curve(d, range(2, 401), replicates=Rc, rng=3),
+        2 * repeat - 1,
+    )
     # separate checks at every n: measured on every 10th n, scaled
     sample_ns = list(range(2, 401, 10))
     t0 = clock()
@@ -103,8 +119,11 @@ def main(argv=None) -> int:
     # (d) sufficient statistics vs full draws for normal data
     dn = Design(model=make_model({"model": "normal", "mean": 10.0, "sd": 3.0}), method="t", margin=1.0)
     Rd = 200_000
-    t_suff = best_of(lambda: engine.check(dn, 100, replicates=Rd, rng=4, path="sufficient"), repeat)
-    t_full = best_of(lambda: engine.check(dn, 100, replicates=Rd, rng=4, path="full"), repeat)
+    t_suff, t_full = paired(
+        lambda: engine.check(dn, 100, replicates=Rd, rng=4, path="sufficient"),
+        lambda: engine.check(dn, 100, replicates=Rd, rng=4, path="full"),
+        2 * repeat - 1,
+    )
     results.append(("(d) full draws / sufficient statistics, n=100 (speed-up)", t_full / t_suff, ">=", 20))
 
     # (e) peak extra memory at one million replicates
