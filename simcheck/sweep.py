@@ -124,10 +124,12 @@ def run_cell(scenario: Any, task: str, seed: int, **task_kwargs: Any) -> dict[st
     return out.to_dict()
 
 
-def _execute(cell_func: CellFunc, cell_key: str, scenario: Any, task: str, kwargs: dict, seed) -> CellOutcome:
+def _execute(cell_func: CellFunc, cell_key: str, scenario: Any, task: str, kwargs: dict, seed, in_worker: bool = False) -> CellOutcome:
     # Runs in a worker. Any exception of the cell becomes an 'error' row so the
     # sweep goes on; only the machinery itself (a dead worker) can stop it.
     worker = f"{socket.gethostname()}:{os.getpid()}"
+    if in_worker:
+        _one_thread_per_worker()
     t0 = time.perf_counter()
     try:
         result = cell_func(scenario, task, seed, **kwargs)
@@ -155,6 +157,13 @@ def _worker_init() -> None:
     import signal
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    _one_thread_per_worker()
+
+
+def _one_thread_per_worker() -> None:
+    # Parallel cells already fill the cores: bootstrap threads inside each
+    # worker would only oversubscribe them (results do not depend on it).
+    os.environ.setdefault("SIMCHECK_THREADS", "1")
 
 
 def _worker_version() -> str:
@@ -311,7 +320,7 @@ def _drive(
     if not pending:
         return summary()
     tasks = (
-        joblib.delayed(_execute)(func, c.key, c.scenario, spec.task, kwargs, cell_seed(spec.seed, c.key))
+        joblib.delayed(_execute)(func, c.key, c.scenario, spec.task, kwargs, cell_seed(spec.seed, c.key), backend == "dask")
         for c in pending
     )
     if backend == "dask":
