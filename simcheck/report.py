@@ -934,38 +934,11 @@ def curve_grid(n_points: Sequence[int | None], n_min: int, n_max: int, points: i
 
 
 def formula_for(design) -> Any | None:
-    """The closed-form n for a design, or None when no formula applies (a FormulaResult)."""
-    from simcheck.formulas import sample_size
+    """``(FormulaResult, n)`` for a design (n counts clusters when clustered), or None
+    when no formula applies; the same closed form as :func:`simcheck.search.formula_n`."""
+    from simcheck.search import formula_result
 
-    if design.margin is None:
-        return None
-    kw: dict[str, Any] = {"confidence": design.confidence, "multiplier": "z"}
-    try:
-        if design.estimand in ("mean", "mean-diff"):
-            kw["sd"] = float(design.model.sd)
-            if design.two_sample:
-                kw["sd_b"] = float(design.model_b.sd)
-        else:
-            kw["p"] = float(design.model.mean)
-            if design.two_sample:
-                kw["p_b"] = float(design.model_b.mean)
-        if design.two_sample:
-            kw["ratio"] = design.ratio
-        if design.population is not None and not design.two_sample:
-            kw["population_size"] = design.population.size
-        if design.clusters is not None:
-            cl = design.clusters
-            kw["icc"] = cl.icc
-            kw["cluster_size"] = cl.size if cl.size is not None else cl.size_mean
-            if cl.size_cv:
-                kw["cluster_size_cv"] = cl.size_cv
-        res = sample_size(design.estimand, design.margin, **kw)
-    except (InputError, ValueError, TypeError, ArithmeticError):
-        return None
-    if design.clusters is not None and getattr(res, "clusters", None):
-        # n counts clusters in the simulation; compare like with like
-        return res, int(res.clusters)
-    return res, int(res.n)
+    return formula_result(design)
 
 
 def run_study(scenario, *, seed: int | None = None, progress: Progress = None, points: int = 41,

@@ -91,6 +91,12 @@ __all__ = ["formula_n", "find_n", "compare", "EXACT_SCAN_MAX"]
 #: at most this many n values are enumerated exactly in one binomial scan
 EXACT_SCAN_MAX = 10_000
 #: spawn keys of the search stages below the root (STAGE_CONFIRM from rng)
+#: resamples of bootstrap methods while bracketing and locating
+EXPLORE_RESAMPLES = 499
+#: default replicate budget of a bootstrap search, in multiples of the replicates
+#: (each replicate costs resamples x n draws, so the usual 80x would take hours)
+RESAMPLING_BUDGET = 6
+
 STAGE_BRACKET = 101
 STAGE_LOCATE = 102
 STAGE_OTHERS = 103
@@ -113,6 +119,11 @@ Progress = Callable[[int, int], None] | None
 # --------------------------------------------------------------------------
 # closed form
 # --------------------------------------------------------------------------
+def formula_result(design: Design):
+    """``(FormulaResult, n)`` behind :func:`formula_n`, or None (see there)."""
+    return _formula(design)
+
+
 def formula_n(design: Design) -> int | None:
     """The closed-form n of the design (z multiple), or None where none applies.
 
@@ -134,6 +145,11 @@ def formula_n(design: Design) -> int | None:
        cluster randomized trials: effect of coefficient of variation of
        cluster size and analysis method. Int. J. Epidemiology 35, 1292-1300.
     """
+    out = _formula(design)
+    return None if out is None else out[1]
+
+
+def _formula(design: Design):
     from simcheck import formulas
 
     if design.margin is None:
@@ -165,7 +181,7 @@ def formula_n(design: Design) -> int | None:
     except (InputError, ValueError, ZeroDivisionError, OverflowError, TypeError):
         return None
     n = res.clusters if cl is not None else res.n
-    return None if n is None else int(n)
+    return None if n is None else (res, int(n))
 
 
 # --------------------------------------------------------------------------
@@ -268,14 +284,24 @@ class _Runner:
     def curve(self, ns: Sequence[int], reps: int, *key: int) -> list[CheckResult]:
         ns = sorted(set(int(n) for n in ns))
         seq = rngmod.child(self.root, *key)
+        design = self.design
+        if key and key[0] in (STAGE_BRACKET, STAGE_LOCATE) and _resampling(design):
+            # bracketing and locating only propose a candidate: a bootstrap with
+            # fewer resamples is a close, four times cheaper stand-in; every
+            # confirmation uses the design's own resamples
+            design = replace(design, resamples=min(design.resamples, EXPLORE_RESAMPLES))
         if len(ns) == 1:
-            rows = [engine.check(self.design, ns[0], replicates=reps, rng=seq, path=self.path, progress=self.progress)]
+            rows = [engine.check(design, ns[0], replicates=reps, rng=seq, path=self.path, progress=self.progress)]
         else:
-            rows = list(engine.curve(self.design, ns, replicates=reps, rng=seq, path=self.path, progress=self.progress).rows)
+            rows = list(engine.curve(design, ns, replicates=reps, rng=seq, path=self.path, progress=self.progress).rows)
         if not all(r.exact for r in rows):
             self.used += self.cost(len(ns), reps)
         self.rows.extend(rows)
         return rows
+
+
+def _resampling(design: Design) -> bool:
+    return get_method(design.estimand, design.method).kind in ("sample", "sample2")
 
 
 def _dense_paths(design: Design, path: str) -> tuple[bool, bool]:
@@ -326,9 +352,11 @@ def find_n(
         Search range (group a for two-sample designs; clusters when clustered).
     budget : int, optional
         Cap on the replicates the whole search may simulate (see the module
-        notes for how they are counted); default ``20 * replicates``, and
-        ``80 * replicates`` for methods evaluated n by n (bootstrap), whose
-        confirmation rounds evaluate about four n each.
+        notes for how they are counted); default ``20 * replicates``,
+        ``80 * replicates`` for other methods evaluated n by n (clustered
+        designs), whose confirmation rounds evaluate about four n each, and
+        ``6 * replicates`` for bootstrap methods (each replicate costs
+        resamples x n draws; they bracket and locate with 499 resamples).
     progress : callable, optional
         ``progress(done, total)`` passed to each engine evaluation.
     path : str
@@ -368,7 +396,7 @@ def find_n(
     exact, dense = _dense_paths(design, path)
     if budget is None:
         # n-by-n searches confirm about four n per round
-        budget = 20 * R * (1 if dense else 4)
+        budget = RESAMPLING_BUDGET * R if _resampling(design) else 20 * R * (1 if dense else 4)
     budget = int(budget)
 
     method = get_method(design.estimand, design.method)
