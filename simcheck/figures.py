@@ -578,6 +578,7 @@ def sweep_figure(
         top = frame[value].to_numpy(dtype=float)
         top = top[np.isfinite(top)]
         not_reached_y = float(top.max()) * 1.4 if top.size else 1.0
+    conf_uniform = "confidence" not in frame.columns or frame["confidence"].dropna().nunique() <= 1
     with rc_context(STYLE):
         fig = _new_figure(width, height)
         axes = np.atleast_1d(fig.subplots(nrows, ncols, sharey=True, sharex=True, squeeze=False)).ravel()
@@ -586,10 +587,16 @@ def sweep_figure(
             sub = frame
             for c, v in zip(panel_cols, key):
                 sub = sub[sub[c].isna()] if (isinstance(v, float) and math.isnan(v)) else sub[sub[c] == v]
-            if value == "coverage" and confidence is not None:
+            # a sweep may vary the confidence level itself: each panel's own level
+            conf_p = confidence
+            if "confidence" in sub.columns:
+                levels = sub["confidence"].dropna().unique()
+                conf_p = float(levels[0]) if len(levels) == 1 else None
+            if value == "coverage" and conf_p is not None:
                 if tolerance:
-                    ax.axhspan(confidence - tolerance, confidence, color=ACCEPT_GREY, alpha=0.6, linewidth=0, zorder=0.5)
-                ax.axhline(confidence, color=REFERENCE_COLOUR, linewidth=0.9, label=f"nominal {confidence:g}")
+                    ax.axhspan(conf_p - tolerance, conf_p, color=ACCEPT_GREY, alpha=0.6, linewidth=0, zorder=0.5)
+                label = f"nominal {conf_p:g}" if conf_uniform else "nominal level (per panel)"
+                ax.axhline(conf_p, color=REFERENCE_COLOUR, linewidth=0.9, label=label)
             if use_ref:
                 ref = sub.groupby(x_col, sort=True)[reference].first()
                 xs = ref.index.to_numpy() if x_numeric else [x_levels.index(v) for v in ref.index]

@@ -224,6 +224,20 @@ def test_sweep_figure_small_multiples():
     assert labels == ["formula n", "cox interval", "t interval"]
 
 
+def test_sweep_coverage_panels_draw_their_own_nominal_level():
+    # A sweep over the confidence level: each panel's reference line is its own level.
+    rows = [{"method.interval": "wilson", "target.confidence": conf, "confidence": conf, "n": n,
+             "coverage": conf - 0.002, "coverage_mcse": 0.001}
+            for conf in (0.9, 0.95) for n in (100, 200)]
+    fig = F.sweep_figure(pd.DataFrame(rows), value="coverage", vary=["n", "method.interval", "target.confidence"], confidence=0.9)
+    visible = [ax for ax in fig.axes if ax.get_visible()]
+    levels = []
+    for ax in visible:
+        flat = [ln.get_ydata()[0] for ln in ax.get_lines() if len(set(np.atleast_1d(ln.get_ydata()))) == 1 and len(ln.get_ydata()) == 2]
+        levels.append(sorted(set(float(v) for v in flat)))
+    assert levels == [[0.9], [0.95]]
+
+
 # --- command line ------------------------------------------------------------------
 BASE = """title = "Sweep base (invented example)"
 [target]
