@@ -224,17 +224,25 @@ def test_sweep_figure_small_multiples():
     assert labels == ["formula n", "cox interval", "t interval"]
 
 
-def test_sweep_coverage_panels_draw_their_own_nominal_level():
+def test_sweep_coverage_panels_draw_their_own_nominal_level(tmp_path):
     # A sweep over the confidence level: each panel's reference line is its own level.
-    rows = [{"method.interval": "wilson", "target.confidence": conf, "confidence": conf, "n": n,
-             "coverage": conf - 0.002, "coverage_mcse": 0.001}
-            for conf in (0.9, 0.95) for n in (100, 200)]
-    fig = F.sweep_figure(pd.DataFrame(rows), value="coverage", vary=["n", "method.interval", "target.confidence"], confidence=0.9)
-    visible = [ax for ax in fig.axes if ax.get_visible()]
+    import shutil
+
+    from simcheck import report as R
+    from simcheck.sweep import run_sweep
+
+    root = Path(__file__).resolve().parents[1] / "scenarios"
+    for name in ("top_box.toml", "top_box_check_sweep.toml"):
+        shutil.copy(root / name, tmp_path / name)
+    store = tmp_path / "s.sqlite"
+    run_sweep(tmp_path / "top_box_check_sweep.toml", store)
+    fig = R.sweep_figures(R.read_sweep(store))["sweep"]
     levels = []
-    for ax in visible:
-        flat = [ln.get_ydata()[0] for ln in ax.get_lines() if len(set(np.atleast_1d(ln.get_ydata()))) == 1 and len(ln.get_ydata()) == 2]
-        levels.append(sorted(set(float(v) for v in flat)))
+    for ax in (a for a in fig.axes if a.get_visible()):
+        # axhline: x data (0, 1) in axes coordinates
+        hlines = {float(ln.get_ydata()[0]) for ln in ax.get_lines()
+                  if len(ln.get_xdata()) == 2 and tuple(ln.get_xdata()) == (0, 1)}
+        levels.append(sorted(hlines))
     assert levels == [[0.9], [0.95]]
 
 
