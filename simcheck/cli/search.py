@@ -112,6 +112,8 @@ def _one(r, design) -> list[str]:
                      if not r.exact else f"n range:     {_range(r)}   (exact: no Monte Carlo error)")
         if r.n_first is not None:
             lines.append(f"first n:     {r.n_first}   (the targets first hold here, but not for every larger n)")
+    elif _undecided(r):
+        lines.append("n found:     UNDECIDED: the replicate budget was spent before any n was confirmed")
     else:
         lines.append(f"n found:     NOT REACHED by the search ceiling n_max")
     if r.n_formula is not None:
@@ -120,13 +122,15 @@ def _one(r, design) -> list[str]:
     else:
         lines.append("formula n:   - (no closed form applies)")
     at = "at n" if r.reached else "at n_max"
-    mc = "" if r.exact else f" +/- {_p(r.coverage_mcse)} (MCSE)"
-    lines.append(f"coverage:    {_p(r.coverage)}{mc}  {at}")
+    if r.coverage is not None:
+        mc = "" if r.exact else f" +/- {_p(r.coverage_mcse)} (MCSE)"
+        lines.append(f"coverage:    {_p(r.coverage)}{mc}  {at}")
     if r.assurance is not None:
         mc = "" if r.exact else f" +/- {_p(r.assurance_mcse)} (MCSE)"
         lines.append(f"assurance:   {_p(r.assurance)}{mc}  {at}")
-    if not r.reached:
-        lines.append(f"best:        coverage {_p(r.best_coverage)} at n = {r.best_coverage_n}")
+    if not r.reached and not _undecided(r):
+        if r.best_coverage is not None:
+            lines.append(f"best:        coverage {_p(r.best_coverage)} at n = {r.best_coverage_n}")
         if r.methods_that_reach:
             lines.append(f"suggested:   methods that reach the targets here: {', '.join(r.methods_that_reach)}")
         else:
@@ -168,7 +172,9 @@ def report(scenario, res) -> str:
         else:
             lines.append("best:        none of the methods reaches the targets by n_max")
         for r in res.by_method:
-            if not r.reached:
+            if not r.reached and _undecided(r):
+                lines.append(f"{r.method}: undecided (replicate budget spent before any n was confirmed)")
+            elif not r.reached:
                 sug = ", ".join(r.methods_that_reach) or "none"
                 lines.append(f"{r.method}: not reached by n_max (best coverage {_p(r.best_coverage)} at n = "
                              f"{r.best_coverage_n}); methods that reach it: {sug}")
@@ -184,3 +190,8 @@ def report(scenario, res) -> str:
     lines.append("")
     lines.append(CAUTION)
     return "\n".join(lines)
+
+
+def _undecided(r) -> bool:
+    """Not reached because the budget ran out, not because n_max fails."""
+    return (not r.reached) and r.stop_reason == "replicate budget spent"
