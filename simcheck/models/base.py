@@ -131,6 +131,27 @@ def _fmt(v: Any) -> str:
     return repr(v) if isinstance(v, str) else str(v)
 
 
+class StoredMoments(Model):
+    """A model whose constructor computes its moments once into ``_m``
+    (mean), ``_s`` (SD) and ``_g`` (skewness or None)."""
+
+    _m: float
+    _s: float
+    _g: float | None
+
+    @property
+    def mean(self) -> float:
+        return self._m
+
+    @property
+    def sd(self) -> float:
+        return self._s
+
+    @property
+    def skewness(self) -> float | None:
+        return self._g
+
+
 #: name -> factory(params: dict) -> Model. Factories validate and raise InputError.
 REGISTRY: dict[str, Callable[[dict[str, Any]], Model]] = {}
 

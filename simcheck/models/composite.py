@@ -18,7 +18,7 @@ import numpy as np
 from scipy import stats
 
 from simcheck.errors import Collector, InputError
-from simcheck.models.base import Model, register
+from simcheck.models.base import Model, StoredMoments, register
 from simcheck.models.continuous import ParamTable, event_args, suggest
 from simcheck.models.discrete import SUM_TOL
 
@@ -55,7 +55,7 @@ def _table_of(m: Model) -> dict[str, Any]:
 
 
 @register("zero-inflated")
-class ZeroInflated(Model):
+class ZeroInflated(StoredMoments):
     """0 with probability ``zero_prob``, otherwise a draw from the ``inner`` model.
 
     Parameters (table keys)
@@ -89,18 +89,6 @@ class ZeroInflated(Model):
         r1, r2, r3 = _raw_moments(inner)
         self._m, self._s, self._g = _from_raw(w * r1, w * r2, None if r3 is None else w * r3)
 
-    @property
-    def mean(self) -> float:
-        return self._m
-
-    @property
-    def sd(self) -> float:
-        return self._s
-
-    @property
-    def skewness(self) -> float | None:
-        return self._g
-
     def bernoulli_p(self) -> float | None:
         # Zeros mixed into iid 0/1 draws are Bernoulli((1 - zero_prob) p).
         return self._m if self.zero_one and self.iid else None
@@ -126,7 +114,7 @@ class ZeroInflated(Model):
 
 
 @register("mixture")
-class Mixture(Model):
+class Mixture(StoredMoments):
     """Component k with probability ``weights[k]``.
 
     Parameters (table keys)
@@ -184,18 +172,6 @@ class Mixture(Model):
         r3 = None if any(r[2] is None for r in raws) else float(sum(wk * r[2] for wk, r in zip(self.weights, raws)))
         self._m, self._s, self._g = _from_raw(r1, r2, r3)
 
-    @property
-    def mean(self) -> float:
-        return self._m
-
-    @property
-    def sd(self) -> float:
-        return self._s
-
-    @property
-    def skewness(self) -> float | None:
-        return self._g
-
     def bernoulli_p(self) -> float | None:
         # A mixture of iid Bernoulli laws is itself Bernoulli(sum w_k p_k).
         return self._m if self.zero_one and self.iid else None
@@ -222,7 +198,7 @@ class Mixture(Model):
 
 
 @register("empirical")
-class Empirical(Model):
+class Empirical(StoredMoments):
     """Resampling with replacement from one numeric column of a CSV file of pilot data.
 
     The true value of the simulation is the pilot mean (the resampling law's
@@ -303,18 +279,6 @@ class Empirical(Model):
         if k:
             self.notes = (f"{k} empty value{'s' if k != 1 else ''} dropped from column {column!r}",)
         return v
-
-    @property
-    def mean(self) -> float:
-        return self._m
-
-    @property
-    def sd(self) -> float:
-        return self._s
-
-    @property
-    def skewness(self) -> float | None:
-        return self._g
 
     def bernoulli_p(self) -> float | None:
         return self._m if self.zero_one else None
@@ -422,7 +386,7 @@ class EventModel(Model):
             out[...] = np.isin(out, self.values)
 
 
-class ScipyModel(Model):
+class ScipyModel(StoredMoments):
     """Any frozen scipy.stats distribution, continuous or discrete.
 
     Mean, SD and skewness come from ``dist.stats(moments="mvs")``; a law
@@ -456,18 +420,6 @@ class ScipyModel(Model):
         self._g = g if math.isfinite(g) else None
         lo, hi = dist.support()
         self.zero_one = bool(is_disc and lo >= 0 and hi <= 1)
-
-    @property
-    def mean(self) -> float:
-        return self._m
-
-    @property
-    def sd(self) -> float:
-        return self._s
-
-    @property
-    def skewness(self) -> float | None:
-        return self._g
 
     def bernoulli_p(self) -> float | None:
         return self._m if self.zero_one else None

@@ -23,7 +23,7 @@ import numpy as np
 from scipy import special, stats
 
 from simcheck.errors import Collector, InputError
-from simcheck.models.base import Model, register
+from simcheck.models.base import Model, StoredMoments, register
 
 __all__ = [
     "ParamTable",
@@ -621,7 +621,7 @@ class Uniform(_Continuous):
 
 
 @register("truncated-normal")
-class TruncatedNormal(_Continuous):
+class TruncatedNormal(StoredMoments, _Continuous):
     """A normal(mean, sd) parent truncated to [lower, upper].
 
     ``mean`` and ``sd`` are the parent's; the true mean and SD of the values
@@ -673,18 +673,6 @@ class TruncatedNormal(_Continuous):
         self._given = t.given()
         self.parent_mean, self.parent_sd = float(mu), float(sd)
         self.lower, self.upper = float(lo), float(hi)
-
-    @property
-    def mean(self) -> float:
-        return self._m
-
-    @property
-    def sd(self) -> float:
-        return self._s
-
-    @property
-    def skewness(self) -> float | None:
-        return self._g
 
     def _sf(self, x: float) -> float:
         return float(self._dist.sf(x))
