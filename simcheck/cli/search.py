@@ -31,7 +31,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("scenario", metavar="SCENARIO", help="scenario file (TOML)")
     p.add_argument("--budget", type=int, metavar="B",
                    help="cap on the replicates the search may simulate (overrides simulation.budget; "
-                        "default 20 x replicates)")
+                        "default 20 x replicates; 6 x for bootstrap methods)")
     p.add_argument("--n-min", dest="n_min", type=int, metavar="A", help="smallest n considered (default: simulation.n_min)")
     p.add_argument("--n-max", dest="n_max", type=int, metavar="B",
                    help="search ceiling (default: simulation.n_max)")
