@@ -36,6 +36,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import matplotlib
 from matplotlib import rc_context
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
@@ -207,7 +208,19 @@ def _outside_legend(fig: Figure, ax, ncols: int | None = None) -> None:
                 handles.append(hh)
                 labels.append(ll)
     if handles:
-        fig.legend(handles, labels, loc="outside lower center", ncols=ncols or min(4, len(labels)), handlelength=2.6)
+        fits = _legend_columns(fig, labels)
+        fig.legend(handles, labels, loc="outside lower center", ncols=min(ncols or 4, len(labels), fits),
+                   handlelength=2.6)
+
+
+def _legend_columns(fig: Figure, labels: Sequence[str]) -> int:
+    """Legend columns that fit the figure width (long labels, many methods)."""
+    size = float(matplotlib.rcParams["legend.fontsize"]) if not isinstance(
+        matplotlib.rcParams["legend.fontsize"], str) else 7.5
+    # a column: the handle (about 2.6 em + padding) plus the longest label
+    # (about 0.55 em per character), in points
+    col = size * (2.6 + 1.5 + 0.55 * max(len(t) for t in labels))
+    return max(1, int(fig.get_figwidth() * 72 // col))
 
 
 def coverage_figure(

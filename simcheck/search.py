@@ -545,6 +545,11 @@ def _exact_search(run: _Runner, start: int, **ctx) -> SearchResult:
                 f"coverage oscillates in n (discrete data): the targets first hold at n = {n_first}, "
                 f"but hold for every n up to n_max = {top} only from n = {n}; n is the latter"
             )
+        if n_first != n and top - n < max(10, 0.1 * (top - lo_n)):
+            notes.append(
+                f"n = {n} lies close to the search ceiling n_max = {top}: the 'every larger n' rule was "
+                "checked only that far; raise simulation.n_max to see whether the targets keep holding"
+            )
         notes = _formula_note(ctx["nf"], n) + notes
         return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=n,
                        reached=True, n_range=(n, n), at=at, stop="exact", exact=True, n_first=n_first,
