@@ -40,7 +40,6 @@ References
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 from typing import Callable, Iterable, Sequence
 
 import numpy as np
@@ -514,9 +513,10 @@ def piece_rows(columns: int) -> int:
 def block_size(columns: int) -> int:
     """Replicates per random block for draws of ``columns`` values (fixed by design).
 
-    A block's generator is consumed piece by piece (``piece_rows`` replicates
-    at a time), on every path alike, so the numbers depend only on the root,
-    the block index and ``columns`` -- never on chunking or workers.
+    A block's generator is consumed in fixed steps: ``piece_rows`` replicates
+    at a time on the full path, ``unit_rows`` on buffered paths (nested
+    curves, bootstrap). Both depend only on ``columns``, so the numbers depend
+    on the root, the block index and ``columns`` -- never on chunking.
     """
     return piece_rows(columns) * PIECES_PER_BLOCK
 
@@ -554,25 +554,11 @@ def _chunks(blocks: list[tuple[int, int]], per_chunk: int):
         yield i, blocks[i : i + per_chunk]
 
 
-def _fill(model, root, stage: int, first: int, blocks, columns: int, buf: np.ndarray) -> np.ndarray:
-    """Draw each block from its own stream, piece by piece, into rows of ``buf``."""
-    rows = blocks[-1][1] - blocks[0][0]
-    out = buf[:rows]
-    off = blocks[0][0]
-    pr = piece_rows(columns)
-    for bi, (s, e) in enumerate(blocks):
-        g = rngmod.generator(root, stage, first + bi)
-        for ps in range(s, e, pr):
-            pe = min(ps + pr, e)
-            model.draw(g, (pe - ps, columns), out=out[ps - off : pe - off])
-    return out
-
-
 def _piece_sums(model, root, stage: int, first: int, blocks, columns: int, transform, need_m3: bool):
     """Power sums per replicate, reducing each piece right after drawing it.
 
-    Same numbers as :func:`_fill` (same pieces from the same streams); only
-    the (rows, 1) sums are kept.
+    Each block's generator is consumed ``piece_rows(columns)`` replicates at
+    a time; only the (rows, 1) sums are kept.
     """
     rows = blocks[-1][1] - blocks[0][0]
     off = blocks[0][0]

@@ -539,7 +539,6 @@ def _exact_search(run: _Runner, start: int, **ctx) -> SearchResult:
         if n is None:
             return _not_reached(run, ctx, rows[-1], n_first)
         at = rows[int(n - ns[0])]
-        window = [r for r in rows if abs(r.n - n) <= 50 or (n_first is not None and abs(r.n - n_first) <= 50)]
         if n_first is not None and n_first != n:
             notes.append(
                 f"coverage oscillates in n (discrete data): the targets first hold at n = {n_first}, "

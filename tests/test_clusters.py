@@ -114,7 +114,7 @@ def test_eldridge_design_effect_fixed_unequal_sizes(fast):
     # 35:1292-1300: deff = 1 + ((cv^2 + 1) mbar - 1) ICC, exact for the pooled
     # (observation-weighted) mean with fixed sizes, cv with divisor k.
     sizes = np.array([2, 3, 5, 8, 12, 20, 30, 40])
-    k, icc, R, sigma = sizes.size, 0.08, 20_000, 2.0
+    icc, R, sigma = 0.08, 20_000, 2.0
     mbar = sizes.mean()
     cv = sizes.std(ddof=0) / mbar
     deff = 1 + ((cv**2 + 1) * mbar - 1) * icc

@@ -89,6 +89,8 @@ def test_z_known_sd_on_exponential_matches_gamma_law(n):
 # --- simulated bernoulli path agrees with the exact path --------------------
 @pytest.mark.parametrize("method", ["wald", "wilson", "agresti-coull", "clopper-pearson", "jeffreys"])
 def test_simulated_bernoulli_agrees_with_exact(method):
+    # Reference: exact coverage by binomial enumeration, as in Brown, Cai &
+    # DasGupta (2001), Statistical Science 16:101-133.
     d = Design(model=make_model({"model": "bernoulli", "p": 0.08}), estimand="proportion", method=method, margin=0.05)
     ex = engine.check(d, 120)
     sim = engine.check(d, 120, replicates=40_000, rng=3, path="full")
@@ -107,6 +109,8 @@ def test_nested_curve_agrees_with_exact_binomial():
 
 
 def test_two_proportions_simulated_agrees_with_double_enumeration():
+    # Reference: exact coverage by double binomial enumeration (Newcombe 1998,
+    # Statistics in Medicine 17:873-890, evaluates his methods the same way).
     d = Design(
         model=make_model({"model": "bernoulli", "p": 0.3}),
         model_b=make_model({"model": "bernoulli", "p": 0.15}),
@@ -173,6 +177,7 @@ def test_rng_forms_spec7():
 
 
 def test_scipy_frozen_distribution_as_model():
+    # Exact law of the t statistic under normality (Student 1908).
     d = Design(model=from_scipy(stats.norm(loc=1.0, scale=2.0)), method="t", margin=1.0)
     r = engine.check(d, 12, replicates=20_000, rng=8, path="full")
     _within(r.coverage, 0.95, r.coverage_mcse)

@@ -115,7 +115,7 @@ def _one(r, design) -> list[str]:
     elif _undecided(r):
         lines.append("n found:     UNDECIDED: the replicate budget was spent before any n was confirmed")
     else:
-        lines.append(f"n found:     NOT REACHED by the search ceiling n_max")
+        lines.append("n found:     NOT REACHED by the search ceiling n_max")
     if r.n_formula is not None:
         ratio = f"   (found / formula = {r.ratio_to_formula:.2f})" if r.ratio_to_formula is not None else ""
         lines.append(f"formula n:   {r.n_formula}{ratio}")

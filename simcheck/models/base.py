@@ -152,6 +152,24 @@ class StoredMoments(Model):
         return self._g
 
 
+class ZeroOneMoments(Model):
+    """A 0/1 model with event probability ``p`` (set by the constructor)."""
+
+    p: float
+
+    @property
+    def mean(self) -> float:
+        return self.p
+
+    @property
+    def sd(self) -> float:
+        return float(np.sqrt(self.p * (1 - self.p)))
+
+    @property
+    def skewness(self) -> float:
+        return (1 - 2 * self.p) / self.sd
+
+
 #: name -> factory(params: dict) -> Model. Factories validate and raise InputError.
 REGISTRY: dict[str, Callable[[dict[str, Any]], Model]] = {}
 

@@ -18,7 +18,7 @@ import numpy as np
 from scipy import stats
 
 from simcheck.errors import Collector, InputError
-from simcheck.models.base import Model, StoredMoments, register
+from simcheck.models.base import Model, StoredMoments, ZeroOneMoments, register
 from simcheck.models.continuous import ParamTable, event_args, suggest
 from simcheck.models.discrete import SUM_TOL
 
@@ -297,7 +297,7 @@ class Empirical(StoredMoments):
         np.take(self.values, idx, out=out)
 
 
-class EventModel(Model):
+class EventModel(ZeroOneMoments):
     """0/1 indicator that a draw of ``inner`` falls in ``values`` or above ``above``.
 
     Built by the scenario layer for a proportion estimand on a model other
@@ -343,18 +343,6 @@ class EventModel(Model):
         if vals is not None:
             return "in {" + ", ".join(f"{v:g}" for v in vals) + "}"
         return f"> {a:g}"
-
-    @property
-    def mean(self) -> float:
-        return self.p
-
-    @property
-    def sd(self) -> float:
-        return math.sqrt(self.p * (1 - self.p))
-
-    @property
-    def skewness(self) -> float:
-        return (1 - 2 * self.p) / self.sd
 
     def bernoulli_p(self) -> float | None:
         return self.p if self.inner.iid else None

@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 from scipy import stats
 
-from simcheck.models.base import Model, register
+from simcheck.models.base import Model, ZeroOneMoments, register
 from simcheck.models.continuous import ParamTable, event_args, moments_ok
 
 __all__ = ["Categorical", "Bernoulli", "Poisson", "NegativeBinomial"]
@@ -105,7 +105,7 @@ class Categorical(_Discrete):
 
 
 @register("bernoulli")
-class Bernoulli(_Discrete):
+class Bernoulli(ZeroOneMoments, _Discrete):
     """0/1 values with P(1) = p.
 
     Parameters (table keys)
@@ -122,18 +122,6 @@ class Bernoulli(_Discrete):
         t.done()
         self._given = t.given()
         self.p = float(p)
-
-    @property
-    def mean(self) -> float:
-        return self.p
-
-    @property
-    def sd(self) -> float:
-        return math.sqrt(self.p * (1 - self.p))
-
-    @property
-    def skewness(self) -> float:
-        return (1 - 2 * self.p) / self.sd
 
     def bernoulli_p(self) -> float:
         return self.p
