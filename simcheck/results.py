@@ -14,14 +14,14 @@ from typing import Any
 import numpy as np
 
 
-def _clean(value: Any) -> Any:
+def clean_json(value: Any) -> Any:
     """Make a value JSON-safe: numpy scalars to Python, NaN/inf to None."""
     if isinstance(value, dict):
-        return {k: _clean(v) for k, v in value.items()}
+        return {k: clean_json(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
-        return [_clean(v) for v in value]
+        return [clean_json(v) for v in value]
     if isinstance(value, np.ndarray):
-        return [_clean(v) for v in value.tolist()]
+        return [clean_json(v) for v in value.tolist()]
     if isinstance(value, (np.bool_,)):
         return bool(value)
     if isinstance(value, np.integer):
@@ -96,7 +96,7 @@ class CheckResult:
             "path": self.path,
             "notes": list(self.notes),
         }
-        return _clean(d)
+        return clean_json(d)
 
     def to_frame(self):
         import pandas as pd
@@ -199,7 +199,7 @@ class SearchResult:
             "methods_that_reach": list(self.methods_that_reach),
             "notes": list(self.notes),
         }
-        return _clean(d)
+        return clean_json(d)
 
     def to_frame(self):
         import pandas as pd

@@ -867,10 +867,10 @@ def _check_engine(c: Collector, designs: list[Design], path: str) -> None:
 
     for d in designs:
         if d.clusters is not None or d.population is not None:
-            from simcheck import engine_clustered
+            from simcheck.engine import clustered as engine_clustered
 
             try:
-                engine_clustered._validate(d, get_method(d.estimand, d.method), [], path)
+                engine_clustered.validate_design(d, get_method(d.estimand, d.method), [], path)
             except InputError as e:
                 c.extend(e)
             continue

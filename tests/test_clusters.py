@@ -215,7 +215,7 @@ def test_cluster_t_exact_path_law():
 def test_proportion_pooled_count_exact_matches_binomial_when_icc_zero():
     # ICC = 0: the pooled count is Binomial(k m, p); coverage by binomial
     # enumeration (Brown, Cai & DasGupta 2001, Statistical Science 16:101-133).
-    from simcheck.exact import binomial_measures
+    from simcheck.engine.exact import binomial_measures
     from simcheck.intervals.proportion import wilson
 
     d = Design(model=make_model({"model": "bernoulli", "p": 0.15}), estimand="proportion", method="wilson",
@@ -335,7 +335,7 @@ def test_search_finds_the_number_of_clusters_of_the_design_effect_law():
 
 
 def test_available_paths_and_forced_paths():
-    from simcheck.engine_clustered import available_paths
+    from simcheck.engine.clustered import available_paths
 
     normal = Design(model=make_model(NORMAL), method="cluster-t", margin=0.5, clusters=ClusterSpec(icc=0.1, size=5))
     assert available_paths(normal) == ["exact", "sufficient", "nested", "full"]

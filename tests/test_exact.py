@@ -8,9 +8,9 @@ import numpy as np
 import pytest
 from scipy import stats
 
-import simcheck.exact as exact
+import simcheck.engine.exact as exact
 from simcheck.errors import InputError
-from simcheck.exact import binomial_curve, binomial_measures, hypergeometric_measures, two_binomial_measures
+from simcheck.engine.exact import binomial_curve, binomial_measures, hypergeometric_measures, two_binomial_measures
 from simcheck.intervals import get_method
 
 CONF = 0.95

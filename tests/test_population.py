@@ -165,7 +165,7 @@ def test_errors_name_the_field():
 
 
 def test_bootstrap_without_fpc_and_exact_flag():
-    from simcheck.engine_clustered import exact_available
+    from simcheck.engine.clustered import exact_available
 
     model = make_model({"model": "lognormal", "mean": 6.0, "cv": 1.0})
     d = Design(model=model, method="bootstrap-percentile", margin=0.5, resamples=199,

@@ -22,7 +22,7 @@ from matplotlib.figure import Figure
 from matplotlib.image import imread
 
 from simcheck import CAUTION
-from simcheck import figures as F
+from simcheck.report import figures as F
 from simcheck.cli import main
 from simcheck.report import (
     ReportFiles,
@@ -229,7 +229,7 @@ def test_sweep_coverage_panels_draw_their_own_nominal_level(tmp_path):
     import shutil
 
     from simcheck import report as R
-    from simcheck.sweep import run_sweep
+    from simcheck.sweep.runner import run_sweep
 
     root = Path(__file__).resolve().parents[1] / "scenarios"
     for name in ("top_box.toml", "top_box_check_sweep.toml"):

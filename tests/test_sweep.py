@@ -22,9 +22,9 @@ import pytest
 
 from simcheck.cli import main
 from simcheck.errors import InputError
-from simcheck.sweep import SweepInterrupted, cell_seed, run_cell, run_sweep
-from simcheck.sweep_grid import load_sweep, read_sweep
-from simcheck.sweep_store import cells_frame
+from simcheck.sweep.runner import SweepInterrupted, cell_seed, run_cell, run_sweep
+from simcheck.sweep.grid import load_sweep, read_sweep
+from simcheck.sweep.store import cells_frame
 
 REPO = Path(__file__).resolve().parents[1]
 

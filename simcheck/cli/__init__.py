@@ -11,7 +11,7 @@ import os
 import sys
 
 from simcheck import __version__
-from simcheck.cli._common import Parser, UsageError
+from simcheck.cli.common import Parser, UsageError
 from simcheck.errors import InputError
 
 COMMANDS = ["formula", "check", "curve", "search", "sweep", "export", "report", "demo"]

@@ -12,7 +12,7 @@ import time
 from typing import Any, Sequence
 
 from simcheck import CAUTION
-from simcheck.cli._common import add_json, add_sim_overrides, emit_json, note, table
+from simcheck.cli.common import add_json, add_sim_overrides, emit_json, note, table
 
 #: how run_task's arguments are called on the command line
 CLI_FIELDS = {

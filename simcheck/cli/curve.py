@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from simcheck.cli._common import UsageError, add_json, add_sim_overrides, emit_json
+from simcheck.cli.common import UsageError, add_json, add_sim_overrides, emit_json
 from simcheck.cli.check import CLI_FIELDS, Progress, add_method_option, report, run_seed
 
 

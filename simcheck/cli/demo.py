@@ -13,7 +13,7 @@ import time
 from importlib import resources
 
 from simcheck import CAUTION
-from simcheck.cli._common import add_json, emit_json, note
+from simcheck.cli.common import add_json, emit_json, note
 
 DEFAULT_OUT = "reports/demo"
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from simcheck.cli._common import add_json, emit_json, note
+from simcheck.cli.common import add_json, emit_json, note
 
 
 def add_parser(subparsers) -> None:
@@ -27,7 +27,7 @@ def add_parser(subparsers) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from simcheck.errors import InputError
-    from simcheck.sweep_store import cells_frame
+    from simcheck.sweep.store import cells_frame
 
     out = Path(args.out)
     kind = out.suffix.lower()

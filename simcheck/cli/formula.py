@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from simcheck.cli._common import add_json, emit_json, fmt, table
+from simcheck.cli.common import add_json, emit_json, fmt, table
 from simcheck.formulas import ESTIMANDS, sample_size
 
 

@@ -7,7 +7,7 @@ import sys
 from pathlib import Path
 
 from simcheck import CAUTION
-from simcheck.cli._common import add_json, add_sim_overrides, emit_json, note
+from simcheck.cli.common import add_json, add_sim_overrides, emit_json, note
 
 
 def add_parser(subparsers) -> None:

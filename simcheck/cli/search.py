@@ -7,7 +7,7 @@ import sys
 from typing import Any
 
 from simcheck import CAUTION
-from simcheck.cli._common import add_json, add_sim_overrides, emit_json, table
+from simcheck.cli.common import add_json, add_sim_overrides, emit_json, table
 from simcheck.cli.check import CLI_FIELDS, Progress, add_method_option, run_seed
 from simcheck.errors import Collector
 

@@ -7,7 +7,7 @@ import signal
 import sys
 import time
 
-from simcheck.cli._common import add_json, emit_json, note
+from simcheck.cli.common import add_json, emit_json, note
 
 # Plain progress lines (stderr not a terminal) at most this often, in seconds.
 PLAIN_EVERY = 30.0
@@ -103,7 +103,7 @@ def _version_notice(store: str) -> None:
     if not Path(store).is_file():
         return
     try:
-        from simcheck.sweep_store import open_readonly
+        from simcheck.sweep.store import open_readonly
 
         conn = open_readonly(store, "--store")
         row = conn.execute("SELECT value FROM meta WHERE key = 'simcheck_version'").fetchone()
@@ -117,7 +117,7 @@ def _version_notice(store: str) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from simcheck.errors import InputError
-    from simcheck.sweep import SweepAborted, SweepInterrupted, run_sweep
+    from simcheck.sweep.runner import SweepAborted, SweepInterrupted, run_sweep
 
     backend = args.backend or ("dask" if args.scheduler else "local")
     if args.backend == "local" and args.scheduler:

@@ -28,7 +28,7 @@ import tempfile
 import time
 from pathlib import Path
 
-from simcheck.sweep import run_sweep
+from simcheck.sweep.runner import run_sweep
 
 BASE = """\
 title = "Repair times at a depot (invented example)"

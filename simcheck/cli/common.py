@@ -7,7 +7,7 @@ import json
 import sys
 from typing import Any
 
-from simcheck.results import _clean
+from simcheck.results import clean_json
 
 
 class UsageError(Exception):
@@ -31,7 +31,7 @@ def add_sim_overrides(p: argparse.ArgumentParser) -> None:
 
 
 def emit_json(obj: Any) -> None:
-    sys.stdout.write(json.dumps(_clean(obj), allow_nan=False) + "\n")
+    sys.stdout.write(json.dumps(clean_json(obj), allow_nan=False) + "\n")
     sys.stdout.flush()
 
 

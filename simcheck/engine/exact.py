@@ -101,7 +101,7 @@ def _weighted_quantile(sorted_values: np.ndarray, sorted_weights: np.ndarray, q:
     return float(sorted_values[min(idx, sorted_values.size - 1)])
 
 
-def _measures(lo: np.ndarray, hi: np.ndarray, w: np.ndarray, true: float, margin: float | None) -> dict:
+def weighted_measures(lo: np.ndarray, hi: np.ndarray, w: np.ndarray, true: float, margin: float | None) -> dict:
     """All measures for one enumerated support with probabilities ``w``."""
     hw = (hi - lo) / 2.0
     total = float(w.sum())
@@ -219,7 +219,7 @@ def binomial_curve(
         for j, n in enumerate(group):
             sl = slice(offsets[j], offsets[j + 1])
             out.append({"n": int(n), "omitted_weight": float(omitted[j]),
-                        **_measures(lo[sl], hi[sl], w[sl], p, margin)})
+                        **weighted_measures(lo[sl], hi[sl], w[sl], p, margin)})
         start = stop
     return out
 
@@ -340,7 +340,7 @@ def two_binomial_measures(
         ws.append((wa[i:i + rows, None] * wb[None, :]).ravel())
     lo, hi, w = np.concatenate(los), np.concatenate(his), np.concatenate(ws)
     omitted = float(oa + ob - oa * ob)
-    return {"na": na, "nb": nb, "omitted_weight": omitted, **_measures(lo, hi, w, true, margin)}
+    return {"na": na, "nb": nb, "omitted_weight": omitted, **weighted_measures(lo, hi, w, true, margin)}
 
 
 # ---------------------------------------------------------------- finite population
@@ -447,7 +447,7 @@ def hypergeometric_measures(
     lo, hi = func(x, np.full(x.shape, n), confidence)
     lo = np.broadcast_to(np.asarray(lo, dtype=float), x.shape)
     hi = np.broadcast_to(np.asarray(hi, dtype=float), x.shape)
-    return {"n": n, "population_size": N, "fpc": fpc, **_measures(lo, hi, w, K / N, margin)}
+    return {"n": n, "population_size": N, "fpc": fpc, **weighted_measures(lo, hi, w, K / N, margin)}
 
 
 __all__ = [

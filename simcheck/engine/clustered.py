@@ -70,8 +70,9 @@ from typing import Sequence
 import numpy as np
 from scipy import signal, stats
 
-from simcheck import engine as eng
-from simcheck import exact as exactmod
+from simcheck.engine import exact as exactmod
+from simcheck.engine import measures as msr
+from simcheck.engine import simple as eng
 from simcheck import rng as rngmod
 from simcheck.design import Design
 from simcheck.errors import Collector, InputError
@@ -93,7 +94,7 @@ from simcheck.results import CheckResult
 #: largest pooled count k m enumerated exactly for clustered 0/1 data
 EXACT_COUNT_MAX = 2_000_000
 
-__all__ = ["evaluate", "available_paths", "exact_available", "population_for", "cluster_model_for"]
+__all__ = ["applies", "evaluate", "available_paths", "exact_available", "population_for", "cluster_model_for", "validate_design"]
 
 
 #: values drawn per piece and pieces per random block: fixed, so the numbers
@@ -120,18 +121,26 @@ def _pieces(root: np.random.SeedSequence, replicates: int, columns: int):
 # --------------------------------------------------------------------------
 # entry point
 # --------------------------------------------------------------------------
-def evaluate(design: Design, ns: Sequence[int], replicates: int, rng, path: str, progress, chunk_bytes: int) -> list[CheckResult]:
+def evaluate(design: Design, ns: Sequence[int], replicates: int, rng, path: str, progress, chunk_bytes: int,
+             curve: bool = True) -> list[CheckResult]:
     """One :class:`CheckResult` per n in ``ns`` (n = clusters, or units from the population).
 
     ``path``: "auto", "exact", "sufficient" (clusters only), "nested" or "full".
+    ``curve`` is accepted for the design-kind interface; the nested path is
+    chosen here whenever several n are evaluated.
     """
     method = get_method(design.estimand, design.method)
-    _validate(design, method, ns, path)
+    validate_design(design, method, ns, path)
     root, seed = rngmod.root_sequence(rng)
     curve = len(ns) > 1
     if design.clusters is not None:
         return _clusters(design, method, list(ns), replicates, root, seed, path, curve, progress, chunk_bytes)
     return _population(design, method, list(ns), replicates, root, seed, path, curve, progress, chunk_bytes)
+
+
+def applies(design: Design) -> bool:
+    """True for clustered samples and samples from a finite population."""
+    return design.clusters is not None or design.population is not None
 
 
 def exact_available(design: Design) -> bool:
@@ -175,7 +184,7 @@ def available_paths(design: Design) -> list[str]:
     return out
 
 
-def _validate(design: Design, method: Method, ns, path: str) -> None:
+def validate_design(design: Design, method: Method, ns, path: str) -> None:
     c = Collector()
     which = "clusters" if design.clusters is not None else "population"
     if design.clusters is not None and design.population is not None:
@@ -224,7 +233,7 @@ def cluster_model_for(design: Design) -> tuple[ClusteredModel, SizeLaw]:
 
 
 def _cluster_notes(design: Design, cm: ClusteredModel, law: SizeLaw, method: Method) -> list[str]:
-    notes = list(eng._notes(design))
+    notes = list(msr.design_notes(design))
     notes.append(f"n counts clusters; cluster sizes {law.describe()}")
     if law.fixed:
         notes.append(f"observations = clusters x {int(law.a)}")
@@ -263,7 +272,7 @@ def _clusters(design, method, ns, replicates, root, seed, path, curve, progress,
     for group in groups:
         K = max(group)
         per_rep = K * (2 if fast else max(1, math.ceil(law.mean)))
-        acc = eng._Acc(len(group), replicates, design.margin)
+        acc = msr.Accumulator(len(group), replicates, design.margin)
         nan_total = np.zeros(len(group), np.int64)
         for bi, g, ps, pe, last in _pieces(root, replicates, per_rep):
             m = law.draw(g, (pe - ps, K))
@@ -285,7 +294,7 @@ def _clusters(design, method, ns, replicates, root, seed, path, curve, progress,
 
 def _cluster_intervals(design, method, m, s1, s2, s3, group, fixed_sizes):
     """(lo, hi) of shape (b, len(group)) from per-cluster sums of the first k clusters."""
-    cols = eng._columns(group)
+    cols = eng.prefix_columns(group)
     mf = m.astype(np.float64)
     M = np.cumsum(mf, axis=1)[:, cols]
     if fixed_sizes:
@@ -305,7 +314,7 @@ def _cluster_intervals(design, method, m, s1, s2, s3, group, fixed_sizes):
         S1 = np.cumsum(s1, axis=1)[:, cols]
         S2 = np.cumsum(s2, axis=1)[:, cols]
         S3 = np.cumsum(s3, axis=1)[:, cols] if s3 is not None else None
-        summ = eng._summary(S1, S2, S3, M, design.model.sd)
+        summ = eng.summary_from_sums(S1, S2, S3, M, design.model.sd)
         lo, hi = method.func(summ, conf)
     else:  # count: the pooled number of events over all observations
         x = np.rint(np.cumsum(s1, axis=1)[:, cols])
@@ -337,8 +346,8 @@ def _cluster_exact(design, method, ns, seed, cm: ClusteredModel, law: SizeLaw, k
             # cluster-t with equal sizes is Student's t on k iid normal cluster means
             proxy = Design(model=make_model({"model": "normal", "mean": mu, "sd": tau}), estimand="mean",
                            method="t", confidence=design.confidence, margin=design.margin)
-            rows = eng._exact(proxy, get_method("mean", "t"), ns, seed)
-            return [replace(r, method=design.method, notes=eng._notes(design)) for r in rows]
+            rows = eng.exact_rows(proxy, get_method("mean", "t"), ns, seed)
+            return [replace(r, method=design.method, notes=msr.design_notes(design)) for r in rows]
         rows = []
         z = stats.norm.ppf(0.5 + design.confidence / 2)
         for k in ns:
@@ -350,7 +359,7 @@ def _cluster_exact(design, method, ns, seed, cm: ClusteredModel, law: SizeLaw, k
                 "assurance": None if design.margin is None else float(hw <= design.margin * (1 + 1e-12)),
                 "margin_values": np.array([hw]), "margin_weights": np.array([1.0]),
             }
-            rows.append(eng._row_from_measures(design, k, meas, seed, "exact-normal"))
+            rows.append(msr.row_from_measures(design, k, meas, seed, "exact-normal"))
         return rows
     # pooled count of k iid beta-binomial(m) clusters, by convolution
     rows = []
@@ -364,8 +373,8 @@ def _cluster_exact(design, method, ns, seed, cm: ClusteredModel, law: SizeLaw, k
         lo, hi = method.func(x, np.full(x.shape, total), design.confidence)
         lo = np.broadcast_to(np.asarray(lo, dtype=float), x.shape)
         hi = np.broadcast_to(np.asarray(hi, dtype=float), x.shape)
-        meas = exactmod._measures(lo, hi, w, p, design.margin)
-        rows.append(eng._row_from_measures(design, k, meas, seed, "exact-betabinomial"))
+        meas = exactmod.weighted_measures(lo, hi, w, p, design.margin)
+        rows.append(msr.row_from_measures(design, k, meas, seed, "exact-betabinomial"))
     return rows
 
 
@@ -405,7 +414,7 @@ def population_for(design: Design, root: np.random.SeedSequence) -> FinitePopula
 
 
 def _population_notes(design: Design, fp: FinitePopulation, method: Method) -> list[str]:
-    notes = list(eng._notes(design))
+    notes = list(msr.design_notes(design))
     notes.append(f"finite population of {fp.size} units, {fp.source}; samples drawn without replacement")
     what = "share of events K/N" if design.estimand == "proportion" else "mean"
     notes.append(f"true value: the population {what} ({fp.mean:.6g}), not the data model's")
@@ -457,7 +466,7 @@ def _population(design, method, ns, replicates, root, seed, path, curve, progres
         rows = []
         for n in ns:
             meas = exactmod.hypergeometric_measures(func, n, N, K, design.confidence, design.margin, fpc=False)
-            r = eng._row_from_measures(design, n, meas, seed, "exact-hypergeometric")
+            r = msr.row_from_measures(design, n, meas, seed, "exact-hypergeometric")
             rows.append(replace(r, true_value=K / N, notes=tuple(list(r.notes) + notes)))
         return rows
 
@@ -472,7 +481,7 @@ def _population(design, method, ns, replicates, root, seed, path, curve, progres
     for group in groups:
         nmax = max(group)
         cols_per_rep = block_columns(N, nmax)
-        acc = eng._Acc(len(group), replicates, design.margin)
+        acc = msr.Accumulator(len(group), replicates, design.margin)
         nan_total = np.zeros(len(group), np.int64)
         n_eval = np.asarray(group, dtype=np.int64)
         f = fpc_factor(n_eval, N)
@@ -508,20 +517,20 @@ def _population_intervals(design, method, x, group, nested, n_eval, f, fpc, fp, 
     kind = method.kind
     conf = design.confidence
     if kind == "summary":
-        s = eng._summary(*eng._moments(x, group, nested, method.needs_m3), n_eval, fp.S)
+        s = eng.summary_from_sums(*eng.prefix_moments(x, group, nested, method.needs_m3), n_eval, fp.S)
         lo, hi = method.func(s, conf)
         if fpc:
             lo, hi = _shrink(s.mean, lo, hi, f, clip=False)
         return lo, hi, None
     if kind == "count":
-        cnt = eng._counts(x, group, nested)
+        cnt = eng.prefix_counts(x, group, nested)
         func = _fpc_count(method.func, fp.size) if fpc else method.func
         return (*func(cnt, n_eval, conf), None)
     if kind == "log":
         np.log(x, out=x)
         shift = math.log(fp.mean)  # centre the logs for precision; undone below
         x -= shift
-        s = eng._summary(*eng._moments(x, group, nested, False), n_eval, None)
+        s = eng.summary_from_sums(*eng.prefix_moments(x, group, nested, False), n_eval, None)
         return (*method.func(Summary(n=s.n, mean=s.mean + shift, var=s.var), conf), None)
     # sample (bootstrap): one n per draw
     return method.func(x[:, : group[0]], conf, rng=boot_rng, resamples=design.resamples)

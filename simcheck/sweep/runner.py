@@ -1,7 +1,7 @@
 """Sweeps: run every cell of a grid, store each as it finishes, resume.
 
-The driver validates the whole grid (:mod:`simcheck.sweep_grid`), opens the
-store (:mod:`simcheck.sweep_store`), and hands the cells the store lacks to
+The driver validates the whole grid (:mod:`simcheck.sweep.grid`), opens the
+store (:mod:`simcheck.sweep.store`), and hands the cells the store lacks to
 joblib: local processes (``backend="local"``, ``jobs`` workers) or an existing
 Dask cluster through joblib's dask backend (``backend="dask"``). Results
 stream back in completion order and the driver writes each one at once, in
@@ -32,8 +32,8 @@ import numpy as np
 
 from simcheck.errors import InputError
 from simcheck.rng import key_from_text
-from simcheck.sweep_grid import Cell, SweepSpec, expand, read_sweep
-from simcheck.sweep_store import StoredCell, SweepStore, dumps
+from simcheck.sweep.grid import Cell, SweepSpec, expand, read_sweep
+from simcheck.sweep.store import StoredCell, SweepStore, dumps
 
 BACKENDS = ("local", "dask")
 
@@ -133,9 +133,9 @@ def _execute(cell_func: CellFunc, cell_key: str, scenario: Any, task: str, kwarg
     t0 = time.perf_counter()
     try:
         result = cell_func(scenario, task, seed, **kwargs)
-        from simcheck.results import _clean
+        from simcheck.results import clean_json
 
-        result = _clean(result)
+        result = clean_json(result)
         dumps(result)  # a result the store cannot hold is this cell's error, not the sweep's
         return CellOutcome(cell_key, "ok", result, None, None, time.perf_counter() - t0, worker)
     except Exception as exc:
