@@ -165,6 +165,15 @@ class SearchResult:
     best_coverage_n: int | None = None
     methods_that_reach: tuple[str, ...] = ()
     notes: tuple[str, ...] = ()
+    #: "clear" when the evidence decides the answer, "undecided" when the
+    #: replicate budget ran out before it did (then ``n`` is the conservative end)
+    decision: str = "clear"
+    #: short name of the stability criterion that defines ``n`` (a scenario key value)
+    criterion: str = ""
+    #: the criterion in one sentence, for tables, reports and the methods paragraph
+    criterion_text: str = ""
+    #: replicates per n that would likely settle an undecided answer (None when clear)
+    replicates_needed: int | None = None
     # Evaluations made during the search, for figures (not in to_dict).
     curve: CurveResult | None = field(default=None, repr=False, compare=False)
     at_n: CheckResult | None = field(default=None, repr=False, compare=False)
@@ -198,6 +207,10 @@ class SearchResult:
             "best_coverage_n": self.best_coverage_n,
             "methods_that_reach": list(self.methods_that_reach),
             "notes": list(self.notes),
+            "decision": self.decision,
+            "criterion": self.criterion,
+            "criterion_text": self.criterion_text,
+            "replicates_needed": self.replicates_needed,
         }
         return clean_json(d)
 
