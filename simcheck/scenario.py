@@ -95,6 +95,7 @@ KNOWN_KEYS: dict[str, str] = {
     "target.coverage_tolerance": f"accepted coverage shortfall below the confidence, in [0, 0.5); default {DEFAULT_COVERAGE_TOLERANCE}",
     "target.event_values": "proportion estimand on a discrete non-0/1 model: the values that count (list of numbers)",
     "target.event_above": "proportion estimand on a non-0/1 model: values strictly above this number count",
+    "target.dropout": "share of enrolled units lost before analysis, in [0, 1); default 0: search also reports n_enrolled = ceil(n / (1 - dropout))",
     "data": "one-sample model table: model = \"...\" and its parameters",
     "data.a": "two-sample: model table of group a (the difference is a - b)",
     "data.b": "two-sample: model table of group b",
@@ -174,6 +175,7 @@ class Scenario:
     table: dict[str, Any] = field(default_factory=dict, compare=False, hash=False, repr=False)
     event_values: tuple[float, ...] | None = None
     event_above: float | None = None
+    dropout: float = 0.0
 
     @property
     def two_sample(self) -> bool:
@@ -210,6 +212,8 @@ class Scenario:
             target["event_values"] = [float(v) for v in self.event_values]
         if self.event_above is not None:
             target["event_above"] = float(self.event_above)
+        if self.dropout:  # only when given, so scenarios without it hash as before
+            target["dropout"] = float(self.dropout)
         sim: dict[str, Any] = {
             "replicates": int(self.replicates),
             "n_min": int(self.n_min),
@@ -409,9 +413,11 @@ def validate(
             c.add("target.coverage_tolerance", f"must be below target.confidence ({confidence:g}), got {tol!r}")
             tol = None
         event_values, event_above = _event(c, target, estimand)
+        dropout = _num(c, target, "target", "dropout", 0.0, low=0, high=1, high_open=True)
     else:
         confidence = margin = assurance = tol = None
         event_values = event_above = None
+        dropout = 0.0
 
     # [data]
     model = model_b = None
@@ -528,6 +534,7 @@ def validate(
         table=table,
         event_values=None if event_values is None else tuple(event_values),
         event_above=event_above,
+        dropout=float(dropout or 0.0),
     )
 
 

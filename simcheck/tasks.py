@@ -182,7 +182,28 @@ def run_task(
     # compare() forwards its keywords to find_n()
     if scenario.path != "auto" and "path" in inspect.signature(search.find_n).parameters:
         kwargs["path"] = scenario.path
-    return fn(*args, **kwargs)
+    return with_dropout(fn(*args, **kwargs), scenario.dropout)
+
+
+def with_dropout(result: Any, dropout: float) -> Any:
+    """The search result(s) carrying ``target.dropout`` (for ``n_enrolled``)."""
+    import dataclasses
+
+    from simcheck.formulas import enrolled_n
+    from simcheck.results import MethodComparison
+
+    def one(r):
+        return dataclasses.replace(
+            r, dropout=dropout,
+            n_enrolled=None if r.n is None else enrolled_n(r.n, dropout),
+            n_b_enrolled=None if r.n_b is None else enrolled_n(r.n_b, dropout),
+        )
+
+    if not dropout:
+        return result
+    if isinstance(result, MethodComparison):
+        return dataclasses.replace(result, by_method=tuple(one(r) for r in result.by_method))
+    return one(result)
 
 
 def _method_design(c: Collector, scenario: Scenario, method: Any, name: str) -> Design:

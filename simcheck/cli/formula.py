@@ -52,6 +52,9 @@ def add_parser(subparsers) -> None:
                         "design effect 1 + ((V^2 + 1) M - 1) ICC")
     p.add_argument("--ratio", type=float, metavar="K",
                    help="allocation ratio for two-sample estimands: n_b = K * n_a, > 0 (default 1)")
+    p.add_argument("--dropout", type=float, metavar="D",
+                   help="share of enrolled units lost before analysis, in [0, 1): also reports "
+                        "n_enrolled = ceil(n / (1 - D)); n stays the number analysed")
     add_json(p)
     p.set_defaults(run=run)
 
@@ -72,6 +75,7 @@ def run(args: argparse.Namespace) -> int:
         cluster_size=args.cluster_size,
         cluster_size_cv=args.cluster_size_cv,
         ratio=args.ratio,
+        dropout=args.dropout,
     )
     if args.json:
         emit_json(res.to_dict())
@@ -96,6 +100,12 @@ def render(res) -> str:
         rows.append(["n", res.n])
     else:
         rows += [["n (group a)", res.n], ["n_b (group b)", res.n_b], ["n total", res.n_total]]
+    if res.dropout:
+        if res.n_b is None:
+            rows.append([f"n to enrol (dropout {res.dropout:g})", res.n_enrolled])
+        else:
+            rows += [[f"n to enrol, group a (dropout {res.dropout:g})", res.n_enrolled],
+                     ["n to enrol, group b", res.n_b_enrolled]]
     if res.clusters is not None:
         if res.clusters_b is None:
             rows.append(["clusters", res.clusters])
