@@ -14,7 +14,7 @@ from simcheck import __version__
 from simcheck.cli.common import Parser, UsageError
 from simcheck.errors import InputError
 
-COMMANDS = ["formula", "check", "curve", "search", "sweep", "export", "report", "demo", "fit"]
+COMMANDS = ["formula", "check", "curve", "search", "sweep", "export", "report", "demo", "fit", "predictive"]
 
 
 def build_parser() -> Parser:

@@ -1,0 +1,164 @@
+"""Uncertain planning values: the unconditional (predictive) assurance against its closed form,
+Browne's (1995) inflated-SD n against the formula computed here, parsing and one-line errors.
+
+References used by the checks:
+- the sampling law of the sample variance under normality, (n - 1) S^2 / sigma^2 ~ chi2(n - 1)
+  (common practice; e.g. any mathematical statistics text), for the half-width of the t interval;
+- the pilot law sigma^2 = s^2 (m - 1) / X, X ~ chi2(m - 1) (the scaled chi-square law of the pilot s^2
+  turned round), integrated numerically here with scipy.integrate.quad;
+- Browne, R. H. (1995). On the use of a pilot sample for sample size determination. Statistics in
+  Medicine 14, 1933-1940: the SD raised to its upper one-sided confidence limit
+  s sqrt((m - 1) / chi2_{1 - level}(m - 1)).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+from scipy import integrate, stats
+
+from simcheck import rng as rngmod
+from simcheck.cli import main
+from simcheck.errors import InputError
+from simcheck.predictive import find_predictive_n, run_predictive
+from simcheck.uncertain import draw_values, point_designs, predictive_check, split
+
+B, S_PILOT, M = 2.0, 12.0, 20
+
+
+def _table(sd, assurance=0.8, seed=11):
+    return {
+        "title": "Blood pressure change (invented example)",
+        "target": {"estimand": "mean", "margin": B, "assurance": assurance},
+        "data": {"model": "normal", "mean": 5.0, "sd": sd},
+        "method": {"interval": "t"},
+        "simulation": {"seed": seed},
+    }
+
+
+def _assurance_given_sigma(n: int, sigma: float) -> float:
+    # half-width t S / sqrt(n) <= B  <=>  chi2(n - 1) <= (n - 1) n B^2 / (t^2 sigma^2)
+    t = stats.t.ppf(0.975, n - 1)
+    return stats.chi2.cdf((n - 1) * n * B * B / (t * t * sigma * sigma), n - 1)
+
+
+def _unconditional_pilot(n: int) -> float:
+    df = M - 1
+
+    def f(x):
+        return _assurance_given_sigma(n, S_PILOT * math.sqrt(df / x)) * stats.chi2.pdf(x, df)
+
+    return integrate.quad(f, 0, np.inf, limit=200)[0]
+
+
+def _setup(table, draws=400):
+    point, specs = split(table)
+    root, _ = rngmod.root_sequence(5)
+    values = draw_values(specs, draws, root)
+    return point, specs, root, point_designs(point, specs, values)
+
+
+@pytest.mark.parametrize("n", [150, 196, 240])
+def test_unconditional_assurance_matches_the_chi_square_integral(n):
+    _, _, root, designs = _setup(_table({"pilot_n": M, "pilot_sd": S_PILOT}))
+    r = predictive_check(designs, n, replicates_per_draw=1, root=root)
+    ref = _unconditional_pilot(n)
+    assert r.exact_given_parameters
+    assert 0 < r.assurance_mcse < 0.005
+    assert abs(r.assurance - ref) <= 4 * r.assurance_mcse, (r.assurance, ref, r.assurance_mcse)
+    assert r.coverage == pytest.approx(0.95, abs=1e-12)  # the t interval is exact for every sigma
+
+
+def test_stated_range_matches_its_integral():
+    _, _, root, designs = _setup(_table({"lower": 8.0, "upper": 16.0}))
+    n = 150
+    r = predictive_check(designs, n, replicates_per_draw=1, root=root)
+    ref = integrate.quad(lambda s: _assurance_given_sigma(n, s) / 8.0, 8.0, 16.0)[0]
+    assert abs(r.assurance - ref) <= 4 * r.assurance_mcse
+
+
+def test_run_predictive_side_by_side_and_browne():
+    res = run_predictive(_table({"pilot_n": M, "pilot_sd": S_PILOT}))
+    # conditional: the exact search at sd = 12 (assurance 0.8 at the point value)
+    assert res.conditional.assurance >= 0.8 and _assurance_given_sigma(res.n_conditional, S_PILOT) >= 0.8
+    assert _assurance_given_sigma(res.n_conditional - 1, S_PILOT) < 0.8
+    # its unconditional assurance is much lower, against the integral
+    cu = res.unconditional_at_conditional_n
+    assert abs(cu.assurance - _unconditional_pilot(res.n_conditional)) <= 4 * cu.assurance_mcse
+    assert cu.assurance < 0.7
+    # the unconditional n: the crossing of the integral's curve, within the Monte Carlo error
+    n_ref = next(n for n in range(res.n_conditional, 400) if _unconditional_pilot(n) >= 0.8)
+    assert abs(res.n_unconditional - n_ref) <= 2
+    # Browne (1995): formula n (t iteration) with the 80% upper confidence limit of sigma, computed here
+    s_up = S_PILOT * math.sqrt((M - 1) / stats.chi2.ppf(0.2, M - 1))
+    n_browne = next(n for n in range(2, 2000) if stats.t.ppf(0.975, n - 1) * s_up / math.sqrt(n) <= B)
+    assert res.browne["n"] == n_browne
+    assert res.browne["sd_upper"]["data.sd"] == pytest.approx(s_up, rel=1e-12)
+    d = res.to_dict()
+    assert {"n_conditional", "n_unconditional", "browne", "unconditional", "conditional"} <= set(d)
+
+
+def test_same_seed_same_answer_and_frame():
+    a = run_predictive(_table({"pilot_n": M, "pilot_sd": S_PILOT}), draws=100)
+    b = run_predictive(_table({"pilot_n": M, "pilot_sd": S_PILOT}), draws=100)
+    assert a.to_dict() == b.to_dict()
+    assert list(a.to_frame()["n"]) == sorted(a.checked)
+
+
+@pytest.mark.parametrize("target", [2, 3, 50, 137, 999, 1000])
+@pytest.mark.parametrize("start", [2, 10, 137, 600, 1000])
+def test_find_predictive_n_on_a_step(target, start):
+    class R:
+        def __init__(self, n):
+            self.n = n
+
+    assert find_predictive_n(R, lambda r: r.n >= target, start, 2, 1000) == target
+    assert find_predictive_n(R, lambda r: False, start, 2, 1000) is None
+
+
+@pytest.mark.parametrize("sd, message", [
+    ({"pilot_n": 2, "pilot_sd": 12}, "pilot_n"),
+    ({"pilot_n": 20}, "pilot_sd"),
+    ({"lower": 5.0, "upper": 4.0}, "upper"),
+    ({"lower": 5.0, "upper": 9.0, "point": 10.0}, "point"),
+    ({"pilot_n": 20, "pilot_sd": 12, "lower": 1.0}, "not both"),
+])
+def test_bad_distribution_tables(sd, message):
+    with pytest.raises(InputError, match=message):
+        split(_table(sd))
+
+
+def test_pilot_only_for_an_sd():
+    t = _table(12.0)
+    t["data"] = {"model": "lognormal", "mean": 5.0, "cv": {"pilot_n": 20, "pilot_sd": 0.5}}
+    with pytest.raises(InputError, match="standard deviation"):
+        split(t)
+
+
+def _write(tmp_path, sd_text):
+    f = tmp_path / "s.toml"
+    f.write_text('title = "t (invented)"\n[target]\nestimand = "mean"\nmargin = 2.0\nassurance = 0.8\n'
+                 f'[data]\nmodel = "normal"\nmean = 5.0\nsd = {sd_text}\n[method]\ninterval = "t"\n'
+                 "[simulation]\nseed = 3\n")
+    return str(f)
+
+
+def test_cli_json_and_errors(tmp_path, capsys):
+    f = _write(tmp_path, "{ pilot_n = 20, pilot_sd = 12 }")
+    assert main(["predictive", f, "--json", "--draws", "100", "--out", str(tmp_path / "rep")]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert out["n_unconditional"] > out["n_conditional"]
+    text = (tmp_path / "rep" / "predictive.md").read_text()
+    assert "unconditional" in text and "Caution" in text
+    assert (tmp_path / "rep" / "predictive_assurance.png").stat().st_size > 1000
+    plain = _write(tmp_path, "12.0")
+    assert main(["predictive", plain]) == 2
+    err = capsys.readouterr().err
+    assert "no planning value" in err and err.count("\n") == 1
+    bad = _write(tmp_path, "{ pilot_n = 1.5, pilot_sd = 12 }")
+    assert main(["predictive", bad]) == 2
+    err = capsys.readouterr().err
+    assert "data.sd.pilot_n" in err and err.count("\n") == 1
