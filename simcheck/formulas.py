@@ -771,3 +771,18 @@ def enrolled_n(n: int, dropout: float) -> int:
     if not dropout:
         return int(n)
     return int(ceil_robust(n / (1.0 - dropout)))
+
+
+def upper_sd_limit(pilot_sd: float, pilot_n: int, level: float) -> float:
+    """Upper one-sided ``level`` confidence limit of sigma from a pilot SD.
+
+    ``s sqrt((m - 1) / chi2_{1 - level}(m - 1))``, the chi2 quantile at
+    ``1 - level`` (lower tail), since (m - 1) s^2 / sigma^2 ~ chi2(m - 1)
+    under normality.
+
+    References
+    ----------
+    Browne, R. H. (1995). On the use of a pilot sample for sample size
+    determination. Statistics in Medicine 14, 1933-1940.
+    """
+    return float(pilot_sd * math.sqrt((pilot_n - 1) / _stats().chi2.ppf(1 - level, pilot_n - 1)))

@@ -35,6 +35,7 @@ from scipy import stats
 
 from simcheck import rng as rngmod
 from simcheck.errors import Collector, InputError
+from simcheck.formulas import upper_sd_limit
 
 __all__ = ["Uncertain", "PredictiveCheck", "split", "has_uncertain", "draw_values", "point_designs",
            "predictive_check", "upper_sd_limit"]
@@ -274,18 +275,3 @@ def predictive_check(designs: Sequence[Any], n: int, *, replicates_per_draw: int
         margin_mean=float(np.mean([r.margin_mean for r in rows])),
         exact_given_parameters=all(r.exact for r in rows),
     )
-
-
-def upper_sd_limit(pilot_sd: float, pilot_n: int, level: float) -> float:
-    """Upper one-sided ``level`` confidence limit of sigma from a pilot SD.
-
-    ``s sqrt((m - 1) / chi2_{1 - level}(m - 1))``, the chi2 quantile at
-    ``1 - level`` (lower tail), since (m - 1) s^2 / sigma^2 ~ chi2(m - 1)
-    under normality.
-
-    References
-    ----------
-    Browne, R. H. (1995). On the use of a pilot sample for sample size
-    determination. Statistics in Medicine 14, 1933-1940.
-    """
-    return float(pilot_sd * math.sqrt((pilot_n - 1) / stats.chi2.ppf(1 - level, pilot_n - 1)))

@@ -162,3 +162,23 @@ def test_cli_json_and_errors(tmp_path, capsys):
     assert main(["predictive", bad]) == 2
     err = capsys.readouterr().err
     assert "data.sd.pilot_n" in err and err.count("\n") == 1
+
+
+def test_formula_pilot_n_browne_side_by_side(capsys):
+    assert main(["formula", "--estimand", "mean", "--sd", "12", "--margin", "2", "--multiplier", "t",
+                 "--pilot-n", "20", "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    s_up = S_PILOT * math.sqrt((M - 1) / stats.chi2.ppf(0.2, M - 1))  # Browne (1995), 80% upper limit
+    n_browne = next(n for n in range(2, 2000) if stats.t.ppf(0.975, n - 1) * s_up / math.sqrt(n) <= B)
+    assert out["browne"]["n"] == n_browne and out["browne"]["sd_upper"] == pytest.approx(s_up, rel=1e-12)
+    # z multiple, 90% limit, computed here: n = ceil((z s_up / B)^2)
+    assert main(["formula", "--estimand", "mean", "--sd", "12", "--margin", "2", "--pilot-n", "20",
+                 "--pilot-confidence", "0.9", "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    s90 = S_PILOT * math.sqrt((M - 1) / stats.chi2.ppf(0.1, M - 1))
+    assert out["browne"]["n"] == math.ceil((stats.norm.ppf(0.975) * s90 / B) ** 2)
+    assert main(["formula", "--estimand", "proportion", "--margin", "0.1", "--pilot-n", "20"]) == 2
+    err = capsys.readouterr().err
+    assert "--pilot-n" in err and err.count("\n") == 1
+    assert main(["formula", "--estimand", "mean", "--sd", "12", "--margin", "2", "--pilot-n", "2"]) == 2
+    assert "--pilot-n" in capsys.readouterr().err

@@ -55,6 +55,11 @@ def add_parser(subparsers) -> None:
     p.add_argument("--dropout", type=float, metavar="D",
                    help="share of enrolled units lost before analysis, in [0, 1): also reports "
                         "n_enrolled = ceil(n / (1 - D)); n stays the number analysed")
+    p.add_argument("--pilot-n", dest="pilot_n", type=float, metavar="M",
+                   help="the SDs come from a pilot of M (>= 3) values: also reports the n with each SD raised "
+                        "to its upper one-sided confidence limit (Browne 1995), side by side (means only)")
+    p.add_argument("--pilot-confidence", dest="pilot_confidence", type=float, default=0.8, metavar="L",
+                   help="level of that upper confidence limit, in (0, 1) (default 0.8)")
     add_json(p)
     p.set_defaults(run=run)
 
@@ -77,11 +82,56 @@ def run(args: argparse.Namespace) -> int:
         ratio=args.ratio,
         dropout=args.dropout,
     )
+    browne = None if args.pilot_n is None else _browne(args, res)
     if args.json:
-        emit_json(res.to_dict())
+        d = res.to_dict()
+        if browne is not None:
+            d["browne"] = browne
+        emit_json(d)
         return 0
-    sys.stdout.write(render(res) + "\n")
+    text = render(res)
+    if browne is not None:
+        text += "\n\n" + _browne_text(res, browne)
+    sys.stdout.write(text + "\n")
     return 0
+
+
+def _browne(args: argparse.Namespace, res) -> dict:
+    """The n with each SD at its upper confidence limit from a pilot (Browne 1995)."""
+    from simcheck.errors import Collector
+    from simcheck.formulas import upper_sd_limit
+
+    c = Collector()
+    m = c.number("--pilot-n", args.pilot_n, low=3, high=10**7, integer=True)
+    level = c.number("--pilot-confidence", args.pilot_confidence, low=0, high=1, low_open=True, high_open=True)
+    if res.sd is None:
+        c.add("--pilot-n", "applies to means only (mean, mean-diff): the SD is what a pilot estimates")
+    c.raise_if_any()
+    sd_up = upper_sd_limit(res.sd, m, level)
+    sd_b_up = None if res.sd_b is None else upper_sd_limit(res.sd_b, m, level)
+    up = sample_size(
+        args.estimand, args.margin, confidence=args.confidence, sd=sd_up, sd_b=sd_b_up,
+        multiplier=args.multiplier, population_size=args.population_size, design_effect=args.design_effect,
+        icc=args.icc, cluster_size=args.cluster_size, cluster_size_cv=args.cluster_size_cv, ratio=args.ratio,
+        dropout=args.dropout,
+    )
+    return {"n": up.n, "n_b": up.n_b, "n_enrolled": up.n_enrolled, "sd_upper": sd_up, "sd_b_upper": sd_b_up,
+            "pilot_n": m, "level": level,
+            "formula": f"sd_upper = sd sqrt((m - 1) / chi2_{{1 - L}}(m - 1)) = {res.sd:g} sqrt({m - 1} / "
+                       f"chi2_{1 - level:g}({m - 1})) = {sd_up:.6g}"}
+
+
+def _browne_text(res, b: dict) -> str:
+    rows = [["at the planning SD", res.n, res.sd],
+            [f"SD at its upper {b['level']:g} limit (Browne 1995)", b["n"], b["sd_upper"]]]
+    return "\n".join([
+        f"SD from a pilot of {b['pilot_n']}: {b['formula']}", "",
+        table(["answer", "n", "sd"], rows), "",
+        "The planning SD is itself an estimate; over the pilot's sampling, the SD's upper limit is at least "
+        f"the true SD with probability {b['level']:g} (normal pilot data), and then this n is at least the "
+        "formula n at the true SD. `simcheck predictive` gives the "
+        "unconditional answer by simulation.",
+    ])
 
 
 def render(res) -> str:
