@@ -26,6 +26,11 @@ from simcheck.uncertain import (PredictiveCheck, Uncertain, draw_values, point_d
 
 DEFAULT_DRAWS = 400
 DEFAULT_PILOT_CONFIDENCE = 0.8
+CRITERION = "predictive-crossing"
+CRITERION_TEXT = ("n_unconditional is the smallest n at which the estimated unconditional coverage and assurance "
+                  "meet the targets, located by doubling and bisection with the same parameter draws and streams "
+                  "at every n; the decision is clear when the assurance at n is above the target and at n - 1 "
+                  "below it, each by more than 2 MCSE")
 
 
 @dataclass(frozen=True)
@@ -50,10 +55,28 @@ class PredictiveResult:
     #: the design at the point values (for the conditional curve of a report)
     point_design: Any = field(default=None, repr=False, compare=False)
     path: str = "auto"
+    dropout: float = 0.0
+
+    def enrolled(self, n: int | None) -> int | None:
+        """n to enrol for ``n`` analysed under ``target.dropout`` (n itself without dropout)."""
+        from simcheck.formulas import enrolled_n
+
+        return None if n is None else enrolled_n(n, self.dropout)
 
     @property
     def reached(self) -> bool:
         return self.n_unconditional is not None
+
+    @property
+    def decision(self) -> str:
+        """"clear" when the Monte Carlo error cannot move n_unconditional, else "undecided"."""
+        un, below = self.unconditional, self.unconditional_below
+        if un is None or un.assurance is None:
+            return "clear" if un is not None or self.n_unconditional is None else "undecided"
+        target = self.targets["assurance"]
+        above_ok = (un.assurance - target) > 2 * un.assurance_mcse
+        below_ok = below is None or (target - below.assurance) > 2 * below.assurance_mcse
+        return "clear" if above_ok and below_ok else "undecided"
 
     def to_dict(self) -> dict[str, Any]:
         from simcheck.results import clean_json
@@ -63,6 +86,12 @@ class PredictiveResult:
             "n_conditional": self.n_conditional,
             "n_unconditional": self.n_unconditional,
             "reached": self.reached,
+            "decision": self.decision,
+            "criterion": CRITERION,
+            "criterion_text": CRITERION_TEXT,
+            "dropout": self.dropout,
+            "n_enrolled_conditional": self.enrolled(self.n_conditional),
+            "n_enrolled_unconditional": self.enrolled(self.n_unconditional),
             "assurance_conditional_n": _get(self.unconditional_at_conditional_n, "assurance"),
             "conditional": None if self.conditional is None else self.conditional.to_dict(),
             "unconditional_at_conditional_n": _dict(self.unconditional_at_conditional_n),
@@ -243,6 +272,8 @@ def run_predictive(
     start = n_cond or scenario.n_min
     n_unc = find_predictive_n(evaluate, lambda r: _passes(r, cov_target, scenario.assurance),
                               start, scenario.n_min, scenario.n_max)
+    if n_unc is not None and n_unc - 1 >= scenario.n_min:
+        evaluate(n_unc - 1)  # the neighbour below, for the decision status
     if n is not None:
         evaluate(n)
     notes = [
@@ -265,6 +296,7 @@ def run_predictive(
         and (n_unc - 1) in cache else None,
         browne=browne_n(scenario, specs, level), seed=used_seed, draws=k, replicates_per_draw=per_draw,
         notes=tuple(notes), checked=dict(cache), point_design=scenario.design, path=scenario.path,
+        dropout=scenario.dropout,
     )
 
 

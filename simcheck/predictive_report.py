@@ -59,19 +59,30 @@ def write_predictive_report(res, out_dir: str | Path) -> Path:
     lines += [f"- {u.describe()}" for u in res.uncertain]
     lines += ["", "## The answers side by side", "",
               "| answer | n | assurance at the point values | unconditional assurance |", "|---|---|---|---|"]
+    if res.dropout:
+        lines[-2:] = ["| answer | n | assurance at the point values | unconditional assurance | n to enrol |",
+                      "|---|---|---|---|---|"]
+
+    def enrol(n) -> str:
+        return f" {res.enrolled(n)} |" if res.dropout and isinstance(n, int) else (" - |" if res.dropout else "")
+
     cond_a = getattr(res.conditional, "assurance", None)
     lines.append(f"| conditional (search at the point values) | {res.n_conditional} | "
                  f"{'-' if cond_a is None else f'{cond_a:.4f}'} | "
-                 f"{'-' if cu is None or cu.assurance is None else f'{cu.assurance:.4f} ± {cu.assurance_mcse:.4f}'} |")
+                 f"{'-' if cu is None or cu.assurance is None else f'{cu.assurance:.4f} ± {cu.assurance_mcse:.4f}'} |"
+                 + enrol(res.n_conditional))
     lines.append(f"| unconditional (predictive) | {res.n_unconditional if res.n_unconditional else 'not reached'} | - | "
-                 f"{'-' if un is None or un.assurance is None else f'{un.assurance:.4f} ± {un.assurance_mcse:.4f}'} |")
+                 f"{'-' if un is None or un.assurance is None else f'{un.assurance:.4f} ± {un.assurance_mcse:.4f}'} |"
+                 + enrol(res.n_unconditional))
     if res.browne is not None:
         b = res.browne
         lines.append(f"| Browne (1995): SD at its upper {b['level']:g} confidence limit "
-                     f"({', '.join(f'{k} {v:.4g}' for k, v in b['sd_upper'].items())}) | {b['n']} | - | - |")
+                     f"({', '.join(f'{k} {v:.4g}' for k, v in b['sd_upper'].items())}) | {b['n']} | - | - |" + enrol(b["n"]))
     lines += ["", "![Assurance against n](predictive_assurance.png)", "",
               "*Figure: assurance against n at the point values (line) and averaged over the planning values' "
               "distributions (points, bars 2 MCSE).*", "", "## How it was computed", ""]
+    d = res.to_dict()
+    lines.append(f"- decision: **{d['decision']}** (criterion `{d['criterion']}`: {d['criterion_text']})")
     lines += [f"- {x}" for x in res.notes]
     lines.append(f"- {res.draws} parameter draws (replicated Latin hypercube), {res.replicates_per_draw} replicates "
                  f"per draw, root seed {res.seed}")

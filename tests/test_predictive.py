@@ -182,3 +182,27 @@ def test_formula_pilot_n_browne_side_by_side(capsys):
     assert "--pilot-n" in err and err.count("\n") == 1
     assert main(["formula", "--estimand", "mean", "--sd", "12", "--margin", "2", "--pilot-n", "2"]) == 2
     assert "--pilot-n" in capsys.readouterr().err
+
+
+def test_shipped_pilot_example_fit_to_report(tmp_path, capsys):
+    # the invented 20-patient pilot shipped in scenarios/, from fit to the predictive report
+    from pathlib import Path
+
+    from simcheck.fit import fit_file
+
+    root = Path(__file__).resolve().parents[1] / "scenarios"
+    res = fit_file(str(root / "pilot_sbp_invented.csv"), "sbp_change")
+    assert res.n == 20 and res.best == "normal"
+    # the scenario's pilot SD is the sample SD of the pilot (divisor n - 1), to the 6 digits printed
+    import tomllib
+
+    scen = tomllib.loads((root / "pilot_sbp.toml").read_text())
+    assert scen["data"]["sd"] == {"pilot_n": 20, "pilot_sd": float(f"{res.sd:.6g}")}
+    assert scen["data"]["mean"] == pytest.approx(res.mean, abs=1e-9)
+    out = tmp_path / "rep"
+    assert main(["predictive", str(root / "pilot_sbp.toml"), "--draws", "100", "--json", "--out", str(out)]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["n_unconditional"] > d["n_conditional"] and d["assurance_conditional_n"] < 0.8
+    assert d["n_enrolled_unconditional"] == math.ceil(d["n_unconditional"] / 0.9 - 1e-9)
+    md = (out / "predictive.md").read_text()
+    assert "conditional" in md and "unconditional" in md and "Browne" in md and "invented" in md

@@ -70,6 +70,9 @@ def render(res, file: str, column: str) -> str:
     lines.append(table(["rank", "model", "k", "AIC", "dAIC", "goodness of fit", "p (descriptive)"], rows))
     lines += ["", f"Best by AIC: {res.best} ({res.best_fit.method}). Paste into a scenario:", ""]
     lines.append(res.data_table())
+    if res.best == "normal":
+        lines += ["", "To carry the uncertainty of the SD into the plan (`simcheck predictive`), give instead:", "",
+                  f"sd = {{ pilot_n = {res.n}, pilot_sd = {res.sd:.6g} }}   # the sample SD, divisor n - 1"]
     lines += ["", "Or resample the pilot itself:", "",
               f'[data]\nmodel = "empirical"\nfile = "{file}"\ncolumn = "{column}"', ""]
     lines.append("Notes:")

@@ -74,7 +74,14 @@ def render(res, n_extra: int | None = None) -> str:
     if res.browne is not None:
         b = res.browne
         rows.append([f"Browne 1995 (SD at upper {b['level']:g} limit)", b["n"], "-", "-"])
-    lines.append(table(["answer", "n", "assurance at point values", "unconditional assurance"], rows))
+    headers = ["answer", "n", "assurance at point values", "unconditional assurance"]
+    if res.dropout:
+        headers.append(f"n to enrol (dropout {res.dropout:g})")
+        for r in rows:
+            r.append(res.enrolled(r[1]) if isinstance(r[1], int) else "-")
+    lines.append(table(headers, rows))
+    lines += ["", f"decision: {res.decision} (criterion {res.to_dict()['criterion']}: "
+                  f"{res.to_dict()['criterion_text']})"]
     if n_extra is not None and n_extra in res.checked:
         r = res.checked[n_extra]
         lines += ["", f"at n = {n_extra}: unconditional coverage {r.coverage:.4f}, assurance {_a(r.assurance)}"
