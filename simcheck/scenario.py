@@ -108,6 +108,7 @@ KNOWN_KEYS: dict[str, str] = {
     "simulation.ratio": f"n_b / n_a for two-sample estimands, in (0, {RATIO_MAX:g}]; default {DEFAULT_RATIO}",
     "simulation.budget": f"optional cap on the replicates a search spends, whole number in [{BUDGET_MIN}, {BUDGET_MAX}]",
     "simulation.path": f"computation path: {' | '.join(PATHS)}; default {DEFAULT_PATH}",
+    "simulation.random_dropout": "check: draw each study's analysed n from Binomial(n_enrolled, 1 - target.dropout): true | false; default false",
     "clusters.icc": "intracluster correlation in [0, 1); n then counts clusters",
     "clusters.size": f"observations per cluster, whole number in [1, {CLUSTER_SIZE_MAX}] (or size_mean and size_cv)",
     "clusters.size_mean": "mean cluster size, >= 1 (varying sizes)",
@@ -176,6 +177,7 @@ class Scenario:
     event_values: tuple[float, ...] | None = None
     event_above: float | None = None
     dropout: float = 0.0
+    random_dropout: bool = False
 
     @property
     def two_sample(self) -> bool:
@@ -225,6 +227,8 @@ class Scenario:
             sim["seed"] = int(self.seed)
         if self.budget is not None:
             sim["budget"] = int(self.budget)
+        if self.random_dropout:  # only when set, so scenarios without it hash as before
+            sim["random_dropout"] = True
         out: dict[str, Any] = {
             "title": self.title,
             "target": target,
@@ -468,6 +472,14 @@ def validate(
         c.add("simulation.ratio", f"only for two-sample estimands ({', '.join(TWO_SAMPLE)}); estimand is {estimand!r}, got {ratio!r}")
     budget = _num(c, sim, "simulation", "budget", None, low=BUDGET_MIN, high=BUDGET_MAX, integer=True)
     path = _choice(c, sim, "simulation", "path", PATHS, default=DEFAULT_PATH)
+    random_dropout = sim.get("random_dropout", False)
+    if not isinstance(random_dropout, bool):
+        c.add("simulation.random_dropout", f"must be true or false, got {random_dropout!r}")
+        random_dropout = False
+    elif random_dropout and not dropout:
+        c.add("simulation.random_dropout", "needs target.dropout > 0 (the share lost after enrolment)")
+    elif random_dropout and estimand in TWO_SAMPLE:
+        c.add("simulation.random_dropout", "is for one-sample estimands only")
 
     clusters = _clusters(c, clusters_t) if clusters_t is not None else None
     population = _population(c, pop_t, bdir) if pop_t is not None else None
@@ -535,6 +547,7 @@ def validate(
         event_values=None if event_values is None else tuple(event_values),
         event_above=event_above,
         dropout=float(dropout or 0.0),
+        random_dropout=bool(random_dropout),
     )
 
 

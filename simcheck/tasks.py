@@ -148,6 +148,12 @@ def run_task(
     c.raise_if_any()
 
     root, _ = resolve_seed(scenario, seed)
+    if task == "check" and scenario.random_dropout:
+        from simcheck.dropout import check_random_dropout
+
+        out = [check_random_dropout(design, k, scenario.dropout, replicates=reps, rng=root, path=scenario.path)
+               for k in n_list]
+        return out[0] if isinstance(n, Integral) else out
     if task == "check":
         from simcheck import engine
 

@@ -77,3 +77,59 @@ def test_scenario_bad_dropout(tmp_path, capsys, value):
     assert main(["search", str(f)]) == 2
     err = capsys.readouterr().err
     assert "target.dropout" in err and err.count("\n") == 1
+
+
+# --- simulation.random_dropout: the analysed n is Binomial(n_enrolled, 1 - dropout) -------------------
+
+import numpy as np
+from scipy import stats
+
+
+def _rd_scenario(model, dropout=0.2, **sim):
+    return scenario_from_dict({
+        "title": "Random dropout (invented example)",
+        "target": {"estimand": "mean", "margin": 3.0, "dropout": dropout},
+        "data": model,
+        "method": {"interval": "t"},
+        "simulation": {"seed": 4, "random_dropout": True, **sim},
+    })
+
+
+def test_random_dropout_exact_normal_against_the_binomial_mixture():
+    scen = _rd_scenario({"model": "normal", "mean": 0.0, "sd": 12.0})
+    res = run_task(scen, "check", n=70)
+    big_n = _exact(70, "0.2")
+    # reference: sum over k of Binomial(N, 0.8) pmf times the exact t-interval assurance at k
+    # (chi-square law of the sample variance; k < 2 gives no interval and counts as failing)
+    k = np.arange(2, big_n + 1)
+    t = stats.t.ppf(0.975, k - 1)
+    a_k = stats.chi2.cdf((k - 1) * k * 9.0 / (t * t * 144.0), k - 1)
+    ref = float(np.sum(stats.binom.pmf(k, big_n, 0.8) * a_k))
+    assert res.exact and res.assurance == pytest.approx(ref, abs=1e-6)
+    assert res.coverage == pytest.approx(0.95 * stats.binom.sf(1, big_n, 0.8), abs=1e-6)
+    assert any("Binomial(88, 0.8)" in x for x in res.notes)
+
+
+def test_random_dropout_simulated_against_direct_simulation():
+    model = {"model": "lognormal", "mean": 10.0, "cv": 1.0}
+    scen = _rd_scenario(model, replicates=20000)
+    res = run_task(scen, "check", n=30)
+    # reference: simulated here directly, each study with its own binomial n
+    rng = np.random.default_rng(99)
+    big_n, reps = _exact(30, "0.2"), 20000
+    ks = rng.binomial(big_n, 0.8, size=reps)
+    s2 = np.log(2.0)
+    covered = 0
+    for k in np.unique(ks):
+        m = int(np.sum(ks == k))
+        x = rng.lognormal(np.log(10.0) - s2 / 2, np.sqrt(s2), size=(m, k))
+        half = stats.t.ppf(0.975, k - 1) * x.std(axis=1, ddof=1) / np.sqrt(k)
+        covered += int(np.sum(np.abs(x.mean(axis=1) - 10.0) <= half))
+    p = covered / reps
+    se = np.sqrt(p * (1 - p) / reps)
+    assert abs(res.coverage - p) <= 4 * np.hypot(se, res.coverage_mcse)
+
+
+def test_random_dropout_needs_a_dropout():
+    with pytest.raises(Exception, match="target.dropout"):
+        _rd_scenario({"model": "normal", "mean": 0.0, "sd": 1.0}, dropout=0.0)
