@@ -20,7 +20,7 @@ from pathlib import Path
 from typing import Any, Callable
 
 from simcheck import rng as rngmod
-from simcheck.errors import Collector, InputError
+from simcheck.errors import Collector
 from simcheck.uncertain import (PredictiveCheck, Uncertain, draw_values, point_designs, predictive_check, split,
                                 upper_sd_limit)
 
@@ -240,15 +240,7 @@ def run_predictive(
 
     point_table, specs = split(table, source)
     scenario = scenario_from_dict(point_table, source=source, base_dir=base_dir)
-    c = Collector()
-    if not specs:
-        c.add("data", "no planning value is given as a distribution, e.g. sd = { pilot_n = 20, pilot_sd = 12 }")
-    k = DEFAULT_DRAWS if draws is None else c.number("--draws", draws, low=20, high=10**6, integer=True)
-    reps = scenario.replicates if replicates is None else c.number("--replicates", replicates, low=100, integer=True)
-    level = c.number("--pilot-confidence", pilot_confidence, low=0, high=1, low_open=True, high_open=True)
-    if n is not None:
-        c.number("--n", n, low=2, high=scenario.n_max, integer=True)
-    c.raise_if_any()
+    k, reps, level = _arguments(scenario, specs, draws, replicates, pilot_confidence, n)
     used_seed, fresh = resolve_seed(scenario, seed)
     root, _ = rngmod.root_sequence(used_seed)
     per_draw = max(1, math.ceil(reps / k))
@@ -276,18 +268,7 @@ def run_predictive(
         evaluate(n_unc - 1)  # the neighbour below, for the decision status
     if n is not None:
         evaluate(n)
-    notes = [
-        "unconditional (predictive): coverage and assurance averaged over the planning values' distributions; "
-        "each parameter draw is evaluated on its own block of replicates",
-        "n_unconditional is where the estimated measures cross the targets, with the same parameter draws and "
-        "streams at every n (common random numbers)",
-        "results hold only under the assumed data model and the stated distributions of the planning values",
-    ]
-    if fresh:
-        notes.append(f"no seed given: ran with seed {used_seed}")
-    if any(u.kind == "pilot" for u in specs):
-        notes.append("a pilot SD is taken as sigma^2 = s^2 (m - 1) / chi2(m - 1): the pilot's sampling law of s^2 "
-                     "turned round (reference prior 1 / sigma^2), assuming normal pilot data")
+    notes = _notes(specs, used_seed if fresh else None)
     return PredictiveResult(
         title=scenario.title, uncertain=specs, targets=targets, n_conditional=n_cond, conditional=cond,
         unconditional_at_conditional_n=at_cond, n_unconditional=n_unc,
@@ -300,13 +281,40 @@ def run_predictive(
     )
 
 
+def _arguments(scenario, specs, draws, replicates, pilot_confidence, n) -> tuple[int, int, float]:
+    """Draws, replicates and the Browne level, checked together (one InputError with every problem)."""
+    c = Collector()
+    if not specs:
+        c.add("data", "no planning value is given as a distribution, e.g. sd = { pilot_n = 20, pilot_sd = 12 }")
+    k = DEFAULT_DRAWS if draws is None else c.number("--draws", draws, low=20, high=10**6, integer=True)
+    reps = scenario.replicates if replicates is None else c.number("--replicates", replicates, low=100, integer=True)
+    level = c.number("--pilot-confidence", pilot_confidence, low=0, high=1, low_open=True, high_open=True)
+    if n is not None:
+        c.number("--n", n, low=2, high=scenario.n_max, integer=True)
+    c.raise_if_any()
+    return k, reps, level
+
+
+def _notes(specs, fresh_seed: int | None) -> list[str]:
+    notes = [
+        "unconditional (predictive): coverage and assurance averaged over the planning values' distributions; "
+        "each parameter draw is evaluated on its own block of replicates",
+        "n_unconditional is where the estimated measures cross the targets, with the same parameter draws and "
+        "streams at every n (common random numbers)",
+        "results hold only under the assumed data model and the stated distributions of the planning values",
+    ]
+    if fresh_seed is not None:
+        notes.append(f"no seed given: ran with seed {fresh_seed}")
+    if any(u.kind == "pilot" for u in specs):
+        notes.append("a pilot SD is taken as sigma^2 = s^2 (m - 1) / chi2(m - 1): the pilot's sampling law of s^2 "
+                     "turned round (reference prior 1 / sigma^2), assuming normal pilot data")
+    return notes
+
+
 def load_predictive(path: str | Path, **kwargs: Any) -> PredictiveResult:
     """:func:`run_predictive` on a scenario file."""
     from simcheck.scenario import read_table
 
     p = Path(path)
-    try:
-        table = read_table(p)
-    except InputError as e:
-        raise e.with_source(str(path)) if not str(e).startswith(str(path)) else e
+    table = read_table(p)  # its errors name the file
     return run_predictive(table, source=str(path), base_dir=str(p.resolve().parent), **kwargs)

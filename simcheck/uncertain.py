@@ -34,10 +34,10 @@ import numpy as np
 from scipy import stats
 
 from simcheck import rng as rngmod
-from simcheck.errors import Collector, InputError
+from simcheck.errors import Collector
 from simcheck.formulas import upper_sd_limit
 
-__all__ = ["Uncertain", "PredictiveCheck", "split", "has_uncertain", "draw_values", "point_designs",
+__all__ = ["Uncertain", "PredictiveCheck", "split", "draw_values", "point_designs",
            "predictive_check", "upper_sd_limit"]
 
 PILOT_KEYS = ("pilot_n", "pilot_sd")
@@ -146,14 +146,6 @@ def split(table: dict[str, Any], source: str | None = None) -> tuple[dict[str, A
         point["data"] = _walk(c, data, "data", out)
     c.raise_if_any(source)
     return point, tuple(out)
-
-
-def has_uncertain(table: dict[str, Any]) -> bool:
-    """True when the table gives some planning value as a distribution."""
-    try:
-        return bool(split(table)[1])
-    except InputError:
-        return True
 
 
 GROUPS = 10
