@@ -224,7 +224,7 @@ class Design:
             d["data_a"] = self.model.to_dict()
             d["data_b"] = self.model_b.to_dict()
             d["ratio"] = self.ratio
-        else:
+        elif self.strata is None:
             d["data"] = self.model.to_dict()
         if self.method.startswith("bootstrap"):
             d["resamples"] = self.resamples
