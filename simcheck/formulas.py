@@ -24,7 +24,7 @@ This module depends only on numpy, scipy and :mod:`simcheck.errors`.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, Callable
 
 import numpy as np
@@ -786,3 +786,15 @@ def upper_sd_limit(pilot_sd: float, pilot_n: int, level: float) -> float:
     determination. Statistics in Medicine 14, 1933-1940.
     """
     return float(pilot_sd * math.sqrt((pilot_n - 1) / _stats().chi2.ppf(1 - level, pilot_n - 1)))
+
+
+@dataclass(frozen=True)
+class StratifiedFormulaResult(FormulaResult):
+    """A stratified sample's closed-form total n, with its per-stratum counts."""
+
+    allocation: dict[str, int] = field(default_factory=dict)
+
+    def to_dict(self) -> dict[str, Any]:
+        d = super().to_dict()
+        d["allocation"] = dict(self.allocation)
+        return d
