@@ -181,6 +181,8 @@ class Scenario:
     event_above: float | None = None
     dropout: float = 0.0
     random_dropout: bool = False
+    #: planning values given as distributions (simcheck.uncertain); the design uses their point values
+    uncertain: tuple[Any, ...] = ()
 
     @property
     def two_sample(self) -> bool:
@@ -394,6 +396,12 @@ def validate(
     bdir = str(base_dir) if base_dir is not None else None
     if "base" in table and ("vary" in table or "task" in table) and "target" not in table:
         raise InputError([Problem("", "this is a sweep file (it has base and vary/task), not a scenario; run it with `simcheck sweep`")], source=source)
+    # planning values given as distributions: validated and run at their point values (the
+    # conditional answer); the table keeps them, so to_dict and sweep keys still see them
+    from simcheck import uncertain
+
+    given_table = table
+    table, planning = uncertain.split(table, source)
     c = Collector()
 
     _unknown_keys(c, table)
@@ -560,7 +568,8 @@ def validate(
         path=path,
         source=source,
         base_dir=bdir,
-        table=table,
+        table=given_table,
+        uncertain=planning,
         event_values=None if event_values is None else tuple(event_values),
         event_above=event_above,
         dropout=float(dropout or 0.0),

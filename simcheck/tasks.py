@@ -15,6 +15,7 @@ results carry it, so every run can be repeated.
 
 from __future__ import annotations
 
+import dataclasses
 import inspect
 import secrets
 from numbers import Integral
@@ -148,6 +149,10 @@ def run_task(
     c.raise_if_any()
 
     root, _ = resolve_seed(scenario, seed)
+    if scenario.uncertain:
+        return conditional_note(run_task(
+            dataclasses.replace(scenario, uncertain=()), task, n=n, n_min=n_min, n_max=n_max, step=step,
+            method=method, replicates=replicates, seed=seed, progress=progress, fields=fields), scenario)
     if task == "check" and scenario.random_dropout:
         from simcheck.dropout import check_random_dropout
 
@@ -189,6 +194,26 @@ def run_task(
     if scenario.path != "auto" and "path" in inspect.signature(search.find_n).parameters:
         kwargs["path"] = scenario.path
     return with_dropout(fn(*args, **kwargs), scenario.dropout)
+
+
+def conditional_note(result: Any, scenario: Scenario) -> Any:
+    """The result(s) noting that they hold at the point values of uncertain planning values."""
+    from simcheck.results import CurveResult, MethodComparison
+
+    keys = ", ".join(u.key for u in scenario.uncertain)
+    text = (f"conditional on the point values of {keys} (given as distributions); "
+            "`simcheck predictive` gives the unconditional answer")
+
+    def one(r):
+        return dataclasses.replace(r, notes=tuple(r.notes) + (text,))
+
+    if isinstance(result, list):
+        return [one(r) for r in result]
+    if isinstance(result, CurveResult):
+        return dataclasses.replace(result, rows=tuple(one(r) for r in result.rows))
+    if isinstance(result, MethodComparison):
+        return dataclasses.replace(result, by_method=tuple(one(r) for r in result.by_method))
+    return one(result)
 
 
 def with_dropout(result: Any, dropout: float) -> Any:
