@@ -206,3 +206,21 @@ def test_shipped_pilot_example_fit_to_report(tmp_path, capsys):
     assert d["n_enrolled_unconditional"] == math.ceil(d["n_unconditional"] / 0.9 - 1e-9)
     md = (out / "predictive.md").read_text()
     assert "conditional" in md and "unconditional" in md and "Browne" in md and "invented" in md
+
+
+def test_other_commands_run_at_the_point_values_and_say_so(tmp_path):
+    from simcheck.scenario import scenario_from_dict
+    from simcheck.tasks import run_task
+
+    unc = scenario_from_dict(_table({"pilot_n": M, "pilot_sd": S_PILOT}))
+    plain = scenario_from_dict(_table(S_PILOT))
+    assert [u.key for u in unc.uncertain] == ["data.sd"] and unc.design.model.sd == S_PILOT
+    # the distribution stays in the resolved scenario, so a sweep cell with it differs from the plain one
+    assert unc.to_dict()["data"]["sd"] == {"pilot_n": M, "pilot_sd": S_PILOT}
+    assert scenario_from_dict(unc.to_dict()).uncertain == unc.uncertain
+    a = run_task(unc, "check", n=150)
+    b = run_task(plain, "check", n=150)
+    assert a.assurance == b.assurance == pytest.approx(_assurance_given_sigma(150, S_PILOT), abs=1e-9)
+    assert any("conditional on the point values of data.sd" in x for x in a.notes)
+    s = run_task(unc, "search")
+    assert s.n == run_task(plain, "search").n and any("simcheck predictive" in x for x in s.notes)
