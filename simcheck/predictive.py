@@ -29,8 +29,8 @@ DEFAULT_PILOT_CONFIDENCE = 0.8
 CRITERION = "predictive-crossing"
 CRITERION_TEXT = ("n_unconditional is the smallest n at which the estimated unconditional coverage and assurance "
                   "meet the targets, located by doubling and bisection with the same parameter draws and streams "
-                  "at every n; the decision is clear when the assurance at n is above the target and at n - 1 "
-                  "below it, each by more than 2 MCSE")
+                  "at every n; the decision is clear when at n both measures exceed their targets by more than "
+                  "2 MCSE and at n - 1 one of them falls short by more than 2 MCSE")
 
 
 @dataclass(frozen=True)
@@ -71,12 +71,11 @@ class PredictiveResult:
     def decision(self) -> str:
         """"clear" when the Monte Carlo error cannot move n_unconditional, else "undecided"."""
         un, below = self.unconditional, self.unconditional_below
-        if un is None or un.assurance is None:
-            return "clear" if un is not None or self.n_unconditional is None else "undecided"
-        target = self.targets["assurance"]
-        above_ok = (un.assurance - target) > 2 * un.assurance_mcse
-        below_ok = below is None or (target - below.assurance) > 2 * below.assurance_mcse
-        return "clear" if above_ok and below_ok else "undecided"
+        if un is None:
+            return "clear" if self.n_unconditional is None else "undecided"
+        clear_above = all(z > 2 for z in _scores(un, self.targets))
+        clear_below = below is None or any(z < -2 for z in _scores(below, self.targets))
+        return "clear" if clear_above and clear_below else "undecided"
 
     def to_dict(self) -> dict[str, Any]:
         from simcheck.results import clean_json
@@ -111,6 +110,18 @@ class PredictiveResult:
 
         rows = [{"n": k, **v.to_dict()} for k, v in sorted(self.checked.items())]
         return pd.DataFrame(rows)
+
+
+def _scores(r: PredictiveCheck, targets: dict[str, Any]) -> list[float]:
+    """(measure - target) / MCSE for coverage and assurance (+-inf when the MCSE is 0)."""
+    out = []
+    for value, se, target in ((r.coverage, r.coverage_mcse, targets["coverage"]),
+                              (r.assurance, r.assurance_mcse, targets["assurance"])):
+        if value is None:
+            continue
+        diff = value - target
+        out.append(diff / se if se and se > 1e-12 else (math.inf if diff >= 0 else -math.inf))
+    return out
 
 
 def _get(obj, name):
@@ -305,6 +316,10 @@ def _notes(specs, fresh_seed: int | None) -> list[str]:
     ]
     if fresh_seed is not None:
         notes.append(f"no seed given: ran with seed {fresh_seed}")
+    if any(u.kind == "bootstrap" for u in specs):
+        notes.append("a model with pilot_n is drawn by parametric bootstrap: refitted to pilot_n values simulated "
+                     "from the fitted model, the sampling law of the fit standing in for the uncertainty of its "
+                     "parameters")
     if any(u.kind == "pilot" for u in specs):
         notes.append("a pilot SD is taken as sigma^2 = s^2 (m - 1) / chi2(m - 1): the pilot's sampling law of s^2 "
                      "turned round (reference prior 1 / sigma^2), assuming normal pilot data")

@@ -11,6 +11,12 @@ of a number:
 ``cv = { lower = 0.4, upper = 0.9 }`` (optionally ``point = 0.6``)
     a stated range: uniform on [lower, upper]; point value ``point`` or the
     midpoint.
+``pilot_n = 20`` inside a model table (e.g. the table that ``simcheck fit``
+    printed)
+    every parameter of the model was fitted to a pilot of ``pilot_n`` values:
+    each draw refits the model (the same fitting as ``simcheck fit``) to
+    ``pilot_n`` values simulated from it, a parametric bootstrap of the
+    fitted model; point values: the table as given.
 
 :func:`split` replaces each such table by its point value (so the scenario
 validates as usual: the *conditional* answer is the one at the point values)
@@ -49,8 +55,8 @@ class Uncertain:
     """One planning value given as a distribution, at its dotted scenario key."""
 
     key: str
-    kind: str  # "pilot" | "range"
-    point: float
+    kind: str  # "pilot" | "range" | "bootstrap"
+    point: Any  # a number; for "bootstrap" the model table
     pilot_n: int | None = None
     pilot_sd: float | None = None
     lower: float | None = None
@@ -64,6 +70,9 @@ class Uncertain:
         return self.lower + u * (self.upper - self.lower)
 
     def describe(self) -> str:
+        if self.kind == "bootstrap":
+            return (f"{self.key}: every parameter of the {self.point['model']} model refitted to {self.pilot_n} "
+                    "values simulated from it (parametric bootstrap of a pilot fit)")
         if self.kind == "pilot":
             return (f"{self.key}: sigma^2 = {self.pilot_sd:g}^2 ({self.pilot_n} - 1) / chi2({self.pilot_n - 1}) "
                     f"(pilot of {self.pilot_n}, SD {self.pilot_sd:g})")
@@ -73,6 +82,8 @@ class Uncertain:
         d = {"key": self.key, "kind": self.kind, "point": self.point}
         if self.kind == "pilot":
             d.update(pilot_n=self.pilot_n, pilot_sd=self.pilot_sd)
+        elif self.kind == "bootstrap":
+            d.update(pilot_n=self.pilot_n)
         else:
             d.update(lower=self.lower, upper=self.upper)
         return d
@@ -112,7 +123,25 @@ def _parse(c: Collector, key: str, leaf: str, spec: dict[str, Any]) -> Uncertain
     return Uncertain(key, "range", float(point), lower=float(lo), upper=float(hi))
 
 
+def _bootstrap(c: Collector, table: dict[str, Any], prefix: str, out: list[Uncertain]) -> dict[str, Any]:
+    from simcheck.fit.candidates import REFIT
+
+    point = {k: v for k, v in table.items() if k != "pilot_n"}
+    m = c.number(f"{prefix}.pilot_n", table["pilot_n"], low=3, high=10**6, integer=True)
+    if point.get("model") not in REFIT:
+        c.add(f"{prefix}.pilot_n", f"a parametric bootstrap refits {', '.join(sorted(REFIT))} models only, "
+                                   f"got model {point.get('model')!r}")
+    elif any(_is_spec(v) for v in point.values()):
+        c.add(f"{prefix}.pilot_n", "give either pilot_n for the whole model or distributions for single "
+                                   "parameters, not both")
+    elif m is not None:
+        out.append(Uncertain(prefix, "bootstrap", point, pilot_n=int(m)))
+    return point
+
+
 def _walk(c: Collector, table: dict[str, Any], prefix: str, out: list[Uncertain]) -> dict[str, Any]:
+    if "model" in table and "pilot_n" in table:
+        return _bootstrap(c, table, prefix, out)
     result = {}
     for k, v in table.items():
         key = f"{prefix}.{k}"
@@ -151,43 +180,57 @@ def split(table: dict[str, Any], source: str | None = None) -> tuple[dict[str, A
 GROUPS = 10
 
 
-def draw_values(specs: Sequence[Uncertain], draws: int, root: np.random.SeedSequence) -> np.ndarray:
-    """(draws, len(specs)) parameter values from the stream ``(STAGE_PLANNING, 0)``.
+def draw_values(specs: Sequence[Uncertain], draws: int, root: np.random.SeedSequence) -> list[dict[str, Any]]:
+    """``draws`` sets of parameter values, each a dict dotted key -> value, from ``(STAGE_PLANNING, 0)``.
 
     Replicated Latin hypercube draws: the draws fall in :data:`GROUPS`
     independent groups (draw k is in group ``k % GROUPS``); within a group
-    of size g, the j-th draw of each parameter sits at a uniform level in
-    ((p_j + U) / g) for a random permutation p, then goes through the
-    parameter's quantile function. Every draw is marginally from the
-    parameter's law, so averages are unbiased; the groups are independent,
-    so the spread of the group means gives an honest Monte Carlo SE
-    (:func:`predictive_check`), much smaller than with independent draws.
+    of size g, the j-th draw of each single parameter sits at a uniform level
+    in ((p_j + U) / g) for a random permutation p, then goes through the
+    parameter's quantile function. A whole model (``pilot_n`` in its table)
+    is drawn by parametric bootstrap, independently per draw. Every draw is
+    marginally from the parameters' law, so averages are unbiased; the
+    groups are independent, so the spread of the group means gives an honest
+    Monte Carlo SE (:func:`predictive_check`).
 
     References
     ----------
     McKay, M. D., Beckman, R. J. and Conover, W. J. (1979). A comparison of
     three methods for selecting values of input variables in the analysis of
     output from a computer code. Technometrics 21, 239-245.
-    Iman, R. L. (1981). Statistical methods for including uncertainties
-    associated with the geologic isolation of radioactive waste which allow
-    for a comparison with licensing criteria. In Proceedings of the
-    Symposium on Uncertainties Associated with the Regulation of the
-    Geologic Disposal of High-Level Radioactive Waste (replicated Latin
-    hypercube sampling).
+    Efron, B. and Tibshirani, R. J. (1993). An Introduction to the Bootstrap,
+    Chapman & Hall, ch. 6 (the parametric bootstrap).
     """
     gen = rngmod.generator(root, rngmod.STAGE_PLANNING, 0)
     group = np.arange(draws) % GROUPS
-    out = np.empty((draws, len(specs)))
-    for i, s in enumerate(specs):
+    out: list[dict[str, Any]] = [{} for _ in range(draws)]
+    for s in specs:
+        if s.kind == "bootstrap":
+            for row, table in zip(out, bootstrap_tables(s, draws, gen)):
+                row[s.key] = table
+            continue
         u = np.empty(draws)
         for g in range(GROUPS):
             idx = np.flatnonzero(group == g)
             u[idx] = (gen.permutation(idx.size) + gen.random(idx.size)) / idx.size
-        out[:, i] = s.from_uniform(np.clip(u, 1e-12, 1 - 1e-12))
+        for row, v in zip(out, s.from_uniform(np.clip(u, 1e-12, 1 - 1e-12))):
+            row[s.key] = float(v)
     return out
 
 
-def point_designs(point_table: dict[str, Any], specs: Sequence[Uncertain], values: np.ndarray,
+def bootstrap_tables(spec: Uncertain, draws: int, gen: np.random.Generator) -> list[dict[str, Any]]:
+    """Model tables refitted to ``pilot_n`` values simulated from the point model, one per draw."""
+    from simcheck.fit.candidates import REFIT
+    from simcheck.models import make_model
+
+    model = make_model(spec.point)
+    sims = model.draw(gen, (draws, spec.pilot_n))
+    refit = REFIT[spec.point["model"]]
+    keep = {k: spec.point[k] for k in ("lower", "upper") if k in spec.point}
+    return [{"model": spec.point["model"], **refit(x, **keep)} for x in sims]
+
+
+def point_designs(point_table: dict[str, Any], specs: Sequence[Uncertain], values: Sequence[dict[str, Any]],
                   *, source: str | None = None, base_dir: str | None = None) -> list[Any]:
     """One validated Design per row of ``values`` (the parameters set at their keys)."""
     from simcheck.scenario import scenario_from_dict, set_dotted
@@ -195,8 +238,8 @@ def point_designs(point_table: dict[str, Any], specs: Sequence[Uncertain], value
     designs = []
     for row in values:
         t = point_table
-        for s, v in zip(specs, row):
-            t = set_dotted(t, s.key, float(v))
+        for key, v in row.items():
+            t = set_dotted(t, key, v)
         designs.append(scenario_from_dict(t, source=source, base_dir=base_dir).design)
     return designs
 

@@ -224,3 +224,68 @@ def test_other_commands_run_at_the_point_values_and_say_so(tmp_path):
     assert any("conditional on the point values of data.sd" in x for x in a.notes)
     s = run_task(unc, "search")
     assert s.n == run_task(plain, "search").n and any("simcheck predictive" in x for x in s.notes)
+
+
+# --- a whole model from a pilot: parametric bootstrap (pilot_n in the model table) ----------------------
+
+
+def test_bootstrap_normal_draws_follow_the_law_of_the_refit():
+    t = _table(S_PILOT)
+    t["data"]["pilot_n"] = M
+    point, specs = split(t)
+    assert point["data"] == {"model": "normal", "mean": 5.0, "sd": S_PILOT} and specs[0].kind == "bootstrap"
+    root, _ = rngmod.root_sequence(8)
+    rows = draw_values(specs, 4000, root)
+    sd = np.array([r["data"]["sd"] for r in rows])
+    mean = np.array([r["data"]["mean"] for r in rows])
+    # the ML SD of M normal values: sd_hat^2 = sigma^2 X / M, X ~ chi2(M - 1) (common practice)
+    ref = S_PILOT**2 * (M - 1) / M
+    assert abs(np.mean(sd**2) - ref) <= 4 * np.std(sd**2) / math.sqrt(sd.size)
+    assert abs(np.mean(mean) - 5.0) <= 4 * S_PILOT / math.sqrt(M * mean.size)
+    assert np.var(mean) == pytest.approx(S_PILOT**2 / M, rel=0.1)
+
+
+def test_bootstrap_unconditional_assurance_matches_its_integral():
+    t = _table(S_PILOT)
+    t["data"]["pilot_n"] = M
+    _, _, root, designs = _setup(t, draws=1000)
+    n = 170
+    r = predictive_check(designs, n, replicates_per_draw=1, root=root)
+
+    def f(x):  # sigma_hat^2 = S^2 x / M with x ~ chi2(M - 1)
+        return _assurance_given_sigma(n, S_PILOT * math.sqrt(x / M)) * stats.chi2.pdf(x, M - 1)
+
+    ref = integrate.quad(f, 0, np.inf, limit=200)[0]
+    assert 0 < r.assurance_mcse < 0.03
+    assert abs(r.assurance - ref) <= 4 * r.assurance_mcse, (r.assurance, ref, r.assurance_mcse)
+
+
+@pytest.mark.parametrize("data, message", [
+    ({"model": "exponential", "mean": 3.0, "pilot_n": 20}, "refits"),
+    ({"model": "normal", "mean": 3.0, "sd": {"lower": 1.0, "upper": 2.0}, "pilot_n": 20}, "not both"),
+    ({"model": "normal", "mean": 3.0, "sd": 1.0, "pilot_n": 2}, "pilot_n"),
+])
+def test_bootstrap_errors(data, message):
+    t = _table(1.0)
+    t["data"] = data
+    with pytest.raises(InputError, match=message):
+        split(t)
+
+
+def test_bootstrap_refits_every_supported_model():
+    from simcheck.fit.candidates import REFIT
+    from simcheck.models import make_model
+
+    tables = {
+        "normal": {"mean": 5.0, "sd": 2.0}, "lognormal": {"mean": 5.0, "cv": 0.5}, "gamma": {"mean": 5.0, "cv": 0.5},
+        "weibull": {"shape": 1.5, "scale": 4.0}, "beta": {"mean": 0.3, "sd": 0.1},
+        "poisson": {"mean": 0.2}, "negative-binomial": {"mean": 3.0, "dispersion": 2.0},
+    }
+    assert set(tables) == set(REFIT)
+    root, _ = rngmod.root_sequence(2)
+    for name, params in tables.items():
+        t = _table(1.0)
+        t["data"] = {"model": name, **params, "pilot_n": 5}
+        point, specs = split(t)
+        for row in draw_values(specs, 50, root):
+            make_model(row["data"])  # every refitted table is a valid model

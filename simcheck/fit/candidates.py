@@ -175,3 +175,33 @@ def zero_inflated_poisson(x: np.ndarray) -> Candidate | None:
         "zero_prob = 1 - mean / lam",
         discrete=True, zero_prob=pi,
     )
+
+
+def _refit_beta(x: np.ndarray, lower: float = 0.0, upper: float = 1.0) -> dict[str, Any]:
+    got = beta(np.clip(x, lower + 1e-12 * (upper - lower), upper - 1e-12 * (upper - lower)), lower, upper, "given")
+    return got.table
+
+
+def _refit_poisson(x: np.ndarray) -> dict[str, Any]:
+    # a simulated pilot of all zeros has ML mean 0, which no Poisson model takes: floor it
+    return {"mean": max(poisson(x).table["mean"], 1e-9)}
+
+
+def _refit_negative_binomial(x: np.ndarray) -> dict[str, Any]:
+    got = negative_binomial(x)
+    if got is None:  # no overdispersion in this simulated pilot: the moments say Poisson
+        return {"mean": max(float(x.mean()), 1e-9), "dispersion": 1e6}
+    return got.table
+
+
+#: model name -> function(values, **bounds) -> the simcheck table of the refitted parameters
+#: (used by the parametric bootstrap of :mod:`simcheck.uncertain`)
+REFIT = {
+    "normal": lambda x: normal(x).table,
+    "lognormal": lambda x: lognormal(x).table,
+    "gamma": lambda x: gamma(x).table,
+    "weibull": lambda x: weibull(x).table,
+    "beta": _refit_beta,
+    "poisson": _refit_poisson,
+    "negative-binomial": _refit_negative_binomial,
+}
