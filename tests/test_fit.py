@@ -230,3 +230,13 @@ def test_empirical_from_values_states_its_divisor():
     assert from_series.params() == {"values": values}
     with pytest.raises(InputError, match="not both"):
         make_model({"model": "empirical", "values": values, "file": "x.csv", "column": "y"})
+
+
+def test_zero_one_values_fit_a_bernoulli():
+    x = np.array([0, 1, 1, 0, 1, 1, 1, 0, 1, 1], dtype=float)
+    res = fit(x)
+    b = _by_name(res, "bernoulli")
+    assert b.table == {"model": "bernoulli", "p": 0.7}
+    assert b.loglik == pytest.approx(stats.bernoulli(0.7).logpmf(x).sum(), rel=1e-12)
+    assert res.best == "bernoulli"  # one parameter, the same likelihood as any law on {0, 1} can reach
+    make_model(b.table)

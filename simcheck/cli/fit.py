@@ -70,8 +70,10 @@ def render(res, file: str, column: str) -> str:
     lines.append(table(["rank", "model", "k", "AIC", "dAIC", "goodness of fit", "p (descriptive)"], rows))
     lines += ["", f"Best by AIC: {res.best} ({res.best_fit.method}). Paste into a scenario:", ""]
     lines.append(res.data_table())
+    lines += ["", "To carry the uncertainty of the fitted parameters into the plan (`simcheck predictive`), "
+                  f"add to the table:", "", f"pilot_n = {res.n}   # each draw refits the model to {res.n} simulated values"]
     if res.best == "normal":
-        lines += ["", "To carry the uncertainty of the SD into the plan (`simcheck predictive`), give instead:", "",
+        lines += ["", "or, for the SD alone (its scaled chi-square law), give instead:", "",
                   f"sd = {{ pilot_n = {res.n}, pilot_sd = {res.sd:.6g} }}   # the sample SD, divisor n - 1"]
     lines += ["", "Or resample the pilot itself:", "",
               f'[data]\nmodel = "empirical"\nfile = "{file}"\ncolumn = "{column}"', ""]

@@ -11,8 +11,8 @@ Which candidates apply:
   positive; beta on a bounded range (given, or inferred as [0, 1] when every
   value lies strictly inside it); with zeros among non-negative values, the
   zero-inflated lognormal, gamma and Weibull (zero_prob = the share of zeros).
-- whole numbers >= 0: Poisson, negative binomial, zero-inflated Poisson (when
-  zeros are present).
+- whole numbers >= 0: Bernoulli (only 0 and 1), Poisson, negative binomial,
+  zero-inflated Poisson (when zeros are present).
 
 AIC compares likelihoods on one footing only: a density, a mass function, or
 a density with an atom at 0. Models whose footing differs from the data's
@@ -202,7 +202,7 @@ def _candidates(x: np.ndarray, whole: bool, bounds) -> list[tuple[cands.Candidat
     out: list[tuple[cands.Candidate | None, str]] = []
     zeros = bool(np.any(x == 0.0))
     if whole and np.all(x >= 0):
-        out += [(cands.poisson(x), "mass"), (cands.negative_binomial(x), "mass")]
+        out += [(cands.bernoulli(x), "mass"), (cands.poisson(x), "mass"), (cands.negative_binomial(x), "mass")]
         if zeros:
             out.append((cands.zero_inflated_poisson(x), "mass"))
         out.append((cands.normal(x), "density"))

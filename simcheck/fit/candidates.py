@@ -146,6 +146,13 @@ def poisson(x: np.ndarray) -> Candidate:
     return Candidate("poisson", {"mean": _r(m)}, stats.poisson(m), 1, CLOSED + ": the sample mean", discrete=True)
 
 
+def bernoulli(x: np.ndarray) -> Candidate | None:
+    if not np.all((x == 0.0) | (x == 1.0)):
+        return None
+    p = float(x.mean())
+    return Candidate("bernoulli", {"p": _r(p)}, stats.bernoulli(p), 1, CLOSED + ": the share of ones", discrete=True)
+
+
 def negative_binomial(x: np.ndarray) -> Candidate | None:
     m, v = float(x.mean()), float(x.var(ddof=1))
     if not v > m or m <= 0:
