@@ -193,7 +193,15 @@ def run_task(
     # compare() forwards its keywords to find_n()
     if scenario.path != "auto" and "path" in inspect.signature(search.find_n).parameters:
         kwargs["path"] = scenario.path
-    return with_dropout(fn(*args, **kwargs), scenario.dropout)
+    result = with_dropout(fn(*args, **kwargs), scenario.dropout)
+    if scenario.random_dropout:
+        text = ("simulation.random_dropout applies to check only: this search uses the analysed n as fixed "
+                "and reports n_enrolled = ceil(n / (1 - dropout))")
+        if hasattr(result, "by_method"):
+            return dataclasses.replace(result, by_method=tuple(
+                dataclasses.replace(r, notes=tuple(r.notes) + (text,)) for r in result.by_method))
+        return dataclasses.replace(result, notes=tuple(result.notes) + (text,))
+    return result
 
 
 def conditional_note(result: Any, scenario: Scenario) -> Any:

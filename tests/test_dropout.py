@@ -133,3 +133,10 @@ def test_random_dropout_simulated_against_direct_simulation():
 def test_random_dropout_needs_a_dropout():
     with pytest.raises(Exception, match="target.dropout"):
         _rd_scenario({"model": "normal", "mean": 0.0, "sd": 1.0}, dropout=0.0)
+
+
+def test_random_dropout_search_says_it_uses_a_fixed_n():
+    scen = _rd_scenario({"model": "normal", "mean": 0.0, "sd": 12.0})
+    res = run_task(scen, "search")
+    assert res.n_enrolled == _exact(res.n, "0.2")
+    assert any("applies to check only" in x for x in res.notes)

@@ -293,6 +293,8 @@ def fit(
     Burnham, K. P. and Anderson, D. R. (2002). Model Selection and Multimodel
     Inference, 2nd ed., Springer, sec. 2.6 (differences of AIC).
     """
+    if source == "values" and getattr(values, "name", None) is not None:
+        source = f"column {values.name!r}"
     x, dropped = _as_values(values, source)
     c = Collector()
     bounds = _bounds(c, x, lower, upper)
