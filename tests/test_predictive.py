@@ -80,6 +80,7 @@ def test_stated_range_matches_its_integral():
     assert abs(r.assurance - ref) <= 4 * r.assurance_mcse
 
 
+@pytest.mark.slow
 def test_run_predictive_side_by_side_and_browne():
     res = run_predictive(_table({"pilot_n": M, "pilot_sd": S_PILOT}))
     # conditional: the exact search at sd = 12 (assurance 0.8 at the point value)
@@ -90,7 +91,11 @@ def test_run_predictive_side_by_side_and_browne():
     assert abs(cu.assurance - _unconditional_pilot(res.n_conditional)) <= 4 * cu.assurance_mcse
     assert cu.assurance < 0.7
     # the unconditional n: the crossing of the integral's curve, within the Monte Carlo error
-    n_ref = next(n for n in range(res.n_conditional, 400) if _unconditional_pilot(n) >= 0.8)
+    lo, hi = res.n_conditional, 400  # the integral is increasing in n: bisect for its crossing
+    while hi - lo > 1:
+        mid = (lo + hi) // 2
+        lo, hi = (lo, mid) if _unconditional_pilot(mid) >= 0.8 else (mid, hi)
+    n_ref = hi
     assert abs(res.n_unconditional - n_ref) <= 2
     # Browne (1995): formula n (t iteration) with the 80% upper confidence limit of sigma, computed here
     s_up = S_PILOT * math.sqrt((M - 1) / stats.chi2.ppf(0.2, M - 1))
@@ -235,7 +240,7 @@ def test_bootstrap_normal_draws_follow_the_law_of_the_refit():
     point, specs = split(t)
     assert point["data"] == {"model": "normal", "mean": 5.0, "sd": S_PILOT} and specs[0].kind == "bootstrap"
     root, _ = rngmod.root_sequence(8)
-    rows = draw_values(specs, 4000, root)
+    rows = draw_values(specs, 2000, root)
     sd = np.array([r["data"]["sd"] for r in rows])
     mean = np.array([r["data"]["mean"] for r in rows])
     # the ML SD of M normal values: sd_hat^2 = sigma^2 X / M, X ~ chi2(M - 1) (common practice)
