@@ -240,3 +240,8 @@ def test_zero_one_values_fit_a_bernoulli():
     assert b.loglik == pytest.approx(stats.bernoulli(0.7).logpmf(x).sum(), rel=1e-12)
     assert res.best == "bernoulli"  # one parameter, the same likelihood as any law on {0, 1} can reach
     make_model(b.table)
+
+
+def test_two_dimensional_values_refused():
+    with pytest.raises(InputError, match="1-d"):
+        fit(np.ones((3, 2)))

@@ -156,9 +156,11 @@ def _as_values(values: Any, field: str) -> tuple[np.ndarray, int]:
     import pandas as pd
 
     if isinstance(values, (pd.Series, pd.Index)):
-        series = pd.Series(values)
+        series = pd.Series(values).reset_index(drop=True)
     else:
-        arr = np.asarray(values, dtype=object).ravel() if not isinstance(values, np.ndarray) else values.ravel()
+        arr = values if isinstance(values, np.ndarray) else np.asarray(values, dtype=object)
+        if arr.ndim != 1:
+            raise InputError(field, f"must be one column of values (a 1-d array), got shape {arr.shape}")
         series = pd.Series(arr)
     missing = series.isna()
     num = pd.to_numeric(series[~missing], errors="coerce")
