@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 
+from simcheck import CAUTION
 from simcheck.cli.common import add_json, emit_json, note, table
 
 
@@ -94,4 +95,5 @@ def render(res, n_extra: int | None = None) -> str:
     if res.browne is not None:
         lines.append(f"note: Browne: {res.browne['text']}; formula n at the point values {res.browne['n_point']}")
     lines.append("note: the Kieser & Wassmer (1996) correction is not computed by simcheck")
+    lines += ["", CAUTION]
     return "\n".join(lines)
