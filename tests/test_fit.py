@@ -245,3 +245,36 @@ def test_zero_one_values_fit_a_bernoulli():
 def test_two_dimensional_values_refused():
     with pytest.raises(InputError, match="1-d"):
         fit(np.ones((3, 2)))
+
+
+def test_chi_square_pools_small_cells_from_the_top():
+    # 40 counts: 0 x 12, 1 x 14, 2 x 9, 3 x 4, 5 x 1; Poisson(mean 1.25) expected counts computed here:
+    # cells 0, 1, 2, then 3+ (expected 40 * P(X >= 3) = 5.85 >= 5 once pooled), so df = 4 - 1 - 1 = 2
+    x = np.repeat([0.0, 1.0, 2.0, 3.0, 5.0], [12, 14, 9, 4, 1])
+    m = x.mean()
+    e = 40 * np.array([stats.poisson.pmf(0, m), stats.poisson.pmf(1, m), stats.poisson.pmf(2, m),
+                       stats.poisson.sf(2, m)])
+    assert e[-1] >= 5 and 40 * stats.poisson.sf(3, m) < 5  # the pooling the test expects
+    ref = stats.chisquare([12, 14, 9, 5], e, ddof=1)
+    p = _by_name(fit(x), "poisson")
+    assert p.gof == "chi-square (df 2)"
+    assert p.gof_statistic == pytest.approx(ref.statistic, rel=1e-9)
+    assert p.gof_pvalue == pytest.approx(ref.pvalue, rel=1e-9)
+
+
+def test_zero_inflated_poisson_likelihood():
+    x = np.repeat([0.0, 1.0, 2.0, 3.0, 4.0, 6.0], [30, 10, 12, 8, 5, 2])
+    z = _by_name(fit(x), "zero-inflated poisson")
+    pi, lam = z.candidate.zero_prob, z.candidate.dist.mean()
+    pmf = (1 - pi) * stats.poisson.pmf(x, lam) + pi * (x == 0)
+    assert z.loglik == pytest.approx(np.log(pmf).sum(), rel=1e-12)
+
+
+def test_empirical_values_in_a_scenario_file(tmp_path, capsys):
+    f = tmp_path / "s.toml"
+    f.write_text('title = "inline pilot (invented)"\n[target]\nestimand = "mean"\nmargin = 1.0\n'
+                 '[data]\nmodel = "empirical"\nvalues = [3.0, 5.5, 4.0, 7.5, 6.0, 2.5]\n'
+                 '[method]\ninterval = "t"\n[simulation]\nseed = 1\nreplicates = 2000\n')
+    assert main(["check", str(f), "--n", "10", "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert out["true_value"] == pytest.approx(np.mean([3.0, 5.5, 4.0, 7.5, 6.0, 2.5]))
