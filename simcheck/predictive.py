@@ -267,10 +267,10 @@ def run_predictive(
     cov_target = scenario.design.confidence - scenario.coverage_tolerance
     targets = {"confidence": scenario.design.confidence, "coverage_tolerance": scenario.coverage_tolerance,
                "coverage": cov_target, "assurance": scenario.assurance, "margin": scenario.design.margin}
-    cond = run_task(scenario, "search", seed=used_seed)
-    n_cond = cond.n if not hasattr(cond, "by_method") else cond.by_method[0].n
-    if hasattr(cond, "by_method"):
+    cond = run_task(scenario, "search", seed=used_seed, method=scenario.design.method)
+    if hasattr(cond, "by_method"):  # a comparison object, should the search return one for one method
         cond = cond.by_method[0]
+    n_cond = cond.n
     at_cond = evaluate(n_cond) if n_cond is not None else None
     start = n_cond or scenario.n_min
     n_unc = find_predictive_n(evaluate, lambda r: _passes(r, cov_target, scenario.assurance),
@@ -280,6 +280,9 @@ def run_predictive(
     if n is not None:
         evaluate(n)
     notes = _notes(specs, used_seed if fresh else None)
+    notes.append(f"interval method: {scenario.design.method}"
+                 + (f" (the first of {', '.join(scenario.methods)}; the others are not evaluated)"
+                    if len(scenario.methods) > 1 else ""))
     return PredictiveResult(
         title=scenario.title, uncertain=specs, targets=targets, n_conditional=n_cond, conditional=cond,
         unconditional_at_conditional_n=at_cond, n_unconditional=n_unc,
