@@ -278,3 +278,11 @@ def test_empirical_values_in_a_scenario_file(tmp_path, capsys):
     assert main(["check", str(f), "--n", "10", "--json"]) == 0
     out = json.loads(capsys.readouterr().out)
     assert out["true_value"] == pytest.approx(np.mean([3.0, 5.5, 4.0, 7.5, 6.0, 2.5]))
+
+
+def test_failed_fits_are_noted_not_raised():
+    res = fit([1e300, 1.0, 2.5])  # overflows the lognormal mean and the normal fit: both left out, said so
+    assert any("could not be fitted" in n for n in res.notes)
+    assert all(np.isfinite(m.aic) for m in res.models)
+    with pytest.raises(InputError, match="no candidate model"):
+        fit([1e300, -1e300, 2.5])

@@ -199,27 +199,60 @@ def _bounds(c: Collector, x: np.ndarray, lower: float | None, upper: float | Non
     return float(lo), float(hi), "given"
 
 
-def _candidates(x: np.ndarray, whole: bool, bounds) -> list[tuple[cands.Candidate, str]]:
+def _try(fn, *args) -> tuple[cands.Candidate | None, str | None]:
+    """A family's fit, or None and a note when scipy's optimiser fails on these values."""
+    import warnings
+
+    try:
+        with warnings.catch_warnings(), np.errstate(all="ignore"):
+            warnings.simplefilter("ignore", RuntimeWarning)
+            got = fn(*args)
+    except (ValueError, RuntimeError, FloatingPointError, ZeroDivisionError, OverflowError) as exc:
+        return None, f"{getattr(fn, '__name__', 'a model')} could not be fitted: {str(exc).splitlines()[0][:120]}"
+    if got is not None and not all(np.isfinite(v) for v in _numbers(got.table)):
+        return None, f"{got.model} could not be fitted: non-finite parameters"
+    return got, None
+
+
+def _numbers(table: dict[str, Any]):
+    for v in table.values():
+        if isinstance(v, dict):
+            yield from _numbers(v)
+        elif isinstance(v, (int, float)):
+            yield float(v)
+
+
+def _candidates(x: np.ndarray, whole: bool, bounds, notes: list[str]) -> list[tuple[cands.Candidate, str]]:
     """(candidate, footing) for every family that applies; footing is density / mass / atom."""
-    out: list[tuple[cands.Candidate | None, str]] = []
+    calls: list[tuple[tuple, str]] = []
     zeros = bool(np.any(x == 0.0))
     if whole and np.all(x >= 0):
-        out += [(cands.bernoulli(x), "mass"), (cands.poisson(x), "mass"), (cands.negative_binomial(x), "mass")]
+        calls += [((cands.bernoulli, x), "mass"), ((cands.poisson, x), "mass"),
+                  ((cands.negative_binomial, x), "mass")]
         if zeros:
-            out.append((cands.zero_inflated_poisson(x), "mass"))
-        out.append((cands.normal(x), "density"))
-        return [(c, f) for c, f in out if c is not None]
-    out.append((cands.normal(x), "density"))
-    out += [(cands.lognormal(x), "density"), (cands.gamma(x), "density"), (cands.weibull(x), "density")]
-    if bounds is not None:
-        out.append((cands.beta(x, *bounds), "density"))
-    if zeros and np.all(x >= 0) and np.sum(x > 0) >= 3:
-        pos = x[x > 0]
+            calls.append(((cands.zero_inflated_poisson, x), "mass"))
+        calls.append(((cands.normal, x), "density"))
+    else:
+        calls.append(((cands.normal, x), "density"))
+        calls += [((f, x), "density") for f in (cands.lognormal, cands.gamma, cands.weibull)]
+        if bounds is not None:
+            calls.append(((cands.beta, x, *bounds), "density"))
+    out = []
+    for args, footing in calls:
+        got, note = _try(*args)
+        if note:
+            notes.append(note)
+        if got is not None:
+            out.append((got, footing))
+    pos = x[x > 0]
+    if not whole and zeros and np.all(x >= 0) and pos.size >= 3 and float(pos.std()) > 0:
         for family in (cands.lognormal, cands.gamma, cands.weibull):
-            inner = family(pos)
+            inner, note = _try(family, pos)
+            if note:
+                notes.append("zero-inflated " + note)
             if inner is not None:
                 out.append((cands.zero_inflated(x, inner), "atom"))
-    return [(c, f) for c, f in out if c is not None]
+    return out
 
 
 def _footing(x: np.ndarray, whole: bool) -> str:
@@ -304,8 +337,12 @@ def fit(
     whole = bool(np.all(x == np.floor(x)))
     data_footing = _footing(x, whole)
     scored = []
-    for cand, footing in _candidates(x, whole, bounds):
+    fit_notes: list[str] = []
+    for cand, footing in _candidates(x, whole, bounds, fit_notes):
         scored.append((cand, _score(x, cand, footing, data_footing)))
+    if not scored:
+        raise InputError(source, "no candidate model could be fitted to these values"
+                         + (f" ({fit_notes[0]})" if fit_notes else ""))
     scored.sort(key=lambda cs: (not cs[1]["comparable"], cs[1]["aic"]))
     best_aic = scored[0][1]["aic"]
     models = tuple(
@@ -314,6 +351,7 @@ def fit(
         for cand, s in scored
     )
     notes = [DESCRIPTIVE, "AIC differences below about 2 do not separate two models (Burnham & Anderson 2002)"]
+    notes += fit_notes
     if dropped:
         notes.append(f"{dropped} missing value{'s' if dropped != 1 else ''} dropped")
     if bounds is None and not whole:
