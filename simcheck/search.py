@@ -85,11 +85,12 @@ from simcheck.design import Design
 from simcheck.errors import Collector, InputError
 from simcheck.intervals import get_method
 from simcheck.results import CheckResult, CurveResult, MethodComparison, SearchResult
+from simcheck.window import DEFAULT_WINDOW, WINDOW_MAX, ScanOutcome, WindowScan, window_top
 
-__all__ = ["formula_n", "find_n", "compare", "EXACT_SCAN_MAX"]
+__all__ = ["formula_n", "formula_result", "find_n", "compare", "criterion_for", "DEFAULT_WINDOW"]
 
-#: at most this many n values are enumerated exactly in one binomial scan
-EXACT_SCAN_MAX = 10_000
+#: full rows (with the half-width distribution) kept for figures after an exact scan
+SHOWN_ROWS = 41
 #: spawn keys of the search stages below the root (STAGE_CONFIRM from rng)
 #: resamples of bootstrap methods while bracketing and locating
 EXPLORE_RESAMPLES = 499
@@ -198,6 +199,13 @@ class _Targets:
         if self.assurance is not None:
             return r.assurance is not None and r.assurance >= self.assurance - 1e-12
         return True
+
+    def passes_arrays(self, coverage: np.ndarray, assurance: np.ndarray | None) -> np.ndarray:
+        """:meth:`passes` on arrays of exact coverage and assurance (same allowance)."""
+        ok = np.asarray(coverage) >= self.coverage - 1e-12
+        if self.assurance is not None:
+            ok &= np.asarray(assurance) >= self.assurance - 1e-12
+        return ok
 
     def score(self, r: CheckResult) -> float:
         """Smallest margin of pass of the targets, in MCSE (+-inf on exact rows)."""
@@ -332,6 +340,7 @@ def find_n(
     progress: Progress = None,
     path: str = "auto",
     precision: float = 0.1,
+    window: float = DEFAULT_WINDOW,
 ) -> SearchResult:
     """The smallest n whose coverage and assurance meet the targets.
 
@@ -392,6 +401,7 @@ def find_n(
     if budget is not None:
         c.number("budget", budget, low=1, integer=True)
     c.number("precision", precision, low=0, high=1, low_open=True)
+    c.number("window", window, low=1, high=WINDOW_MAX)
     c.raise_if_any()
     exact, dense = _dense_paths(design, path)
     if budget is None:
@@ -417,6 +427,7 @@ def find_n(
         "coverage_target": targets.coverage,
         "margin": design.margin,
         "assurance": targets.assurance,
+        "window": float(window),
     }
     nf = formula_n(design)
     start = nf if nf is not None else DEFAULT_START
@@ -425,14 +436,29 @@ def find_n(
     if not exact and (design.clusters is not None or design.population is not None) and path in ("auto", "exact"):
         # the clustered engine decides exactness itself: ask it once, cheaply
         exact = run.curve([start], min(R, 100), STAGE_BRACKET, 0)[0].exact
-    ctx = dict(design=design, targets=targets, targets_d=targets_d, nf=nf, seed=seed, lo_n=lo_n, hi_n=hi_n, R=R)
+    ctx = dict(design=design, targets=targets, targets_d=targets_d, nf=nf, seed=seed, lo_n=lo_n, hi_n=hi_n, R=R,
+               window=float(window))
     if exact:
         return _exact_search(run, start, **ctx)
     return _simulated_search(run, start, budget, precision, **ctx)
 
 
+def criterion_for(exact: bool, window: float) -> tuple[str, str]:
+    """(criterion, criterion_text): the named rule that defines a search's n."""
+    if not exact:
+        return ("crossing", "the smallest n at which coverage and assurance meet the targets by more than "
+                f"{CLEAR_Z:g} Monte Carlo SE there and at every larger n checked; n_range holds the n the "
+                "Monte Carlo error cannot tell from the boundary")
+    if window <= 1.0:
+        return ("first", "the smallest n at which the targets hold (exact computation)")
+    return ("window", f"the smallest n at which the targets hold at every n from n to ceil({window:g} n) "
+                      "(exact computation; coverage of count data oscillates in n)")
+
+
 def _result(run: _Runner, *, design, targets_d, nf, seed, n, reached, n_range, at, stop, exact,
-            n_first=None, notes=(), curve_rows=None, best=None, others=()) -> SearchResult:
+            n_first=None, notes=(), curve_rows=None, best=None, others=(), window=None,
+            decision="clear", replicates_needed=None) -> SearchResult:
+    crit = criterion_for(exact, targets_d.get("window", DEFAULT_WINDOW) if window is None else window)
     curve = None
     if curve_rows:
         uniq = {r.n: r for r in curve_rows}
@@ -451,13 +477,17 @@ def _result(run: _Runner, *, design, targets_d, nf, seed, n, reached, n_range, a
         method=design.method,
         seed=seed,
         n_b=None if n is None else design.n_b(n),
-        n_first=n_first if (n_first is not None and n_first != n) else None,
+        n_first=n_first,
         stop_reason=stop,
         exact=exact,
         best_coverage=None if best is None else best.coverage,
         best_coverage_n=None if best is None else best.n,
         methods_that_reach=tuple(others),
         notes=tuple(notes),
+        decision=decision,
+        criterion=crit[0],
+        criterion_text=crit[1],
+        replicates_needed=replicates_needed,
         curve=curve,
         at_n=at,
     )
@@ -519,41 +549,78 @@ def _methods_that_reach(run: _Runner, ctx: dict) -> list[str]:
 # exact paths
 # --------------------------------------------------------------------------
 def _exact_search(run: _Runner, start: int, **ctx) -> SearchResult:
-    design, targets, lo_n, hi_n = ctx["design"], ctx["targets"], ctx["lo_n"], ctx["hi_n"]
-    # counts (binomial, beta-binomial, hypergeometric) make coverage oscillate in n
-    scan = design.estimand == "proportion"
-    notes: list[str] = []
-    if scan:
-        # binomial coverage oscillates in n: enumerate every n up to the ceiling
-        top = min(hi_n, lo_n + EXACT_SCAN_MAX - 1)
-        if top < hi_n:
-            notes.append(f"exact enumeration covered n = {lo_n}..{top}; 'for every larger n' is checked up to {top}")
-        rows = run.curve(range(lo_n, top + 1), 1, 0)
-        ok = np.array([targets.passes(r) for r in rows])
-        ns = np.array([r.n for r in rows])
-        n_first = int(ns[ok][0]) if ok.any() else None
-        n = None
-        if ok[-1]:
-            bad = np.flatnonzero(~ok)
-            n = int(ns[bad[-1] + 1]) if bad.size else int(ns[0])
-        if n is None:
-            return _not_reached(run, ctx, rows[-1], n_first)
-        at = rows[int(n - ns[0])]
-        if n_first is not None and n_first != n:
-            notes.append(
-                f"coverage oscillates in n (discrete data): the targets first hold at n = {n_first}, "
-                f"but hold for every n up to n_max = {top} only from n = {n}; n is the latter"
-            )
-        if n_first != n and top - n < max(10, 0.1 * (top - lo_n)):
-            notes.append(
-                f"n = {n} lies close to the search ceiling n_max = {top}: the 'every larger n' rule was "
-                "checked only that far; raise simulation.n_max to see whether the targets keep holding"
-            )
-        notes = _formula_note(ctx["nf"], n) + notes
-        return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=n,
-                       reached=True, n_range=(n, n), at=at, stop="exact", exact=True, n_first=n_first,
-                       notes=notes, curve_rows=rows)
+    # counts (binomial, beta-binomial, hypergeometric) make coverage oscillate in n;
+    # the exact laws of normal data give coverage and assurance monotone in n
+    if ctx["design"].estimand in ("proportion", "proportion-diff"):
+        return _exact_scan(run, **ctx)
+    return _exact_monotone(run, start, **ctx)
 
+
+def _count_passes(run: _Runner, design: Design, targets: _Targets) -> Callable[[Sequence[int]], np.ndarray]:
+    """passes(ns) for the exact count paths: coverage and assurance only where the engine offers it."""
+    from simcheck.engine import exact as exactmod
+
+    kind = engine.exact_kind(design) if design.clusters is None and design.population is None else None
+    func = get_method(design.estimand, design.method).func
+    conf, margin = design.confidence, design.margin
+    if kind == "binomial":
+        p = design.model.bernoulli_p()
+        return lambda ns: targets.passes_arrays(*exactmod.binomial_targets(func, ns, p, conf, margin))
+    if kind == "binomial2":
+        pa, pb = design.model.bernoulli_p(), design.model_b.bernoulli_p()
+        return lambda ns: targets.passes_arrays(*exactmod.two_binomial_targets(
+            func, ns, [design.n_b(n) for n in ns], pa, pb, conf, margin))
+
+    def by_rows(ns: Sequence[int]) -> np.ndarray:
+        got = {r.n: targets.passes(r) for r in run.curve(ns, 1, 0)}
+        return np.array([got[int(n)] for n in ns])
+
+    return by_rows
+
+
+def _exact_scan(run: _Runner, **ctx) -> SearchResult:
+    design, targets, lo_n, hi_n, window = ctx["design"], ctx["targets"], ctx["lo_n"], ctx["hi_n"], ctx["window"]
+    out = WindowScan(_count_passes(run, design, targets), lo_n, hi_n, window).run()
+    if out.status == "none":
+        return _not_reached(run, ctx, run.curve([hi_n], 1, 0)[0], out.n_first)
+    if out.status == "window beyond n_max":
+        return _window_beyond(run, ctx, out)
+    n, top = out.n, window_top(out.n, window)
+    # full rows (half-width distribution) only where the answer is shown: n, n_first, the window
+    pick = {n, top} | ({out.n_first} if out.n_first is not None else set())
+    pick |= {int(k) for k in np.linspace(n, top, min(top - n + 1, SHOWN_ROWS))}
+    rows = run.curve(sorted(pick), 1, 0)
+    at = next(r for r in rows if r.n == n)
+    notes = _formula_note(ctx["nf"], n)
+    if out.n_first is not None and out.n_first != n:
+        notes.append(f"coverage oscillates in n (discrete data): the targets first hold at n = {out.n_first}, "
+                     f"and hold at every n from {n} to {top} (window {window:g}) from n = {n} on")
+    notes.append(f"exact enumeration of {out.evaluated} values of n (no Monte Carlo error); "
+                 "n does not depend on n_max once n_max >= ceil(window x n)")
+    return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=n,
+                   reached=True, n_range=(n, n), at=at, stop="exact", exact=True, n_first=out.n_first,
+                   notes=notes, curve_rows=rows, window=window)
+
+
+def _window_beyond(run: _Runner, ctx: dict, out: ScanOutcome) -> SearchResult:
+    """The targets hold from a candidate n up to n_max, but its window reaches past n_max."""
+    hi_n, window, cand = ctx["hi_n"], ctx["window"], out.candidate
+    top = window_top(cand, window)
+    rows = run.curve(sorted({cand, hi_n} | ({out.n_first} if out.n_first else set())), 1, 0)
+    notes = [
+        f"undecided within n_max: the targets hold at every n from {cand} to n_max = {hi_n}, but the window "
+        f"criterion ({window:g}) needs them up to n = {top}; raise simulation.n_max to at least {top} to settle it "
+        "(the answer is not moved to the ceiling)",
+    ]
+    if out.n_first is not None and out.n_first != cand:
+        notes.append(f"the targets first hold at n = {out.n_first} (coverage oscillates in n)")
+    return _result(run, design=ctx["design"], targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=None,
+                   reached=False, n_range=None, at=rows[-1], stop="window reaches n_max", exact=True,
+                   n_first=out.n_first, notes=notes, curve_rows=rows, window=window, decision="undecided")
+
+
+def _exact_monotone(run: _Runner, start: int, **ctx) -> SearchResult:
+    design, targets, lo_n, hi_n, window = ctx["design"], ctx["targets"], ctx["lo_n"], ctx["hi_n"], ctx["window"]
     cache: dict[int, CheckResult] = {}
 
     def ev(n: int) -> CheckResult:
@@ -572,16 +639,21 @@ def _exact_search(run: _Runner, start: int, **ctx) -> SearchResult:
         else:
             lo = mid
     n = hi
+    wtop = window_top(n, window)
+    if wtop <= hi_n and not targets.passes(ev(wtop)):
+        # not monotone after all: fall back to the exact scan
+        return _exact_scan(run, **ctx)
     # a short exact window for figures and to see an earlier pass, if any
     win = run.curve(range(max(lo_n, n - 20), min(hi_n, n + 5) + 1), 1, 0)
     n_first = next((r.n for r in win if targets.passes(r)), n)
+    notes = _formula_note(ctx["nf"], n)
     if n_first != n:
         notes.append(f"the targets first hold at n = {n_first}, and for every larger n checked from n = {n}")
-    notes = _formula_note(ctx["nf"], n) + notes
-    notes.append("exact: computed from the exact law of the sample mean and variance (no Monte Carlo error)")
+    notes.append("exact: computed from the exact law of the sample mean and variance of normal data "
+                 "(no Monte Carlo error); coverage and assurance rise monotonically in n, so the window holds")
     return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=n,
                    reached=True, n_range=(n, n), at=ev(n), stop="exact", exact=True, n_first=n_first,
-                   notes=notes, curve_rows=win)
+                   notes=notes, curve_rows=win, window=window)
 
 
 def _bracket(passes: Callable[[int], bool], start: int, lo_n: int, hi_n: int) -> tuple[int | None, int]:

@@ -116,13 +116,12 @@ def brute_force_pass(p, margin, assurance, n_values, conf=CONF, tol=0.005):
 
 
 def test_wilson_exact_path_equals_brute_force_scan():
-    p, margin, n_min, n_max = 0.1, 0.12, 5, 220
-    ok = brute_force_pass(p, margin, 0.5, range(n_min, n_max + 1))
+    p, margin, n_min, n_max = 0.07, 0.09, 5, 400
     ns = list(range(n_min, n_max + 1))
-    first = ns[ok.index(True)]
-    # smallest n from which the target holds for every larger n up to n_max
-    last_fail = max(i for i, o in enumerate(ok) if not o)
-    stable = ns[last_fail + 1]
+    ok = dict(zip(ns, brute_force_pass(p, margin, 0.5, ns)))
+    first = next(n for n in ns if ok[n])
+    # the window criterion: every n in [n, ceil(1.25 n)] meets the targets
+    stable = next(n for n in ns if math.ceil(1.25 * n) <= n_max and all(ok[k] for k in range(n, math.ceil(1.25 * n) + 1)))
     assert first != stable  # coverage oscillates here (Brown, Cai & DasGupta 2001, Fig. 1)
     res = find_n(bernoulli_design(p, margin, "wilson"), rng=1, n_min=n_min, n_max=n_max)
     assert res.exact and res.reached
