@@ -680,38 +680,27 @@ def _bracket(passes: Callable[[int], bool], start: int, lo_n: int, hi_n: int) ->
 # simulated paths
 # --------------------------------------------------------------------------
 def _simulated_search(run: _Runner, start: int, budget: int, precision: float, **ctx) -> SearchResult:
-    design, targets, lo_n, hi_n, R = ctx["design"], ctx["targets"], ctx["lo_n"], ctx["hi_n"], ctx["R"]
-    r_pilot = max(min(R, 200), R // 10)
-    r_locate = max(min(R, 500), R // 8)
-    notes: list[str] = []
+    """Bracket, locate, confirm, conclude: each step below is one function."""
+    found = _sim_bracket(run, start, **ctx)
+    if isinstance(found, SearchResult):
+        return found
+    lo, hi = found
+    window = _sim_locate(run, lo, hi, precision, **ctx)
+    pooled, win, stop = _sim_confirm(run, window, budget, precision, **ctx)
+    return _sim_conclude(run, pooled, win, stop, budget, precision, **ctx)
 
-    # -- bracket (pilot replicates, one stream per step)
+
+def _sim_bracket(run: _Runner, start: int, **ctx) -> tuple[int, int] | SearchResult:
+    """(an n that fails, a larger n that passes) on pilot replicates, one stream per step."""
+    targets, lo_n, hi_n, R = ctx["targets"], ctx["lo_n"], ctx["hi_n"], ctx["R"]
+    r_pilot = max(min(R, 200), R // 10)
     step = [0]
 
     def pilot(n: int) -> bool:
         step[0] += 1
         return targets.passes(run.curve([n], r_pilot, STAGE_BRACKET, step[0])[0])
 
-    top_checked: CheckResult | None = None
-    if not pilot(start):
-        lo = start
-        while True:
-            m = min(hi_n, lo * 2)
-            if pilot(m):
-                hi = m
-                break
-            if m == hi_n:
-                # the ceiling fails on the pilot: check it on full, fresh replicates
-                top_checked = run.curve([hi_n], R, rngmod.STAGE_CONFIRM, 0)[0]
-                if not targets.passes(top_checked):
-                    extra = []
-                    if targets.score(top_checked) > -CLEAR_Z:
-                        extra.append(f"at n_max the shortfall is within {CLEAR_Z:g} MCSE: more replicates may show it reached")
-                    return _not_reached(run, ctx, top_checked, None, extra)
-                hi = hi_n
-                break
-            lo = m
-    else:
+    if pilot(start):
         hi, lo = start, None
         while hi > lo_n:
             m = max(lo_n, hi // 2)
@@ -720,146 +709,172 @@ def _simulated_search(run: _Runner, start: int, budget: int, precision: float, *
             else:
                 lo = m
                 break
-    if lo is None:
-        lo = lo_n  # lo_n passes on the pilot; the window starts there
+        return (lo_n if lo is None else lo), hi  # lo_n passing on the pilot: the window starts there
+    lo = start
+    while True:
+        m = min(hi_n, lo * 2)
+        if pilot(m):
+            return lo, m
+        if m == hi_n:
+            # the ceiling fails on the pilot: check it on full, fresh replicates
+            top = run.curve([hi_n], R, rngmod.STAGE_CONFIRM, 0)[0]
+            if targets.passes(top):
+                return lo, hi_n
+            extra = []
+            if targets.score(top) > -CLEAR_Z:
+                extra.append(f"at n_max the shortfall is within {CLEAR_Z:g} MCSE: more replicates may show it reached")
+            return _not_reached(run, ctx, top, None, extra)
+        lo = m
 
-    # -- locate (an eighth of the replicates)
+
+def _sim_locate(run: _Runner, lo: int, hi: int, precision: float, **ctx) -> list[int]:
+    """The confirmation window around the crossing, located on an eighth of the replicates."""
+    targets, lo_n, hi_n, R = ctx["targets"], ctx["lo_n"], ctx["hi_n"], ctx["R"]
+    r_locate = max(min(R, 500), R // 8)
     if run.dense:
         top = min(hi_n, max(hi + 1, int(math.ceil(hi * 1.1))))
-        span = top - lo + 1
-        stride = max(1, int(math.ceil(span / LOCATE_MAX)))
+        stride = max(1, int(math.ceil((top - lo + 1) / LOCATE_MAX)))
         grid = list(range(lo, top + 1, stride))
         if grid[-1] != top:
             grid.append(top)
         rows = run.curve(grid, r_locate, STAGE_LOCATE, 0)
         cand = _crossing(rows, targets)
-        if cand is None:
-            cand = top
-        # the window covers every n the locate stage could not tell from the
-        # boundary, plus a pad: |score| <= 3 sqrt(r_locate / R) at the locate
-        # stage is about 3 MCSE at the full replicates
-        lz = LOCATE_Z * math.sqrt(r_locate / R)
-        band = _band(rows, targets, cand, lz)
+        cand = top if cand is None else cand
+        # the window covers every n the locate stage could not tell from the boundary, plus a pad:
+        # |score| <= 3 sqrt(r_locate / R) at the locate stage is about 3 MCSE at the full replicates
+        band = _band(rows, targets, cand, LOCATE_Z * math.sqrt(r_locate / R))
         w = max(3, int(math.ceil(precision * cand / 2)), stride)
-        window = _dense_window(max(lo_n, min(band) - w), min(hi_n, max(band) + w))
-    else:
-        it = 0
-        a, b = lo, hi
-        b_checked = False
-        while b - a > max(1, int(precision * b / 2)) and it < 8:
-            it += 1
-            k = min(4, b - a - 1)
-            grid = sorted(set(int(round(a + (b - a) * (i + 1) / (k + 1))) for i in range(k)) - {a, b})
-            if not b_checked:
-                grid.append(b)  # the pilot's passing n, once more on more replicates
+        return _dense_window(max(lo_n, min(band) - w), min(hi_n, max(band) + w))
+    it, a, b, b_checked = 0, lo, hi, False
+    while b - a > max(1, int(precision * b / 2)) and it < 8:
+        it += 1
+        k = min(4, b - a - 1)
+        grid = sorted(set(int(round(a + (b - a) * (i + 1) / (k + 1))) for i in range(k)) - {a, b})
+        if not b_checked:
+            grid.append(b)  # the pilot's passing n, once more on more replicates
+        if not grid:
+            break
+        rows = run.curve(grid, r_locate, STAGE_LOCATE, it)
+        if not b_checked:
+            b_checked = True
+            if not targets.passes(rows[-1]) and b < hi_n:
+                a, b, b_checked = b, min(hi_n, 2 * b), False
+                continue
+            grid, rows = grid[:-1], rows[:-1]
             if not grid:
+                continue
+        ok = [targets.passes(r) for r in rows]
+        new_b = b
+        for g, o in zip(reversed(grid), reversed(ok)):
+            if not o:
                 break
-            rows = run.curve(grid, r_locate, STAGE_LOCATE, it)
-            if not b_checked:
-                b_checked = True
-                if not targets.passes(rows[-1]) and b < hi_n:
-                    a, b, b_checked = b, min(hi_n, 2 * b), False
-                    continue
-                grid, rows = grid[:-1], rows[:-1]
-                if not grid:
-                    continue
-            ok = [targets.passes(r) for r in rows]
-            new_b = b
-            for g, o in zip(reversed(grid), reversed(ok)):
-                if o:
-                    new_b = g
-                else:
-                    break
-            fails_below = [g for g, o in zip(grid, ok) if not o and g < new_b]
-            a = max(fails_below) if fails_below else a
-            b = new_b
-        cand = b
-        w = max(1, int(math.ceil(precision * cand / 2)))
-        window = _sparse_window(cand, w, lo_n, hi_n)
+            new_b = g
+        fails_below = [g for g, o in zip(grid, ok) if not o and g < new_b]
+        a, b = (max(fails_below) if fails_below else a), new_b
+    return _sparse_window(b, max(1, int(math.ceil(precision * b / 2))), lo_n, hi_n)
 
-    # -- confirm on fresh replicates, doubling until clear or the budget is spent
-    rnd = 0
-    moves = 0
+
+def _sim_confirm(run: _Runner, win: list[int], budget: int, precision: float, **ctx):
+    """Fresh replicates on the win, doubled (pooled) where the decision is not yet clear."""
+    targets, lo_n, hi_n, R = ctx["targets"], ctx["lo_n"], ctx["hi_n"], ctx["R"]
+    rnd = moves = 0
     pooled: dict[int, CheckResult] = {}
     reps = R
-    stop = ""
     while True:
-        rows = run.curve(window, reps, rngmod.STAGE_CONFIRM, rnd)
-        rnd += 1
-        for r in rows:
+        for r in run.curve(win, reps, rngmod.STAGE_CONFIRM, rnd):
             pooled[r.n] = r if r.n not in pooled else _pool(pooled[r.n], r)
-        cur = [pooled[k] for k in window]
-        ana = _analyse(cur, targets, lo_n, hi_n, precision)
-        if ana["clear"]:
-            stop = "decision clear"
-            break
+        rnd += 1
+        ana = _analyse([pooled[k] for k in win], targets, lo_n, hi_n, precision)
+        if ana["clear"] and _evidence(run, pooled, targets, lo_n, hi_n, precision)["clear"]:
+            return pooled, win, "decision clear"
         # widening only pays while n_range could still come out narrow enough
         widen = any(ana["extend"]) and ana["n_range"] is not None and (
             ana["n_range"][1] - ana["n_range"][0] <= max(1, round(precision * ana["n"])))
         new = None
         if moves < MAX_SHIFTS and (ana["shift"] or widen):
-            # the crossing or an end of n_range lies outside the window: move or widen it
-            new = _move(window, ana["shift"], ana["extend"], lo_n, hi_n, run.dense, precision)
-        if new is not None and new != window:
+            new = _move(win, ana["shift"], ana["extend"], lo_n, hi_n, run.dense, precision)
+        if new is not None and new != win:
             moves += 1
             # n not yet confirmed start at R; the others keep to the doubling schedule
             next_reps = max(R, min((pooled[k].replicates for k in new if k in pooled), default=R))
         else:
-            new = window
-            next_reps = max(pooled[k].replicates for k in window)  # doubling: match the pooled total
+            new = win
+            next_reps = max(pooled[k].replicates for k in win)  # doubling: match the pooled total
         if run.used + run.cost(len(new), next_reps) > budget:
-            stop = "replicate budget spent"
-            break
-        window, reps = new, next_reps
-    cur = [pooled[k] for k in window]
-    ana = _analyse(cur, targets, lo_n, hi_n, precision)
-    n = ana["n"]
-    if n is None:
-        # no n of the window holds the targets on the confirmation
-        if window[-1] >= hi_n:
-            return _not_reached(run, ctx, cur[-1], ana["n_first"])
-        above = [r for r in run.rows if r.n > window[-1] and targets.passes(r)]
-        if not above:
-            return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=None,
-                           reached=False, n_range=None, at=None, stop="replicate budget spent", exact=False,
-                           notes=[f"undecided: the replicate budget ({budget}) was spent before any n was confirmed "
-                                  f"to meet the targets (none of n = {window[0]}..{window[-1]} does on the "
-                                  "confirmation); the targets may still be reached at a larger n: raise the budget"],
-                           curve_rows=cur)
-        best_above = min(above, key=lambda r: (r.n, -r.replicates))
-        n = best_above.n
-        pooled[n] = best_above
-        notes.append("the confirmation found no passing n inside its window before the budget was spent; "
-                     f"n = {n} is the smallest larger n that passed in the exploration, and is uncertain")
-        ana["n_range"] = (window[-1] + 1, n)
-        ana["truncated"] = True
-    if ana["truncated"]:
-        notes.append(f"n_range reaches the edge of the confirmed window ({window[0]}-{window[-1]}): "
-                     "the n consistent with the Monte Carlo error may extend beyond it")
-    pooled_rows = cur
-    at = pooled[n]
-    low, high = ana["n_range"]
-    notes = _formula_note(ctx["nf"], n) + notes
-    total = at.replicates
-    notes.append(
-        f"confirmed on {total} fresh replicates per n, independent of the exploration stages; "
-        f"n_range {low}-{high}: n whose coverage/assurance are within {CLEAR_Z:g} MCSE of the targets"
-    )
+            return pooled, win, "replicate budget spent"
+        win, reps = new, next_reps
+
+
+def _evidence(run: _Runner, pooled: dict, targets: _Targets, lo_n: int, hi_n: int, precision: float) -> dict:
+    """n_range from every simulated evaluation of the search, each n at its best-supported row.
+
+    ``low`` is one above the largest n that clearly fails (score < -2);
+    ``high`` the smallest larger n that clearly passes (score > +2), ``n_max``
+    when none does. Rows in between, or above ``high`` without a clear
+    fail, are consistent with the boundary lying anywhere in ``[low, high]``:
+    no n the evidence cannot tell from the boundary is left out.
+    """
+    best: dict[int, CheckResult] = {}
+    for r in run.rows:
+        if not r.exact and (r.n not in best or r.replicates > best[r.n].replicates):
+            best[r.n] = r
+    best.update(pooled)
+    ns = sorted(best)
+    z = {k: targets.score(best[k]) for k in ns}
+    fails = [k for k in ns if z[k] < -CLEAR_Z]
+    low = max(fails) + 1 if fails else lo_n
+    high = next((k for k in ns if k >= low and z[k] > CLEAR_Z), None)
+    high_found = high is not None
+    high = hi_n if high is None else high
+    low_found = True
+    n_first = next((k for k in ns if targets.passes(best[k])), None)
+    width_ok = high - low <= max(1, round(precision * high))
+    return {"low": low, "high": high, "clear": high_found and low_found and width_ok, "rows": best,
+            "high_found": high_found, "n_first": n_first}
+
+
+def _replicates_needed(ev: dict, precision: float) -> int:
+    """Replicates per n that would likely narrow n_range to the precision (MCSE ~ 1/sqrt(R))."""
+    at = ev["rows"].get(ev["high"])
+    reps = at.replicates if at is not None else max(r.replicates for r in ev["rows"].values())
+    width = max(1, ev["high"] - ev["low"])
+    goal = max(1, round(precision * ev["high"]))
+    need = reps * max(2.0, (width / goal) ** 2)
+    return int(math.ceil(need / 1000.0) * 1000)
+
+
+def _sim_conclude(run: _Runner, pooled: dict, win: list[int], stop: str, budget: int, precision: float,
+                  **ctx) -> SearchResult:
+    """n (the conservative end of n_range), the decision and the notes."""
+    design, targets, lo_n, hi_n = ctx["design"], ctx["targets"], ctx["lo_n"], ctx["hi_n"]
+    ev = _evidence(run, pooled, targets, lo_n, hi_n, precision)
+    cur = [pooled[k] for k in win]
+    if not ev["high_found"] and not any(targets.passes(r) for r in cur) and win[-1] >= hi_n:
+        return _not_reached(run, ctx, cur[-1], ev["n_first"])
+    low, n = ev["low"], ev["high"]
+    decision = "clear" if ev["clear"] else "undecided"
+    at = ev["rows"].get(n) or run.curve([n], ctx["R"], rngmod.STAGE_CONFIRM, 99)[0]
+    notes = _formula_note(ctx["nf"], n)
+    if decision == "undecided":
+        notes.insert(0, f"undecided: the Monte Carlo error cannot tell n = {low}..{n} from the boundary; "
+                        f"n = {n} is the conservative end (every evaluated n from it on meets the targets clearly)")
+    if not ev["high_found"]:
+        notes.append(f"no evaluated n meets the targets by more than {CLEAR_Z:g} MCSE; n is n_max = {hi_n}")
+    notes.append(f"confirmed on {at.replicates} replicates at n; n_range {low}-{n}: n whose coverage/assurance "
+                 f"are within {CLEAR_Z:g} MCSE of the targets, over every n the search evaluated")
     if stop == "replicate budget spent":
         notes.append(f"replicate budget ({budget}) spent before the decision was clear "
                      f"(n_range wider than {max(1, round(precision * n))}); raise the budget or the replicates")
-    if ana["n_first"] is not None and ana["n_first"] != n:
-        notes.append(
-            f"the targets first hold at n = {ana['n_first']} but hold for every larger confirmed n only from n = {n}"
-            " (coverage oscillates in n); n is the latter"
-        )
-    below = [r for r in pooled_rows if r.n < n and not targets.passes(r)]
+    if ev["n_first"] is not None and ev["n_first"] != n:
+        notes.append(f"the point estimates first meet the targets at n = {ev['n_first']}; "
+                     f"n = {n} is the smallest n meeting them clearly there and at every larger n evaluated")
+    below = [r for k, r in sorted(ev["rows"].items()) if k < n and not targets.passes(r)]
     if below:
-        r = below[-1]
-        notes.append(f"at n = {r.n} the targets are missed: {'; '.join(targets.failing(r))}")
+        notes.append(f"at n = {below[-1].n} the targets are missed: {'; '.join(targets.failing(below[-1]))}")
     return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=n,
-                   reached=True, n_range=(low, high), at=at, stop=stop, exact=False, n_first=ana["n_first"],
-                   notes=notes, curve_rows=pooled_rows)
+                   reached=True, n_range=(low, n), at=at, stop=stop, exact=False, n_first=ev["n_first"],
+                   notes=notes, curve_rows=cur + [at], decision=decision,
+                   replicates_needed=None if decision == "clear" else _replicates_needed(ev, precision))
 
 
 def _crossing(rows: Sequence[CheckResult], targets: _Targets) -> int | None:
