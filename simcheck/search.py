@@ -341,6 +341,7 @@ def find_n(
     path: str = "auto",
     precision: float = 0.1,
     window: float = DEFAULT_WINDOW,
+    listed: Sequence[str] | None = None,
 ) -> SearchResult:
     """The smallest n whose coverage and assurance meet the targets.
 
@@ -373,6 +374,13 @@ def find_n(
     precision : float
         Largest width of ``n_range``, relative to n, at which the decision
         counts as clear (default 0.1, i.e. about +-5 %).
+    window : float
+        Exact paths: the targets must hold at every n in ``[n, ceil(window
+        n)]`` (default 1.25; 1 gives the first n meeting them). See
+        :mod:`simcheck.window`.
+    listed : sequence of str, optional
+        The methods the user listed; suggestions of other methods say
+        "not among your methods".
 
     Returns
     -------
@@ -437,7 +445,7 @@ def find_n(
         # the clustered engine decides exactness itself: ask it once, cheaply
         exact = run.curve([start], min(R, 100), STAGE_BRACKET, 0)[0].exact
     ctx = dict(design=design, targets=targets, targets_d=targets_d, nf=nf, seed=seed, lo_n=lo_n, hi_n=hi_n, R=R,
-               window=float(window))
+               window=float(window), listed=tuple(listed) if listed is not None else (design.method,))
     if exact:
         return _exact_search(run, start, **ctx)
     return _simulated_search(run, start, budget, precision, **ctx)
@@ -511,7 +519,11 @@ def _not_reached(run: _Runner, ctx: dict, at_top: CheckResult, n_first: int | No
     if n_first is not None:
         notes.append(f"the targets hold at n = {n_first} but not for every larger n up to n_max (coverage oscillates in n)")
     if others:
-        notes.append(f"methods that reach the targets at n = {hi_n}: {', '.join(others)}")
+        mine = [m for m in others if m in ctx["listed"]]
+        theirs = [m for m in others if m not in ctx["listed"]]
+        said = ", ".join(mine) + ("; " if mine and theirs else "")
+        said += f"not among your methods: {', '.join(theirs)}" if theirs else ""
+        notes.append(f"methods that reach the targets at n = {hi_n}: {said}")
     else:
         notes.append(f"no other interval method in simcheck reaches the targets at n = {hi_n}; "
                      "a larger n_max or a different margin may be needed")
@@ -1003,6 +1015,7 @@ def compare(design: Design, methods: Sequence[str], **kwargs: Any) -> MethodComp
     if not methods:
         raise InputError("method.interval", "compare needs at least one method")
     root, seed = rngmod.root_sequence(kwargs.pop("rng", None))
+    kwargs.setdefault("listed", tuple(methods))
     out = [find_n(design.with_method(m), rng=root, **kwargs) for m in methods]
     reached = [r for r in out if r.reached and r.n is not None]
     best = None

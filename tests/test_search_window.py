@@ -252,3 +252,49 @@ def test_window_one_is_the_first_n():
     res = find_n(d, rng=1, n_min=5, n_max=220, window=1.0)
     first = next(n for n in range(5, 221) if passes_one("wilson", 0.1, 0.12, n))
     assert res.n == first and res.criterion == "first"
+
+
+# ------------------------------------------------------------------ the scenario key and the command line
+WINDOW_TOML = """
+title = "Completion rate (invented example)"
+[target]
+estimand = "proportion"
+margin = 0.12
+{window}
+[data]
+model = "bernoulli"
+p = 0.07
+[method]
+interval = ["wilson", "agresti-coull"]
+[simulation]
+n_max = 600
+"""
+
+
+def test_scenario_window_key_and_json(tmp_path):
+    import io
+    import json
+    from contextlib import redirect_stderr, redirect_stdout
+
+    from simcheck.cli import main as cli_main
+
+    def run(text, *extra):
+        path = tmp_path / "w.toml"
+        path.write_text(text)
+        out, err = io.StringIO(), io.StringIO()
+        with redirect_stdout(out), redirect_stderr(err):
+            code = cli_main(["search", str(path), "--json", "--seed", "1", *extra])
+        return code, out.getvalue(), err.getvalue()
+
+    code, out, _ = run(WINDOW_TOML.format(window="window = 1.0"))
+    obj = json.loads(out)
+    assert code == 0 and [r["criterion"] for r in obj["by_method"]] == ["first", "first"]
+    first = next(n for n in range(2, 601) if passes_one("wilson", 0.07, 0.12, n))
+    assert obj["by_method"][0]["n"] == first and obj["by_method"][0]["targets"]["window"] == 1.0
+    code, out, _ = run(WINDOW_TOML.format(window=""), "--method", "wilson")
+    obj = json.loads(out)
+    ref, _ = window_answer(lambda n: passes_one("wilson", 0.07, 0.12, n), 2, 600)
+    assert code == 0 and obj["n"] == ref and obj["criterion"] == "window" and obj["decision"] == "clear"
+    assert len(obj["by_method"]) == 1 and obj["best"] == "wilson"
+    code, out, err = run(WINDOW_TOML.format(window="window = 0.5"))
+    assert code == 2 and out == "" and "target.window" in err and err.count("\n") == 1
