@@ -3,9 +3,13 @@
 Targets. An n *passes* when its coverage is at least ``confidence -
 coverage_tolerance`` and (when the design has a target margin) its assurance,
 the share of samples whose half-width is at most the margin, is at least the
-``assurance`` target. The answer ``n`` is the smallest n from which every
-larger evaluated n passes (discrete data can make coverage oscillate in n;
-``n_first``, the first passing n, is reported when it differs).
+``assurance`` target. Every result names the criterion that defines its
+``n`` (``criterion``, ``criterion_text``) and its ``decision`` (``clear`` or
+``undecided``); ``n_first`` is the first n seen to pass.
+
+Criteria: ``window`` on exact paths (the targets hold at every n in ``[n,
+ceil(window n)]``, :mod:`simcheck.window`; ``first`` when window = 1) and
+``crossing`` on simulated paths (below).
 
 Stages of a simulated search (each stage draws from its own spawn key below
 the root, so no stage reuses another's replicates):
@@ -36,23 +40,24 @@ Decision rules (Monte Carlo error, MCSE = sqrt(p (1 - p) / R), Morris et al.
 * the *score* of an n is the smaller of ``(coverage - target) / MCSE`` and
   ``(assurance - target) / MCSE``; an n *clearly fails* when its score is
   below -2 and *clearly passes* when above +2;
-* ``n_range = [low, high]``: ``low`` is one above the largest confirmed n
-  below the answer that clearly fails, ``high`` the smallest confirmed n
-  from which every confirmed n clearly passes. These are the n consistent
-  with the Monte Carlo error: the boundary may lie anywhere in between;
-* the decision is *clear* when both ends of ``n_range`` were found inside the
-  confirmation window (or at ``n_min`` / ``n_max``) and
-  ``high - low <= max(1, round(precision * n))`` (default precision 0.1:
-  n is pinned down to about +-5 %; planning inputs such as an SD or CV are
-  rarely known better). With the example of a steep boundary
-  (n - 1 fails and n passes, each by more than 2 MCSE) ``n_range`` is
-  ``[n, n]``.
+* ``n_range = [low, high]`` is read off every simulated evaluation of the
+  search (each n at its row with the most replicates; confirmation rounds
+  pooled): ``low`` is one above the largest n that clearly fails, ``high``
+  the smallest larger n that clearly passes (``n_max`` if none does). These
+  are the n the Monte Carlo error cannot tell from the boundary;
+* ``n = high``, the conservative end (criterion ``crossing``);
+* the decision is *clear* when ``high - low <= max(1, round(precision *
+  n))`` (default precision 0.1: n is pinned down to about +-5 %; planning
+  inputs such as an SD or CV are rarely known better), else *undecided*,
+  and ``replicates_needed`` estimates the replicates per n that would
+  settle it. With a steep boundary (n - 1 fails and n passes, each by more
+  than 2 MCSE) ``n_range`` is ``[n, n]``.
 
-Exact paths (proportion methods on iid 0/1 data by binomial enumeration;
-normal data with z or t) have no Monte Carlo error: the answer is exact,
-``n_range = [n, n]``. Binomial enumeration scans every n from ``n_min`` to
-``n_max`` (up to :data:`EXACT_SCAN_MAX` values), so the answer is the
-smallest n from which the target holds for every larger n up to ``n_max``.
+Exact paths (proportion methods on 0/1 data by enumeration; normal data with
+z or t by exact laws) have no Monte Carlo error: ``n_range = [n, n]``. Count
+data are scanned exactly for the window criterion (:class:`WindowScan`), so
+the answer does not depend on ``n_max`` once ``n_max >= ceil(window n)``;
+normal data are monotone in n and bisected.
 
 ``replicates_used`` counts simulated samples: a whole-curve (nested)
 evaluation draws each replicate once at its largest n and counts R; an
@@ -103,6 +108,9 @@ STAGE_LOCATE = 102
 STAGE_OTHERS = 103
 #: scores beyond this many MCSE count as a clear pass or a clear fail
 CLEAR_Z = 2.0
+#: exploration rows (bracket, locate: up to LOCATE_MAX n on few replicates) count as clear
+#: evidence only beyond this many MCSE: Bonferroni over 100 n at two-sided 5 % (z = 3.48)
+EXPLORE_Z = 3.5
 #: confirmation windows cover the n within this many full-replicate MCSE (seen at the locate stage)
 LOCATE_Z = 3.0
 #: largest number of n values of the locate stage's whole-curve evaluation
@@ -600,7 +608,8 @@ def _exact_scan(run: _Runner, **ctx) -> SearchResult:
     n, top = out.n, window_top(out.n, window)
     # full rows (half-width distribution) only where the answer is shown: n, n_first, the window
     pick = {n, top} | ({out.n_first} if out.n_first is not None else set())
-    pick |= {int(k) for k in np.linspace(n, top, min(top - n + 1, SHOWN_ROWS))}
+    shown = SHOWN_ROWS if not design.two_sample else SHOWN_ROWS // 4  # a full two-binomial row is costly
+    pick |= {int(k) for k in np.linspace(n, top, min(top - n + 1, shown))}
     rows = run.curve(sorted(pick), 1, 0)
     at = next(r for r in rows if r.n == n)
     notes = _formula_note(ctx["nf"], n)
@@ -833,9 +842,11 @@ def _evidence(run: _Runner, pooled: dict, targets: _Targets, lo_n: int, hi_n: in
     best.update(pooled)
     ns = sorted(best)
     z = {k: targets.score(best[k]) for k in ns}
-    fails = [k for k in ns if z[k] < -CLEAR_Z]
+    # many exploration n on few replicates: a stricter bar against chance extremes
+    bar = {k: CLEAR_Z if k in pooled else EXPLORE_Z for k in ns}
+    fails = [k for k in ns if z[k] < -bar[k]]
     low = max(fails) + 1 if fails else lo_n
-    high = next((k for k in ns if k >= low and z[k] > CLEAR_Z), None)
+    high = next((k for k in ns if k >= low and z[k] > bar[k]), None)
     high_found = high is not None
     high = hi_n if high is None else high
     low_found = True
@@ -855,6 +866,22 @@ def _replicates_needed(ev: dict, precision: float) -> int:
     return int(math.ceil(need / 1000.0) * 1000)
 
 
+def _sim_undecided(run: _Runner, ev: dict, cur: list, stop: str, budget: int, precision: float,
+                   **ctx) -> SearchResult:
+    """No evaluated n meets the targets clearly: no n is claimed, the range and the budget are said."""
+    low, hi_n = ev["low"], ctx["hi_n"]
+    notes = [f"undecided: no evaluated n meets the targets by more than {CLEAR_Z:g} MCSE before the replicate "
+             f"budget ({budget}) was spent; the boundary may lie anywhere from n = {low} to n_max = {hi_n}; "
+             "raise the replicates or the budget (see replicates_needed)"]
+    if ev["n_first"] is not None:
+        notes.append(f"the point estimates first meet the targets at n = {ev['n_first']}")
+    at = max(cur, key=lambda r: (ctx["targets"].score(r), r.n))  # the best-supported n of the window
+    return _result(run, design=ctx["design"], targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=None,
+                   reached=False, n_range=(low, hi_n), at=at, stop="replicate budget spent", exact=False,
+                   n_first=ev["n_first"], notes=notes, curve_rows=cur, decision="undecided",
+                   replicates_needed=_replicates_needed(ev, precision))
+
+
 def _sim_conclude(run: _Runner, pooled: dict, win: list[int], stop: str, budget: int, precision: float,
                   **ctx) -> SearchResult:
     """n (the conservative end of n_range), the decision and the notes."""
@@ -863,6 +890,8 @@ def _sim_conclude(run: _Runner, pooled: dict, win: list[int], stop: str, budget:
     cur = [pooled[k] for k in win]
     if not ev["high_found"] and not any(targets.passes(r) for r in cur) and win[-1] >= hi_n:
         return _not_reached(run, ctx, cur[-1], ev["n_first"])
+    if not ev["high_found"]:
+        return _sim_undecided(run, ev, cur, stop, budget, precision, **ctx)
     low, n = ev["low"], ev["high"]
     decision = "clear" if ev["clear"] else "undecided"
     at = ev["rows"].get(n) or run.curve([n], ctx["R"], rngmod.STAGE_CONFIRM, 99)[0]
@@ -870,8 +899,6 @@ def _sim_conclude(run: _Runner, pooled: dict, win: list[int], stop: str, budget:
     if decision == "undecided":
         notes.insert(0, f"undecided: the Monte Carlo error cannot tell n = {low}..{n} from the boundary; "
                         f"n = {n} is the conservative end (every evaluated n from it on meets the targets clearly)")
-    if not ev["high_found"]:
-        notes.append(f"no evaluated n meets the targets by more than {CLEAR_Z:g} MCSE; n is n_max = {hi_n}")
     notes.append(f"confirmed on {at.replicates} replicates at n; n_range {low}-{n}: n whose coverage/assurance "
                  f"are within {CLEAR_Z:g} MCSE of the targets, over every n the search evaluated")
     if stop == "replicate budget spent":
