@@ -191,6 +191,8 @@ def report(scenario, res) -> str:
         lines.append("")
         if res.best is not None:
             lines.append(f"best:        {res.best} (needs the least n; ties broken by coverage)")
+        elif any(_undecided(r) for r in res.by_method):
+            lines.append("best:        undecided (the replicate budget was spent before every method was decided)")
         else:
             lines.append("best:        none of the methods reaches the targets by n_max")
         for r in res.by_method:
