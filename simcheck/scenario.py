@@ -16,6 +16,7 @@ Defaults and limits (chosen here; documented in :data:`KNOWN_KEYS`):
 ``target.margin``              required, > 0 (the point of the tool)
 ``target.assurance``           0.5, in (0, 1)
 ``target.coverage_tolerance``  0.005, in [0, 0.5) and below the confidence
+``target.window``              1.25, in [1, 4] (exact searches: window criterion)
 ``method.interval``            required: a name or a list of names
 ``method.resamples``           1999, whole number in [99, 10**6]
 ``simulation.replicates``      10000, whole number in [100, 10**8]
@@ -95,6 +96,7 @@ KNOWN_KEYS: dict[str, str] = {
     "target.margin": "required: target half-width in the data's units, > 0",
     "target.assurance": f"required share of samples with half-width <= margin, in (0, 1); default {DEFAULT_ASSURANCE}",
     "target.coverage_tolerance": f"accepted coverage shortfall below the confidence, in [0, 0.5); default {DEFAULT_COVERAGE_TOLERANCE}",
+    "target.window": "exact searches: the targets must hold at every n from n to ceil(window x n), in [1, 4]; default 1.25 (1: the first n that meets them)",
     "target.event_values": "proportion estimand on a discrete non-0/1 model: the values that count (list of numbers)",
     "target.event_above": "proportion estimand on a non-0/1 model: values strictly above this number count",
     "data": "one-sample model table: model = \"...\" and its parameters",
@@ -177,6 +179,7 @@ class Scenario:
     table: dict[str, Any] = field(default_factory=dict, compare=False, hash=False, repr=False)
     event_values: tuple[float, ...] | None = None
     event_above: float | None = None
+    window: float = 1.25
 
     @property
     def two_sample(self) -> bool:
@@ -212,6 +215,8 @@ class Scenario:
             "assurance": float(self.assurance),
             "coverage_tolerance": float(self.coverage_tolerance),
         }
+        if self.window != 1.25:
+            target["window"] = float(self.window)  # only when set: default scenarios keep their hash
         if self.event_values is not None:
             target["event_values"] = [float(v) for v in self.event_values]
         if self.event_above is not None:
@@ -418,8 +423,9 @@ def validate(
             c.add("target.coverage_tolerance", f"must be below target.confidence ({confidence:g}), got {tol!r}")
             tol = None
         event_values, event_above = _event(c, target, estimand)
+        window = _num(c, target, "target", "window", 1.25, low=1, high=4)
     else:
-        confidence = margin = assurance = tol = None
+        confidence = margin = assurance = tol = window = None
         event_values = event_above = None
 
     # [data]
@@ -545,6 +551,7 @@ def validate(
         table=table,
         event_values=None if event_values is None else tuple(event_values),
         event_above=event_above,
+        window=window,
     )
 
 
