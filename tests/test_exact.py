@@ -227,9 +227,12 @@ def test_two_binomial_large_n_is_bounded_and_consistent():
 def test_hypergeometric_measures_equal_a_loop(fpc):
     # Sampling without replacement: X ~ hypergeometric (Cochran 1977, Sampling
     # Techniques, chapter 3); the fpc wrapper scales each limit's distance from
-    # x/n by sqrt((N - n)/(N - 1)).
+    # x/n by sqrt(1 - n/N): the interval's variance is estimated from the sample,
+    # and the estimate v(p) = (1 - n/N) p q / (n - 1) carries 1 - n/N (Cochran 1977,
+    # section 3.2). This test used sqrt((N - n)/(N - 1)), the factor of the true
+    # variance P Q, which does not apply to an estimated one.
     N, K, n, margin = 60, 17, 25, 0.15
-    f = math.sqrt((N - n) / (N - 1)) if fpc else 1.0
+    f = math.sqrt(1 - n / N) if fpc else 1.0
     items = []
     for x in range(0, n + 1):
         w = math.comb(K, x) * math.comb(N - K, n - x) / math.comb(N, n) if x <= K and n - x <= N - K else 0.0

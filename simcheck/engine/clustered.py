@@ -33,7 +33,9 @@ Finite populations (``design.population``)
     the population mean (K / N for 0/1 populations), not the model mean.
     With ``population.fpc`` the half-width of ``t``, ``z``, ``johnson-t`` and
     the proportion methods is multiplied by sqrt(1 - n/N) about the point
-    estimate (proportions then clipped to [0, 1]); ``z`` uses the
+    estimate (:func:`simcheck.formulas.fpc_variance_factor`; proportions
+    through :func:`simcheck.engine.exact.with_fpc`: Wald and Agresti--Coull
+    before their clipping, all clipped to [0, 1] once); ``z`` uses the
     population's S (divisor N - 1). Proportion methods on a 0/1 population
     are exact by hypergeometric enumeration.
 
@@ -76,6 +78,7 @@ from simcheck.engine import simple as eng
 from simcheck import rng as rngmod
 from simcheck.design import Design
 from simcheck.errors import Collector, InputError
+from simcheck.formulas import fpc_variance_factor
 from simcheck.intervals import Summary, get_method
 from simcheck.intervals.base import Method
 from simcheck.intervals.cluster import ClusterSums
@@ -85,7 +88,6 @@ from simcheck.models.population import (
     FinitePopulation,
     block_columns,
     draw_population,
-    fpc_factor,
     read_population,
     sample_indices,
 )
@@ -427,23 +429,9 @@ def _population_notes(design: Design, fp: FinitePopulation, method: Method) -> l
     return notes
 
 
-def _shrink(centre, lo, hi, f, clip: bool):
-    lo = centre - (centre - lo) * f
-    hi = centre + (hi - centre) * f
-    if clip:
-        return np.clip(lo, 0.0, 1.0), np.clip(hi, 0.0, 1.0)
-    return lo, hi
-
-
-def _fpc_count(func, N: int):
-    """A count interval with its limits pulled towards x/n by sqrt(1 - n/N), clipped to [0, 1]."""
-
-    def corrected(x, n, confidence):
-        lo, hi = func(x, n, confidence)
-        phat = np.asarray(x, dtype=float) / np.asarray(n, dtype=float)
-        return _shrink(phat, np.asarray(lo, float), np.asarray(hi, float), fpc_factor(n, N), clip=True)
-
-    return corrected
+def _shrink(centre, lo, hi, f):
+    """Limits pulled towards ``centre`` by the factor ``f`` (means: no clipping)."""
+    return centre - (centre - lo) * f, centre + (hi - centre) * f
 
 
 def _population(design, method, ns, replicates, root, seed, path, curve, progress, chunk_bytes) -> list[CheckResult]:
@@ -462,10 +450,9 @@ def _population(design, method, ns, replicates, root, seed, path, curve, progres
         raise InputError("simulation.path", "path 'exact' is only for proportion intervals on a 0/1 population; available: auto, nested, full")
     if exact_ok and path in ("auto", "exact"):
         K = fp.events
-        func = _fpc_count(method.func, N) if fpc else method.func
         rows = []
         for n in ns:
-            meas = exactmod.hypergeometric_measures(func, n, N, K, design.confidence, design.margin, fpc=False)
+            meas = exactmod.hypergeometric_measures(method, n, N, K, design.confidence, design.margin, fpc=fpc)
             r = msr.row_from_measures(design, n, meas, seed, "exact-hypergeometric")
             rows.append(replace(r, true_value=K / N, notes=tuple(list(r.notes) + notes)))
         return rows
@@ -484,7 +471,8 @@ def _population(design, method, ns, replicates, root, seed, path, curve, progres
         acc = msr.Accumulator(len(group), replicates, design.margin)
         nan_total = np.zeros(len(group), np.int64)
         n_eval = np.asarray(group, dtype=np.int64)
-        f = fpc_factor(n_eval, N)
+        # the interval's variance is estimated from the sample: factor 1 - n/N
+        f = np.sqrt(fpc_variance_factor(n_eval, N, "S2"))
         boot = None
         for bi, g, ps, pe, last in _pieces(root, replicates, cols_per_rep):
             if kind == "sample" and (boot is None or boot[0] != bi):
@@ -520,11 +508,11 @@ def _population_intervals(design, method, x, group, nested, n_eval, f, fpc, fp, 
         s = eng.summary_from_sums(*eng.prefix_moments(x, group, nested, method.needs_m3), n_eval, fp.S)
         lo, hi = method.func(s, conf)
         if fpc:
-            lo, hi = _shrink(s.mean, lo, hi, f, clip=False)
+            lo, hi = _shrink(s.mean, lo, hi, f)
         return lo, hi, None
     if kind == "count":
         cnt = eng.prefix_counts(x, group, nested)
-        func = _fpc_count(method.func, fp.size) if fpc else method.func
+        func = exactmod.with_fpc(method, fp.size) if fpc else method.func
         return (*func(cnt, n_eval, conf), None)
     if kind == "log":
         np.log(x, out=x)

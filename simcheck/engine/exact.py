@@ -346,21 +346,25 @@ def two_binomial_measures(
 # ---------------------------------------------------------------- finite population
 
 
-def with_fpc(method_func: Interval, fraction_factor: float) -> Interval:
-    """Wrap a ``count`` interval so its half-widths shrink by a finite population factor.
+def with_fpc(method_func: Interval | Method, N: int) -> Interval:
+    """Wrap a ``count`` interval with the finite population correction for a population of N.
 
     Each limit's distance from the point estimate ``x / n`` is multiplied by
-    ``fraction_factor`` (``sqrt((N - n)/(N - 1))`` for sampling without
-    replacement), then the limits are clipped to [0, 1]. This is the simple
-    correction used with normal-approximation intervals; for score or beta
-    intervals it is an approximation.
+    ``sqrt(1 - n / N)`` (:func:`simcheck.formulas.fpc_variance_factor`, form
+    ``"S2"``: the interval's variance is estimated from the sample), then the
+    limits are clipped to [0, 1] once. Methods that clip by definition (Wald,
+    Agresti--Coull) are corrected before their clipping, through the
+    method's ``centre_half``: Wald becomes ``p ± z sqrt(1 - n/N) sqrt(p q / n)``
+    clipped once. For score or beta intervals the correction is an
+    approximation.
 
     Parameters
     ----------
-    method_func : callable
-        ``func(x, n, confidence) -> (lower, upper)`` (kind ``count``).
-    fraction_factor : float
-        Factor applied to both distances from ``x / n``, in [0, 1].
+    method_func : Method or callable
+        A ``count`` method (preferred: its unclipped form is used when it has
+        one) or ``func(x, n, confidence) -> (lower, upper)``.
+    N : int
+        Population size.
 
     Returns
     -------
@@ -369,14 +373,22 @@ def with_fpc(method_func: Interval, fraction_factor: float) -> Interval:
 
     References
     ----------
-    Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, chapter 3
-    (finite population correction for a proportion).
+    Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, section 3.2
+    (the estimated variance of a proportion carries the factor 1 - n/N).
     """
-    f = float(fraction_factor)
+    from simcheck.formulas import fpc_variance_factor
+
+    unclipped = getattr(method_func, "centre_half", None) if isinstance(method_func, Method) else None
+    func = method_func.func if isinstance(method_func, Method) else method_func
 
     def corrected(x, n, confidence):
-        lo, hi = method_func(x, n, confidence)
+        if unclipped is not None:
+            c, h = unclipped(x, n, confidence)
+            lo, hi = c - h, c + h
+        else:
+            lo, hi = func(x, n, confidence)
         phat = np.asarray(x, dtype=float) / np.asarray(n, dtype=float)
+        f = np.sqrt(fpc_variance_factor(n, N, "S2"))
         return np.clip(phat - (phat - lo) * f, 0.0, 1.0), np.clip(phat + (hi - phat) * f, 0.0, 1.0)
 
     return corrected
@@ -395,8 +407,8 @@ def hypergeometric_measures(
 
     X ~ hypergeometric: n units drawn without replacement from a population of
     N units of which K are successes; the true value is K / N. With
-    ``fpc=True`` the interval is corrected by :func:`with_fpc` with factor
-    ``sqrt((N - n)/(N - 1))``.
+    ``fpc=True`` the interval is corrected by :func:`with_fpc` (factor
+    ``sqrt(1 - n/N)``, clipped once).
 
     Parameters
     ----------
@@ -424,7 +436,7 @@ def hypergeometric_measures(
     ----------
     Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, chapter 3.
     """
-    func = _func(method_func, "count")
+    plain = _func(method_func, "count")
     c = Collector()
     _check_n(c, "N", N, low=2)
     _check_n(c, "n", n)
@@ -440,8 +452,7 @@ def hypergeometric_measures(
         c.add("K", f"must be <= the population size {N}, got {K}")
     c.raise_if_any()
     margin = None if margin is None else float(margin)
-    if fpc:
-        func = with_fpc(func, np.sqrt((N - n) / (N - 1)))
+    func = with_fpc(method_func, N) if fpc else plain
     x = np.arange(max(0, n - (N - K)), min(n, K) + 1)
     w = stats.hypergeom.pmf(x, N, K, n)
     lo, hi = func(x, np.full(x.shape, n), confidence)
