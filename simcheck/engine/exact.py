@@ -14,10 +14,14 @@ Conventions, shared with the simulation engine:
 * the achieved margin is the half-width ``(upper - lower) / 2``;
 * ``margin_median`` and ``margin_p90`` are weighted quantiles of the
   half-width under the sampling distribution, defined as the smallest
-  support value whose cumulative probability is >= q (q = 0.5, 0.9); the
-  cumulative probability is normalised by the total weight enumerated;
-* ``assurance`` is P(half-width <= margin) (None when no margin is given),
-  with a relative allowance of 1e-12 for rounding (:data:`MARGIN_RTOL`);
+  support value whose cumulative probability is >= q (q = 0.5, 0.9): the
+  inverse-CDF definition (Hyndman & Fan 1996, definition 1), the same as
+  on the simulated paths; the cumulative probability is normalised by the
+  total weight enumerated;
+* ``assurance`` is P(0 < half-width <= margin) (None when no margin is
+  given), with a relative allowance of 1e-12 for rounding
+  (:data:`MARGIN_RTOL`); ``degenerate_share`` is P(half-width = 0): a
+  zero-width interval never counts as meeting the margin;
 * ``margin_values`` / ``margin_weights`` hold the half-width distribution:
   values in ascending order with their probabilities (ties not merged);
 * binomial tails of probability below :data:`TAIL_TRIM` (1e-17 each) are not
@@ -108,6 +112,9 @@ def weighted_measures(lo: np.ndarray, hi: np.ndarray, w: np.ndarray, true: float
     covered = (lo <= true) & (true <= hi)
     order = np.argsort(hw, kind="stable")
     hw_s, w_s = hw[order], w[order]
+    # a zero-width interval (Wald at x = 0 or x = n) does not deliver the
+    # promised precision: counted apart, never within the margin
+    zero = hw <= 0
     return {
         "true_value": float(true),
         "coverage": float(w[covered].sum() / total),
@@ -116,7 +123,8 @@ def weighted_measures(lo: np.ndarray, hi: np.ndarray, w: np.ndarray, true: float
         "margin_mean": float(np.dot(w, hw) / total),
         "margin_median": _weighted_quantile(hw_s, w_s, 0.5),
         "margin_p90": _weighted_quantile(hw_s, w_s, 0.9),
-        "assurance": None if margin is None else float(w[hw <= margin * MARGIN_RTOL].sum() / total),
+        "assurance": None if margin is None else float(w[(hw <= margin * MARGIN_RTOL) & ~zero].sum() / total),
+        "degenerate_share": float(w[zero].sum() / total),
         "margin_values": hw_s,
         "margin_weights": w_s,
     }
