@@ -275,22 +275,17 @@ def _clusters(design, method, ns, replicates, root, seed, path, curve, progress,
         K = max(group)
         per_rep = K * (2 if fast else max(1, math.ceil(law.mean)))
         acc = msr.Accumulator(len(group), replicates, design.margin)
-        nan_total = np.zeros(len(group), np.int64)
         for bi, g, ps, pe, last in _pieces(root, replicates, per_rep):
             m = law.draw(g, (pe - ps, K))
             s1, s2, s3 = cm.cluster_sums(g, m, centre=centre, powers=powers, fast=fast)
             lo, hi = _cluster_intervals(design, method, m, s1, s2, s3, group, law.fixed)
-            bad = np.isnan(lo) | np.isnan(hi)
-            if bad.any():
-                nan_total += np.count_nonzero(bad, axis=0)
             acc.add(lo, hi, truth)
             if progress and last:
                 progress(pe, replicates)
         acc.finish()
         for j, k in enumerate(group):
-            r = acc.row(j, design, k, replicates, seed, label, nan_count=int(nan_total[j]))
-            extra = [f"{int(nan_total[j])} intervals could not be computed and count as not covering"] if nan_total[j] else []
-            rows.append(replace(r, observations=_observations(k, law), notes=tuple(list(r.notes) + notes + extra)))
+            r = acc.row(j, design, k, replicates, seed, label)
+            rows.append(replace(r, observations=_observations(k, law), notes=tuple(list(r.notes) + notes)))
     return rows
 
 
@@ -469,7 +464,6 @@ def _population(design, method, ns, replicates, root, seed, path, curve, progres
         nmax = max(group)
         cols_per_rep = block_columns(N, nmax)
         acc = msr.Accumulator(len(group), replicates, design.margin)
-        nan_total = np.zeros(len(group), np.int64)
         n_eval = np.asarray(group, dtype=np.int64)
         # the interval's variance is estimated from the sample: factor 1 - n/N
         f = np.sqrt(fpc_variance_factor(n_eval, N, "S2"))
@@ -486,18 +480,14 @@ def _population(design, method, ns, replicates, root, seed, path, curve, progres
             b = pe - ps
             lo = np.broadcast_to(np.asarray(lo, dtype=np.float64).reshape(b, -1), (b, len(group)))
             hi = np.broadcast_to(np.asarray(hi, dtype=np.float64).reshape(b, -1), (b, len(group)))
-            bad = np.isnan(lo) | np.isnan(hi)
-            if bad.any():
-                nan_total += np.count_nonzero(bad, axis=0)
             acc.add(lo, hi, truth, None if deg is None else np.asarray(deg).reshape(-1, 1))
             if progress and last:
                 progress(pe, replicates)
         acc.finish()
         label = "nested" if nested else "simulation"
         for j, n in enumerate(group):
-            r = acc.row(j, design, n, replicates, seed, label, nan_count=int(nan_total[j]))
-            extra = [f"{int(nan_total[j])} intervals could not be computed and count as not covering"] if nan_total[j] else []
-            rows.append(replace(r, true_value=fp.mean, notes=tuple(list(r.notes) + notes + extra)))
+            r = acc.row(j, design, n, replicates, seed, label)
+            rows.append(replace(r, true_value=fp.mean, notes=tuple(list(r.notes) + notes)))
     return rows
 
 

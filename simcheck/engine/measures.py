@@ -308,8 +308,8 @@ class Accumulator:
         var = max(float(self.hw_squares[j] / m - mean * mean), 0.0) * m / (m - 1)
         return mean, math.sqrt(var / m)
 
-    def row(self, j: int, design: Design, n: int, replicates: int, seed, path: str, nan_count: int | None = None) -> CheckResult:
-        """The result at column ``j`` (``nan_count`` is ignored: the accumulator counts them)."""
+    def row(self, j: int, design: Design, n: int, replicates: int, seed, path: str) -> CheckResult:
+        """The result at column ``j``."""
         R = replicates
         nan = int(self.nan[j])
         cov = self.covered[j] / R
@@ -378,6 +378,70 @@ def share_mcse(p: float, r: int) -> float:
 
 def block_starts(blocks) -> list[int]:
     return [s - blocks[0][0] for s, _ in blocks]
+
+
+def pool_checks(a: CheckResult, b: CheckResult) -> CheckResult:
+    """Two simulated evaluations of the same n on independent replicates, as one.
+
+    Shares and the mean half-width are replicate-weighted (the mean over the
+    intervals that could be computed); their MCSEs are recomputed for the
+    pooled replicates, the mean's from the pooled variance. Quantiles and
+    their MCSEs come from the kept half-width values of both (up to
+    :data:`KEEP_MARGINS` each) when present.
+    """
+    ra, rb = a.replicates, b.replicates
+    R = ra + rb
+
+    def w(x, y):
+        if x is None or y is None:
+            return None
+        return (x * ra + y * rb) / R
+
+    def share(x, y):
+        v = w(x, y)
+        return (None, None) if v is None else (float(v), share_mcse(v, R))
+
+    cov, cov_se = share(a.coverage, b.coverage)
+    ass, ass_se = share(a.assurance, b.assurance)
+    low, low_se = share(a.miss_low, b.miss_low)
+    high, high_se = share(a.miss_high, b.miss_high)
+    deg, deg_se = share(a.degenerate_share, b.degenerate_share)
+    mean, mean_se = _pooled_mean(a, b)
+    med, p90 = w(a.margin_median, b.margin_median), w(a.margin_p90, b.margin_p90)
+    med_se = p90_se = None
+    vals = None
+    if a.margin_values is not None and b.margin_values is not None:
+        vals = np.concatenate([a.margin_values, b.margin_values])
+        if vals.size:
+            q, se = quantiles_with_mcse(vals[:, None], (0.5, 0.9))
+            med, p90 = float(q[0, 0]), float(q[1, 0])
+            med_se, p90_se = _finite_or_none(se[0, 0]), _finite_or_none(se[1, 0])
+    notes = list(a.notes)
+    notes += [t for t in b.notes if t not in notes]
+    return replace(
+        a, replicates=R, coverage=cov, coverage_mcse=cov_se, miss_low=low, miss_low_mcse=low_se,
+        miss_high=high, miss_high_mcse=high_se, margin_mean=mean, margin_mean_mcse=mean_se,
+        margin_median=float(med), margin_median_mcse=med_se, margin_p90=float(p90), margin_p90_mcse=p90_se,
+        assurance=ass, assurance_mcse=ass_se, degenerate=a.degenerate + b.degenerate,
+        degenerate_share=deg if deg is not None else 0.0, degenerate_share_mcse=deg_se,
+        not_computed=a.not_computed + b.not_computed, notes=tuple(notes), margin_values=vals, margin_weights=None,
+    )
+
+
+def _pooled_mean(a: CheckResult, b: CheckResult) -> tuple[float, float | None]:
+    ma, mb = a.replicates - a.not_computed, b.replicates - b.not_computed
+    m = ma + mb
+    if m <= 0:
+        return math.nan, None
+    xa = a.margin_mean if ma else 0.0
+    xb = b.margin_mean if mb else 0.0
+    mean = (ma * xa + mb * xb) / m
+    if a.margin_mean_mcse is None or b.margin_mean_mcse is None or m < 2 or not math.isfinite(mean):
+        return float(mean), None
+    # within-sample variances back from each MCSE, plus the spread between the two means
+    ss = sum(k * (k - 1) * se * se + k * (x - mean) ** 2
+             for k, x, se in ((ma, xa, a.margin_mean_mcse), (mb, xb, b.margin_mean_mcse)) if k)
+    return float(mean), math.sqrt(ss / (m - 1) / m)
 
 
 def with_note(r: CheckResult, note: str) -> CheckResult:
