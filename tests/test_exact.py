@@ -79,10 +79,11 @@ def _ref_measures(intervals_and_weights, true, margin):
         low += w * (hi < true)
         high += w * (lo > true)
         mean += w * hw
-        # a zero-width interval (Wald at x = 0 or n) never meets the margin (issue 12;
-        # this reference used to count it as assured)
-        assure += w * (0 < hw <= margin)
-        deg += w * (hw == 0)
+        # a zero-width interval that misses (Wald at x = 0 or n) never meets the margin
+        # (issue 12; this reference used to count it as assured)
+        zero = hw == 0 and not (lo <= true <= hi)
+        assure += w * (hw <= margin and not zero)
+        deg += w * zero
         pairs.append((hw, w))
     return {"coverage": cov, "miss_low": low, "miss_high": high, "margin_mean": mean,
             "margin_median": _ref_quantile(pairs, 0.5), "margin_p90": _ref_quantile(pairs, 0.9),

@@ -54,8 +54,9 @@ def test_wald_zero_width_at_x_0_is_degenerate_and_not_assured_exact():
         lo, hi = _wald(x, n, z)
         hw = (hi - lo) / 2
         w = _pmf(x, n, p)
-        deg += w * (hw == 0)
-        ass += w * (0 < hw <= margin)
+        zero = hw == 0 and not lo <= p <= hi
+        deg += w * zero
+        ass += w * (hw <= margin and not zero)
     assert deg == pytest.approx(0.95**20 + 0.05**20, rel=1e-12)
     r = engine.check(_bernoulli(p, margin=margin), n, rng=1)
     assert r.exact
@@ -106,6 +107,18 @@ def test_zero_width_t_interval_on_discrete_data_is_degenerate():
     r = engine.check(d, n, replicates=R, rng=3, path="full")
     _within(r.degenerate_share, p_eq, math.sqrt(p_eq * (1 - p_eq) / R))
     assert r.assurance <= 1 - r.degenerate_share + 1e-12
+
+
+def test_census_with_fpc_has_zero_width_that_covers_and_is_assured():
+    # n = N: the sample is the population, the FPC interval has zero width and holds
+    # the true value exactly (Cochran 1977, section 2.5: Var = 0 at n = N); that is
+    # the promised precision, not a degenerate interval.
+    d = Design(model=make_model({"model": "bernoulli", "p": 0.3}), estimand="proportion", method="wilson",
+               margin=0.05, population=PopulationSpec(size=300))
+    r = engine.check(d, 300, rng=2)
+    assert r.coverage == 1.0 and r.margin_mean == 0.0 and r.assurance == 1.0 and r.degenerate_share == 0.0
+    s = engine.check(d, 300, replicates=500, rng=2, path="full")
+    assert s.coverage == 1.0 and s.assurance == 1.0 and s.degenerate == 0
 
 
 # --- intervals that cannot be computed ---------------------------------------

@@ -195,6 +195,11 @@ def validate_design(design: Design, method: Method, ns, path: str) -> None:
         c.add(which, f"only for the one-sample estimands mean and proportion, not {design.estimand!r}")
     c.raise_if_any()
     if design.clusters is not None:
+        if design.clusters.effect == "gamma" and design.model.zero_one:
+            # 0/1 data are clustered through a beta-binomial law; a gamma effect
+            # would be shown but not used, so it is refused
+            c.add("clusters.effect", "'gamma' applies to continuous data only; 0/1 data are clustered by a "
+                  "beta-binomial law (cluster proportions ~ Beta), so leave clusters.effect out")
         if method.kind not in ("cluster", "summary", "count"):
             c.add("method.interval", f"{design.method!r} is not available with [clusters]; use cluster-t, "
                   "or t / z / a proportion interval to see the effect of ignoring the clustering")

@@ -18,10 +18,11 @@ Conventions, shared with the simulation engine:
   inverse-CDF definition (Hyndman & Fan 1996, definition 1), the same as
   on the simulated paths; the cumulative probability is normalised by the
   total weight enumerated;
-* ``assurance`` is P(0 < half-width <= margin) (None when no margin is
-  given), with a relative allowance of 1e-12 for rounding
-  (:data:`MARGIN_RTOL`); ``degenerate_share`` is P(half-width = 0): a
-  zero-width interval never counts as meeting the margin;
+* ``assurance`` is P(half-width <= margin, not degenerate) (None when no
+  margin is given), with a relative allowance of 1e-12 for rounding
+  (:data:`MARGIN_RTOL`); ``degenerate_share`` is the probability of a
+  zero-width interval that misses the true value, which never counts as
+  meeting the margin;
 * ``margin_values`` / ``margin_weights`` hold the half-width distribution:
   values in ascending order with their probabilities (ties not merged);
 * binomial tails of probability below :data:`TAIL_TRIM` (1e-17 each) are not
@@ -112,9 +113,9 @@ def weighted_measures(lo: np.ndarray, hi: np.ndarray, w: np.ndarray, true: float
     covered = (lo <= true) & (true <= hi)
     order = np.argsort(hw, kind="stable")
     hw_s, w_s = hw[order], w[order]
-    # a zero-width interval (Wald at x = 0 or x = n) does not deliver the
-    # promised precision: counted apart, never within the margin
-    zero = hw <= 0
+    # a zero-width interval that misses (Wald at x = 0 or x = n) does not
+    # deliver the promised precision: counted apart, never within the margin
+    zero = (hw <= 0) & ~covered
     return {
         "true_value": float(true),
         "coverage": float(w[covered].sum() / total),

@@ -11,10 +11,13 @@ Definitions (the exact paths in :mod:`simcheck.engine.exact` use the same):
 * coverage: share with lower <= true <= upper; ``miss_low``: upper < true;
   ``miss_high``: lower > true;
 * half-width (upper - lower) / 2; a *degenerate* interval has zero width and
-  never counts as meeting the margin (it does not deliver the precision it
-  promises); an interval with a NaN limit could not be computed: it counts
-  as not covering and not within the margin and is left out of the
-  half-width mean and quantiles;
+  misses the true value (Wald [0, 0] at x = 0, a t interval on equal
+  values): it never counts as meeting the margin, because it does not
+  deliver the precision it promises (a zero-width interval that covers, as
+  a census with the finite population correction, is exact and does count);
+  an interval with a NaN limit could not be computed: it counts as not
+  covering and not within the margin and is left out of the half-width
+  mean and quantiles;
 * assurance: share of intervals with 0 < half-width <= margin (relative
   allowance 1e-12 for rounding);
 * quantiles (``margin_median``, ``margin_p90``): the inverse of the empirical
@@ -55,7 +58,8 @@ from simcheck.results import CheckResult
 
 __all__ = [
     "Accumulator", "row_from_measures", "design_notes", "share_mcse", "with_note", "block_starts",
-    "quantiles_with_mcse", "pool_checks", "MARGIN_RTOL", "QUANTILE_Z",
+    "quantiles_with_mcse", "pool_checks", "plausibility_notes", "MARGIN_RTOL", "QUANTILE_Z",
+    "CV_PLAUSIBLE", "SIZE_CV_PLAUSIBLE",
     "QUANTILE_BYTES", "KEEP_MARGINS", "CURVE_QUANTILE_REPLICATES",
 ]
 
@@ -118,10 +122,45 @@ def row_from_measures(design, n, m, seed, path) -> CheckResult:
 
 
 def design_notes(design: Design) -> tuple[str, ...]:
+    """Notes every result of ``design`` carries: true-value notes and :func:`plausibility_notes`."""
     out = []
     for m in (design.model, design.model_b):
         if m is not None and m.true_value_note:
             out.append(m.true_value_note)
+    return tuple(out) + plausibility_notes(design)
+
+
+#: coefficient of variation (SD / mean) of positive data above which a scenario is
+#: flagged: skewed costs and durations have CVs of about 0.5-3 (common practice)
+CV_PLAUSIBLE = 10.0
+#: CV of cluster sizes above which a scenario is flagged: cluster trials report
+#: about 0.4-0.9 (Eldridge, Ashby & Kerry 2006, Int. J. Epidemiol. 35:1292; from memory)
+SIZE_CV_PLAUSIBLE = 2.0
+_POSITIVE_MODELS = ("lognormal", "gamma", "weibull")
+
+
+def plausibility_notes(design: Design) -> tuple[str, ...]:
+    """Warnings for values allowed but far outside what data show (``data.cv = 80``).
+
+    A CV is a ratio (0.8 means 80%); values such as 80 or 40 are more likely
+    percentages than intended. The computation goes on; the warning is in
+    every result's notes (and the command line prints it on stderr).
+    """
+    out = []
+    groups = [("data.a", design.model), ("data.b", design.model_b)] if design.two_sample else [("data", design.model)]
+    for key, m in groups:
+        if m is None or m.zero_one or getattr(m, "name", None) not in _POSITIVE_MODELS or not m.mean > 0:
+            continue
+        cv = m.sd / m.mean
+        if math.isfinite(cv) and cv > CV_PLAUSIBLE:
+            given = m.params().get("cv") if hasattr(m, "params") else None
+            what = f"{key}.cv = {given:g}" if isinstance(given, (int, float)) else f"{key}: the model's CV (SD / mean) = {cv:.4g}"
+            out.append(f"warning: {what} is far above the usual range (up to about {CV_PLAUSIBLE:g}); "
+                       "a CV is a ratio (0.8 means 80%)")
+    cs = design.clusters
+    if cs is not None and cs.size_cv is not None and cs.size_cv > SIZE_CV_PLAUSIBLE:
+        out.append(f"warning: clusters.size_cv = {cs.size_cv:g} is far above the usual range (up to about "
+                   f"{SIZE_CV_PLAUSIBLE:g}); a CV is a ratio (0.4 means 40%)")
     return tuple(out)
 
 
@@ -154,8 +193,14 @@ def quantiles_with_mcse(values: np.ndarray, probs=(0.5, 0.9)) -> tuple[np.ndarra
     se = np.full((len(probs), k), np.nan)
     if values.shape[0] == 0:
         return q, se
-    nan_cols = np.isnan(values).any(axis=0)
-    groups = [(np.flatnonzero(~nan_cols), values[:, ~nan_cols])] if not nan_cols.all() else []
+    # a column sum is NaN exactly when the column holds a NaN (half-widths are >= 0)
+    nan_cols = np.isnan(values.sum(axis=0, dtype=np.float64))
+    if not nan_cols.any():
+        groups = [(np.arange(k), values)]  # no copy: the usual case
+    elif nan_cols.all():
+        groups = []
+    else:
+        groups = [(np.flatnonzero(~nan_cols), values[:, ~nan_cols])]
     groups += [(np.array([j]), values[~np.isnan(values[:, j]), j][:, None]) for j in np.flatnonzero(nan_cols)]
     for cols, v in groups:
         m = v.shape[0]
@@ -245,7 +290,8 @@ class Accumulator:
             sums = _segment_sums(np.where(bad, 0.0, hw), st)
         self.low += below
         self.high += above
-        self._half_widths(hw, sums, st, bad, None if degenerate is None else np.asarray(degenerate, bool))
+        self._half_widths(hw, sums, st, bad, None if degenerate is None else np.asarray(degenerate, bool),
+                          lambda: (hi < truth) | (lo > truth))
 
     def add_symmetric(self, centre: np.ndarray, half: np.ndarray, truth, starts=None) -> None:
         """As :meth:`add` for intervals centre ± half (fewer passes over the data)."""
@@ -259,9 +305,14 @@ class Accumulator:
         dev = centre - truth if truth != 0 else centre
         self.low += (dev + half < 0).sum(axis=0)
         self.high += (dev > half).sum(axis=0)
-        self._half_widths(half, sums, st, None, None)
+        self._half_widths(half, sums, st, None, None, lambda: (dev + half < 0) | (dev > half))
 
-    def _half_widths(self, hw: np.ndarray, sums: np.ndarray, st, bad, flagged) -> None:
+    def _half_widths(self, hw: np.ndarray, sums: np.ndarray, st, bad, flagged, missed) -> None:
+        """Sums, zero-width count, assurance and kept values of one chunk's half-widths.
+
+        ``missed()`` gives the intervals that miss the true value; it is called
+        only when a zero-width interval occurs (rare).
+        """
         ok = hw if bad is None else np.where(bad, 0.0, hw)
         if np.isinf(sums).any():
             self.unbounded += np.isinf(ok).sum(axis=0)
@@ -270,7 +321,9 @@ class Accumulator:
         if flagged is None and not (hw.size and ok.min() <= 0):
             zero = None  # no zero-width interval in this chunk (the usual case)
         else:
-            zero = hw <= 0
+            # zero width and missing the truth; zero width that covers (a census
+            # with the finite population correction) is exact, not degenerate
+            zero = (hw <= 0) & missed()
             if flagged is not None:
                 zero |= flagged
             self.degenerate += zero.sum(axis=0)
