@@ -46,10 +46,10 @@ block and piece sizes depend only on the design and n, so ``chunk_bytes``
 (accepted for the engine's signature) never changes results: memory is
 bounded by the pieces.
 
-Helpers reused from :mod:`simcheck.engine`: ``_Acc`` (with ``_mcse``),
-``_columns``, ``_moments``, ``_summary``, ``_counts``,
-``_row_from_measures``, ``_exact``, ``_notes``. From :mod:`simcheck.exact`:
-``hypergeometric_measures`` and ``_measures``.
+Measures go through :mod:`simcheck.engine.measures` (``Accumulator``,
+``row_from_measures``); exact enumerations through :mod:`simcheck.engine.exact`
+(``hypergeometric_measures``, ``weighted_measures``, ``with_fpc``); the finite
+population correction is :func:`simcheck.formulas.fpc_variance_factor`.
 
 References
 ----------
