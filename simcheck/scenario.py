@@ -180,6 +180,9 @@ class Scenario:
     event_values: tuple[float, ...] | None = None
     event_above: float | None = None
     window: float = 1.25
+    #: warnings about values allowed but implausible, and settings not used;
+    #: the command line prints them on stderr
+    notices: tuple[str, ...] = ()
 
     @property
     def two_sample(self) -> bool:
@@ -197,6 +200,10 @@ class Scenario:
                              for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models))
         if d.two_sample:
             return f"a: {d.model.describe()}; b: {d.model_b.describe()}"
+        pop = d.population
+        if pop is not None and pop.file is not None:
+            given = self.table.get("population", {}).get("file", pop.file)
+            return f"the {pop.size} values of column {pop.column!r} of {given}"
         return d.model.describe()
 
     def to_dict(self) -> dict[str, Any]:
@@ -417,6 +424,10 @@ def validate(
         confidence = _num(c, target, "target", "confidence", DEFAULT_CONFIDENCE, low=0, high=1, low_open=True, high_open=True)
         margin = _num(c, target, "target", "margin", None, required=True, low=0, low_open=True,
                       what="the target half-width in the data's units, > 0")
+        if margin is not None and estimand in ("proportion", "proportion-diff") and margin >= 1:
+            # as `formula` refuses it: every interval of a proportion has half-width <= 1/2 (a difference 1)
+            c.add("target.margin", f"must be < 1 for a {estimand} (0.05 means 5 percentage points), got {margin!r}")
+            margin = None
         assurance = _num(c, target, "target", "assurance", DEFAULT_ASSURANCE, low=0, high=1, low_open=True, high_open=True)
         tol = _num(c, target, "target", "coverage_tolerance", DEFAULT_COVERAGE_TOLERANCE, low=0, high=0.5, high_open=True)
         if tol is not None and confidence is not None and tol >= confidence:
@@ -432,12 +443,19 @@ def validate(
     model = model_b = None
     data = table.get("data")
     strata = None
+    # population.file supplies the values: [data] is then neither needed nor used
+    from_file = isinstance(pop_t, dict) and "file" in pop_t and estimand not in TWO_SAMPLE
+    notices: list[str] = []
     if "allocation" in table and "strata" not in table:
         c.add("allocation", "only with [[strata]] tables")
     if "strata" in table:
         model, strata = _strata_model(c, table, bdir, event_values, event_above)
         if data is not None:
             c.add("data", "not used with [[strata]]: give each stratum its model in [strata.data]")
+    elif from_file:
+        if data:
+            notices.append("notice: [data] is not used: population.file supplies the values")
+        data = None  # the model comes from the file below
     elif data is None:
         c.add("data", "missing: a [data] table with model = \"...\" (two-sample: [data.a] and [data.b])")
     elif not isinstance(data, dict):
@@ -487,6 +505,8 @@ def validate(
 
     clusters = _clusters(c, clusters_t) if clusters_t is not None else None
     population = _population(c, pop_t, bdir) if pop_t is not None else None
+    if from_file and population is not None and population.file is not None and not c.problems:
+        model = _population_model(c, population, estimand)
 
     # n range (the population bounds n when units are sampled without replacement)
     n_max_given = "n_max" in sim
@@ -552,7 +572,42 @@ def validate(
         event_values=None if event_values is None else tuple(event_values),
         event_above=event_above,
         window=window,
+        notices=_notices(notices, designs),
     )
+
+
+def _population_model(c: Collector, population: PopulationSpec, estimand: str | None):
+    """The data model standing for the values of population.file (mean, Cochran's S; 0/1: bernoulli).
+
+    The engine samples the file's values themselves; this model only gives the
+    design its estimand checks and the closed-form n its planning values.
+    """
+    from simcheck.models import make_model
+    from simcheck.models.population import read_population
+
+    try:
+        fp = read_population(population.file, population.column, population.size)
+    except InputError as e:
+        c.extend(e)
+        return None
+    if estimand == "proportion" and not fp.zero_one:
+        c.add("population.file", f"a proportion estimand needs 0/1 values in column {population.column!r}")
+        return None
+    if fp.zero_one:
+        return make_model({"model": "bernoulli", "p": fp.mean})
+    if not fp.S > 0:
+        c.add("population.file", "all values are equal: there is nothing to estimate")
+        return None
+    return make_model({"model": "normal", "mean": fp.mean, "sd": fp.S})
+
+
+def _notices(extra: list[str], designs: list[Design]) -> tuple[str, ...]:
+    from simcheck.engine.measures import plausibility_notes
+
+    out = list(extra)
+    for d in designs:
+        out += [t for t in plausibility_notes(d) if t not in out]
+    return tuple(out)
 
 
 # --- validation helpers -------------------------------------------------------

@@ -264,41 +264,9 @@ def _f(x) -> str:
 
 def _pool(a: CheckResult, b: CheckResult) -> CheckResult:
     """Two evaluations of the same n on independent replicates, as one."""
-    ra, rb = a.replicates, b.replicates
-    R = ra + rb
+    from simcheck.engine.measures import pool_checks
 
-    def w(x, y):
-        if x is None or y is None:
-            return None
-        return (x * ra + y * rb) / R
-
-    cov = w(a.coverage, b.coverage)
-    ass = w(a.assurance, b.assurance)
-    vals = None
-    med, p90 = w(a.margin_median, b.margin_median), w(a.margin_p90, b.margin_p90)
-    if a.margin_values is not None and b.margin_values is not None:
-        vals = np.concatenate([a.margin_values, b.margin_values])
-        if vals.size:
-            med, p90 = (float(v) for v in np.quantile(vals, [0.5, 0.9]))
-    notes = list(a.notes)
-    notes += [t for t in b.notes if t not in notes]
-    return replace(
-        a,
-        replicates=R,
-        coverage=float(cov),
-        coverage_mcse=engine.mcse(cov, R),
-        miss_low=float(w(a.miss_low, b.miss_low)),
-        miss_high=float(w(a.miss_high, b.miss_high)),
-        margin_mean=float(w(a.margin_mean, b.margin_mean)),
-        margin_median=float(med),
-        margin_p90=float(p90),
-        assurance=None if ass is None else float(ass),
-        assurance_mcse=None if ass is None else engine.mcse(ass, R),
-        degenerate=a.degenerate + b.degenerate,
-        notes=tuple(notes),
-        margin_values=vals,
-        margin_weights=None,
-    )
+    return pool_checks(a, b)
 
 
 # --------------------------------------------------------------------------

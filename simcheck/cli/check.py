@@ -69,9 +69,15 @@ def run(args: argparse.Namespace) -> int:
 
 
 def run_seed(scenario, seed: int | None) -> int:
-    """The run's root seed; when neither --seed nor the file gives one, draw it and say so."""
+    """The run's root seed; when neither --seed nor the file gives one, draw it and say so.
+
+    Also prints the scenario's notices (implausible values, settings not used)
+    on stderr: every computing command calls this right after loading.
+    """
     from simcheck.tasks import resolve_seed
 
+    for t in getattr(scenario, "notices", ()):
+        note(f"simcheck: {t}")
     root, drawn = resolve_seed(scenario, seed)
     if drawn:
         note(f"simcheck: no seed given; using seed {root} (add --seed {root} to repeat this run)")
