@@ -60,21 +60,22 @@ def run(args: argparse.Namespace) -> int:
 
 def text_summary(files, results) -> str:
     from simcheck.report import StudyResults
+    from simcheck.report.text import STATUS_TEXT, decision_status, fmt_estimate
 
     lines = [results.title, ""]
     if isinstance(results, StudyResults):
         lines.append(f"formula n:   {results.n_formula if results.n_formula is not None else '-'}")
         for m in results.methods:
             s = results.searches.get(m)
-            c = results.checks.get(m)
             if s is None:
                 continue
-            if s.reached:
-                cov = "" if c is None else (f"  coverage {c.coverage:.4f} (exact)" if c.exact
-                                            else f"  coverage {c.coverage:.4f} (MCSE {c.coverage_mcse:.4f})")
-                lines.append(f"n found:     {s.n} with {m}{cov}")
+            status = decision_status(s)
+            lead = "" if status == "clear" else f"{STATUS_TEXT[status]}: "
+            if s.n is not None:
+                cov = "" if s.coverage is None else f"  coverage {fmt_estimate(s.coverage, s.coverage_mcse, s.exact)}"
+                lines.append(f"n found:     {lead}{s.n:,} with {m}{cov}")
             else:
-                lines.append(f"n found:     none up to {results.n_max} with {m}")
+                lines.append(f"n found:     {lead}none up to {results.n_max:,} with {m}")
     else:
         lines.append(f"cells:       {results.to_dict()['cells']} (task {results.task})")
     lines.append(f"report:      {files.html}")

@@ -228,7 +228,9 @@ def study_figures(study: StudyResults) -> dict[str, Any]:
     out: dict[str, Any] = {}
     if curves:
         out["coverage"] = F.coverage_figure(curves, confidence=study.confidence, tolerance=study.coverage_tolerance,
-                                            n_formula=study.n_formula, n_found=found, n_label=study.n_label)
+                                            n_formula=study.n_formula, n_found=found, n_label=study.n_label,
+                                            undecided=[label[m] for m, s in study.searches.items()
+                                                       if m in label and decision_status(s) == "undecided"])
     checks = {label[m]: c for m in study.methods if (c := _half_width_check(study, m)) is not None}
     if checks:
         has_assurance = any(r.assurance is not None for c in curves.values() for r in c.rows)
@@ -304,14 +306,14 @@ def _status_cell(r: Mapping[str, Any]) -> str:
     """'n found' cell: an undecided answer says so before the number."""
     st = r["decision"]
     if st == "undecided":
-        return "undecided: " + (fmt_num(r["n_found"]) if r["n_found"] is not None else "no n confirmed")
+        return "undecided (budget spent): " + (fmt_num(r["n_found"]) if r["n_found"] is not None else "no n confirmed")
     if st == "not reached":
-        return "not reached"
-    return fmt_num(r["n_found"])
+        return "not reached by the search ceiling"
+    return f"{fmt_num(r['n_found'])} (clear)"
 
 
 def _results_table(doc: _Doc, s: StudyResults) -> None:
-    headers = ["Method", "Decision", "n found", "n consistent with MC error", "Coverage at n found",
+    headers = ["Method", "n found (decision)", "n consistent with MC error", "Coverage at n found",
                "Assurance at n found", "Below / above", "Half-width median / 90th pct", "Replicates at n",
                "Coverage at formula n"]
     rows = []
@@ -321,7 +323,7 @@ def _results_table(doc: _Doc, s: StudyResults) -> None:
         rng = "–" if lo is None else (f"{lo:,}" if lo == hi else f"{lo:,}–{hi:,}")
         reps = "exact" if r["exact"] else fmt_num(r["confirm_replicates"])
         rows.append([
-            m, STATUS_TEXT.get(r["decision"], r["decision"]), _status_cell(r), rng,
+            m, _status_cell(r), rng,
             fmt_estimate(r["coverage"], r["coverage_mcse"], r["exact"]),
             fmt_estimate(r["assurance"], r["assurance_mcse"], r["exact"]),
             f"{fmt_num(r['miss_low'], 4)} / {fmt_num(r['miss_high'], 4)}",
@@ -333,8 +335,8 @@ def _results_table(doc: _Doc, s: StudyResults) -> None:
     if crit:
         doc.para("Criterion: " + " ".join(crit))
     doc.para("Coverage and assurance at the n found are the search's own confirmation figures (fresh samples, "
-             "independent of the exploration). An undecided answer is the conservative end of what the search "
-             "found before its replicate budget ran out; the n range shows how far the Monte Carlo error leaves it open.")
+             "independent of the exploration). An undecided answer is the n the search gives when its "
+             "replicate budget ran out before the Monte Carlo error settled it; the n range shows how far the Monte Carlo error leaves it open.")
     re = [m for m in s.methods if m in s.rechecks and s.rechecks[m].n == s.method_row(m)["n_found"]]
     if re:
         doc.para("Re-check for the half-width figure (not the figures above): " + "; ".join(
@@ -348,7 +350,9 @@ def _study_doc(study: StudyResults, figs: dict[str, Path], base: Path) -> _Doc:
     doc = _Doc(s.title)
     doc.para(f"Written by simcheck {s.versions.get('simcheck', __version__)}. All numbers below come from the "
              f"scenario's data model and seed; they can be reproduced by running the same scenario again.")
-    doc.para(f"Decision: {STATUS_TEXT.get(s.decision(), s.decision())}.")
+    states = [(m, STATUS_TEXT.get(decision_status(s.searches[m]), "–")) for m in s.methods if m in s.searches]
+    doc.para("Decision: " + ("; ".join(f"`{m}` {t}" for m, t in states) if len(states) > 1
+                             else (states[0][1] if states else "–")) + ".")
     doc.heading("Targets")
     rows = [["Estimand", ESTIMAND_TEXT.get(s.estimand, s.estimand)],
             ["Confidence level", fmt_g(s.confidence)],
@@ -680,7 +684,7 @@ def write_report(out_dir: str | Path, results: StudyResults | SweepResults) -> R
     # the HTML embeds each figure at screen resolution; the full-resolution files sit beside it
     for kind, b in doc.blocks:
         if kind == "figure" and b.name in figs:
-            b.screen = F.figure_bytes(figs[b.name], "png", dpi=F.SCREEN_DPI)
+            b.screen = F.screen_png(figs[b.name])
     md = out / "report.md"
     md.write_text(doc.markdown(out), encoding="utf-8")
     ht = out / "report.html"

@@ -52,7 +52,7 @@ from simcheck import __version__
 from simcheck.results import CheckResult, CurveResult
 
 __all__ = ["coverage_figure", "margin_figure", "miss_figure", "sweep_figure", "save_figure", "figure_bytes",
-           "series_style", "method_style", "METHOD_STYLES", "STYLE", "OKABE_ITO", "SCREEN_DPI"]
+           "series_style", "method_style", "METHOD_STYLES", "STYLE", "OKABE_ITO", "SCREEN_DPI", "screen_png"]
 
 # Okabe & Ito (2002) palette, in the order series are given out; black and
 # yellow are kept out of the series list (black is for reference lines,
@@ -292,6 +292,7 @@ def coverage_figure(
     n_label: str = "Sample size n",
     width: float = FULL_WIDTH,
     height: float = 3.3,
+    undecided: Sequence[str] = (),
 ) -> Figure:
     """Coverage against n with its Monte Carlo band.
 
@@ -311,6 +312,8 @@ def coverage_figure(
         method's colour.
     n_label : str
         x-axis label (say what n counts: observations, clusters, group a).
+    undecided : list of str
+        Methods whose search was undecided: their n found is labelled so.
 
     Returns
     -------
@@ -355,7 +358,8 @@ def coverage_figure(
             if nf is not None:
                 who = f" ({name})" if len(curves) > 1 else ""
                 st = method_style(name, i)
-                ln = _vline(ax, nf, style=(0, (6, 2)), colour=st["color"], label=f"n found = {nf:,}{who}")
+                status = ", undecided" if name in undecided else ""
+                ln = _vline(ax, nf, style=(0, (6, 2)), colour=st["color"], label=f"n found = {nf:,}{status}{who}")
                 if len(curves) > 1:
                     # the method's marker on top of its line tells the lines apart in greyscale
                     ln.set_marker(st["marker"])
@@ -524,21 +528,27 @@ def miss_figure(
         fig = _new_figure(width, height)
         axes = np.atleast_1d(fig.subplots(nrows, ncols, sharey=True, squeeze=False)).ravel()
         ymax = half
-        sides = (("miss_low", "wholly below the true value", SERIES_COLOURS[0], "o", "-"),
-                 ("miss_high", "wholly above the true value", SERIES_COLOURS[1], "s", "--"))
+        # each panel in its method's colour (one colour per method across figures); the side is
+        # told by line style and marker fill, shown in the legend in neutral grey
+        sides = (("miss_low", "wholly below the true value", "-", None),
+                 ("miss_high", "wholly above the true value", "--", "white"))
         for j, (name, curve) in enumerate(curves.items()):
             ax = axes[j]
+            colour = method_style(name, j)["color"]
             n = curve.n.astype(float)
             R = curve.column("replicates")
             exact = np.array([r.exact for r in curve.rows], dtype=bool)
             ax.axhline(half, color=REFERENCE_COLOUR, linestyle=":", linewidth=0.9,
                        label=f"(1 \u2212 confidence) / 2 = {half:g}")
-            for col, label, colour, marker, ls in sides:
+            for col, label, ls, face in sides:
                 p = curve.column(col)
                 se = _share_mcse(p, R, exact)
                 _band(ax, n, p, 2 * se, colour)
-                ax.plot(n, p, color=colour, marker=marker, linestyle=ls,
-                        markevery=_markevery(len(n), 0 if col == "miss_low" else 1, 2), label=label)
+                ax.plot(n, p, color=colour, marker="o", markerfacecolor=face or colour, linestyle=ls,
+                        markevery=_markevery(len(n), 0 if col == "miss_low" else 1, 2), label="_" + label)
+                if j == 0:
+                    ax.plot([], [], color="#555555", marker="o", markerfacecolor=face or "#555555", linestyle=ls,
+                            label=label)
                 ymax = max(ymax, float(np.nanmax(p + 2 * se)))
             _vline(ax, n_formula, style=":", colour="#777777",
                    label=None if n_formula is None else f"formula n = {n_formula:,}")
@@ -912,6 +922,24 @@ def save_figure(fig: Figure, stem: str | Path, formats: Sequence[str] = FORMATS)
             fig.savefig(path, format=fmt, metadata=_metadata(fmt))
             out[fmt] = path
     return out
+
+
+def screen_png(fig: Figure, dpi: float = SCREEN_DPI, colours: int = 96) -> bytes:
+    """A small PNG for web pages: screen resolution and an adaptive palette of ``colours``.
+
+    A figure of lines, bands and text uses few colours, so the palette keeps it
+    visually the same at a third of the bytes; the quantisation is
+    deterministic, so equal figures give equal bytes.
+    """
+    import io
+
+    from PIL import Image
+
+    img = Image.open(io.BytesIO(figure_bytes(fig, "png", dpi=dpi))).convert("RGB")
+    out = io.BytesIO()
+    img.quantize(colors=colours, method=Image.Quantize.MEDIANCUT, dither=Image.Dither.NONE).save(
+        out, format="PNG", optimize=True)
+    return out.getvalue()
 
 
 def figure_bytes(fig: Figure, fmt: str = "png", dpi: float | None = None) -> bytes:

@@ -100,8 +100,10 @@ def fmt_estimate(value: float | None, se: float | None, exact: bool | None = Fal
         return "–"
     if exact or not se:
         return f"{value:.{3 if not exact else 4}f}" + ((", exact" if inline else " (exact)") if exact else "")
-    d = mcse_digits(se)
-    return f"{value:.{d}f}, MCSE {se:.{d}f}" if inline else f"{value:.{d}f} (MCSE {se:.{d}f})"
+    d = min(mcse_digits(se), 4)
+    # an MCSE below the last shown digit (shares near 0 or 1) is written as a bound, not as 0.00002
+    mc = f"< {10.0 ** -d:.{d}f}" if se < 0.5 * 10.0 ** -d else f"{se:.{d}f}"
+    return f"{value:.{d}f}, MCSE {mc}" if inline else f"{value:.{d}f} (MCSE {mc})"
 
 
 # ---------------------------------------------------------------------------
@@ -388,7 +390,7 @@ def _result_sentences(s: StudyResults, m: str) -> list[str]:
     group = f" in group a and {r.n_b:,} in group b" if r.n_b is not None else ""
     if status == "undecided":
         txt = (f"{who} search was undecided: its replicate budget was spent before the Monte Carlo error settled "
-               f"the answer, and the conservative end of what it found is n = {r.n:,}{group}")
+               f"the answer; the n it gives is {r.n:,}{group}")
     else:
         txt = f"{who} smallest such n was {r.n:,}{group}"
     txt += f" ({_figures_text(s, m, r)})"
