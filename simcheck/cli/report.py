@@ -10,6 +10,10 @@ from simcheck import CAUTION
 from simcheck.cli.common import add_json, add_sim_overrides, emit_json, note
 
 
+#: file kinds people hand to `report` by mistake (pilot data, exported tables)
+DATA_SUFFIXES = (".csv", ".tsv", ".txt", ".parquet", ".json", ".xlsx", ".xls")
+
+
 def add_parser(subparsers) -> None:
     p = subparsers.add_parser(
         "report",
@@ -47,6 +51,9 @@ def run(args: argparse.Namespace) -> int:
         raise InputError("SCENARIO|STORE", f"file not found: {src}")
     if src.is_dir():
         raise InputError("SCENARIO|STORE", f"{src} is a folder, not a scenario file or sweep store")
+    if not rep.is_store(src) and src.suffix.lower() in DATA_SUFFIXES:
+        raise InputError("SCENARIO|STORE", f"{src.name} is a {src.suffix.lower()[1:].upper()} data file; report expects "
+                                           "a scenario file (.toml) or a sweep store (.sqlite)")
     rep.check_out_dir_usable(args.out)
     if rep.is_store(src) and overrides(args):
         raise InputError("--replicates/--seed", "apply to a scenario file, not to a sweep store")

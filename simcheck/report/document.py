@@ -702,8 +702,11 @@ def report(source: str | Path, out_dir: str | Path, *, overrides: Mapping[str, A
            progress: Progress = None) -> tuple[ReportFiles, StudyResults | SweepResults]:
     """Report on a scenario file (runs it) or a sweep store (reads it)."""
     if is_store(source):
-        check_out_dir(out_dir)
         results: StudyResults | SweepResults = read_sweep(source)
+        if len(results.frame) == 0:
+            raise InputError("STORE", f"{Path(source).name} holds no finished cells yet; run the sweep into it first "
+                                      f"(simcheck sweep SWEEP --store {Path(source).name})")
+        check_out_dir(out_dir)
     else:
         from simcheck.scenario import load_scenario
 
