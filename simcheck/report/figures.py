@@ -833,13 +833,9 @@ def sweep_figure(
     legend_rows = math.ceil((len(lay.line_levels) + 4) / 2)
     height = 2.3 * lay.nrows + 0.55 + 0.17 * legend_rows
     dodge = _dodge_step(frame, lay)
-    if value_label is None:
-        value_label = {"n": n_label or "Required sample size n", "coverage": "Coverage at the fixed n"}.get(value, value)
-        # break a long label before its parenthesis so it fits the panel height
-        value_label = value_label.replace(" (", "\n(") if len(value_label) > 24 else value_label
+    value_label = value_label or _sweep_value_label(value, n_label)
     top = frame[value].to_numpy(dtype=float)
-    top = top[np.isfinite(top)]
-    ceiling_y = float(top.max()) * 1.4 if top.size else 1.0
+    ceiling_y = float(np.nanmax(top)) * 1.4 if np.isfinite(top).any() else 1.0
     conf_uniform = "confidence" not in frame.columns or frame["confidence"].dropna().nunique() <= 1
     use_ref = value == "n" and reference is not None and reference in frame.columns
     drawn: set[str] = set()
@@ -859,6 +855,12 @@ def sweep_figure(
         _sweep_axes_finish(fig, axes, frame, lay, value, value_label)
         _sweep_legend(fig, axes[0], drawn)
     return fig
+
+
+def _sweep_value_label(value: str, n_label: str | None) -> str:
+    label = {"n": n_label or "Required sample size n", "coverage": "Coverage at the fixed n"}.get(value, value)
+    # break a long label before its parenthesis so it fits the panel height
+    return label.replace(" (", "\n(") if len(label) > 24 else label
 
 
 def _sweep_legend(fig: Figure, ax, drawn: set[str]) -> None:

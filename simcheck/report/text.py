@@ -363,6 +363,9 @@ def _criterion_sentences(s: StudyResults) -> list[str]:
 def _figures_text(s: StudyResults, m: str, r) -> str:
     """'coverage 0.946, MCSE 0.0006, assurance 1.000; from 140,000 fresh samples at that n, ...'"""
     c = s.checks.get(m)
+    if r.exact:
+        txt = f"exact coverage {r.coverage:.4f}" if r.coverage is not None else "exact"
+        return txt + (f", assurance {r.assurance:.4f}" if r.assurance is not None else "")
     txt = f"coverage {fmt_estimate(r.coverage, r.coverage_mcse, r.exact, inline=True)}"
     if r.assurance is not None:
         txt += f", assurance {fmt_estimate(r.assurance, r.assurance_mcse, r.exact, inline=True)}"
@@ -387,7 +390,8 @@ def _result_sentences(s: StudyResults, m: str) -> list[str]:
         if r.best_coverage is not None and r.best_coverage_n is not None:
             txt += f" (highest coverage {r.best_coverage:.3f} at n = {r.best_coverage_n:,})"
         return [txt + "."]
-    group = f" in group a and {r.n_b:,} in group b" if r.n_b is not None else ""
+    group = ("" if r.n_b is None else f" in each group" if r.n_b == r.n
+             else f" in group a and {r.n_b:,} in group b")
     if status == "undecided":
         txt = (f"{who} search was undecided: its replicate budget was spent before the Monte Carlo error settled "
                f"the answer; the n it gives is {r.n:,}{group}")
@@ -399,9 +403,25 @@ def _result_sentences(s: StudyResults, m: str) -> list[str]:
     out = [txt + "."]
     if status == "undecided" and getattr(r, "replicates_needed", None):
         out.append(f"About {r.replicates_needed:,} replicates per n would likely settle it.")
-    if r.n_first is not None and r.n_first != r.n:
-        out.append(wiggle_sentence(r.n_first, r.n, s.discrete, r.exact))
     return out
+
+
+def _wiggle_sentences(s: StudyResults) -> list[str]:
+    """Why the targets first held at a smaller n than the answer: said once for all methods."""
+    late = [(m, r) for m in s.methods if (r := s.searches.get(m)) is not None and r.n is not None
+            and r.n_first is not None and r.n_first != r.n]
+    if not late:
+        return []
+    if len(late) == 1 or len(s.methods) == 1:
+        _m, r = late[0]
+        return [wiggle_sentence(r.n_first, r.n, s.discrete, r.exact)]
+    firsts = join_words([f"{method_text(m)} {r.n_first:,}" for m, r in late])
+    if s.discrete:
+        how = "exactly" if all(r.exact for _, r in late) else "by simulation"
+        return [f"Because the data are discrete, coverage oscillates in n (computed {how}): the targets first hold at "
+                f"a smaller n ({firsts}) but hold for every larger n only from the n given above."]
+    return [f"The targets first appear to hold at a smaller n ({firsts}); the data are continuous, so the true "
+            f"coverage changes smoothly with n and the ups and downs below the n given are Monte Carlo noise."]
 
 
 def _fewest_sentence(s: StudyResults) -> str | None:
@@ -413,7 +433,10 @@ def _fewest_sentence(s: StudyResults) -> str | None:
     n_min = min(n for n, _ in found)
     fewest = [m for n, m in found if n == n_min]
     names = join_words([f"the {method_text(m)} interval" for m in fewest])
-    txt = f"Of the methods compared, {names} needed the fewest {_n_unit(s)} (n = {n_min:,})"
+    per = ""
+    if "data_a" in s.data:
+        per = " per group" if ratio_text(s.data.get("ratio", 1.0)) == "groups of equal size" else " in group a"
+    txt = f"Of the methods compared, {names} needed the fewest {_n_unit(s)} (n = {n_min:,}{per})"
     if any(decision_status(s.searches[m]) == "undecided" for m in fewest):
         txt += ", although that answer is undecided"
     return txt + "; which interval to use remains the analyst's choice."
@@ -422,7 +445,9 @@ def _fewest_sentence(s: StudyResults) -> str | None:
 def methods_paragraph(study: StudyResults) -> str:
     """A ready-to-paste paragraph: what was simulated, how, what the search found and how sure it is."""
     s = study
-    parts = [f"We checked the planned sample size by simulation (simcheck {s.versions.get('simcheck', __version__)}; "
+    how = ("by exact computation" if s.searches and all(r.exact for r in s.searches.values())
+           else "by simulation")
+    parts = [f"We checked the planned sample size {how} (simcheck {s.versions.get('simcheck', __version__)}; "
              f"NumPy {s.versions.get('numpy', '?')}, SciPy {s.versions.get('scipy', '?')})."]
     parts += _design_sentences(s)
     parts += _simulation_sentences(s)
@@ -434,10 +459,13 @@ def methods_paragraph(study: StudyResults) -> str:
     parts += _criterion_sentences(s)
     for m in s.methods:
         parts += _result_sentences(s, m)
+    parts += _wiggle_sentences(s)
     fewest = _fewest_sentence(s)
     if fewest:
         parts.append(fewest)
-    if s.seed is not None:
+    if s.searches and all(r.exact for r in s.searches.values()) and all(c.exact for c in s.checks.values()):
+        parts.append("No random numbers were needed: every figure here is exact.")
+    elif s.seed is not None:
         parts.append(f"All random numbers derive from the seed {s.seed}, so every number here can be reproduced exactly.")
     else:
         parts.append("No seed was fixed, so a rerun gives slightly different numbers.")
