@@ -114,9 +114,9 @@ def test_sweep_table_has_status_range_words_and_rounded_mcse():
     headers, rows = _sweep_table(fr, ["data.cv", "method.interval"], "n")
     assert headers[:5] == ["CV of the data", "Interval method", "Decision", "n found", "n consistent with MC error"]
     by = {(r[0], r[1]): r for r in rows}
-    assert by[("1.2", "t")][2] == "undecided (replicate budget spent)"
+    assert by[("1.2", "t")][2] == "undecided (budget spent)"
     assert by[("1.2", "t")][4] == "350–520"
-    assert by[("2.4", "t")][2] == "not reached by the search ceiling"
+    assert by[("2.4", "t")][2] == "not reached (ceiling)"
     assert by[("0.6", "t")][2] == "clear"
     cov = by[("0.6", "t")][headers.index("Coverage")]
     assert cov == "0.951 (MCSE 0.002)"  # digits to the MCSE's first significant figure

@@ -163,3 +163,22 @@ def test_summary_and_csv_carry_decision_criterion_and_notes(study, tmp_path):
     assert "undecided (budget spent): 713" in md and "161 (clear)" in md
     assert "Re-check for the half-width figure (not the figures above)" in md
     assert "differs from the search's confirmation by Monte Carlo error" in md
+
+
+def test_exact_two_group_paragraph_reads_plainly(study):
+    def exact_search(m, n, first):
+        return replace(_search(m, n, None, n_first=first), exact=True, coverage=0.9497, coverage_mcse=0.0,
+                       assurance=0.5023, assurance_mcse=0.0, n_b=n)
+
+    s = replace(study, estimand="proportion-diff", methods=("newcombe", "wald"),
+                searches={"newcombe": exact_search("newcombe", 227, 200), "wald": exact_search("wald", 229, 210)},
+                checks={}, rechecks={}, curves={}, formula_checks={}, discrete=True,
+                data={"data_a": {"model": "bernoulli", "p": 0.3}, "data_b": {"model": "bernoulli", "p": 0.22},
+                      "ratio": 1.0})
+    text = methods_paragraph(s)
+    assert text.startswith("We checked the planned sample size by exact computation")
+    assert "smallest such n was 227 in each group (exact coverage 0.9497, assurance 0.5023)" in text
+    assert "needed the fewest observations (n = 227 per group)" in text
+    # the oscillation is explained once for both methods, naming each first n
+    assert text.count("oscillates in n") == 1 and "(Newcombe 200 and Wald 210)" in text
+    assert "No random numbers were needed" in text and "seed" not in text

@@ -501,7 +501,7 @@ def _sweep_table(fr, vary: Sequence[str], value: str) -> tuple[list[str], list[l
         row = [_cell(rec.get(c)) for c in cols]
         for c in result:
             if c == "decision":
-                row.append(STATUS_TEXT.get(_sweep_status(cell_outcome(rec)), "–"))
+                row.append(SHORT_STATUS.get(_sweep_status(cell_outcome(rec)), "–"))
             elif c == "n_range":
                 row.append(_range_cell(rec.get("n_range_low"), rec.get("n_range_high")))
             elif c in ("coverage", "assurance") and c in fr.columns:
@@ -510,6 +510,10 @@ def _sweep_table(fr, vary: Sequence[str], value: str) -> tuple[list[str], list[l
                 row.append(_cell(rec.get(c)))
         rows.append(row)
     return headers, rows
+
+
+#: the decision column of the sweep table (a narrow column; the paragraph below it says more)
+SHORT_STATUS = {"clear": "clear", "undecided": "undecided (budget spent)", "not reached": "not reached (ceiling)"}
 
 
 def _sweep_status(outcome: str) -> str:
@@ -579,9 +583,9 @@ def _sweep_status_text(fr) -> str:
 
     kinds = [_sweep_status(cell_outcome(r)) for r in fr.to_dict("records")]
     counts = {k: kinds.count(k) for k in ("clear", "undecided", "not reached")}
-    return (f"Decisions: {counts['clear']} clear, {counts['undecided']} undecided (replicate budget spent before the "
-            f"Monte Carlo error settled the answer; n is the conservative end and the range shows what remains open), "
-            f"{counts['not reached']} not reached by the search ceiling.")
+    return (f"Decisions: {counts['clear']} clear; {counts['undecided']} undecided (the replicate budget was spent "
+            f"before the Monte Carlo error settled the answer: n is what the search gives, and the range shows what "
+            f"remains open); {counts['not reached']} not reached by the search ceiling n_max.")
 
 
 def _sweep_caption(value: str) -> str:
