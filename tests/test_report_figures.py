@@ -190,3 +190,9 @@ def test_figures_still_render_to_png(tmp_path, fig_name):
            else F.sweep_figure(_frame()))
     data = F.screen_png(fig)
     assert data.startswith(b"\x89PNG") and len(data) < 150_000
+
+
+def test_sweep_summary_counts_decisions():
+    sw = SweepResults(source="x.sqlite", frame=_frame().assign(status="ok", cell_key=range(12)),
+                      vary=("data.cv", "method.interval"), task="search")
+    assert sw.to_dict()["decisions"] == {"clear": 5, "undecided": 4, "not reached": 3}

@@ -488,7 +488,7 @@ SWEEP_COLUMNS = {
 
 def _sweep_table(fr, vary: Sequence[str], value: str) -> tuple[list[str], list[list[str]]]:
     """The sweep's results: varied keys in words, the decision status, the n range, MCSEs rounded."""
-    from simcheck.report.figures import cell_outcome
+    from simcheck.report.text import cell_outcome
 
     cols = [c for c in vary if c in fr.columns]
     search = value == "n"
@@ -579,7 +579,7 @@ def _sweep_doc(sw: SweepResults, figs: dict[str, Path], base: Path, alts: Mappin
 
 
 def _sweep_status_text(fr) -> str:
-    from simcheck.report.figures import cell_outcome
+    from simcheck.report.text import cell_outcome
 
     kinds = [_sweep_status(cell_outcome(r)) for r in fr.to_dict("records")]
     counts = {k: kinds.count(k) for k in ("clear", "undecided", "not reached")}
@@ -601,7 +601,8 @@ def _sweep_caption(value: str) -> str:
 
 def sweep_alt(sw: SweepResults) -> str:
     """Alt text of the sweep figure: what it plots and how the cells ended."""
-    from simcheck.report.figures import cell_outcome, sweep_layout
+    from simcheck.report.figures import sweep_layout
+    from simcheck.report.text import cell_outcome
 
     fr, vary, value = _sweep_plot_frame(sw)
     lay = sweep_layout(fr, vary)

@@ -49,6 +49,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
 from simcheck import __version__
+from simcheck.report.text import cell_outcome
 from simcheck.results import CheckResult, CurveResult
 
 __all__ = ["coverage_figure", "margin_figure", "miss_figure", "sweep_figure", "save_figure", "figure_bytes",
@@ -593,21 +594,6 @@ OUTCOME_STYLE = {
     "not reached": {"marker": "$\u2191$", "markersize": 7.0,
                     "label": "not reached by the search ceiling"},
 }
-
-
-def cell_outcome(row: Mapping[str, Any]) -> str:
-    """'clear', 'undecided', 'undecided-none' (no n) or 'not reached' for one sweep row."""
-    def val(k):
-        v = row.get(k)
-        return None if v is None or (isinstance(v, float) and math.isnan(v)) else v
-
-    n = val("n")
-    undecided = val("decision") == "undecided" or val("stop_reason") == "replicate budget spent"
-    if undecided:
-        return "undecided" if n is not None else "undecided-none"
-    if val("reached") is False or (val("reached") is not None and not bool(val("reached"))) or n is None:
-        return "not reached"
-    return "clear"
 
 
 @dataclass(frozen=True)

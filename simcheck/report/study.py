@@ -17,7 +17,7 @@ from typing import Any, Callable, Mapping, Sequence
 
 from simcheck import __version__
 from simcheck.results import CheckResult, CurveResult, SearchResult
-from simcheck.report.text import decision_status, explain_note, methods_paragraph, n_axis_label, value_axis_label
+from simcheck.report.text import cell_outcome, decision_status, explain_note, methods_paragraph, n_axis_label, value_axis_label
 
 
 Progress = Callable[[str], None] | None
@@ -229,9 +229,20 @@ class SweepResults:
             "vary": list(self.vary),
             "cells": int(self.frame["cell_key"].nunique()) if "cell_key" in self.frame else len(self.frame),
             "rows_ok": int(len(ok)),
+            "decisions": self.decisions(),
             "root_seed": self.meta.get("root_seed"),
             "versions": {k: self.meta.get(f"{k}_version") for k in ("simcheck", "numpy", "scipy", "python")},
         })
+
+    def decisions(self) -> dict[str, int] | None:
+        """How many finished rows of a search sweep are clear, undecided or not reached."""
+        ok = self.frame[self.frame["status"] == "ok"] if "status" in self.frame else self.frame
+        if self.task != "search" or "n" not in ok:
+            return None
+        kinds = [cell_outcome(r) for r in ok.to_dict("records")]
+        return {"clear": kinds.count("clear"),
+                "undecided": sum(k.startswith("undecided") for k in kinds),
+                "not reached": kinds.count("not reached")}
 
     def to_frame(self):
         return self.frame

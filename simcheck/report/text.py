@@ -251,6 +251,21 @@ def decision_status(r) -> str:
     return "clear"
 
 
+def cell_outcome(row: Mapping[str, Any]) -> str:
+    """'clear', 'undecided', 'undecided-none' (no n) or 'not reached' for one sweep row."""
+    def val(k):
+        v = row.get(k)
+        return None if v is None or (isinstance(v, float) and math.isnan(v)) else v
+
+    n = val("n")
+    undecided = val("decision") == "undecided" or val("stop_reason") == "replicate budget spent"
+    if undecided:
+        return "undecided" if n is not None else "undecided-none"
+    if val("reached") is False or (val("reached") is not None and not bool(val("reached"))) or n is None:
+        return "not reached"
+    return "clear"
+
+
 STATUS_TEXT = {
     "clear": "clear",
     "undecided": "undecided (replicate budget spent)",
