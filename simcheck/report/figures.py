@@ -808,12 +808,7 @@ def sweep_figure(
     n_label : str, optional
         y label for ``value="n"`` (say what n counts, e.g. clusters).
     """
-    import pandas as pd
-
-    if not isinstance(frame, pd.DataFrame):
-        raise TypeError(f"frame must be a pandas DataFrame, got {type(frame).__name__}")
-    if value not in frame.columns:
-        raise ValueError(f"frame has no column {value!r}")
+    _check_sweep_frame(frame, value)
     lay = sweep_layout(frame, vary, max_panels)
     # room for the panels plus a legend of about (lines + 4) entries in two columns
     legend_rows = math.ceil((len(lay.line_levels) + 4) / 2)
@@ -827,7 +822,9 @@ def sweep_figure(
     drawn: set[str] = set()
     with rc_context(STYLE):
         fig = _new_figure(width, height)
-        axes = np.atleast_1d(fig.subplots(lay.nrows, lay.ncols, sharey=True, sharex=True, squeeze=False)).ravel()
+        # panels of different confidence levels get their own coverage scale
+        share_y = value == "n" or conf_uniform
+        axes = np.atleast_1d(fig.subplots(lay.nrows, lay.ncols, sharey=share_y, sharex=True, squeeze=False)).ravel()
         for j, key in enumerate(lay.panels):
             ax, sub = axes[j], _panel_rows(frame, lay, key)
             if value == "coverage":
@@ -841,6 +838,15 @@ def sweep_figure(
         _sweep_axes_finish(fig, axes, frame, lay, value, value_label)
         _sweep_legend(fig, axes[0], drawn)
     return fig
+
+
+def _check_sweep_frame(frame, value: str) -> None:
+    import pandas as pd
+
+    if not isinstance(frame, pd.DataFrame):
+        raise TypeError(f"frame must be a pandas DataFrame, got {type(frame).__name__}")
+    if value not in frame.columns:
+        raise ValueError(f"frame has no column {value!r}")
 
 
 def _sweep_value_label(value: str, n_label: str | None) -> str:
