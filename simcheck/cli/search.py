@@ -8,7 +8,7 @@ from typing import Any
 
 from simcheck import CAUTION
 from simcheck.cli.common import add_json, add_sim_overrides, emit_json, table
-from simcheck.cli.check import CLI_FIELDS, Progress, add_method_option, run_seed
+from simcheck.cli.check import CLI_FIELDS, SearchProgress, add_method_option, run_seed
 from simcheck.errors import Collector
 
 BUDGET_MIN, BUDGET_MAX = 100, 10**12
@@ -54,7 +54,7 @@ def run(args: argparse.Namespace) -> int:
     c.raise_if_any()
     scenario = load_scenario(args.scenario, overrides or None)
     seed = run_seed(scenario, args.seed)
-    with Progress() as prog:
+    with SearchProgress(budget=overrides.get("simulation.budget", getattr(scenario, "budget", None))) as prog:
         res = run_task(scenario, "search", n_min=args.n_min, n_max=args.n_max, method=args.method,
                        replicates=args.replicates, seed=seed, progress=prog, fields=CLI_FIELDS)
     if args.json:
