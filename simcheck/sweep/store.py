@@ -686,3 +686,59 @@ def cells_frame(path: str | Path):
     frame = pd.DataFrame.from_records(records, columns=["status"] + vary_cols + result_cols + tail)
     frame.attrs["corrupt_cells"] = corrupt
     return frame
+
+
+def clear_writer(path: str | Path) -> tuple[int, str, str] | None:
+    """Remove the writer row a sweep left (``simcheck store unlock``); the row removed, or None.
+
+    Refuses (one line) while that sweep is still running on this host.
+    """
+    p = Path(path)
+    open_readonly(p, "FILE.sqlite").close()  # the same checks and messages as export
+    with SweepStore(p) as st:
+        row = st.conn.execute("SELECT pid, host, started_at FROM writer WHERE id = 1").fetchone()
+        if row is None:
+            return None
+        if row[1] == socket.gethostname() and pid_alive(int(row[0])):
+            raise InputError("FILE.sqlite", f"{p} is being written by a running sweep (process {row[0]}); stop it first")
+        with st.transaction() as conn:
+            conn.execute("DELETE FROM writer WHERE id = 1")
+        return int(row[0]), str(row[1]), str(row[2])
+
+
+def input_files(path: str | Path) -> list[Path]:
+    """The files a store's sweep read: the sweep file, its base scenario and the data files its scenarios name.
+
+    Relative data-file names are resolved against the base scenario's folder
+    (and, to be safe, the sweep file's). Used so that ``export`` never writes
+    over an input.
+    """
+    conn = open_readonly(path)
+    try:
+        meta = dict(conn.execute("SELECT key, value FROM meta"))
+        names: set[str] = set()
+        for (text,) in conn.execute("SELECT DISTINCT scenario_json FROM cells"):
+            try:
+                _file_names(json.loads(text), names)
+            except (TypeError, ValueError):
+                continue
+    finally:
+        conn.close()
+    out = [Path(meta[k]) for k in ("sweep_path", "base_path") if meta.get(k)]
+    folders = {q.parent for q in out}
+    for name in names:
+        f = Path(name)
+        out.extend([f] if f.is_absolute() else [d / f for d in folders] or [f])
+    return out
+
+
+def _file_names(value: Any, out: set[str]) -> None:
+    if isinstance(value, dict):
+        for k, v in value.items():
+            if k == "file" and isinstance(v, str):
+                out.add(v)
+            else:
+                _file_names(v, out)
+    elif isinstance(value, list):
+        for v in value:
+            _file_names(v, out)
