@@ -172,14 +172,15 @@ def _execute(cell_func: CellFunc, cell_key: str, scenario: Any, task: str, kwarg
         )
 
 
-def _worker_init() -> None:
+def _worker_init(driver: int | None = None) -> None:
     # Ctrl-C on a terminal reaches the whole process group; only the driver should
     # react (it stops the workers and keeps what is stored), not every worker with a traceback.
     import signal
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     _one_thread_per_worker()
-    _watch_driver(os.getppid())
+    # the driver's pid comes from the driver: a worker that starts after the driver died must notice too
+    _watch_driver(os.getppid() if driver is None else driver)
 
 
 def _watch_driver(driver: int) -> None:
@@ -188,10 +189,9 @@ def _watch_driver(driver: int) -> None:
     import threading
 
     def watch() -> None:
-        while True:
+        while os.getppid() == driver:
             time.sleep(WATCH_SECONDS)
-            if os.getppid() != driver:
-                os._exit(1)
+        os._exit(1)
 
     threading.Thread(target=watch, name="simcheck-driver-watch", daemon=True).start()
 
@@ -436,8 +436,10 @@ def _launch(spec: SweepSpec, todo: list[Cell], func: CellFunc, jobs: int, backen
         config = joblib.parallel_config(backend="dask")
         n_jobs = -1  # every worker thread of the cluster
     else:
-        config = joblib.parallel_config(backend="loky", initializer=_worker_init)
-        n_jobs = min(jobs, len(todo))
+        config = joblib.parallel_config(backend="loky", initializer=_worker_init, initargs=(os.getpid(),))
+        # --jobs > 1 always means worker processes (joblib runs n_jobs=1 in the driver itself),
+        # so a cell that crashes its process cannot take the driver with it, even when it runs last
+        n_jobs = 1 if jobs == 1 else max(2, min(jobs, len(todo)))
     with config:
         # batch_size=1: each cell comes back (and is stored) on its own, as soon as it is done
         parallel = joblib.Parallel(n_jobs=n_jobs, return_as="generator_unordered", batch_size=1, pre_dispatch="2*n_jobs")
