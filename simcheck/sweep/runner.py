@@ -330,11 +330,18 @@ def run_sweep(
             for line in st.notices:
                 notice(line)
             st.notices.clear()
-            st.acquire()
-            for line in st.notices:
-                notice(line)
-            st.bind(sweep_id, binding)
-            return _drive(spec, cells, st, func, jobs, backend, on_start, on_cell, notice)
+            try:
+                st.acquire()
+                for line in st.notices:
+                    notice(line)
+                st.bind(sweep_id, binding)
+                return _drive(spec, cells, st, func, jobs, backend, on_start, on_cell, notice)
+            except sqlite3.DatabaseError as exc:
+                err = store_write_error(st.path, exc)
+                raise type(err)(
+                    "--store", f"{err.problems[0].message}; {st.cells_count()} of {len(cells)} cells are stored; "
+                    "free space (or raise the limit) and run the same command again"
+                ) from None
     finally:
         if client is not None:
             client.close()
