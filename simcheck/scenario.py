@@ -444,7 +444,8 @@ def validate(
     data = table.get("data")
     strata = None
     # population.file supplies the values: [data] is then neither needed nor used
-    from_file = isinstance(pop_t, dict) and "file" in pop_t and estimand not in TWO_SAMPLE
+    from_file = (isinstance(pop_t, dict) and "file" in pop_t and estimand not in TWO_SAMPLE
+                 and "strata" not in table)
     notices: list[str] = []
     if "allocation" in table and "strata" not in table:
         c.add("allocation", "only with [[strata]] tables")

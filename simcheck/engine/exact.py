@@ -102,7 +102,9 @@ def _weighted_quantile(sorted_values: np.ndarray, sorted_weights: np.ndarray, q:
     total = cum[-1]
     if total <= 0:
         return float("nan")
-    idx = int(np.searchsorted(cum / total, q, side="left"))
+    # the allowance keeps a cumulative probability equal to q up to rounding at q,
+    # as the rank ceil(m q) does on the simulated paths (one definition)
+    idx = int(np.searchsorted(cum / total, q - 1e-12, side="left"))
     return float(sorted_values[min(idx, sorted_values.size - 1)])
 
 

@@ -268,7 +268,8 @@ class Accumulator:
         sums are taken per block and added in block order at the end, so they
         do not depend on how blocks were grouped into chunks. ``degenerate``
         (optional, bool of shape (b, k)) flags intervals a method declares
-        degenerate besides those of zero width.
+        degenerate besides those of zero width; like those, they count as
+        degenerate when they miss the true value.
         """
         # bool sums along axis 0 are about twice as fast as count_nonzero(axis=0)
         below = (hi < truth).sum(axis=0)
@@ -323,9 +324,10 @@ class Accumulator:
         else:
             # zero width and missing the truth; zero width that covers (a census
             # with the finite population correction) is exact, not degenerate
-            zero = (hw <= 0) & missed()
+            zero = hw <= 0
             if flagged is not None:
                 zero |= flagged
+            zero &= missed()
             self.degenerate += zero.sum(axis=0)
         if self.margin is not None:
             within = hw <= self.margin * MARGIN_RTOL  # NaN compares False
