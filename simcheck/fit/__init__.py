@@ -172,7 +172,9 @@ def _as_values(values: Any, field: str) -> tuple[np.ndarray, int]:
         raise InputError(field, "holds infinite values")
     if x.size < 3:
         raise InputError(field, f"has {x.size} value{'s' if x.size != 1 else ''}; at least 3 are needed to fit a model")
-    if float(x.std()) == 0.0:
+    with np.errstate(over="ignore", invalid="ignore"):  # huge values: the fits say so, not numpy
+        spread = float(x.std())
+    if spread == 0.0:
         raise InputError(field, f"all {x.size} values are {x[0]:g}; a constant cannot be fitted")
     return x, int(missing.sum())
 
