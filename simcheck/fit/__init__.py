@@ -360,9 +360,11 @@ def fit(
         notes.append("no beta fitted: give lower and upper for a bounded range")
     if x.size < 30:
         notes.append(f"with n = {x.size} the ranking is weak: several models usually fit a small pilot equally well")
+    with np.errstate(over="ignore", invalid="ignore"):
+        mean, sd = float(x.mean()), float(x.std(ddof=1))
     return FitResult(
         n=int(x.size), source=source, best=models[0].model, models=models, whole_numbers=whole,
-        zeros=int(np.sum(x == 0.0)), mean=float(x.mean()), sd=float(x.std(ddof=1)), notes=tuple(notes), values=x,
+        zeros=int(np.sum(x == 0.0)), mean=mean, sd=sd, notes=tuple(notes), values=x,
     )
 
 
