@@ -253,7 +253,7 @@ def _half_width_check(study: StudyResults, m: str):
 
 
 def _captions_study(study: StudyResults, names: Sequence[str]) -> dict[str, str]:
-    band = "Shading with thin outlines: estimate ± 2 MCSE (about a 95% Monte Carlo band)."
+    band = "Shading: estimate ± 2 MCSE (about a 95% Monte Carlo band)."
     low = study.confidence - study.coverage_tolerance
     re = [m for m in study.methods if _half_width_check(study, m) is study.rechecks.get(m) and m in study.rechecks]
     recheck = ""

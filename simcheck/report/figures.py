@@ -18,9 +18,8 @@ Style choices, and why:
   named font (DejaVu Sans, which matplotlib ships);
 * one colour, marker and line style per interval method, the same in every
   figure (:data:`METHOD_STYLES`), so a method is recognised across figures;
-* the grey accepted-coverage band is hatched and each method's Monte Carlo
-  band has an outline in the method's colour, so the two stay apart in
-  greyscale print;
+* the grey accepted-coverage band is hatched while each method's Monte Carlo
+  band is a plain light fill, so the two stay apart in greyscale print;
 * no titles inside the figure (captions belong to the document), no grids
   beyond faint major lines, no decoration.
 
@@ -246,11 +245,10 @@ def _vline(ax, x: float | None, *, style: str, colour: str, label: str | None):
 
 
 def _band(ax, x, centre, half, colour) -> None:
-    """Monte Carlo band: light fill plus a thin outline in the series colour (reads in greyscale)."""
+    """Monte Carlo band: a light plain fill in the series colour. (No outline: on a narrow
+    band the outline would fill the gaps of a dashed line and hide the method's line style.)"""
     if np.any(np.nan_to_num(half) > 0):
         ax.fill_between(x, centre - half, centre + half, facecolor=colour, alpha=BAND_ALPHA, linewidth=0, zorder=1)
-        for edge in (centre - half, centre + half):
-            ax.plot(x, edge, color=colour, linewidth=0.4, alpha=0.8, zorder=1.1, label="_band edge")
 
 
 def _accept_band(ax, low: float, high: float) -> None:
