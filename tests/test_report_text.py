@@ -182,3 +182,14 @@ def test_exact_two_group_paragraph_reads_plainly(study):
     # the oscillation is explained once for both methods, naming each first n
     assert text.count("oscillates in n") == 1 and "(Newcombe 200 and Wald 210)" in text
     assert "No random numbers were needed" in text and "seed" not in text
+
+
+def test_strata_paragraph_names_the_allocation_and_rounds_the_design_effect(study):
+    data = {"strata": [{"name": "harbour", "size": 4200, "data": {"model": "lognormal", "mean": 120.0, "cv": 0.9}},
+                       {"name": "farms", "size": 2200, "data": {"model": "normal", "mean": 80.0, "sd": 20.0}}],
+            "allocation": {"rule": "neyman"}}
+    s = replace(study, data=data, formula={"multiplier_kind": "z", "design_effect": 0.709872})
+    text = methods_paragraph(s)
+    assert ("The population was assumed to consist of 2 strata, each sampled without replacement and the total n "
+            "allocated by Neyman allocation: harbour (N = 4,200), a lognormal distribution") in text
+    assert "design effect 0.71)" in text and "0.709872" not in text

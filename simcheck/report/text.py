@@ -223,8 +223,9 @@ def strata_text(data: Mapping[str, Any]) -> str:
     """'3 strata sampled without replacement: north (N = 4,000), a lognormal ...; ...' from Design.to_dict()."""
     parts = [f"{s['name']} (N = {s['size']:,}), {describe_model(s['data'])}" for s in data["strata"]]
     rule = data.get("allocation", {}).get("rule", "proportional")
-    return (f"{len(parts)} strata, each sampled without replacement and the total n allocated by the "
-            f"{rule} rule: " + "; ".join(parts))
+    rule = {"neyman": "Neyman", "optimum": "optimum (cost-weighted)"}.get(rule, rule)
+    return (f"{len(parts)} {'stratum' if len(parts) == 1 else 'strata'}, each sampled without replacement and the total n allocated by "
+            f"{rule} allocation: " + "; ".join(parts))
 
 
 def model_text(data: Mapping[str, Any]) -> str:
@@ -312,7 +313,8 @@ def _n_unit(s: StudyResults) -> str:
 
 
 def _design_sentences(s: StudyResults) -> list[str]:
-    parts = [f"Data were assumed to follow {model_text(s.data)}."]
+    lead = "The population was assumed to consist of" if "strata" in s.data else "Data were assumed to follow"
+    parts = [f"{lead} {model_text(s.data)}."]
     if "clusters" in s.data:
         cl = s.data["clusters"]
         size = cl.get("size", cl.get("size_mean"))
@@ -351,7 +353,7 @@ def _formula_sentence(s: StudyResults) -> str:
     f = s.formula or {}
     kind = f.get("multiplier_kind", "z")
     deff = f.get("design_effect")
-    extra = f", design effect {fmt_g(deff)}" if deff not in (None, 1, 1.0) else ""
+    extra = f", design effect {float(deff):.3g}" if deff not in (None, 1, 1.0) else ""
     fc = [(m, s.formula_checks[m]) for m in s.methods if m in s.formula_checks]
     nf_unit = " clusters" if _n_unit(s) == "clusters" else ""
     text = (f"The closed-form formula ({kind} multiple{extra}) gives n = {s.n_formula:,}{nf_unit} for a "
