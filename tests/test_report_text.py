@@ -162,6 +162,7 @@ def test_summary_and_csv_carry_decision_criterion_and_notes(study, tmp_path):
     md = files.markdown.read_text(encoding="utf-8")
     assert "undecided (budget spent): 713" in md and "161 (clear)" in md
     assert "Re-check for the half-width figure (not the figures above)" in md
+    assert "t: undecided, n found 713; cox: n found 161" in md  # the coverage figure's alt text
     assert "differs from the search's confirmation by Monte Carlo error" in md
 
 

@@ -279,7 +279,8 @@ def _captions_study(study: StudyResults, names: Sequence[str]) -> dict[str, str]
 def _alt_study(study: StudyResults, name: str) -> str:
     """Alt text: what the figure shows, in numbers, for a reader who cannot see it."""
     names = join_words([f"the {m} interval" for m in study.methods if m in study.curves])
-    found = "; ".join(f"{m}: n found {s.n:,}" if s.n is not None else f"{m}: {decision_status(s)}"
+    found = "; ".join((f"{m}: {'undecided, ' if decision_status(s) == 'undecided' else ''}n found {s.n:,}"
+                       if s.n is not None else f"{m}: {STATUS_TEXT.get(decision_status(s), '')}")
                       for m, s in study.searches.items())
     if name == "coverage":
         lo = [float(np.nanmin(c.column("coverage"))) for c in study.curves.values() if c.rows]
