@@ -118,7 +118,7 @@ def test_sweep_table_has_status_range_words_and_rounded_mcse():
     assert by[("1.2", "t")][4] == "350–520"
     assert by[("2.4", "t")][2] == "not reached (ceiling)"
     assert by[("0.6", "t")][2] == "clear"
-    cov = by[("0.6", "t")][headers.index("Coverage")]
+    cov = by[("0.6", "t")][headers.index("Coverage at n found (n_max if not reached)")]
     assert cov == "0.951 (MCSE 0.002)"  # digits to the MCSE's first significant figure
 
 

@@ -159,7 +159,7 @@ class _Doc:
             elif kind == "table":
                 headers, rows = b
                 head = "".join(f"<th>{e(h)}</th>" for h in headers)
-                trs = "".join("<tr>" + "".join(f"<td>{e(str(c), quote=False)}</td>" for c in r) + "</tr>" for r in rows)
+                trs = "".join("<tr>" + "".join(f"<td>{_inline(str(c))}</td>" for c in r) + "</tr>" for r in rows)
                 # a wide table scrolls inside its box instead of being cut at narrow widths
                 body.append(f'<div class="table-scroll"><table><thead><tr>{head}</tr></thead>'
                             f"<tbody>{trs}</tbody></table></div>")
@@ -486,9 +486,9 @@ SWEEP_COLUMNS = {
     "n": "n found",
     "n_range": "n consistent with MC error",
     "n_formula": "Formula n",
-    "coverage": "Coverage",
+    "coverage": "Coverage at n found (n_max if not reached)",
     "coverage_mcse": "Coverage MCSE",
-    "assurance": "Assurance",
+    "assurance": "Assurance at the same n",
     "assurance_mcse": "Assurance MCSE",
     "miss_low": "Wholly below",
     "miss_high": "Wholly above",
@@ -504,8 +504,8 @@ def _sweep_table(fr, vary: Sequence[str], value: str) -> tuple[list[str], list[l
     search = value == "n"
     result = (["decision", "n", "n_range", "n_formula", "coverage", "assurance", "replicates_used"] if search
               else ["coverage", "assurance", "miss_low", "miss_high"])
-    headers = [key_label(c) for c in cols] + [SWEEP_COLUMNS[c] for c in result
-                                              if c in ("decision", "n_range") or c in fr.columns]
+    names = SWEEP_COLUMNS if search else {**SWEEP_COLUMNS, "coverage": "Coverage", "assurance": "Assurance"}
+    headers = [key_label(c) for c in cols] + [names[c] for c in result if c in ("decision", "n_range") or c in fr.columns]
     rows = []
     for rec in fr.to_dict("records"):
         row = [_cell(rec.get(c)) for c in cols]
@@ -603,10 +603,11 @@ def _sweep_caption(value: str) -> str:
         return ("Coverage at the fixed n across the varied parameters (± 2 MCSE error bars); hatched grey band: "
                 "accepted coverage; one panel per combination of the remaining parameters.")
     return ("Required n across the varied parameters; one panel per combination of the remaining parameters. "
-            "Filled markers: clear answers; open circles with a bar: undecided (replicate budget spent), at the "
-            "conservative n with the n range; open triangles above the data: not reached by the search ceiling. "
-            "Black crosses on a dotted line: formula n. Markers of different methods are shifted sideways a little "
-            "so they do not hide each other.")
+            "Filled markers: clear answers. Open markers with a vertical bar: undecided (the replicate budget was "
+            "spent first), drawn at the n the search gives, the bar spanning the n range still open. A question "
+            "mark at the top: undecided with no n confirmed yet. An arrow at the top: not reached by the search "
+            "ceiling n_max. Black crosses on a dotted line: formula n. Markers of different methods are shifted "
+            "sideways a little so they do not hide each other.")
 
 
 def sweep_alt(sw: SweepResults) -> str:
