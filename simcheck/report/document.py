@@ -516,6 +516,8 @@ def _sweep_table(fr, vary: Sequence[str], value: str) -> tuple[list[str], list[l
                 row.append(_range_cell(rec.get("n_range_low"), rec.get("n_range_high")))
             elif c in ("coverage", "assurance") and c in fr.columns:
                 row.append(_estimate_cell(rec.get(c), rec.get(f"{c}_mcse"), rec.get("exact")))
+            elif c in ("miss_low", "miss_high") and c in fr.columns:
+                row.append(f"{float(rec[c]):.4f}" if _finite(rec.get(c)) else "–")
             elif c in fr.columns:
                 row.append(_cell(rec.get(c)))
         rows.append(row)
