@@ -349,7 +349,9 @@ estimand = "mean"
 confidence = 0.95
 margin = 2.0
 assurance = 0.5
-coverage_tolerance = 0.01
+# 0.03: with 1,000 replicates a coverage target of 0.94 cannot be told from the t interval's
+# plateau near 0.943, so the search would (rightly) end undecided
+coverage_tolerance = 0.03
 [data]
 model = "gamma"
 mean = 10.0

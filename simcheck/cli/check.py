@@ -69,9 +69,15 @@ def run(args: argparse.Namespace) -> int:
 
 
 def run_seed(scenario, seed: int | None) -> int:
-    """The run's root seed; when neither --seed nor the file gives one, draw it and say so."""
+    """The run's root seed; when neither --seed nor the file gives one, draw it and say so.
+
+    Also prints the scenario's notices (implausible values, settings not used)
+    on stderr: every computing command calls this right after loading.
+    """
     from simcheck.tasks import resolve_seed
 
+    for t in getattr(scenario, "notices", ()):
+        note(f"simcheck: {t}")
     root, drawn = resolve_seed(scenario, seed)
     if drawn:
         note(f"simcheck: no seed given; using seed {root} (add --seed {root} to repeat this run)")
@@ -150,15 +156,13 @@ def report(scenario, rows: Sequence[Any]) -> str:
     elif any(r.exact for r in rows):
         lines.append("* exact: computed by enumeration or exact law, not simulation (MCSE 0).")
     lines.append(f"coverage = share of intervals that contain the true value (nominal {d.confidence:.4g}); "
-                 f"assurance = share with half-width <= {_g(d.margin, 6)}.")
+                 f"assurance = share with half-width <= {_g(d.margin, 6)} "
+                 "(zero-width intervals that miss the true value do not count).")
     notes: list[str] = []
     for r in rows:
-        for t in r.notes:
+        for t in r.notes:  # zero-width (degenerate) intervals are named in the notes
             if t not in notes:
                 notes.append(t)
-        if r.degenerate:
-            t = f"n = {r.n}: {r.degenerate} replicates gave a degenerate interval"
-            notes.append(t)
     for t in notes:
         lines.append(f"note: {t}")
     lines.append("")

@@ -93,6 +93,21 @@ def resume_command(args: argparse.Namespace) -> str:
     return " ".join(shlex.quote(str(p)) for p in parts)
 
 
+class _Checking:
+    """Progress of the check of every cell before the run (only for grids that take a while)."""
+
+    def __init__(self) -> None:
+        self.t0 = self.last = time.monotonic()
+
+    def __call__(self, done: int, total: int) -> None:
+        now = time.monotonic()
+        if done == 0 and total >= 2000:
+            note(f"sweep: checking all {total:,} cells before anything runs")
+        elif now - self.last >= 10.0:
+            self.last = now
+            note(f"sweep: checked {done:,} of {total:,} cells")
+
+
 def _duration(seconds: float) -> str:
     if seconds != seconds:
         return "?"
@@ -153,6 +168,7 @@ def run(args: argparse.Namespace) -> int:
         summary = run_sweep(
             args.sweep, args.store, jobs=args.jobs, backend=backend, scheduler=args.scheduler,
             on_start=progress.start, on_cell=on_cell,
+            on_notice=lambda line: note(f"sweep: note: {line}"), on_validate=_Checking(),
         )
     except SweepInterrupted as exc:
         progress.close()

@@ -369,7 +369,8 @@ def run_study(scenario, *, seed: int | None = None, progress: Progress = None, p
     say(f"formula n: {n_formula if n_formula is not None else 'not available for this design'}")
     say(f"searching n for {', '.join(methods)} ...")
     common = dict(assurance=scenario.assurance, coverage_tolerance=scenario.coverage_tolerance, replicates=R,
-                  rng=seed, n_min=scenario.n_min, n_max=scenario.n_max, budget=getattr(scenario, "budget", None), path=path)
+                  rng=seed, n_min=scenario.n_min, n_max=scenario.n_max, budget=getattr(scenario, "budget", None), path=path,
+                  window=getattr(scenario, "window", 1.25))
     searches: dict[str, SearchResult] = {}
     best = None
     if len(methods) > 1:
