@@ -76,8 +76,17 @@ def test_paragraph_says_undecided_before_the_number(study):
     i = text.index("With the Student t interval")
     assert text.index("undecided", i) < text.index("713", i)
     assert "About 400,000 replicates per n would likely settle it." in text
-    # the criterion in words
-    assert "N is the smallest n from which the targets hold at every larger n checked." in text
+    # the criterion in words, as a sentence
+    assert "The answer n is the smallest n from which the targets hold at every larger n checked." in text
+
+
+def test_criterion_noun_phrase_becomes_a_sentence():
+    from simcheck.report.text import criterion_sentence
+
+    got = criterion_sentence("the smallest n at which coverage meets the target at every larger n checked; "
+                             "n_range holds the n the Monte Carlo error cannot tell from the boundary")
+    assert got == ("The answer n is the smallest n at which coverage meets the target at every larger n checked; "
+                   "the n range holds the n the Monte Carlo error cannot tell from the boundary.")
 
 
 def test_paragraph_quotes_the_search_confirmation_with_its_replicates(study):
@@ -101,7 +110,7 @@ def test_paragraph_wiggle_is_noise_for_continuous_and_oscillation_for_discrete(s
     text = methods_paragraph(study)
     assert "Monte Carlo noise" in text and "oscillates" not in text
     disc = methods_paragraph(replace(study, discrete=True))
-    assert "Because the data are discrete, coverage oscillates in n" in disc
+    assert "With the Student t interval, because the data are discrete, coverage oscillates in n" in disc
     note = study.searches["t"].notes[0]
     assert "oscillates" not in explain_note(note, discrete=False) and "Monte Carlo noise" in explain_note(note, False)
     assert explain_note(note, discrete=True) == note

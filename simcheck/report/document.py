@@ -33,6 +33,7 @@ from simcheck.report.study import Progress, StudyResults, SweepResults, is_store
 from simcheck.report.text import (
     ESTIMAND_TEXT,
     STATUS_TEXT,
+    criterion_sentence,
     decision_status,
     key_label,
     fmt_estimate,
@@ -334,7 +335,7 @@ def _results_table(doc: _Doc, s: StudyResults) -> None:
     doc.table(headers, rows)
     crit = [t for t in dict.fromkeys(s.method_row(m)["criterion_text"] for m in s.methods) if t]
     if crit:
-        doc.para("Criterion: " + " ".join(crit))
+        doc.para("Criterion: " + " ".join(criterion_sentence(t) for t in crit))
     doc.para("Coverage and assurance at the n found are the search's own confirmation figures (fresh samples, "
              "independent of the exploration). An undecided answer is the n the search gives when its "
              "replicate budget ran out before the Monte Carlo error settled it; the n range shows how far the Monte Carlo error leaves it open.")

@@ -382,9 +382,21 @@ def _criterion_sentences(s: StudyResults) -> list[str]:
         t = (getattr(r, "criterion_text", "") or "").strip()
         if t and t not in texts:
             texts.append(t)
-    for t in texts:
-        parts.append(t[0].upper() + t[1:] + ("" if t.endswith(".") else "."))
+    parts += [criterion_sentence(t) for t in texts]
     return parts
+
+
+def criterion_sentence(text: str) -> str:
+    """The search's criterion as a sentence: 'The answer n is the smallest n at which ...'."""
+    t = " ".join(str(text).split()).rstrip(".").replace("n_range", "the n range")
+    if not t:
+        return ""
+    if t.lower().startswith("n is "):
+        t = t[5:]
+    if t.lower().startswith(("the smallest", "the largest", "smallest", "the first")):
+        t = "the " + t if t.lower().startswith("smallest") else t
+        return f"The answer n is {t[0].lower() + t[1:]}."
+    return t[0].upper() + t[1:] + "."
 
 
 def _figures_text(s: StudyResults, m: str, r) -> str:
@@ -440,8 +452,11 @@ def _wiggle_sentences(s: StudyResults) -> list[str]:
     if not late:
         return []
     if len(late) == 1 or len(s.methods) == 1:
-        _m, r = late[0]
-        return [wiggle_sentence(r.n_first, r.n, s.discrete, r.exact)]
+        m, r = late[0]
+        text = wiggle_sentence(r.n_first, r.n, s.discrete, r.exact)
+        if len(s.methods) > 1:
+            text = f"With the {method_text(m)} interval, {text[0].lower() + text[1:]}"
+        return [text]
     firsts = join_words([f"{method_text(m)} {r.n_first:,}" for m, r in late])
     if s.discrete:
         how = "exactly" if all(r.exact for _, r in late) else "by simulation"
