@@ -165,7 +165,7 @@ def test_summary_and_csv_carry_decision_criterion_and_notes(study, tmp_path):
     assert summary["decision"] == "undecided" and summary["fewest_n"] == ["cox"]
     table = pd.read_csv(files.table)
     assert {"decision", "criterion", "criterion_text", "stop_reason", "notes", "replicates_used",
-            "recheck_coverage"} <= set(table.columns)
+            "recheck_coverage", "miss_low_mcse", "miss_high_mcse", "degenerate_share"} <= set(table.columns)
     assert list(table["decision"]) == ["undecided", "clear"]
     assert "Monte Carlo noise" in table.loc[0, "notes"]
     md = files.markdown.read_text(encoding="utf-8")
