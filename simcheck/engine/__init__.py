@@ -36,6 +36,7 @@ from simcheck.engine.simple import CHUNK_BYTES, PATHS, block_size, piece_rows, u
 from simcheck.errors import InputError
 from simcheck.intervals import get_method
 from simcheck.results import CheckResult, CurveResult
+from simcheck.threads import thread_count
 
 Progress = Callable[[int, int], None] | None
 
@@ -60,6 +61,7 @@ def check(
     path: str = "auto",
     progress: Progress = None,
     chunk_bytes: int = CHUNK_BYTES,
+    threads: int | None = None,
 ) -> CheckResult:
     """Coverage, misses, achieved margin and assurance of ``design`` at ``n``.
 
@@ -79,6 +81,9 @@ def check(
         ``progress(done, total)`` called after each chunk of replicates.
     chunk_bytes : int
         Memory budget of one chunk's draw buffer; does not change results.
+    threads : int, optional
+        Threads for this computation; default ``SIMCHECK_THREADS``, else the
+        cores available to the process. Does not change results.
 
     Returns
     -------
@@ -88,7 +93,7 @@ def check(
     ----------
     .. [1] Morris, White & Crowther (2019), Statistics in Medicine 38:2074-2102.
     """
-    rows = _evaluate(design, [n], replicates, rng, path, progress, chunk_bytes, curve=False)
+    rows = _evaluate(design, [n], replicates, rng, path, progress, chunk_bytes, curve=False, threads=threads)
     return rows[0]
 
 
@@ -101,6 +106,7 @@ def curve(
     path: str = "auto",
     progress: Progress = None,
     chunk_bytes: int = CHUNK_BYTES,
+    threads: int | None = None,
 ) -> CurveResult:
     """:func:`check` for every n in ``n_values`` (sorted, duplicates dropped).
 
@@ -111,7 +117,7 @@ def curve(
     ns = sorted({_as_n(v) for v in n_values})
     if not ns:
         raise InputError("n", "no sample sizes to evaluate")
-    rows = _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve=True)
+    rows = _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve=True, threads=threads)
     return CurveResult(rows=tuple(rows))
 
 
@@ -140,7 +146,7 @@ def _as_n(v) -> int:
     return int(v)
 
 
-def _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve):
+def _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve, threads=None):
     if path not in PATHS:
         raise InputError("simulation.path", f"must be one of {', '.join(PATHS)}, got {path!r}")
     if isinstance(replicates, bool) or not isinstance(replicates, (int, np.integer)) or replicates < 1:
@@ -156,4 +162,5 @@ def _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve):
                 raise InputError("simulation.ratio", f"gives group b only {design.n_b(n)} observations at n = {n}")
     if method.kind == "cluster" and design.clusters is None:
         raise InputError("method.interval", f"{design.method!r} needs a [clusters] table (n then counts clusters)")
-    return kind_for(design).evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve)
+    n_threads = thread_count(threads)
+    return kind_for(design).evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve, n_threads)
