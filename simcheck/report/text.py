@@ -429,7 +429,7 @@ def _result_sentences(s: StudyResults, m: str) -> list[str]:
         if r.best_coverage is not None and r.best_coverage_n is not None:
             txt += f" (highest coverage {r.best_coverage:.3f} at n = {r.best_coverage_n:,})"
         return [txt + "."]
-    group = ("" if r.n_b is None else f" in each group" if r.n_b == r.n
+    group = ("" if r.n_b is None else " in each group" if r.n_b == r.n
              else f" in group a and {r.n_b:,} in group b")
     if status == "undecided":
         txt = (f"{who} search was undecided: its replicate budget was spent before the Monte Carlo error settled "
