@@ -145,6 +145,9 @@ def test_export_from_a_read_only_folder(tmp_path):
             assert pd.read_csv(out)["cell_key"].nunique() == 4
         r = unprivileged(["store", "check", str(archive / "w.sqlite")])
         assert r.returncode == 0, r.stderr
+        r = unprivileged(["report", str(archive / "w.sqlite"), "--out", str(tmp_path / "rep")])
+        assert r.returncode == 0, r.stderr
+        assert any((tmp_path / "rep").iterdir())
     finally:
         archive.chmod(0o755)
 
