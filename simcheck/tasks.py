@@ -178,6 +178,7 @@ def run_task(
         n_max=hi,
         budget=scenario.budget,
         progress=progress,
+        window=scenario.window,
     )
     if method is None and len(scenario.methods) > 1:
         fn = search.compare

@@ -7,7 +7,7 @@ import signal
 import sys
 import time
 
-from simcheck.cli.common import add_json, emit_json, note
+from simcheck.cli.common import add_json, emit_json, error_line, note
 
 # Plain progress lines (stderr not a terminal) at most this often, in seconds.
 PLAIN_EVERY = 30.0
@@ -77,6 +77,20 @@ class _Progress:
         if self.bar is not None:
             self.bar.close()
             self.bar = None
+
+
+def resume_command(args: argparse.Namespace) -> str:
+    """The command that resumes this sweep: the same arguments, --jobs and the backend included."""
+    import shlex
+
+    parts = ["simcheck", "sweep", args.sweep, "--store", args.store]
+    if getattr(args, "jobs", 1) != 1:
+        parts += ["--jobs", str(args.jobs)]
+    if getattr(args, "backend", None):
+        parts += ["--backend", args.backend]
+    if getattr(args, "scheduler", None):
+        parts += ["--scheduler", args.scheduler]
+    return " ".join(shlex.quote(str(p)) for p in parts)
 
 
 class _Checking:
@@ -149,7 +163,7 @@ def run(args: argparse.Namespace) -> int:
         note("sweep: note: --jobs is not used with --backend dask; every worker thread of the cluster runs cells")
     _version_notice(args.store)
     old = signal.signal(signal.SIGTERM, _sigterm)
-    resume = f"run the same command again to resume: simcheck sweep {args.sweep} --store {args.store}"
+    resume = f"run the same command again to resume: {resume_command(args)}"
     try:
         summary = run_sweep(
             args.sweep, args.store, jobs=args.jobs, backend=backend, scheduler=args.scheduler,
@@ -159,14 +173,14 @@ def run(args: argparse.Namespace) -> int:
     except SweepInterrupted as exc:
         progress.close()
         s = exc.summary
-        note(f"simcheck: interrupted: {s.stored_ok} of {s.cells_total} cells are stored in {s.store}; {resume}")
+        note(error_line(f"interrupted: {s.stored_ok} of {s.cells_total} cells are stored in {s.store}; {resume}"))
         if args.json:
             emit_json(s.to_dict())
         return 130
     except SweepAborted as exc:
         progress.close()
         s = exc.summary
-        note(f"simcheck: sweep stopped: {exc}; {s.stored_ok} of {s.cells_total} cells are stored in {s.store}; {resume}")
+        note(error_line(f"sweep stopped: {exc}; {s.stored_ok} of {s.cells_total} cells are stored in {s.store}; {resume}"))
         if args.json:
             emit_json(s.to_dict())
         return 1
