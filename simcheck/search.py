@@ -154,7 +154,7 @@ def _formula(design: Design):
 
     if design.margin is None:
         return None
-    kw: dict[str, Any] = {"confidence": design.confidence, "multiplier": "z"}
+    kw: dict[str, Any] = {"confidence": design.confidence, "multiplier": "z", "bound": design.bound}
     try:
         if design.estimand in ("mean", "mean-diff"):
             kw["sd"] = float(design.model.sd)

@@ -29,7 +29,7 @@ import numpy as np
 
 from simcheck import rng as rngmod
 from simcheck.design import Design
-from simcheck.engine import clustered, simple
+from simcheck.engine import clustered, onesided, simple
 from simcheck.engine.kinds import KINDS, DesignKind, kind_for, register_kind
 from simcheck.engine.measures import share_mcse
 from simcheck.engine.simple import CHUNK_BYTES, PATHS, block_size, piece_rows, unit_rows
@@ -156,4 +156,10 @@ def _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve):
                 raise InputError("simulation.ratio", f"gives group b only {design.n_b(n)} observations at n = {n}")
     if method.kind == "cluster" and design.clusters is None:
         raise InputError("method.interval", f"{design.method!r} needs a [clusters] table (n then counts clusters)")
-    return kind_for(design).evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve)
+    if design.one_sided:
+        kind = kind_for(design)
+        work = onesided.evaluation_design(design, simple_kind=kind.name == "simple")
+        rows = _evaluate(work, ns, replicates, rng, path, progress, chunk_bytes, curve)
+        return onesided.finish_rows(design, onesided.one_sided_rows(design, rows))
+    rows = kind_for(design).evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve)
+    return onesided.finish_rows(design, rows)

@@ -215,6 +215,15 @@ class Accumulator:
         )
 
 
+    def quantile(self, j: int, q: float) -> float:
+        """The q quantile of the kept half-widths at the j-th n (after :meth:`finish`)."""
+        kept = self.hw[: min(self.keep, self.seen), j]
+        if not kept.shape[0]:
+            return float("nan")
+        with np.errstate(invalid="ignore"):
+            return float(np.quantile(kept, q))
+
+
 def share_mcse(p: float, r: int) -> float:
     """Monte Carlo SE of a share: sqrt(p (1 - p) / R) (Morris et al. 2019, Table 6)."""
     return float(math.sqrt(max(p * (1.0 - p), 0.0) / r))

@@ -40,6 +40,7 @@ References
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 from typing import Sequence
 
 import numpy as np
@@ -178,6 +179,7 @@ def exact_rows(design: Design, method: Method, ns: Sequence[int], seed) -> list[
             values, weights = np.array([hw]), np.array([1.0])
             mean_hw = med = p90 = hw
             assurance = None if margin is None else float(hw <= margin * (1 + 1e-12))
+            at_assurance = hw
         else:
             if df is None:
                 df = n - 1
@@ -188,6 +190,7 @@ def exact_rows(design: Design, method: Method, ns: Sequence[int], seed) -> list[
             med = c * math.sqrt(stats.chi2.ppf(0.5, df) / df)
             p90 = c * math.sqrt(stats.chi2.ppf(0.9, df) / df)
             assurance = None if margin is None else float(stats.chi2.cdf(df * (margin / c) ** 2, df))
+            at_assurance = c * math.sqrt(stats.chi2.ppf(design.assurance, df) / df)
             probs = (np.arange(400) + 0.5) / 400
             values = c * np.sqrt(stats.chi2.ppf(probs, df) / df)
             weights = np.full(400, 1 / 400)
@@ -202,7 +205,7 @@ def exact_rows(design: Design, method: Method, ns: Sequence[int], seed) -> list[
             "margin_values": values,
             "margin_weights": weights,
         }
-        rows.append(row_from_measures(design, n, m, seed, "exact-normal"))
+        rows.append(replace(row_from_measures(design, n, m, seed, "exact-normal"), margin_at_assurance=at_assurance))
     return rows
 
 
@@ -299,7 +302,7 @@ def _piece_sums(model, root, stage: int, first: int, blocks, columns: int, trans
 # sufficient statistics for normal data
 # --------------------------------------------------------------------------
 def sufficient_ok(design: Design, method: Method) -> bool:
-    if method.kind == "summary" and not method.needs_m3:
+    if method.kind == "summary" and not method.needs_m3 and method.shift_equivariant:
         return normal_params_of(design.model) is not None
     if method.kind == "summary2":
         return normal_params_of(design.model) is not None and normal_params_of(design.model_b) is not None
@@ -345,7 +348,8 @@ def _sufficient(design, method, n, replicates, root, seed, progress, chunk_bytes
         if progress:
             progress(grp[-1][1], replicates)
     acc.finish()
-    return acc.row(0, design, n, replicates, seed, "sufficient")
+    r = acc.row(0, design, n, replicates, seed, "sufficient")
+    return replace(r, margin_at_assurance=acc.quantile(0, design.assurance))
 
 
 # --------------------------------------------------------------------------
@@ -438,6 +442,8 @@ def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes,
         x -= log_shift
 
     log_shift = math.log(mu_a) if kind == "log" and mu_a > 0 else 0.0
+    # summary methods that are not shift-equivariant (e.g. grice-bain) see the raw values
+    shift_a = mu_a if centred or kind != "summary" else 0.0
 
     if fused:
         work = list(_chunks(all_blocks, per_chunk))
@@ -457,7 +463,7 @@ def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes,
     for first, blocks, *unit in work:
         xa = xb = None
         if fused:
-            tr_a = {"summary": centre(mu_a), "summary2": centre(mu_a), "log": logs}.get(kind)
+            tr_a = {"summary": centre(shift_a), "summary2": centre(mu_a), "log": logs}.get(kind)
             ma = _piece_sums(design.model, root, rngmod.STAGE_MAIN, first, blocks, ncol_a, tr_a, method.needs_m3)
             mb = _piece_sums(design.model_b, root, rngmod.STAGE_GROUP_B, first, blocks, ncol_b, centre(mu_b) if kind == "summary2" else None, False) if two else None
         else:
@@ -469,7 +475,7 @@ def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes,
         truth = 0.0 if centred else truth_raw
         if kind in ("summary", "summary2"):
             if not fused:
-                xa -= mu_a
+                xa -= shift_a
                 ma = prefix_moments(xa, ns, nested, method.needs_m3)
             sa = summary_from_sums(*ma, n_eval, design.model.sd)
             if kind == "summary" and method.centre_half is not None:
@@ -523,6 +529,7 @@ def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes,
     rows = []
     for j, n in enumerate(ns):
         r = acc.row(j, design, n, replicates, seed, path, nan_count=int(acc.nan[j]))
+        r = replace(r, margin_at_assurance=acc.quantile(j, design.assurance))
         if acc.nan[j]:
             r = with_note(r, f"{int(acc.nan[j])} intervals could not be computed and count as not covering")
         rows.append(r)
