@@ -8,7 +8,8 @@ from typing import Any
 
 from simcheck import CAUTION
 from simcheck.cli.common import add_json, add_sim_overrides, emit_json, table
-from simcheck.cli.check import CLI_FIELDS, Progress, add_method_option, run_seed
+from simcheck.report.targets import bound_words, coverage_words
+from simcheck.cli.check import CLI_FIELDS, Progress, add_bound_option, add_method_option, bound_overrides, run_seed
 from simcheck.errors import Collector
 
 BUDGET_MIN, BUDGET_MAX = 100, 10**12
@@ -36,6 +37,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("--n-max", dest="n_max", type=int, metavar="B",
                    help="search ceiling (default: simulation.n_max)")
     add_method_option(p)
+    add_bound_option(p)
     add_sim_overrides(p)
     add_json(p)
     p.set_defaults(run=run)
@@ -52,6 +54,7 @@ def run(args: argparse.Namespace) -> int:
         if b is not None:
             overrides["simulation.budget"] = int(b)
     c.raise_if_any()
+    overrides.update(bound_overrides(args))
     scenario = load_scenario(args.scenario, overrides or None)
     seed = run_seed(scenario, args.seed)
     with Progress() as prog:
@@ -183,7 +186,11 @@ def report(scenario, res) -> str:
                 lines.append(f"note ({r.method}): {t}")
     else:
         d = design.with_method(res.method)
-        lines.append(f"method:      {d.method} interval, {d.confidence:.4g} confidence, target margin {_m(d.margin)}")
+        lines.append(f"method:      {d.method} {bound_words(d.bound)}, {d.confidence:.4g} confidence, target margin {_m(d.margin)}"
+                     + (f" {d.units}" if d.units else "")
+                     + (f" ({d.relative_margin:g} of the true value)" if d.relative_margin is not None else ""))
+        if d.bound != "two-sided":
+            lines.append(f"             one-sided: coverage = {coverage_words(d.bound)}; margin = distance from estimate to limit")
         lines.append(_targets_line(res.targets))
         lines.append("")
         lines.extend(_one(res, d))

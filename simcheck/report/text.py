@@ -8,6 +8,7 @@ from __future__ import annotations
 import math
 from typing import TYPE_CHECKING, Any, Mapping, Sequence
 
+from simcheck.report.targets import target_sentences
 from simcheck import __version__
 
 if TYPE_CHECKING:  # the study module imports this one
@@ -151,6 +152,8 @@ def methods_paragraph(study: StudyResults) -> str:
     parts = [f"We checked the planned sample size by simulation (simcheck {s.versions.get('simcheck', __version__)}; "
              f"NumPy {s.versions.get('numpy', '?')}, SciPy {s.versions.get('scipy', '?')})."]
     parts.append(f"Data were assumed to follow {model_text(s.data)}.")
+    one_sided = s.data.get("bound", "two-sided") != "two-sided"
+    parts.extend(target_sentences(s.data, s.confidence, s.margin))
     if "clusters" in s.data:
         cl = s.data["clusters"]
         size = cl.get("size", cl.get("size_mean"))
@@ -173,7 +176,7 @@ def methods_paragraph(study: StudyResults) -> str:
         parts.append("Coverage is the share of intervals that contained the true value; its Monte Carlo standard "
                      "error (MCSE) is sqrt(c(1 − c)/R) for coverage c estimated from R samples"
                      + (" (methods with an exact path were enumerated instead)." if any_exact else "."))
-    if s.margin is not None:
+    if s.margin is not None and not one_sided:
         parts.append(f"The achieved margin of error is half the width of each interval; assurance is the share of "
                      f"samples whose half-width was at most the target of {fmt_g(s.margin)}.")
     if s.n_formula is not None:
@@ -246,6 +249,9 @@ def n_axis_label(design) -> str:
 
 
 def value_axis_label(scenario, units: str | None = None) -> str:
+    units = units or scenario.design.units
+    if scenario.design.bound != "two-sided":
+        return f"Achieved margin, limit to estimate ({units or 'data units'})"
     if units:
         return f"Achieved half-width ({units})"
     if scenario.design.estimand in ("proportion", "proportion-diff"):
