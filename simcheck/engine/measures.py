@@ -215,13 +215,13 @@ class Accumulator:
         )
 
 
-    def quantile(self, j: int, q: float) -> float:
-        """The q quantile of the kept half-widths at the j-th n (after :meth:`finish`)."""
-        kept = self.hw[: min(self.keep, self.seen), j]
+    def quantiles(self, q: float) -> np.ndarray:
+        """The q quantile of the kept half-widths at every n, in one partition pass."""
+        kept = self.hw[: min(self.keep, self.seen)]
         if not kept.shape[0]:
-            return float("nan")
+            return np.full(self.k, np.nan)
         with np.errstate(invalid="ignore"):
-            return float(np.quantile(kept, q))
+            return np.quantile(kept, q, axis=0).astype(np.float64)
 
 
 def share_mcse(p: float, r: int) -> float:

@@ -169,6 +169,9 @@ def finish_rows(design: Design, rows: Sequence[CheckResult]) -> list[CheckResult
     for r in rows:
         kw: dict = {"bound": design.bound, "units": design.units}
         maa = r.margin_at_assurance
+        if maa is None and not r.exact and design.assurance in (0.5, 0.9):
+            # simulated rows: the same quantile of the same kept half-widths
+            maa = r.margin_median if design.assurance == 0.5 else r.margin_p90
         if maa is None:
             maa = margin_quantile(r.margin_values, r.margin_weights, design.assurance)
         kw["margin_at_assurance"] = maa

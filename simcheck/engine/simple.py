@@ -349,7 +349,9 @@ def _sufficient(design, method, n, replicates, root, seed, progress, chunk_bytes
             progress(grp[-1][1], replicates)
     acc.finish()
     r = acc.row(0, design, n, replicates, seed, "sufficient")
-    return replace(r, margin_at_assurance=acc.quantile(0, design.assurance))
+    if design.assurance in (0.5, 0.9):  # the median / 90th percentile already computed
+        return r
+    return replace(r, margin_at_assurance=float(acc.quantiles(design.assurance)[0]))
 
 
 # --------------------------------------------------------------------------
@@ -527,9 +529,12 @@ def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes,
     acc.finish()
     path = "nested" if nested else "simulation"
     rows = []
+    # the median and 90th percentile are computed already; other levels in one pass
+    at_assurance = None if design.assurance in (0.5, 0.9) else acc.quantiles(design.assurance)
     for j, n in enumerate(ns):
         r = acc.row(j, design, n, replicates, seed, path, nan_count=int(acc.nan[j]))
-        r = replace(r, margin_at_assurance=acc.quantile(j, design.assurance))
+        if at_assurance is not None:
+            r = replace(r, margin_at_assurance=float(at_assurance[j]))
         if acc.nan[j]:
             r = with_note(r, f"{int(acc.nan[j])} intervals could not be computed and count as not covering")
         rows.append(r)
