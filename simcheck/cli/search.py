@@ -154,7 +154,12 @@ def report(scenario, res) -> str:
     lines = _header(scenario, design)
     if isinstance(res, MethodComparison):
         first = res.by_method[0]
-        lines.append(f"confidence:  {design.confidence:.4g}, target margin {_m(design.margin)}")
+        lines.append(f"confidence:  {design.confidence:.4g}, target margin {_m(design.margin)}"
+                     + (f" {design.units}" if design.units else "")
+                     + (f" ({design.relative_margin:g} of the true value)" if design.relative_margin is not None else ""))
+        if design.bound != "two-sided":
+            lines.append(f"bound:       one-sided {bound_words(design.bound)}: coverage = {coverage_words(design.bound)}; "
+                         "margin = distance from estimate to limit")
         lines.append(_targets_line(first.targets))
         lines.append("")
         headers = ["method", "n", "n range", "formula n", "n/formula", "coverage", "+/- mcse",
