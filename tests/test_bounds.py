@@ -374,7 +374,7 @@ def test_scenario_round_trip_keeps_the_new_keys():
 
 
 def test_units_and_one_sided_words():
-    from simcheck.report.targets import target_sentences
+    from simcheck.bound_text import target_sentences
 
     plain = " ".join(target_sentences({"bound": "two-sided"}, 0.95, 1.0))
     assert plain.count("in the data's units") == 1

@@ -13,7 +13,7 @@ from typing import Any, Sequence
 
 from simcheck import CAUTION
 from simcheck.cli.common import add_json, add_sim_overrides, emit_json, note, table
-from simcheck.report.targets import bound_words, coverage_words, result_lines, units_text
+from simcheck.bound_text import bound_words, coverage_words, result_lines, units_text
 
 #: how run_task's arguments are called on the command line
 CLI_FIELDS = {

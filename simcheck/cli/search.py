@@ -8,7 +8,7 @@ from typing import Any
 
 from simcheck import CAUTION
 from simcheck.cli.common import add_json, add_sim_overrides, emit_json, table
-from simcheck.report.targets import bound_words, coverage_words
+from simcheck.bound_text import bound_words, coverage_words
 from simcheck.cli.check import CLI_FIELDS, Progress, add_bound_option, add_method_option, bound_overrides, run_seed
 from simcheck.errors import Collector
 

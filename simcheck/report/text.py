@@ -8,7 +8,7 @@ from __future__ import annotations
 import math
 from typing import TYPE_CHECKING, Any, Mapping, Sequence
 
-from simcheck.report.targets import target_sentences
+from simcheck.bound_text import coverage_words, target_sentences
 from simcheck import __version__
 
 if TYPE_CHECKING:  # the study module imports this one
@@ -42,6 +42,10 @@ METHOD_TEXT = {
     "newcombe": "Newcombe",
     "agresti-caffo": "Agresti–Caffo",
     "cluster-t": "cluster-level t",
+    "land": "Land's exact (H-based)",
+    "chen-modified-t": "Chen's modified-t",
+    "chebyshev": "Chebyshev (Cantelli)",
+    "grice-bain": "gamma-based (Grice–Bain)",
 }
 
 
@@ -136,8 +140,11 @@ def model_text(data: Mapping[str, Any]) -> str:
     return describe_model(data.get("data", {}))
 
 
-def interval_text(methods: Sequence[str], confidence: float) -> str:
+def interval_text(methods: Sequence[str], confidence: float, bound: str = "two-sided") -> str:
     names = join_words([method_text(m) for m in methods])
+    if bound != "two-sided":
+        kind = f"{bound} limit" if len(methods) == 1 else f"{bound} limits"
+        return f"the one-sided {fmt_pct(confidence)} {names} {kind}"
     kind = "interval" if len(methods) == 1 else "intervals"
     return f"the two-sided {fmt_pct(confidence)} {names} {kind}"
 
@@ -153,6 +160,7 @@ def methods_paragraph(study: StudyResults) -> str:
              f"NumPy {s.versions.get('numpy', '?')}, SciPy {s.versions.get('scipy', '?')})."]
     parts.append(f"Data were assumed to follow {model_text(s.data)}.")
     one_sided = s.data.get("bound", "two-sided") != "two-sided"
+    lim = "limit" if one_sided else "interval"
     parts.extend(target_sentences(s.data, s.confidence, s.margin))
     if "clusters" in s.data:
         cl = s.data["clusters"]
@@ -166,14 +174,15 @@ def methods_paragraph(study: StudyResults) -> str:
         how = ("by enumerating the binomial distribution of the event count"
                if s.estimand in ("proportion", "proportion-diff")
                else "from the sampling law of the sample mean and variance")
-        parts.append(f"For each candidate sample size n, coverage of {interval_text(s.methods, s.confidence)} for {est} "
+        parts.append(f"For each candidate sample size n, coverage of {interval_text(s.methods, s.confidence, s.data.get('bound', 'two-sided'))} for {est} "
                      f"was computed exactly {how} instead of by simulation, so it carries no Monte Carlo error.")
     else:
         what = (f"n observations in group a and {fmt_g(s.data.get('ratio', 1.0))} × n (rounded up) in group b"
                 if "data_a" in s.data else f"n {unit}")
         parts.append(f"For each candidate sample size n we drew {s.replicates:,} independent samples of {what} and "
-                     f"computed {interval_text(s.methods, s.confidence)} for {est} in each.")
-        parts.append("Coverage is the share of intervals that contained the true value; its Monte Carlo standard "
+                     f"computed {interval_text(s.methods, s.confidence, s.data.get('bound', 'two-sided'))} for {est} in each.")
+        parts.append(("Coverage is the share of intervals that contained the true value" if not one_sided else
+                      f"Coverage is the {coverage_words(s.data['bound'])}") + "; its Monte Carlo standard "
                      "error (MCSE) is sqrt(c(1 − c)/R) for coverage c estimated from R samples"
                      + (" (methods with an exact path were enumerated instead)." if any_exact else "."))
     if s.margin is not None and not one_sided:
@@ -187,12 +196,12 @@ def methods_paragraph(study: StudyResults) -> str:
         fc = [(m, s.formula_checks[m]) for m in s.methods if m in s.formula_checks]
         nf_unit = f" {unit}" if unit == "clusters" else ""
         parts.append(f"The closed-form formula ({kind} multiple{extra}) gives n = {s.n_formula:,}{nf_unit} for a "
-                     f"half-width of {fmt_g(s.margin)}" + (";" if fc else "."))
+                     f"{'margin' if one_sided else 'half-width'} of {fmt_g(s.margin)}" + (";" if fc else "."))
         if fc:
             said = []
             for m, c in fc:
                 a = f" and assurance {c.assurance:.3f}" if c.assurance is not None else ""
-                who = f" with the {method_text(m)} interval" if len(s.methods) > 1 else ""
+                who = f" with the {method_text(m)} {lim}" if len(s.methods) > 1 else ""
                 said.append(f"coverage {fmt_estimate(c.coverage, c.coverage_mcse, c.exact)}{a}{who}")
             gave = "the exact computation gave" if all(c.exact for _, c in fc) else "the simulation gave"
             parts[-1] += f" at that n {gave} " + "; ".join(said) + "."
@@ -205,7 +214,7 @@ def methods_paragraph(study: StudyResults) -> str:
         r = s.searches.get(m)
         if r is None:
             continue
-        who = f"With the {method_text(m)} interval the" if len(s.methods) > 1 else "The"
+        who = f"With the {method_text(m)} {lim} the" if len(s.methods) > 1 else "The"
         if r.reached and r.n is not None:
             c = s.checks.get(m)
             cov = (fmt_estimate(c.coverage, c.coverage_mcse, c.exact, inline=True) if c is not None
@@ -231,7 +240,7 @@ def methods_paragraph(study: StudyResults) -> str:
     if len(s.methods) > 1 and s.best:
         best = s.searches.get(s.best)
         if best is not None and best.n is not None:
-            parts.append(f"We chose n = {best.n:,} with the {method_text(s.best)} interval, the method that met the targets with "
+            parts.append(f"We chose n = {best.n:,} with the {method_text(s.best)} {lim}, the method that met the targets with "
                          f"the fewest {unit}.")
     if s.seed is not None:
         parts.append(f"All random numbers derive from the seed {s.seed}, so every number here can be reproduced exactly.")
