@@ -205,7 +205,8 @@ def study_figures(study: StudyResults) -> dict[str, Any]:
     out: dict[str, Any] = {}
     if curves:
         out["coverage"] = F.coverage_figure(curves, confidence=study.confidence, tolerance=study.coverage_tolerance,
-                                            n_formula=study.n_formula, n_found=found, n_label=study.n_label)
+                                            n_formula=study.n_formula, n_found=found, n_label=study.n_label,
+                                            bound=study.data.get("bound", "two-sided"))
     checks = {label[m]: study.checks[m] for m in study.methods if m in study.checks}
     if checks and any(c.margin_values is not None for c in checks.values()):
         has_assurance = any(r.assurance is not None for c in curves.values() for r in c.rows)

@@ -233,8 +233,9 @@ def coverage_figure(
     n_label: str = "Sample size n",
     width: float = FULL_WIDTH,
     height: float = 3.3,
+    bound: str = "two-sided",
 ) -> Figure:
-    """Coverage against n with its Monte Carlo band.
+    """Coverage against n with its Monte Carlo band (``bound``: one-sided limits say so on the axis).
 
     Parameters
     ----------
@@ -306,7 +307,8 @@ def coverage_figure(
         lo, hi = float(np.nanmin(lows)), float(np.nanmax(highs))
         pad = max(0.002, 0.06 * (hi - lo))
         ax.set_ylim(max(0.0, lo - pad), min(1.0, hi + pad) if hi + pad <= 1.0 else 1.0 + 0.001)
-        ax.set_ylabel("Coverage (share of intervals\ncontaining the true value)")
+        ax.set_ylabel("Coverage (share of intervals\ncontaining the true value)" if bound == "two-sided" else
+                      f"Coverage (share of {bound} limits\n{'at or above' if bound == 'upper' else 'at or below'} the true value)")
         _outside_legend(fig, ax)
     return fig
 
