@@ -59,7 +59,9 @@ def target_sentences(data: Mapping[str, Any], confidence: float, margin: float |
 
 def result_lines(rows: Sequence[Any], units: str | None) -> list[str]:
     """Extra lines under a check/curve table: margin at assurance, relative margins, plans."""
-    out = []
+    out: list[str] = []
+    if len(rows) > 12:  # a long curve table: the JSON output carries these per row
+        return out
     u = f" {units}" if units else ""
     for r in rows:
         bits = []
@@ -70,7 +72,8 @@ def result_lines(rows: Sequence[Any], units: str | None) -> list[str]:
                         f"{r.relative_margin_at_assurance:.3f} (target {r.target_relative_margin:g})")
         if r.pass_probability is not None:
             c = r.events_allowed or 0
-            bits.append(f"chance of passing (at most {c} event{'s' if c != 1 else ''}) {r.pass_probability:.4f}")
+            bits.append(f"chance of passing (at most {c} event{'s' if c != 1 else ''}) {r.pass_probability:.4f}"
+                        + (f"; the plan needs n = {r.plan_n}" if r.plan_n is not None else ""))
         if bits:
             out.append(f"n = {r.n}: " + "; ".join(bits))
     return out

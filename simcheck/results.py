@@ -83,6 +83,7 @@ class CheckResult:
     limit: float | None = None
     events_allowed: int | None = None
     pass_probability: float | None = None
+    plan_n: int | None = None
 
     def bound_dict(self) -> dict[str, Any]:
         """The keys of one-sided limits, relative margins and plans (issue 20)."""
@@ -97,7 +98,8 @@ class CheckResult:
                      relative_margin_p90=self.relative_margin_p90,
                      relative_margin_at_assurance=self.relative_margin_at_assurance)
         if self.limit is not None:
-            d.update(limit=self.limit, events_allowed=self.events_allowed, pass_probability=self.pass_probability)
+            d.update(limit=self.limit, events_allowed=self.events_allowed, pass_probability=self.pass_probability,
+                     plan_n=self.plan_n)
         return d
 
     def to_dict(self) -> dict[str, Any]:

@@ -240,6 +240,7 @@ def test_pass_probability_checked_by_the_engine():
         r = engine.check(d, n)
         assert r.pass_probability == pytest.approx(stats.binom.cdf(2, n, 0.004), abs=1e-14)
         assert r.to_dict()["limit"] == 0.02 and r.to_dict()["events_allowed"] == 2
+        assert r.plan_n == plan.n
     assert plan.pass_probability == pytest.approx(stats.binom.cdf(2, plan.n, 0.004), abs=1e-14)
 
 

@@ -166,6 +166,11 @@ def margin_quantile(values, weights, q: float) -> float | None:
 def finish_rows(design: Design, rows: Sequence[CheckResult]) -> list[CheckResult]:
     """Add bound, margin at assurance, relative margins and plan figures to each row."""
     out = []
+    plan_n = None
+    if design.limit is not None:
+        from simcheck.formulas import demonstration_plan
+
+        plan_n = demonstration_plan(design.limit, int(design.events_allowed or 0), confidence=design.confidence).n
     for r in rows:
         kw: dict = {"bound": design.bound, "units": design.units}
         maa = r.margin_at_assurance
@@ -186,7 +191,7 @@ def finish_rows(design: Design, rows: Sequence[CheckResult]) -> list[CheckResult
                 relative_margin_at_assurance=None if maa is None else maa / t,
             )
         if design.limit is not None:
-            kw.update(limit=design.limit, events_allowed=int(design.events_allowed or 0))
+            kw.update(limit=design.limit, events_allowed=int(design.events_allowed or 0), plan_n=plan_n)
             p = design.model.bernoulli_p()
             if p is not None:
                 from simcheck.formulas import pass_probability
