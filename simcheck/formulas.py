@@ -24,7 +24,7 @@ This module depends only on numpy, scipy and :mod:`simcheck.errors`.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, Callable
 
 import numpy as np
@@ -944,3 +944,15 @@ def demonstration_plan(limit: float, events_allowed: int = 0, *, confidence: flo
 def _too_large_plan(value: float) -> None:
     if not math.isfinite(value) or value > N_LIMIT:
         raise InputError("--limit", f"gives n = {value:.3g}, too large to be a sample size")
+
+
+@dataclass(frozen=True)
+class StratifiedFormulaResult(FormulaResult):
+    """A stratified sample's closed-form total n, with its per-stratum counts."""
+
+    allocation: dict[str, int] = field(default_factory=dict)
+
+    def to_dict(self) -> dict[str, Any]:
+        d = super().to_dict()
+        d["allocation"] = dict(self.allocation)
+        return d

@@ -66,6 +66,11 @@ def evaluation_confidence(method: Method, confidence: float, bound: str) -> floa
 
 def evaluation_design(design: Design, simple_kind: bool) -> Design:
     """The two-sided design whose evaluation gives the one-sided measures."""
+    if getattr(design, "strata", None) is not None:
+        # stratified intervals are estimate ± t (or z) SE, unclipped: symmetric
+        if design.confidence <= 0.5:
+            raise InputError("target.confidence", f"a one-sided limit needs confidence > 0.5, got {design.confidence:g}")
+        return replace(design, confidence=2.0 * design.confidence - 1.0, bound="two-sided", limit=None, events_allowed=None)
     method = get_method(design.estimand, design.method)
     if design.confidence <= 0.5 and not method.one_sided_only:
         raise InputError("target.confidence", f"a one-sided limit needs confidence > 0.5, got {design.confidence:g}")
