@@ -388,3 +388,27 @@ def test_check_text_names_the_limit(capsys):
                      "--replicates", 500)
     assert rc == 0
     assert "upper confidence limit" in out and "mg/L" in out and "share of upper limits" in out
+
+
+@pytest.mark.parametrize("argv,field", [
+    (["--relative-margin", "0.2"], "--cv"),
+    (["--cv", "1.0", "--estimand", "mean", "--margin", "1", "--sd", "2"], "--cv"),
+    (["--events-allowed", "1", "--estimand", "proportion", "--margin", "0.05"], "--events-allowed"),
+    (["--limit", "0.01", "--margin", "0.05"], "--margin"),
+    (["--limit", "0", "--events-allowed", "1"], "--limit"),
+    (["--relative-margin", "0.2", "--cv", "1", "--estimand", "proportion"], "--estimand"),
+])
+def test_formula_bad_combinations_exit_2(capsys, argv, field):
+    rc, out, err = cli(capsys, "formula", *argv)
+    assert rc == 2 and out == "" and err.count("\n") == 1 and field in err
+
+
+def test_one_sided_t_is_as_fast_as_two_sided():
+    # the one-sided t limit goes through the same symmetric fast path (no reflected interval)
+    from simcheck.engine import onesided
+
+    d = Design(model=model("lognormal", mean=5.0, cv=1.0), method="t", margin=1.0, bound="upper")
+    work = onesided.evaluation_design(d, simple_kind=True)
+    assert work.method == "t" and work.bound == "two-sided" and work.confidence == pytest.approx(0.9)
+    d2 = Design(model=model("lognormal", mean=5.0, cv=1.0), method="cox", margin=1.0, bound="upper")
+    assert onesided.evaluation_design(d2, simple_kind=True).method == "cox|upper"
