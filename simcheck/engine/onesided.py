@@ -40,6 +40,7 @@ References
 
 from __future__ import annotations
 
+import copy
 from dataclasses import replace
 from typing import Callable, Sequence
 
@@ -202,5 +203,14 @@ def finish_rows(design: Design, rows: Sequence[CheckResult]) -> list[CheckResult
                 from simcheck.formulas import pass_probability
 
                 kw["pass_probability"] = pass_probability(r.n, int(design.events_allowed or 0), p)
-        out.append(replace(r, **kw))
+        out.append(_with(r, kw))
     return out
+
+
+def _with(r: CheckResult, kw: dict) -> CheckResult:
+    """``replace(r, **kw)`` for fields that need no validation, without re-running
+    ``__init__`` (a curve has hundreds of rows; the copy is new, so nothing shared changes)."""
+    new = copy.copy(r)
+    for k, v in kw.items():
+        object.__setattr__(new, k, v)
+    return new
