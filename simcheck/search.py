@@ -435,7 +435,10 @@ def find_n(
         "coverage_target": targets.coverage,
         "margin": design.margin,
         "assurance": targets.assurance,
+        "bound": design.bound,
     }
+    if design.relative_margin is not None:
+        targets_d["relative_margin"] = design.relative_margin
     nf = formula_n(design)
     start = nf if nf is not None else DEFAULT_START
     start = min(max(start, lo_n), hi_n)

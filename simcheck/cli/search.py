@@ -106,7 +106,8 @@ def _targets_line(t: dict) -> str:
     text = (f"targets:     coverage >= {t['coverage_target']:.4f} "
             f"({t['confidence']:.4g} confidence - {t['coverage_tolerance']:g} tolerance)")
     if t.get("margin") is not None and t.get("assurance") is not None:
-        text += f", assurance >= {t['assurance']:g} (share of samples with half-width <= {t['margin']:g})"
+        what = "half-width" if t.get("bound", "two-sided") == "two-sided" else "margin"
+        text += f", assurance >= {t['assurance']:g} (share of samples with {what} <= {t['margin']:g})"
     return text
 
 

@@ -199,7 +199,8 @@ def study_figures(study: StudyResults) -> dict[str, Any]:
     """The study's figures, by name: ``coverage``, ``margin``, ``misses``."""
     from simcheck.report import figures as F
 
-    label = {m: f"{m} interval" for m in study.methods}
+    what = "interval" if study.data.get("bound", "two-sided") == "two-sided" else f"{study.data['bound']} limit"
+    label = {m: f"{m} {what}" for m in study.methods}
     found = {label[m]: s.n for m, s in study.searches.items() if m in label}
     curves = {label[m]: study.curves[m] for m in study.methods if m in study.curves and study.curves[m].rows}
     out: dict[str, Any] = {}

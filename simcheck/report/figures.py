@@ -378,6 +378,8 @@ def margin_figure(
         target_margin = next((c.target_margin for c in checks.values() if c.target_margin is not None), None)
     labels = list(dict.fromkeys(list(checks) + list(curve_map)))
     found = _per_method(n_found, labels)
+    # a one-sided limit's margin is the distance from the estimate to the limit
+    hw = "half-width" if all(getattr(c, "bound", "two-sided") == "two-sided" for c in checks.values()) else "margin"
     with rc_context(STYLE):
         fig = _new_figure(width, height)
         if curve_map:
@@ -408,7 +410,7 @@ def margin_figure(
             ax.axvline(target_margin, color=REFERENCE_COLOUR, linestyle=(0, (4, 2)), linewidth=0.9,
                        label=f"target margin {target_margin:g}")
         ax.set_xlabel(value_label)
-        ax.set_ylabel("Share of samples with\nhalf-width at most x")
+        ax.set_ylabel(f"Share of samples with\n{hw} at most x")
         ax.set_ylim(-0.02, 1.02)
         ax.text(0.02, 0.98, "A", transform=ax.transAxes, va="top", ha="left", fontweight="bold")
         if ax2 is not None:
@@ -430,7 +432,7 @@ def margin_figure(
                 if nf is not None:
                     ax2.axvline(nf, color=st["color"], linestyle=(0, (6, 2)), linewidth=1.0)
             _set_n_axis(ax2, np.concatenate(all_n) if all_n else np.array([1.0]), n_label)
-            ax2.set_ylabel("Assurance (share with\nhalf-width at most target)")
+            ax2.set_ylabel(f"Assurance (share with\n{hw} at most target)")
             ax2.set_ylim(-0.02, 1.02)
             ax2.text(0.02, 0.98, "B", transform=ax2.transAxes, va="top", ha="left", fontweight="bold")
         _outside_legend(fig, ax)
