@@ -412,3 +412,34 @@ def test_one_sided_t_is_as_fast_as_two_sided():
     assert work.method == "t" and work.bound == "two-sided" and work.confidence == pytest.approx(0.9)
     d2 = Design(model=model("lognormal", mean=5.0, cv=1.0), method="cox", margin=1.0, bound="upper")
     assert onesided.evaluation_design(d2, simple_kind=True).method == "cox|upper"
+
+
+def test_one_sided_wald_difference_by_double_enumeration():
+    # reference: double binomial enumeration written here (Newcombe 1998, exact evaluation
+    # over the two binomials) of the one-sided Wald limit d + z_c SE, clipped to [-1, 1]
+    na, nb, pa, pb, c = 30, 40, 0.3, 0.2, 0.9
+    d = Design(model=model("bernoulli", p=pa), model_b=model("bernoulli", p=pb), estimand="proportion-diff",
+               method="wald", margin=0.2, bound="upper", confidence=c, ratio=nb / na)
+    r = engine.check(d, na)
+    xa, xb = np.arange(na + 1)[:, None], np.arange(nb + 1)[None, :]
+    w = stats.binom.pmf(xa, na, pa) * stats.binom.pmf(xb, nb, pb)
+    diff = xa / na - xb / nb
+    se = np.sqrt((xa / na) * (1 - xa / na) / na + (xb / nb) * (1 - xb / nb) / nb)
+    upper = np.clip(diff + stats.norm.ppf(c) * se, -1, 1)
+    assert r.exact
+    assert r.coverage == pytest.approx(float(w[upper >= pa - pb].sum()), abs=1e-12)
+    assert r.assurance == pytest.approx(float(w[upper - diff <= 0.2 * (1 + 1e-12)].sum()), abs=1e-12)
+
+
+def test_one_sided_clustered_designs():
+    # cluster-t is symmetric: the one-sided limit is read from the two-sided evaluation at 1 - 2 alpha;
+    # equal clusters of normal data make it Student's t on the cluster means (exact, Kish 1965)
+    base = {"model": model("normal", mean=10.0, sd=2.0), "method": "cluster-t", "margin": 1.0}
+    from simcheck.design import ClusterSpec
+
+    d = Design(**base, clusters=ClusterSpec(icc=0.1, size=5), bound="upper")
+    r = engine.check(d, 12)
+    assert r.exact and r.coverage == pytest.approx(0.95, abs=1e-12) and r.miss_high == 0.0
+    with pytest.raises(InputError, match="simple random samples only"):
+        engine.check(Design(model=model("bernoulli", p=0.2), estimand="proportion", method="wilson", margin=0.1,
+                            clusters=ClusterSpec(icc=0.1, size=5), bound="upper"), 12, replicates=200)
