@@ -75,6 +75,10 @@ def _wilson_upper(n, c):
     return f
 
 
+def lim_of(n, p, ref, bound):
+    return np.array([ref(n, 0.95)(k) for k in range(n + 1)])
+
+
 @pytest.mark.parametrize("method,ref,bound", [
     ("clopper-pearson", _cp_upper, "upper"),
     ("clopper-pearson", _cp_lower, "lower"),
@@ -93,7 +97,10 @@ def test_one_sided_binomial_coverage_exact(method, ref, bound, n, p):
     assert r.coverage == pytest.approx(cov, abs=1e-12)
     assert (r.miss_high if bound == "upper" else r.miss_low) == 0.0
     assert (r.miss_low if bound == "upper" else r.miss_high) == pytest.approx(1 - cov, abs=1e-12)
-    assert r.assurance == pytest.approx(float(w[margin <= 0.05 * (1 + 1e-12)].sum()), abs=1e-12)
+    # the engine's rule: a limit equal to the estimate that misses (zero margin) never meets the margin
+    covers = (lim_of(n, p, ref, bound) >= p) if bound == "upper" else (lim_of(n, p, ref, bound) <= p)
+    assured = (margin <= 0.05 * (1 + 1e-12)) & ~((margin <= 0) & ~covers)
+    assert r.assurance == pytest.approx(float(w[assured].sum()), abs=1e-12)
     order = np.argsort(margin, kind="stable")
     cum = np.cumsum(w[order])
     want = margin[order][np.searchsorted(cum, 0.8 * (1 - 1e-12))]
@@ -428,7 +435,8 @@ def test_one_sided_wald_difference_by_double_enumeration():
     upper = np.clip(diff + stats.norm.ppf(c) * se, -1, 1)
     assert r.exact
     assert r.coverage == pytest.approx(float(w[upper >= pa - pb].sum()), abs=1e-12)
-    assert r.assurance == pytest.approx(float(w[upper - diff <= 0.2 * (1 + 1e-12)].sum()), abs=1e-12)
+    zero_miss = (upper - diff <= 0) & (upper < pa - pb)  # never meets the margin (the engine's rule)
+    assert r.assurance == pytest.approx(float(w[(upper - diff <= 0.2 * (1 + 1e-12)) & ~zero_miss].sum()), abs=1e-12)
 
 
 def test_one_sided_clustered_designs():

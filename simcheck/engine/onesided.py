@@ -47,7 +47,7 @@ from typing import Callable, Sequence
 import numpy as np
 
 from simcheck.design import Design
-from simcheck.engine.measures import share_mcse
+from simcheck.engine.measures import quantiles_with_mcse, share_mcse
 from simcheck.errors import InputError
 from simcheck.intervals.base import DERIVED, Method, get_method
 from simcheck.results import CheckResult
@@ -144,28 +144,76 @@ def one_sided_rows(design: Design, rows: Sequence[CheckResult]) -> list[CheckRes
         else:
             cov, low, high = r.coverage + r.miss_low, 0.0, r.miss_high
         cov = min(1.0, cov)
+        kw = {}
+        if r.path == "exact-binomial" and r.degenerate_share:
+            kw = _zero_margin_covering(design, r)
         out.append(replace(
             r, coverage=cov, miss_low=low, miss_high=high, method=design.method, confidence=design.confidence,
-            coverage_mcse=0.0 if r.exact else share_mcse(cov, r.replicates),
+            coverage_mcse=0.0 if r.exact else share_mcse(cov, r.replicates), **kw,
         ))
+    return out
+
+
+def _zero_margin_covering(design: Design, r: CheckResult) -> dict:
+    """Take back the outcomes whose one-sided limit equals the estimate *and* covers.
+
+    The engine's measures count a zero-width interval that misses the true
+    value as degenerate and never within the margin. A reflected interval of
+    zero width "misses" on its artificial side when the limit itself covers
+    (a lower limit 0 at x = 0, an upper limit 1 at x = n): such a limit is
+    exact, not degenerate, and meets any margin. Limits equal to the estimate
+    occur at the edges of the count space, so the edge outcomes are
+    enumerated here (x = 0 and n; the four corners for two proportions).
+    """
+    from scipy import stats
+
+    m = get_method(design.estimand, design.method)
+    conf = evaluation_confidence(m, design.confidence, design.bound)
+    n, truth = r.n, r.true_value
+    if design.estimand == "proportion":
+        p = design.model.bernoulli_p()
+        xs = np.array([0, n], dtype=float) if n > 0 else np.array([0.0])
+        lo, hi = m.func(xs, np.full(xs.shape, float(n)), conf)
+        e, w = xs / n, stats.binom.pmf(xs, n, p)
+    else:
+        nb = design.n_b(n)
+        pa, pb = design.model.bernoulli_p(), design.model_b.bernoulli_p()
+        xa = np.array([0, 0, n, n], dtype=float)
+        xb = np.array([0, nb, 0, nb], dtype=float)
+        lo, hi = m.func(xa, np.full(4, float(n)), xb, np.full(4, float(nb)), conf)
+        e = xa / n - xb / nb
+        w = stats.binom.pmf(xa, n, pa) * stats.binom.pmf(xb, nb, pb)
+    lim = np.asarray(hi if design.bound == "upper" else lo, dtype=float)
+    covers = lim >= truth if design.bound == "upper" else lim <= truth
+    gone = float(w[(np.abs(lim - e) <= 1e-15) & covers & (e != truth)].sum())
+    if gone <= 0:
+        return {}
+    deg = max(0.0, r.degenerate_share - gone)
+    notes = tuple(t for t in r.notes if "zero-width (degenerate)" not in t)
+    if deg > 0:
+        notes += (f"probability {deg:.4g} of a zero-width (degenerate) limit that misses, which never counts as "
+                  "meeting the margin",)
+    out = {"degenerate_share": deg, "notes": notes}
+    if r.assurance is not None:
+        out["assurance"] = min(1.0, r.assurance + gone)
     return out
 
 
 def margin_quantile(values, weights, q: float) -> float | None:
     """The q quantile of the achieved margin: exact support points with weights
     (smallest value whose cumulative probability reaches q), or simulated
-    values (numpy's default linear interpolation, as for the median)."""
+    values (the inverse empirical CDF, as for the median)."""
     if values is None or len(values) == 0:
         return None
     v = np.asarray(values, dtype=float)
     if weights is None:
-        with np.errstate(invalid="ignore"):
-            return float(np.quantile(v, q))
+        # the engine's one quantile definition (inverse empirical CDF)
+        return float(quantiles_with_mcse(v[:, None], (q,))[0][0, 0])
     w = np.asarray(weights, dtype=float)
     order = np.argsort(v, kind="stable")
     v, w = v[order], w[order]
     cum = np.cumsum(w) / w.sum()
-    i = int(np.searchsorted(cum, q * (1 - 1e-12), side="left"))
+    i = int(np.searchsorted(cum, q - 1e-12, side="left"))
     return float(v[min(i, len(v) - 1)])
 
 

@@ -51,7 +51,7 @@ from simcheck.design import Design
 from simcheck.errors import InputError
 from simcheck.intervals import Summary, get_method
 from simcheck.intervals.base import Method
-from simcheck.engine.measures import Accumulator, block_starts, row_from_measures, with_note
+from simcheck.engine.measures import Accumulator, block_starts, row_from_measures
 from simcheck.results import CheckResult
 
 PATHS = ("auto", "exact", "sufficient", "nested", "full")
@@ -532,11 +532,9 @@ def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes,
     # the median and 90th percentile are computed already; other levels in one pass
     at_assurance = None if design.assurance in (0.5, 0.9) else acc.quantiles(design.assurance)
     for j, n in enumerate(ns):
-        r = acc.row(j, design, n, replicates, seed, path, nan_count=int(acc.nan[j]))
+        r = acc.row(j, design, n, replicates, seed, path)
         if at_assurance is not None:
             r = replace(r, margin_at_assurance=float(at_assurance[j]))
-        if acc.nan[j]:
-            r = with_note(r, f"{int(acc.nan[j])} intervals could not be computed and count as not covering")
         rows.append(r)
     return rows
 
