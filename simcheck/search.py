@@ -404,34 +404,13 @@ def find_n(
     .. [1] Morris, White & Crowther (2019), Statistics in Medicine 38:2074-2102.
     .. [2] Brown, Cai & DasGupta (2001), Statistical Science 16:101-133.
     """
-    c = Collector()
-    a_t = c.number("assurance", assurance, low=0, high=1, low_open=True, high_open=True)
-    tol = c.number("coverage_tolerance", coverage_tolerance, low=0, high=0.5, high_open=True)
-    if tol is not None and tol >= design.confidence:
-        c.add("coverage_tolerance", f"must be below the confidence ({design.confidence:g}), got {coverage_tolerance!r}")
-    R = c.number("replicates", replicates, low=10, integer=True)
-    lo_n = c.number("n_min", n_min, low=1, integer=True)
-    hi_n = c.number("n_max", n_max, low=2, integer=True)
-    if lo_n is not None and hi_n is not None and hi_n <= lo_n:
-        c.add("n_max", f"must be > n_min ({lo_n}), got {n_max!r}")
-    if budget is not None:
-        c.number("budget", budget, low=1, integer=True)
-    c.number("precision", precision, low=0, high=1, low_open=True)
-    c.number("window", window, low=1, high=WINDOW_MAX)
-    c.raise_if_any()
+    a_t, tol, R, lo_n, hi_n = _validate(design, assurance, coverage_tolerance, replicates, n_min, n_max,
+                                        budget, precision, window)
     exact, dense = _dense_paths(design, path)
     if budget is None:
         # n-by-n searches confirm about four n per round
         budget = RESAMPLING_BUDGET * R if _resampling(design) else 20 * R * (1 if dense else 4)
     budget = int(budget)
-
-    method = get_method(design.estimand, design.method)
-    floor = 1 if method.kind in ("count", "count2") else 2
-    lo_n = max(lo_n, floor)
-    while design.two_sample and design.n_b(lo_n) < floor:
-        lo_n += 1
-    if hi_n <= lo_n:
-        raise InputError("n_max", f"must be > {lo_n} (the smallest n the {design.method} interval accepts here), got {n_max}")
 
     root, seed = rngmod.root_sequence(rng)
     if seed is None and not root.spawn_key and isinstance(root.entropy, int):
@@ -457,6 +436,34 @@ def find_n(
     if exact:
         return _exact_search(run, start, **ctx)
     return _simulated_search(run, start, budget, precision, **ctx)
+
+
+def _validate(design, assurance, coverage_tolerance, replicates, n_min, n_max, budget, precision, window):
+    """All problems with find_n's arguments at once; (assurance, tolerance, R, n_min, n_max) with the
+    n range raised to the smallest n the interval accepts."""
+    c = Collector()
+    a_t = c.number("assurance", assurance, low=0, high=1, low_open=True, high_open=True)
+    tol = c.number("coverage_tolerance", coverage_tolerance, low=0, high=0.5, high_open=True)
+    if tol is not None and tol >= design.confidence:
+        c.add("coverage_tolerance", f"must be below the confidence ({design.confidence:g}), got {coverage_tolerance!r}")
+    R = c.number("replicates", replicates, low=10, integer=True)
+    lo_n = c.number("n_min", n_min, low=1, integer=True)
+    hi_n = c.number("n_max", n_max, low=2, integer=True)
+    if lo_n is not None and hi_n is not None and hi_n <= lo_n:
+        c.add("n_max", f"must be > n_min ({lo_n}), got {n_max!r}")
+    if budget is not None:
+        c.number("budget", budget, low=1, integer=True)
+    c.number("precision", precision, low=0, high=1, low_open=True)
+    c.number("window", window, low=1, high=WINDOW_MAX)
+    c.raise_if_any()
+    method = get_method(design.estimand, design.method)
+    floor = 1 if method.kind in ("count", "count2") else 2
+    lo_n = max(lo_n, floor)
+    while design.two_sample and design.n_b(lo_n) < floor:
+        lo_n += 1
+    if hi_n <= lo_n:
+        raise InputError("n_max", f"must be > {lo_n} (the smallest n the {design.method} interval accepts here), got {n_max}")
+    return a_t, tol, int(R), int(lo_n), int(hi_n)
 
 
 def criterion_for(exact: bool, window: float) -> tuple[str, str]:
