@@ -607,12 +607,16 @@ def _count_passes(run: _Runner, design: Design, targets: _Targets) -> Callable[[
 
 def _exact_scan(run: _Runner, **ctx) -> SearchResult:
     design, targets, lo_n, hi_n, window = ctx["design"], ctx["targets"], ctx["lo_n"], ctx["hi_n"], ctx["window"]
-    out = WindowScan(_count_passes(run, design, targets), lo_n, hi_n, window).run()
+    # without replacement n cannot pass the population size: windows end there
+    cap = design.population.size if design.population is not None and design.clusters is None else None
+    cap = int(cap) if cap else None
+    scan = WindowScan(_count_passes(run, design, targets), lo_n, hi_n, window, cap=cap)
+    out = scan.run()
     if out.status == "none":
         return _not_reached(run, ctx, run.curve([hi_n], 1, 0)[0], out.n_first)
     if out.status == "window beyond n_max":
         return _window_beyond(run, ctx, out)
-    n, top = out.n, window_top(out.n, window)
+    n, top = out.n, scan.top(out.n)
     # full rows (half-width distribution) only where the answer is shown: n, n_first, the window
     pick = {n, top} | ({out.n_first} if out.n_first is not None else set())
     shown = SHOWN_ROWS if not design.two_sample else SHOWN_ROWS // 4  # a full two-binomial row is costly

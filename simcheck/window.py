@@ -74,8 +74,10 @@ class ScanOutcome:
 class WindowScan:
     """Exact scan for the window criterion over ``[lo_n, hi_n]``; ``passes`` is cached."""
 
-    def __init__(self, passes: Passes, lo_n: int, hi_n: int, window: float) -> None:
+    def __init__(self, passes: Passes, lo_n: int, hi_n: int, window: float, cap: int | None = None) -> None:
         self.passes, self.lo_n, self.hi_n, self.window = passes, int(lo_n), int(hi_n), float(window)
+        #: largest n that exists (a finite population's size): windows stop there
+        self.cap = cap
         self.cache: dict[int, bool] = {}
 
     def ok(self, ns: Sequence[int]) -> list[bool]:
@@ -86,7 +88,8 @@ class WindowScan:
         return [self.cache[int(n)] for n in ns]
 
     def top(self, n: int) -> int:
-        return window_top(n, self.window)
+        t = window_top(n, self.window)
+        return t if self.cap is None else min(t, int(self.cap))
 
     def lower_bound(self, start: int) -> int | None:
         """Smallest n >= start not excluded by failing probes; None if all of [start, hi_n] is excluded."""

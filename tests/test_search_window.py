@@ -298,3 +298,64 @@ def test_scenario_window_key_and_json(tmp_path):
     assert len(obj["by_method"]) == 1 and obj["best"] == "wilson"
     code, out, err = run(WINDOW_TOML.format(window="window = 0.5"))
     assert code == 2 and out == "" and "target.window" in err and err.count("\n") == 1
+
+
+# ------------------------------------------------------------------ clustered and finite-population exact paths
+def test_clustered_proportion_exact_search_equals_brute_force():
+    # pooled count of k clusters of m, each Beta-binomial(m, a, b) with a = p (1 - icc) / icc,
+    # b = (1 - p)(1 - icc) / icc (ICC = 1 / (a + b + 1); common practice), the Wilson interval on the
+    # pooled count; the pmf of the sum by repeated convolution, written here
+    from simcheck.design import ClusterSpec
+
+    # the pooled Wilson interval ignores the clustering (design effect 1.1): coverage tends to
+    # P(|Z| < 1.96 / sqrt(1.1)) = 0.938, so the tolerance is 0.02 (target 0.93)
+    p, icc, m, margin, tol = 0.3, 0.02, 6, 0.1, 0.02
+    a, b = p * (1 - icc) / icc, (1 - p) * (1 - icc) / icc
+    one = stats.betabinom.pmf(np.arange(m + 1), m, a, b)
+
+    def passes(k):
+        pmf = np.array([1.0])
+        for _ in range(k):
+            pmf = np.convolve(pmf, one)
+        x = np.arange(k * m + 1, dtype=float)
+        lo, hi = ci_one("wilson", x, k * m)
+        cov = pmf[(lo <= p) & (p <= hi)].sum()
+        ass = pmf[(hi - lo) / 2 <= margin * (1 + 1e-12)].sum()
+        return cov >= CONF - tol - 1e-12 and ass >= ASSURANCE - 1e-12
+
+    ref, first = window_answer(passes, 2, 300)
+    d = Design(model=make_model({"model": "bernoulli", "p": p}), estimand="proportion", method="wilson",
+               margin=margin, clusters=ClusterSpec(icc=icc, size=m))
+    for factor in (3, 10):
+        res = find_n(d, coverage_tolerance=tol, rng=1, n_min=2, n_max=factor * ref)
+        assert res.exact and res.reached and (res.n, res.n_first) == (ref, first), (factor, res.notes)
+
+
+def test_population_proportion_exact_search_equals_brute_force(tmp_path):
+    # sampling without replacement from N units with K events: hypergeometric law; Wilson limits
+    # pulled towards x / n by sqrt(1 - n / N) and clipped (finite population correction, Cochran 1977, ch. 2)
+    from simcheck.design import PopulationSpec
+
+    N, K, margin = 500, 140, 0.06
+    path = tmp_path / "pop.csv"
+    path.write_text("x\n" + "\n".join(["1"] * K + ["0"] * (N - K)) + "\n")
+    p = K / N
+
+    def passes(n):
+        x = np.arange(max(0, n - (N - K)), min(n, K) + 1, dtype=float)
+        w = stats.hypergeom.pmf(x, N, K, n)
+        lo, hi = ci_one("wilson", x, n)
+        f, ph = math.sqrt(max(1 - n / N, 0.0)), x / n
+        lo, hi = np.clip(ph - (ph - lo) * f, 0, 1), np.clip(ph + (hi - ph) * f, 0, 1)
+        cov = w[(lo <= p) & (p <= hi)].sum()
+        ass = w[(hi - lo) / 2 <= margin * (1 + 1e-12)].sum()
+        return cov >= CONF - TOL - 1e-12 and ass >= ASSURANCE - 1e-12
+
+    ok = {n: passes(n) for n in range(2, N + 1)}
+    # the window stops at N: no n above the population exists
+    ref = next(n for n in range(2, N + 1) if all(ok[k] for k in range(n, min(top(n), N) + 1)))
+    first = next(n for n in range(2, N + 1) if ok[n])
+    d = Design(model=make_model({"model": "bernoulli", "p": p}), estimand="proportion", method="wilson", margin=margin,
+               population=PopulationSpec(size=N, file=str(path), column="x"))
+    res = find_n(d, rng=1, n_min=2, n_max=N)
+    assert res.exact and res.reached and (res.n, res.n_first) == (ref, first), res.notes
