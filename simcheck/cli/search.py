@@ -129,6 +129,8 @@ def _one(r, design) -> list[str]:
         lines.append("n found:     UNDECIDED within n_max: the window of the candidate n reaches past n_max")
     elif _undecided(r):
         lines.append("n found:     UNDECIDED: the replicate budget was spent before any n was confirmed")
+        if r.n_range is not None:
+            lines.append(f"n range:     {_range(r)}   (the boundary may lie anywhere here)")
     else:
         lines.append("n found:     NOT REACHED by the search ceiling n_max")
     if r.n_formula is not None:
@@ -136,7 +138,7 @@ def _one(r, design) -> list[str]:
         lines.append(f"formula n:   {r.n_formula}{ratio}")
     else:
         lines.append("formula n:   - (no closed form applies)")
-    at = "at n" if r.reached else "at n_max"
+    at = "at n" if r.reached else (f"at n = {r.at_n.n}" if r.at_n is not None else "at n_max")
     if r.coverage is not None:
         mc = "" if r.exact else f" +/- {_p(r.coverage_mcse)} (MCSE)"
         lines.append(f"coverage:    {_p(r.coverage)}{mc}  {at}")
