@@ -168,7 +168,7 @@ def test_one_proportion_window_answer_equals_brute_force_and_ignores_n_max(metho
             assert res.n_range == (ref, ref)
 
 
-# ------------------------------------------------------------------ two proportions: 54 cases
+# ------------------------------------------------------------------ two proportions: 22 cases x 3 methods
 TWO_CASES = [
     (pa, pb, ratio, method, margin)
     for (pa, pb, ratio, margin) in [
@@ -176,7 +176,8 @@ TWO_CASES = [
         (0.5, 0.5, 1.0, 0.22), (0.81, 0.64, 1.0, 0.18), (0.07, 0.02, 3.0, 0.15), (0.44, 0.27, 0.75, 0.23),
         (0.9, 0.72, 1.25, 0.17), (0.33, 0.61, 1.0, 0.25), (0.18, 0.11, 2.5, 0.16), (0.55, 0.2, 1.0, 0.3),
         (0.7, 0.85, 0.8, 0.2), (0.25, 0.25, 1.7, 0.2), (0.42, 0.09, 1.3, 0.21), (0.65, 0.38, 1.1, 0.26),
-        (0.14, 0.05, 1.0, 0.12), (0.95, 0.8, 1.0, 0.14),
+        (0.14, 0.05, 1.0, 0.12), (0.95, 0.8, 1.0, 0.14), (0.3, 0.2, 1.0, 0.22), (0.6, 0.3, 2.0, 0.2),
+        (0.85, 0.55, 1.0, 0.24), (0.4, 0.4, 0.6, 0.25),
     ]
     for method in ("wald", "newcombe", "agresti-caffo")
 ]
@@ -184,7 +185,8 @@ TWO_CASES = [
 
 @pytest.mark.slow
 def test_two_proportion_exact_search_equals_brute_force():
-    assert len(TWO_CASES) >= 50
+    assert len(TWO_CASES) >= 50 and all(sum(c[3] == m for c in TWO_CASES) >= 20
+                                         for m in ("wald", "newcombe", "agresti-caffo"))
     for pa, pb, ratio, method, margin in TWO_CASES:
         ref, first = window_answer(lambda n: passes_two(method, pa, pb, ratio, margin, n), 1, 600)
         res = find_n(design_two(pa, pb, ratio, margin, method), rng=1, n_min=1, n_max=max(10, 3 * ref))
