@@ -83,6 +83,7 @@ from dataclasses import replace
 from typing import Any, Callable, Sequence
 
 import numpy as np
+from scipy import stats
 
 from simcheck import engine
 from simcheck import rng as rngmod
@@ -817,11 +818,19 @@ def _sim_confirm(run: _Runner, win: list[int], budget: int, precision: float, **
             pooled[r.n] = r if r.n not in pooled else _pool(pooled[r.n], r)
         rnd += 1
         ana = _analyse([pooled[k] for k in win], targets, lo_n, hi_n, precision)
-        if ana["clear"] and _evidence(run, pooled, targets, lo_n, hi_n, precision)["clear"]:
+        ev = _evidence(run, pooled, targets, lo_n, hi_n, precision)
+        if ana["clear"] and ev["clear"]:
             return pooled, win, "decision clear"
-        # widening only pays while n_range could still come out narrow enough
+        if ana["clear"]:
+            # the window looks settled, but n below it are not yet told from the boundary
+            # (a flat curve): extend the window towards them
+            ana["extend"] = (ev["low"] < win[0], False)
+        # widening pays while n_range could still come out narrow enough, or (before any doubling)
+        # when nothing below the window fails clearly yet: a flat curve, look lower first
+        below_open = ana["extend"][0] and ev["low"] < win[0]
         widen = any(ana["extend"]) and ana["n_range"] is not None and (
-            ana["n_range"][1] - ana["n_range"][0] <= max(1, round(precision * ana["n"])))
+            ana["clear"] or below_open
+            or ana["n_range"][1] - ana["n_range"][0] <= max(1, round(precision * ana["n"])))
         new = None
         if moves < MAX_SHIFTS and (ana["shift"] or widen):
             new = _move(win, ana["shift"], ana["extend"], lo_n, hi_n, run.dense, precision)
@@ -853,8 +862,10 @@ def _evidence(run: _Runner, pooled: dict, targets: _Targets, lo_n: int, hi_n: in
     best.update(pooled)
     ns = sorted(best)
     z = {k: targets.score(best[k]) for k in ns}
-    # many exploration n on few replicates: a stricter bar against chance extremes
-    bar = {k: CLEAR_Z if k in pooled else EXPLORE_Z for k in ns}
+    # many n scored at once: a bar against chance extremes among them (Bonferroni, two-sided 5 %,
+    # over the confirmed n; the exploration's up to LOCATE_MAX n on few replicates: EXPLORE_Z)
+    z_conf = max(CLEAR_Z, float(stats.norm.isf(0.025 / max(1, len(pooled)))))
+    bar = {k: z_conf if k in pooled else EXPLORE_Z for k in ns}
     fails = [k for k in ns if z[k] < -bar[k]]
     low = max(fails) + 1 if fails else lo_n
     high = next((k for k in ns if k >= low and z[k] > bar[k]), None)

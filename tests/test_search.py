@@ -231,13 +231,15 @@ def test_compare_simulated_methods_share_streams():
 # ------------------------------------------------------------------ reproducibility and input
 def test_same_seed_same_search():
     d = Design(model=make_model({"model": "gamma", "mean": 5.0, "cv": 0.8}), method="t", margin=0.6)
-    a = find_n(d, replicates=1000, rng=77)
-    b = find_n(d, replicates=1000, rng=77)
+    # tolerance 0.02: at the default 0.005 the t interval's coverage (about 0.945 here) cannot be
+    # told from the target with 1,000 replicates, and the search rightly ends undecided
+    a = find_n(d, replicates=1000, rng=77, coverage_tolerance=0.02)
+    b = find_n(d, replicates=1000, rng=77, coverage_tolerance=0.02)
     assert a.to_dict() == b.to_dict()
     assert a.seed == 77 and a.replicates_used > 0
     assert a.at_n is not None and a.at_n.n == a.n
     assert a.curve is not None and a.n in set(a.curve.n.tolist())
-    c = find_n(d, replicates=1000, rng=np.random.default_rng(5))
+    c = find_n(d, replicates=1000, rng=np.random.default_rng(5), coverage_tolerance=0.02)
     assert c.reached
 
 
