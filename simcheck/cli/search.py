@@ -25,7 +25,10 @@ def add_parser(subparsers) -> None:
             "the crossing cheaply, then confirms it on fresh replicates, doubling them until the "
             "decision is clear against the Monte Carlo error or the replicate budget is spent. "
             "With several methods in method.interval, every method is searched on the same draws "
-            "and the one needing the least n is named."
+            "and the one needing the least n is named. Exact computations (proportions, normal data "
+            "with z or t) answer the smallest n at which the targets hold at every n up to "
+            "target.window x n (default 1.25): coverage of count data oscillates in n. Every answer "
+            "names its criterion and its decision (clear or undecided)."
         ),
     )
     p.add_argument("scenario", metavar="SCENARIO", help="scenario file (TOML)")
