@@ -52,8 +52,10 @@ from numbers import Integral
 from pathlib import Path
 from typing import Any, Mapping
 
-from simcheck.design import ESTIMANDS, TWO_SAMPLE, ClusterSpec, Design, PopulationSpec
+from simcheck.design import ESTIMANDS, STRATIFIED_METHODS, TWO_SAMPLE, ClusterSpec, Design, PopulationSpec
 from simcheck.errors import Collector, InputError, Problem
+from simcheck.scenario_strata import KNOWN_KEYS as STRATA_KEYS
+from simcheck.scenario_strata import read_strata, strata_tables
 
 __all__ = [
     "KNOWN_KEYS",
@@ -118,12 +120,13 @@ KNOWN_KEYS: dict[str, str] = {
     "population.fpc": "apply the finite population correction: true | false; default true",
     "population.file": "CSV file of the population's values (relative to the scenario file)",
     "population.column": "column of population.file holding the values",
+    **STRATA_KEYS,
 }
 
-_TOP = ("title", "target", "data", "method", "simulation", "clusters", "population")
+_TOP = ("title", "target", "data", "method", "simulation", "clusters", "population", "strata", "allocation")
 _TABLES: dict[str, tuple[str, ...]] = {}
 for _k in KNOWN_KEYS:
-    if "." in _k and not _k.startswith("data"):
+    if "." in _k and not _k.startswith(("data", "allocation")):
         _t, _leaf = _k.split(".", 1)
         _TABLES.setdefault(_t, ())
         _TABLES[_t] = _TABLES[_t] + (_leaf,)
@@ -177,6 +180,9 @@ class Scenario:
     event_values: tuple[float, ...] | None = None
     event_above: float | None = None
     window: float = 1.25
+    #: warnings about values allowed but implausible, and settings not used;
+    #: the command line prints them on stderr
+    notices: tuple[str, ...] = ()
 
     @property
     def two_sample(self) -> bool:
@@ -189,8 +195,15 @@ class Scenario:
     def describe_data(self) -> str:
         """The data model(s) in one line."""
         d = self.design
+        if d.strata is not None:
+            return "; ".join(f"{name} (N = {size}): {m.describe()}"
+                             for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models))
         if d.two_sample:
             return f"a: {d.model.describe()}; b: {d.model_b.describe()}"
+        pop = d.population
+        if pop is not None and pop.file is not None:
+            given = self.table.get("population", {}).get("file", pop.file)
+            return f"the {pop.size} values of column {pop.column!r} of {given}"
         return d.model.describe()
 
     def to_dict(self) -> dict[str, Any]:
@@ -236,6 +249,9 @@ class Scenario:
             },
             "simulation": sim,
         }
+        if d.strata is not None:
+            out.pop("data")
+            out.update(_json_safe(copy.deepcopy(strata_tables(self.table))))
         if d.clusters is not None:
             out["clusters"] = _json_safe(d.clusters.to_dict())
         if d.population is not None:
@@ -408,6 +424,10 @@ def validate(
         confidence = _num(c, target, "target", "confidence", DEFAULT_CONFIDENCE, low=0, high=1, low_open=True, high_open=True)
         margin = _num(c, target, "target", "margin", None, required=True, low=0, low_open=True,
                       what="the target half-width in the data's units, > 0")
+        if margin is not None and estimand in ("proportion", "proportion-diff") and margin >= 1:
+            # as `formula` refuses it: every interval of a proportion has half-width <= 1/2 (a difference 1)
+            c.add("target.margin", f"must be < 1 for a {estimand} (0.05 means 5 percentage points), got {margin!r}")
+            margin = None
         assurance = _num(c, target, "target", "assurance", DEFAULT_ASSURANCE, low=0, high=1, low_open=True, high_open=True)
         tol = _num(c, target, "target", "coverage_tolerance", DEFAULT_COVERAGE_TOLERANCE, low=0, high=0.5, high_open=True)
         if tol is not None and confidence is not None and tol >= confidence:
@@ -422,7 +442,22 @@ def validate(
     # [data]
     model = model_b = None
     data = table.get("data")
-    if data is None:
+    strata = None
+    # population.file supplies the values: [data] is then neither needed nor used
+    from_file = (isinstance(pop_t, dict) and "file" in pop_t and estimand not in TWO_SAMPLE
+                 and "strata" not in table)
+    notices: list[str] = []
+    if "allocation" in table and "strata" not in table:
+        c.add("allocation", "only with [[strata]] tables")
+    if "strata" in table:
+        model, strata = _strata_model(c, table, bdir, event_values, event_above)
+        if data is not None:
+            c.add("data", "not used with [[strata]]: give each stratum its model in [strata.data]")
+    elif from_file:
+        if data:
+            notices.append("notice: [data] is not used: population.file supplies the values")
+        data = None  # the model comes from the file below
+    elif data is None:
         c.add("data", "missing: a [data] table with model = \"...\" (two-sample: [data.a] and [data.b])")
     elif not isinstance(data, dict):
         c.add("data", f"must be a table, got {data!r}")
@@ -445,7 +480,7 @@ def validate(
         else:
             model = _model(c, data, "data", bdir)
 
-    if model is not None and (event_values is not None or event_above is not None):
+    if strata is None and model is not None and (event_values is not None or event_above is not None):
         model = _wrap_event(c, model, event_values, event_above)
         if model_b is not None:
             model_b = _wrap_event(c, model_b, event_values, event_above)
@@ -454,7 +489,7 @@ def validate(
     methods: list[str] = []
     resamples = DEFAULT_RESAMPLES
     if method is not None:
-        methods = _methods(c, method, estimand)
+        methods = _methods(c, method, estimand, stratified="strata" in table)
         resamples = _num(c, method, "method", "resamples", DEFAULT_RESAMPLES, low=RESAMPLES_MIN, high=RESAMPLES_MAX, integer=True)
 
     # [simulation]
@@ -471,6 +506,8 @@ def validate(
 
     clusters = _clusters(c, clusters_t) if clusters_t is not None else None
     population = _population(c, pop_t, bdir) if pop_t is not None else None
+    if from_file and population is not None and population.file is not None and not c.problems:
+        model = _population_model(c, population, estimand)
 
     # n range (the population bounds n when units are sampled without replacement)
     n_max_given = "n_max" in sim
@@ -501,6 +538,7 @@ def validate(
                 resamples=resamples,
                 clusters=clusters,
                 population=population,
+                strata=strata,
             )
         except InputError as e:
             _extend_design(c, e, estimand)
@@ -535,7 +573,42 @@ def validate(
         event_values=None if event_values is None else tuple(event_values),
         event_above=event_above,
         window=window,
+        notices=_notices(notices, designs),
     )
+
+
+def _population_model(c: Collector, population: PopulationSpec, estimand: str | None):
+    """The data model standing for the values of population.file (mean, Cochran's S; 0/1: bernoulli).
+
+    The engine samples the file's values themselves; this model only gives the
+    design its estimand checks and the closed-form n its planning values.
+    """
+    from simcheck.models import make_model
+    from simcheck.models.population import read_population
+
+    try:
+        fp = read_population(population.file, population.column, population.size)
+    except InputError as e:
+        c.extend(e)
+        return None
+    if estimand == "proportion" and not fp.zero_one:
+        c.add("population.file", f"a proportion estimand needs 0/1 values in column {population.column!r}")
+        return None
+    if fp.zero_one:
+        return make_model({"model": "bernoulli", "p": fp.mean})
+    if not fp.S > 0:
+        c.add("population.file", "all values are equal: there is nothing to estimate")
+        return None
+    return make_model({"model": "normal", "mean": fp.mean, "sd": fp.S})
+
+
+def _notices(extra: list[str], designs: list[Design]) -> tuple[str, ...]:
+    from simcheck.engine.measures import plausibility_notes
+
+    out = list(extra)
+    for d in designs:
+        out += [t for t in plausibility_notes(d) if t not in out]
+    return tuple(out)
 
 
 # --- validation helpers -------------------------------------------------------
@@ -697,6 +770,29 @@ def _model(c: Collector, tbl: Any, prefix: str, base_dir: str | None):
         return None
 
 
+def _strata_model(c: Collector, table: dict[str, Any], base_dir: str | None, values, above):
+    """The strata and the population's model (their mixture, weighted by stratum size)."""
+    from simcheck.models import make_model
+
+    def wrap(m):
+        return _wrap_event(c, m, values, above) if (values is not None or above is not None) else m
+
+    strata = read_strata(c, table, base_dir, wrap)
+    if strata is None:
+        return None, None
+    sizes = strata.sizes
+    if not all(isinstance(v, (int, float)) and not isinstance(v, bool) and v > 0 for v in sizes):
+        return None, strata  # Design reports the sizes
+    total = float(sum(sizes))
+    try:
+        mix = make_model({"model": "mixture", "weights": [v / total for v in sizes],
+                          "components": [t["data"] for t in table["strata"]]}, base_dir=base_dir)
+    except InputError as e:
+        c.extend(e.prefixed("strata"))
+        return None, strata
+    return wrap(mix), strata
+
+
 def _group(c: Collector, data: dict[str, Any], g: str, base_dir: str | None):
     if g not in data:
         c.add(f"data.{g}", f"missing: a two-sample estimand needs [data.a] and [data.b]; [data.{g}] is not given")
@@ -715,7 +811,7 @@ def _wrap_event(c: Collector, model, values, above):
         return None
 
 
-def _methods(c: Collector, method: dict[str, Any], estimand: str | None) -> list[str]:
+def _methods(c: Collector, method: dict[str, Any], estimand: str | None, stratified: bool = False) -> list[str]:
     from simcheck.intervals import REGISTRY, methods_for
 
     if "interval" not in method:
@@ -736,7 +832,11 @@ def _methods(c: Collector, method: dict[str, Any], estimand: str | None) -> list
         if m in out:
             c.add(name, f"{m!r} is listed twice")
             continue
-        if estimand is not None and (estimand, m) not in REGISTRY:
+        if stratified and estimand in STRATIFIED_METHODS:
+            if m not in STRATIFIED_METHODS[estimand]:
+                c.add(name, f"stratified {estimand} intervals: {', '.join(STRATIFIED_METHODS[estimand])}; got {m!r}")
+                continue
+        elif estimand is not None and (estimand, m) not in REGISTRY:
             known = methods_for(estimand)
             near = difflib.get_close_matches(m, known, n=1, cutoff=0.5)
             hint = f"did you mean {near[0]!r}? " if near else ""

@@ -164,6 +164,8 @@ def _formula(design: Design):
 
     if design.margin is None:
         return None
+    if design.strata is not None:
+        return _stratified_formula(design)
     kw: dict[str, Any] = {"confidence": design.confidence, "multiplier": "z"}
     try:
         if design.estimand in ("mean", "mean-diff"):
@@ -192,6 +194,22 @@ def _formula(design: Design):
         return None
     n = res.clusters if cl is not None else res.n
     return None if n is None else (res, int(n))
+
+
+def _stratified_formula(design: Design):
+    from simcheck.strata import stratified_sample_size
+
+    st = design.strata
+    prop = design.estimand == "proportion"
+    try:
+        res = stratified_sample_size(
+            design.estimand, float(design.margin), names=st.names, sizes=st.sizes,
+            sds=None if prop else [m.sd for m in st.models], ps=[m.mean for m in st.models] if prop else None,
+            means=[m.mean for m in st.models], rule=st.rule, costs=st.costs, given=st.given,
+            minimum=st.minimum, confidence=design.confidence)
+    except (InputError, ValueError, ZeroDivisionError, OverflowError):
+        return None
+    return res, int(res.n)
 
 
 # --------------------------------------------------------------------------
@@ -247,41 +265,9 @@ def _f(x) -> str:
 
 def _pool(a: CheckResult, b: CheckResult) -> CheckResult:
     """Two evaluations of the same n on independent replicates, as one."""
-    ra, rb = a.replicates, b.replicates
-    R = ra + rb
+    from simcheck.engine.measures import pool_checks
 
-    def w(x, y):
-        if x is None or y is None:
-            return None
-        return (x * ra + y * rb) / R
-
-    cov = w(a.coverage, b.coverage)
-    ass = w(a.assurance, b.assurance)
-    vals = None
-    med, p90 = w(a.margin_median, b.margin_median), w(a.margin_p90, b.margin_p90)
-    if a.margin_values is not None and b.margin_values is not None:
-        vals = np.concatenate([a.margin_values, b.margin_values])
-        if vals.size:
-            med, p90 = (float(v) for v in np.quantile(vals, [0.5, 0.9]))
-    notes = list(a.notes)
-    notes += [t for t in b.notes if t not in notes]
-    return replace(
-        a,
-        replicates=R,
-        coverage=float(cov),
-        coverage_mcse=engine.mcse(cov, R),
-        miss_low=float(w(a.miss_low, b.miss_low)),
-        miss_high=float(w(a.miss_high, b.miss_high)),
-        margin_mean=float(w(a.margin_mean, b.margin_mean)),
-        margin_median=float(med),
-        margin_p90=float(p90),
-        assurance=None if ass is None else float(ass),
-        assurance_mcse=None if ass is None else engine.mcse(ass, R),
-        degenerate=a.degenerate + b.degenerate,
-        notes=tuple(notes),
-        margin_values=vals,
-        margin_weights=None,
-    )
+    return pool_checks(a, b)
 
 
 # --------------------------------------------------------------------------

@@ -8,7 +8,7 @@ from typing import Any
 
 from simcheck import CAUTION
 from simcheck.cli.common import add_json, add_sim_overrides, emit_json, table
-from simcheck.cli.check import CLI_FIELDS, Progress, add_method_option, run_seed
+from simcheck.cli.check import CLI_FIELDS, SearchProgress, add_method_option, run_seed
 from simcheck.errors import Collector
 
 BUDGET_MIN, BUDGET_MAX = 100, 10**12
@@ -57,7 +57,7 @@ def run(args: argparse.Namespace) -> int:
     c.raise_if_any()
     scenario = load_scenario(args.scenario, overrides or None)
     seed = run_seed(scenario, args.seed)
-    with Progress() as prog:
+    with SearchProgress(budget=overrides.get("simulation.budget", getattr(scenario, "budget", None))) as prog:
         res = run_task(scenario, "search", n_min=args.n_min, n_max=args.n_max, method=args.method,
                        replicates=args.replicates, seed=seed, progress=prog, fields=CLI_FIELDS)
     if args.json:
@@ -101,6 +101,10 @@ def _header(scenario, design) -> list[str]:
     if d.two_sample:
         lines.append(f"data a:      {d.model.describe()}")
         lines.append(f"data b:      {d.model_b.describe()}  (n_b = {d.ratio:g} x n)")
+    elif d.strata is not None:
+        for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models):
+            lines.append(f"stratum:     {name} (N = {size}): {m.describe()}")
+        lines.append(f"allocation:  {d.strata.rule}; n counts the whole sample")
     else:
         lines.append(f"data:        {d.model.describe()}")
     if d.clusters is not None:

@@ -14,10 +14,15 @@ Conventions, shared with the simulation engine:
 * the achieved margin is the half-width ``(upper - lower) / 2``;
 * ``margin_median`` and ``margin_p90`` are weighted quantiles of the
   half-width under the sampling distribution, defined as the smallest
-  support value whose cumulative probability is >= q (q = 0.5, 0.9); the
-  cumulative probability is normalised by the total weight enumerated;
-* ``assurance`` is P(half-width <= margin) (None when no margin is given),
-  with a relative allowance of 1e-12 for rounding (:data:`MARGIN_RTOL`);
+  support value whose cumulative probability is >= q (q = 0.5, 0.9): the
+  inverse-CDF definition (Hyndman & Fan 1996, definition 1), the same as
+  on the simulated paths; the cumulative probability is normalised by the
+  total weight enumerated;
+* ``assurance`` is P(half-width <= margin, not degenerate) (None when no
+  margin is given), with a relative allowance of 1e-12 for rounding
+  (:data:`MARGIN_RTOL`); ``degenerate_share`` is the probability of a
+  zero-width interval that misses the true value, which never counts as
+  meeting the margin;
 * ``margin_values`` / ``margin_weights`` hold the half-width distribution:
   values in ascending order with their probabilities (ties not merged);
 * binomial tails of probability below :data:`TAIL_TRIM` (1e-17 each) are not
@@ -97,7 +102,9 @@ def _weighted_quantile(sorted_values: np.ndarray, sorted_weights: np.ndarray, q:
     total = cum[-1]
     if total <= 0:
         return float("nan")
-    idx = int(np.searchsorted(cum / total, q, side="left"))
+    # the allowance keeps a cumulative probability equal to q up to rounding at q,
+    # as the rank ceil(m q) does on the simulated paths (one definition)
+    idx = int(np.searchsorted(cum / total, q - 1e-12, side="left"))
     return float(sorted_values[min(idx, sorted_values.size - 1)])
 
 
@@ -108,6 +115,9 @@ def weighted_measures(lo: np.ndarray, hi: np.ndarray, w: np.ndarray, true: float
     covered = (lo <= true) & (true <= hi)
     order = np.argsort(hw, kind="stable")
     hw_s, w_s = hw[order], w[order]
+    # a zero-width interval that misses (Wald at x = 0 or x = n) does not
+    # deliver the promised precision: counted apart, never within the margin
+    zero = (hw <= 0) & ~covered
     return {
         "true_value": float(true),
         "coverage": float(w[covered].sum() / total),
@@ -116,7 +126,8 @@ def weighted_measures(lo: np.ndarray, hi: np.ndarray, w: np.ndarray, true: float
         "margin_mean": float(np.dot(w, hw) / total),
         "margin_median": _weighted_quantile(hw_s, w_s, 0.5),
         "margin_p90": _weighted_quantile(hw_s, w_s, 0.9),
-        "assurance": None if margin is None else float(w[hw <= margin * MARGIN_RTOL].sum() / total),
+        "assurance": None if margin is None else float(w[(hw <= margin * MARGIN_RTOL) & ~zero].sum() / total),
+        "degenerate_share": float(w[zero].sum() / total),
         "margin_values": hw_s,
         "margin_weights": w_s,
     }
@@ -479,21 +490,25 @@ def two_binomial_measures(
 # ---------------------------------------------------------------- finite population
 
 
-def with_fpc(method_func: Interval, fraction_factor: float) -> Interval:
-    """Wrap a ``count`` interval so its half-widths shrink by a finite population factor.
+def with_fpc(method_func: Interval | Method, N: int) -> Interval:
+    """Wrap a ``count`` interval with the finite population correction for a population of N.
 
     Each limit's distance from the point estimate ``x / n`` is multiplied by
-    ``fraction_factor`` (``sqrt((N - n)/(N - 1))`` for sampling without
-    replacement), then the limits are clipped to [0, 1]. This is the simple
-    correction used with normal-approximation intervals; for score or beta
-    intervals it is an approximation.
+    ``sqrt(1 - n / N)`` (:func:`simcheck.formulas.fpc_variance_factor`, form
+    ``"S2"``: the interval's variance is estimated from the sample), then the
+    limits are clipped to [0, 1] once. Methods that clip by definition (Wald,
+    Agresti--Coull) are corrected before their clipping, through the
+    method's ``centre_half``: Wald becomes ``p ± z sqrt(1 - n/N) sqrt(p q / n)``
+    clipped once. For score or beta intervals the correction is an
+    approximation.
 
     Parameters
     ----------
-    method_func : callable
-        ``func(x, n, confidence) -> (lower, upper)`` (kind ``count``).
-    fraction_factor : float
-        Factor applied to both distances from ``x / n``, in [0, 1].
+    method_func : Method or callable
+        A ``count`` method (preferred: its unclipped form is used when it has
+        one) or ``func(x, n, confidence) -> (lower, upper)``.
+    N : int
+        Population size.
 
     Returns
     -------
@@ -502,14 +517,22 @@ def with_fpc(method_func: Interval, fraction_factor: float) -> Interval:
 
     References
     ----------
-    Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, chapter 3
-    (finite population correction for a proportion).
+    Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, section 3.2
+    (the estimated variance of a proportion carries the factor 1 - n/N).
     """
-    f = float(fraction_factor)
+    from simcheck.formulas import fpc_variance_factor
+
+    unclipped = getattr(method_func, "centre_half", None) if isinstance(method_func, Method) else None
+    func = method_func.func if isinstance(method_func, Method) else method_func
 
     def corrected(x, n, confidence):
-        lo, hi = method_func(x, n, confidence)
+        if unclipped is not None:
+            c, h = unclipped(x, n, confidence)
+            lo, hi = c - h, c + h
+        else:
+            lo, hi = func(x, n, confidence)
         phat = np.asarray(x, dtype=float) / np.asarray(n, dtype=float)
+        f = np.sqrt(fpc_variance_factor(n, N, "S2"))
         return np.clip(phat - (phat - lo) * f, 0.0, 1.0), np.clip(phat + (hi - phat) * f, 0.0, 1.0)
 
     return corrected
@@ -528,8 +551,8 @@ def hypergeometric_measures(
 
     X ~ hypergeometric: n units drawn without replacement from a population of
     N units of which K are successes; the true value is K / N. With
-    ``fpc=True`` the interval is corrected by :func:`with_fpc` with factor
-    ``sqrt((N - n)/(N - 1))``.
+    ``fpc=True`` the interval is corrected by :func:`with_fpc` (factor
+    ``sqrt(1 - n/N)``, clipped once).
 
     Parameters
     ----------
@@ -557,7 +580,7 @@ def hypergeometric_measures(
     ----------
     Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, chapter 3.
     """
-    func = _func(method_func, "count")
+    plain = _func(method_func, "count")
     c = Collector()
     _check_n(c, "N", N, low=2)
     _check_n(c, "n", n)
@@ -573,8 +596,7 @@ def hypergeometric_measures(
         c.add("K", f"must be <= the population size {N}, got {K}")
     c.raise_if_any()
     margin = None if margin is None else float(margin)
-    if fpc:
-        func = with_fpc(func, np.sqrt((N - n) / (N - 1)))
+    func = with_fpc(method_func, N) if fpc else plain
     x = np.arange(max(0, n - (N - K)), min(n, K) + 1)
     w = stats.hypergeom.pmf(x, N, K, n)
     lo, hi = func(x, np.full(x.shape, n), confidence)
