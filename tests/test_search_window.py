@@ -361,3 +361,12 @@ def test_population_proportion_exact_search_equals_brute_force(tmp_path):
                population=PopulationSpec(size=N, file=str(path), column="x"))
     res = find_n(d, rng=1, n_min=2, n_max=N)
     assert res.exact and res.reached and (res.n, res.n_first) == (ref, first), res.notes
+
+
+def test_issue_completion_rate_answer_no_longer_follows_n_max():
+    # p = 0.8, Wilson, margin 0.15, assurance 0.5: the "every larger n up to n_max" rule gave
+    # 56 / not reached / 293 / 716 for n_max 60 / 100 / 300 / 1000; the window answer is one n
+    ref, first = window_answer(lambda n: passes_one("wilson", 0.8, 0.15, n), 2, 300)
+    got = {m: find_n(design_one(0.8, 0.15, "wilson"), rng=1, n_max=m) for m in (60, 100, 300, 1000)}
+    assert {(r.n, r.n_first) for r in got.values()} == {(ref, first)}
+    assert all(r.reached and r.criterion == "window" for r in got.values())
