@@ -300,6 +300,10 @@ def test_scenario_window_key_and_json(tmp_path):
     assert len(obj["by_method"]) == 1 and obj["best"] == "wilson"
     code, out, err = run(WINDOW_TOML.format(window="window = 0.5"))
     assert code == 2 and out == "" and "target.window" in err and err.count("\n") == 1
+    code, out, _ = run(WINDOW_TOML.format(window=""), "--method", "wilson", "--window", "1")
+    assert code == 0 and json.loads(out)["n"] == first and json.loads(out)["criterion"] == "first"
+    code, out, err = run(WINDOW_TOML.format(window=""), "--window", "9")
+    assert code == 2 and out == "" and "--window" in err and err.count("\n") == 1
 
 
 # ------------------------------------------------------------------ clustered and finite-population exact paths

@@ -35,6 +35,9 @@ def add_parser(subparsers) -> None:
     p.add_argument("--budget", type=int, metavar="B",
                    help="cap on the replicates the search may simulate (overrides simulation.budget; "
                         "default 20 x replicates; 6 x for bootstrap methods)")
+    p.add_argument("--window", type=float, metavar="W",
+                   help="exact searches: the targets must hold at every n up to W x n (overrides "
+                        "target.window; default 1.25; 1 = the first n that meets them)")
     p.add_argument("--n-min", dest="n_min", type=int, metavar="A", help="smallest n considered (default: simulation.n_min)")
     p.add_argument("--n-max", dest="n_max", type=int, metavar="B",
                    help="search ceiling (default: simulation.n_max)")
@@ -54,6 +57,10 @@ def run(args: argparse.Namespace) -> int:
         b = c.number("--budget", args.budget, low=BUDGET_MIN, high=BUDGET_MAX, integer=True)
         if b is not None:
             overrides["simulation.budget"] = int(b)
+    if args.window is not None:
+        w = c.number("--window", args.window, low=1, high=4)
+        if w is not None:
+            overrides["target.window"] = float(w)
     c.raise_if_any()
     scenario = load_scenario(args.scenario, overrides or None)
     seed = run_seed(scenario, args.seed)
