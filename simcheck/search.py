@@ -39,7 +39,9 @@ Decision rules (Monte Carlo error, MCSE = sqrt(p (1 - p) / R), Morris et al.
 
 * the *score* of an n is the smaller of ``(coverage - target) / MCSE`` and
   ``(assurance - target) / MCSE``; an n *clearly fails* when its score is
-  below -2 and *clearly passes* when above +2;
+  below -bar and *clearly passes* when above +bar, with bar = 2 or the
+  two-sided 5 % Bonferroni bar over the confirmed n if larger, and
+  :data:`EXPLORE_Z` = 3.5 for rows of the exploration stages;
 * ``n_range = [low, high]`` is read off every simulated evaluation of the
   search (each n at its row with the most replicates; confirmation rounds
   pooled): ``low`` is one above the largest n that clearly fails, ``high``
@@ -456,9 +458,9 @@ def _validate(design, assurance, coverage_tolerance, replicates, n_min, n_max, b
 def criterion_for(exact: bool, window: float) -> tuple[str, str]:
     """(criterion, criterion_text): the named rule that defines a search's n."""
     if not exact:
-        return ("crossing", "the smallest n at which coverage and assurance meet the targets by more than "
-                f"{CLEAR_Z:g} Monte Carlo SE there and at every larger n checked; n_range holds the n the "
-                "Monte Carlo error cannot tell from the boundary")
+        return ("crossing", "the smallest n above every n that clearly fails at which coverage and assurance "
+                f"clearly meet the targets (by at least {CLEAR_Z:g} Monte Carlo SE, more when many n are "
+                "compared); n_range holds the n the Monte Carlo error cannot tell from the boundary")
     if window <= 1.0:
         return ("first", "the smallest n at which the targets hold (exact computation)")
     return ("window", f"the smallest n at which the targets hold at every n from n to ceil({window:g} n) "
@@ -878,7 +880,7 @@ def _sim_undecided(run: _Runner, ev: dict, cur: list, stop: str, budget: int, pr
                    **ctx) -> SearchResult:
     """No evaluated n meets the targets clearly: no n is claimed, the range and the budget are said."""
     low, hi_n = ev["low"], ctx["hi_n"]
-    notes = [f"undecided: no evaluated n meets the targets by more than {CLEAR_Z:g} MCSE before the replicate "
+    notes = [f"undecided: no evaluated n meets the targets clearly (by {CLEAR_Z:g} MCSE or more) before the replicate "
              f"budget ({budget}) was spent; the boundary may lie anywhere from n = {low} to n_max = {hi_n}; "
              "raise the replicates or the budget (see replicates_needed)"]
     if ev["n_first"] is not None:
@@ -907,8 +909,8 @@ def _sim_conclude(run: _Runner, pooled: dict, win: list[int], stop: str, budget:
     if decision == "undecided":
         notes.insert(0, f"undecided: the Monte Carlo error cannot tell n = {low}..{n} from the boundary; "
                         f"n = {n} is the conservative end (every evaluated n from it on meets the targets clearly)")
-    notes.append(f"confirmed on {at.replicates} replicates at n; n_range {low}-{n}: n whose coverage/assurance "
-                 f"are within {CLEAR_Z:g} MCSE of the targets, over every n the search evaluated")
+    notes.append(f"{at.replicates} replicates at n; n_range {low}-{n}: the n the Monte Carlo error cannot tell "
+                 "from the boundary, over every n the search evaluated")
     if stop == "replicate budget spent":
         notes.append(f"replicate budget ({budget}) spent before the decision was clear "
                      f"(n_range wider than {max(1, round(precision * n))}); raise the budget or the replicates")
