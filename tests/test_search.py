@@ -142,14 +142,19 @@ def test_lognormal_t_needs_more_than_the_formula():
     target = CONF - tol
     at_formula = engine.check(d, nf, replicates=20_000, rng=99)
     assert at_formula.coverage < target - 4 * at_formula.coverage_mcse
-    res = find_n(d, coverage_tolerance=tol, replicates=2000, rng=5, n_max=3000, budget=16_000)
-    assert res.reached and res.n_formula == nf
-    assert res.n > nf
-    assert res.ratio_to_formula > 1
-    # independent replicates at the n found: coverage within 4 MCSE of the target or above
-    again = engine.check(d, res.n, replicates=10_000, rng=12345)
-    assert again.coverage >= target - 4 * again.coverage_mcse
-    assert res.replicates_used <= 16_000
+    res = find_n(d, coverage_tolerance=tol, replicates=2000, rng=5, n_max=3000, budget=40_000)
+    assert res.n_formula == nf
+    # every n the Monte Carlo error allows lies above the formula's n (the curve is flat here, so
+    # the decision may well be undecided; then n, if given, is the conservative end)
+    assert res.n_range[0] > nf
+    if res.reached:
+        assert res.n > nf and res.ratio_to_formula > 1 and res.n == res.n_range[1]
+        # independent replicates at the n found: coverage within 4 MCSE of the target or above
+        again = engine.check(d, res.n, replicates=10_000, rng=12345)
+        assert again.coverage >= target - 4 * again.coverage_mcse
+    else:
+        assert res.decision == "undecided" and res.replicates_needed
+    assert res.replicates_used <= 40_000
 
 
 # ------------------------------------------------------------------ not reached
