@@ -416,7 +416,11 @@ def _data_rows(data: Mapping[str, Any]) -> list[list[str]]:
             model_rows(label, data[key])
     for key in ("true_value", "ratio", "resamples"):
         if key in data:
-            rows.append([key.replace("_", " "), fmt_g(data[key])])
+            label = key.replace("_", " ")
+            if key == "true_value" and "strata" in data:
+                # each evaluation reports its own finite populations' value (see the notes)
+                label = "planning value (the strata models' mean)"
+            rows.append([label, fmt_g(data[key])])
     for key in ("clusters", "population"):
         if key in data:
             for k, v in data[key].items():

@@ -237,10 +237,19 @@ def model_text(data: Mapping[str, Any]) -> str:
     return describe_model(data.get("data", {}))
 
 
-def interval_text(methods: Sequence[str], confidence: float) -> str:
-    names = join_words([method_text(m) for m in methods])
-    kind = "interval" if len(methods) == 1 else "intervals"
-    return f"the two-sided {fmt_pct(confidence)} {names} {kind}"
+#: how the stratified evaluator computes each method (simcheck.engine.stratified)
+STRATIFIED_METHOD_TEXT = {
+    "t": "stratified t interval (Satterthwaite degrees of freedom)",
+    "z": "stratified normal (z) interval",
+    "wald": "stratified Wald interval",
+}
+
+
+def interval_text(methods: Sequence[str], confidence: float, stratified: bool = False) -> str:
+    texts = STRATIFIED_METHOD_TEXT if stratified else {}
+    names = join_words([texts.get(m) or method_text(m) for m in methods])
+    kind = "interval" if len(methods) == 1 and not stratified else ("intervals" if len(methods) > 1 else "")
+    return f"the two-sided {fmt_pct(confidence)} {names}{' ' + kind if kind else ''}"
 
 
 # ---------------------------------------------------------------------------
@@ -343,7 +352,8 @@ def _simulation_sentences(s: StudyResults) -> list[str]:
     else:
         what = f"n {_n_unit(s)}"
     return [f"For each candidate sample size n the search drew independent samples of {what} (at least "
-            f"{s.replicates:,} per n) and computed {interval_text(s.methods, s.confidence)} for {est} in each.",
+            f"{s.replicates:,} per n) and computed {interval_text(s.methods, s.confidence, 'strata' in s.data)} "
+            f"for {est} in each.",
             "Coverage is the share of intervals that contained the true value; its Monte Carlo standard "
             "error (MCSE) is sqrt(c(1 − c)/R) for coverage c estimated from R samples"
             + (" (methods with an exact path were enumerated instead)." if any_exact else ".")]
