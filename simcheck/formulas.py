@@ -834,6 +834,7 @@ def sample_size(
         assumptions=tuple(assumptions),
         formula="; ".join(steps),
         dropout=drop,
+        bound=bound,
     )
 
 
@@ -870,8 +871,6 @@ def upper_sd_limit(pilot_sd: float, pilot_n: int, level: float) -> float:
     determination. Statistics in Medicine 14, 1933-1940.
     """
     return float(pilot_sd * math.sqrt((pilot_n - 1) / _stats().chi2.ppf(1 - level, pilot_n - 1)))
-        bound=bound,
-    )
 
 
 # ---------------------------------------------------------------------------
