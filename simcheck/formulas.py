@@ -294,6 +294,7 @@ class FormulaResult:
     p_b: float | None
     assumptions: tuple[str, ...]
     formula: str
+    dropout: float = 0.0
     bound: str = "two-sided"
     relative_margin: float | None = None
     cv: float | None = None
@@ -301,6 +302,15 @@ class FormulaResult:
     @property
     def n_total(self) -> int:
         return self.n + (self.n_b or 0)
+
+    @property
+    def n_enrolled(self) -> int:
+        """n to enrol so that n remain after the dropout share is lost (n itself without dropout)."""
+        return enrolled_n(self.n, self.dropout)
+
+    @property
+    def n_b_enrolled(self) -> int | None:
+        return None if self.n_b is None else enrolled_n(self.n_b, self.dropout)
 
     def to_dict(self) -> dict[str, Any]:
         """The JSON object of ``simcheck formula --json`` (contract keys first)."""
@@ -330,6 +340,10 @@ class FormulaResult:
             "p_b": self.p_b,
             "assumptions": list(self.assumptions),
             "formula": self.formula,
+            "dropout": self.dropout,
+            "n_enrolled": self.n_enrolled,
+            "n_b_enrolled": self.n_b_enrolled,
+            "n_total_enrolled": self.n_enrolled + (self.n_b_enrolled or 0),
             "bound": self.bound,
         }
         if self.relative_margin is not None:
@@ -538,6 +552,7 @@ def sample_size(
     cluster_size: float | None = None,
     cluster_size_cv: float | None = None,
     ratio: float | None = 1.0,
+    dropout: float | None = None,
     bound: str = "two-sided",
 ) -> FormulaResult:
     """Closed-form n for a confidence interval of half-width at most ``margin``.
@@ -572,6 +587,10 @@ def sample_size(
         ``ceil(n / cluster_size)``, also with a direct ``design_effect``.
     ratio : float
         Allocation ratio n_b / n_a for two-sample estimands, > 0.
+    dropout : float, optional
+        Share of enrolled units lost before analysis, in [0, 1): the result
+        also gives ``n_enrolled = ceil(n / (1 - dropout))`` (:func:`enrolled_n`);
+        n stays the number analysed.
     bound : {"two-sided", "upper", "lower"}
         A one-sided limit uses the one-sided multiple z_{1-alpha} (t_{1-alpha})
         instead of z_{1-alpha/2}: the margin is then the distance from the
@@ -606,10 +625,16 @@ def sample_size(
     .. [4] Welch, B. L. (1947). The generalization of "Student's" problem when
        several different population variances are involved. *Biometrika* 34, 28-35.
     """
-    v = _validate(
-        estimand, margin, confidence, sd, sd_b, p, p_b, multiplier, population_size,
-        design_effect, icc, cluster_size, cluster_size_cv, ratio,
-    )
+    dc = Collector()
+    drop = check_dropout(dc, "--dropout", dropout)
+    try:
+        v = _validate(
+            estimand, margin, confidence, sd, sd_b, p, p_b, multiplier, population_size,
+            design_effect, icc, cluster_size, cluster_size_cv, ratio,
+        )
+    except InputError as e:
+        dc.extend(e)  # report a bad --dropout together with every other problem
+    dc.raise_if_any()
     estimand, B, conf = v["estimand"], v["margin"], v["confidence"]
     # the multiples' level: a one-sided limit at 1 - alpha is the two-sided multiple at 1 - 2 alpha
     mconf = multiplier_confidence(conf, bound)
@@ -777,6 +802,12 @@ def sample_size(
                      + (f", group b ceil({n_b} / {_g(m)}) = {clusters_b}" if clusters_b is not None else ""))
     if iterations is not None:
         steps.append(f"t iteration: {iterations} evaluations of the t multiple")
+    if drop:
+        assumptions.append(f"a share {_g(drop)} of enrolled units is lost before analysis, independently of "
+                           "their values; n counts the units analysed")
+        nb_text = "" if n_b is None else f"; n_b_enrolled = {enrolled_n(n_b, drop)}"
+        steps.append(f"n_enrolled = ceil(n / (1 - dropout)) = ceil({n} / {_g(1 - drop)}) = "
+                     f"{enrolled_n(n, drop)}{nb_text}")
 
     return FormulaResult(
         estimand=estimand,
@@ -802,8 +833,44 @@ def sample_size(
         p_b=pb if two else None,
         assumptions=tuple(assumptions),
         formula="; ".join(steps),
+        dropout=drop,
         bound=bound,
     )
+
+
+def check_dropout(c: Collector, field: str, value: Any) -> float:
+    """A dropout share in [0, 1) (0 when None); records a problem in ``c`` otherwise."""
+    if value is None:
+        return 0.0
+    got = c.number(field, value, low=0, high=1, high_open=True)
+    return 0.0 if got is None else float(got)
+
+
+def enrolled_n(n: int, dropout: float) -> int:
+    """The n to enrol so that ``n`` remain when a share ``dropout`` is lost: ceil(n / (1 - dropout)).
+
+    Common practice: inflate by 1 / (1 - dropout), not by (1 + dropout),
+    which enrols too few. The number retained out of the enrolled is
+    binomial, so the n analysed is n on average or more, not always.
+    """
+    if not dropout:
+        return int(n)
+    return int(ceil_robust(n / (1.0 - dropout)))
+
+
+def upper_sd_limit(pilot_sd: float, pilot_n: int, level: float) -> float:
+    """Upper one-sided ``level`` confidence limit of sigma from a pilot SD.
+
+    ``s sqrt((m - 1) / chi2_{1 - level}(m - 1))``, the chi2 quantile at
+    ``1 - level`` (lower tail), since (m - 1) s^2 / sigma^2 ~ chi2(m - 1)
+    under normality.
+
+    References
+    ----------
+    Browne, R. H. (1995). On the use of a pilot sample for sample size
+    determination. Statistics in Medicine 14, 1933-1940.
+    """
+    return float(pilot_sd * math.sqrt((pilot_n - 1) / _stats().chi2.ppf(1 - level, pilot_n - 1)))
 
 
 # ---------------------------------------------------------------------------

@@ -231,6 +231,11 @@ class SearchResult:
     criterion_text: str = ""
     #: replicates per n that would likely settle an undecided answer (None when clear)
     replicates_needed: int | None = None
+    #: share lost after enrolment (``target.dropout``); n counts the units analysed
+    dropout: float = 0.0
+    #: n to enrol, ceil(n / (1 - dropout)) (set with ``dropout``; None when n is None)
+    n_enrolled: int | None = None
+    n_b_enrolled: int | None = None
     # Evaluations made during the search, for figures (not in to_dict).
     curve: CurveResult | None = field(default=None, repr=False, compare=False)
     at_n: CheckResult | None = field(default=None, repr=False, compare=False)
@@ -268,6 +273,9 @@ class SearchResult:
             "criterion": self.criterion,
             "criterion_text": self.criterion_text,
             "replicates_needed": self.replicates_needed,
+            "dropout": self.dropout,
+            "n_enrolled": self.n_enrolled if self.dropout else self.n,
+            "n_b_enrolled": self.n_b_enrolled if self.dropout else self.n_b,
         }
         return clean_json(d)
 

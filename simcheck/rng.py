@@ -27,6 +27,7 @@ STAGE_GROUP_B = 1
 STAGE_CONFIRM = 2
 STAGE_BOOTSTRAP = 3
 STAGE_POPULATION = 4
+STAGE_PLANNING = 5  # planning values drawn per replicate block (simcheck.uncertain)
 
 
 def root_sequence(rng: RngLike) -> tuple[np.random.SeedSequence, int | None]:

@@ -99,6 +99,7 @@ KNOWN_KEYS: dict[str, str] = {
     "target.window": "exact searches: the targets must hold at every n from n to ceil(window x n), in [1, 4]; default 1.25 (1: the first n that meets them)",
     "target.event_values": "proportion estimand on a discrete non-0/1 model: the values that count (list of numbers)",
     "target.event_above": "proportion estimand on a non-0/1 model: values strictly above this number count",
+    "target.dropout": "share of enrolled units lost before analysis, in [0, 1); default 0: search also reports n_enrolled = ceil(n / (1 - dropout))",
     "target.bound": "two-sided (default) | upper | lower: an interval or a one-sided confidence limit",
     "target.relative_margin": "target half-width as a share of the true value, > 0 (instead of target.margin)",
     "target.units": "units of the data, text (used in tables, figures and the methods paragraph)",
@@ -116,6 +117,7 @@ KNOWN_KEYS: dict[str, str] = {
     "simulation.ratio": f"n_b / n_a for two-sample estimands, in (0, {RATIO_MAX:g}]; default {DEFAULT_RATIO}",
     "simulation.budget": f"optional cap on the replicates a search spends, whole number in [{BUDGET_MIN}, {BUDGET_MAX}]",
     "simulation.path": f"computation path: {' | '.join(PATHS)}; default {DEFAULT_PATH}",
+    "simulation.random_dropout": "check: draw each study's analysed n from Binomial(n_enrolled, 1 - target.dropout): true | false; default false",
     "clusters.icc": "intracluster correlation in [0, 1); n then counts clusters",
     "clusters.size": f"observations per cluster, whole number in [1, {CLUSTER_SIZE_MAX}] (or size_mean and size_cv)",
     "clusters.size_mean": "mean cluster size, >= 1 (varying sizes)",
@@ -184,6 +186,10 @@ class Scenario:
     table: dict[str, Any] = field(default_factory=dict, compare=False, hash=False, repr=False)
     event_values: tuple[float, ...] | None = None
     event_above: float | None = None
+    dropout: float = 0.0
+    random_dropout: bool = False
+    #: planning values given as distributions (simcheck.uncertain); the design uses their point values
+    uncertain: tuple[Any, ...] = ()
     window: float = 1.25
     #: warnings about values allowed but implausible, and settings not used;
     #: the command line prints them on stderr
@@ -245,6 +251,8 @@ class Scenario:
             target["event_values"] = [float(v) for v in self.event_values]
         if self.event_above is not None:
             target["event_above"] = float(self.event_above)
+        if self.dropout:  # only when given, so scenarios without it hash as before
+            target["dropout"] = float(self.dropout)
         sim: dict[str, Any] = {
             "replicates": int(self.replicates),
             "n_min": int(self.n_min),
@@ -256,6 +264,8 @@ class Scenario:
             sim["seed"] = int(self.seed)
         if self.budget is not None:
             sim["budget"] = int(self.budget)
+        if self.random_dropout:  # only when set, so scenarios without it hash as before
+            sim["random_dropout"] = True
         out: dict[str, Any] = {
             "title": self.title,
             "target": target,
@@ -415,6 +425,12 @@ def validate(
     bdir = str(base_dir) if base_dir is not None else None
     if "base" in table and ("vary" in table or "task" in table) and "target" not in table:
         raise InputError([Problem("", "this is a sweep file (it has base and vary/task), not a scenario; run it with `simcheck sweep`")], source=source)
+    # planning values given as distributions: validated and run at their point values (the
+    # conditional answer); the table keeps them, so to_dict and sweep keys still see them
+    from simcheck import uncertain
+
+    given_table = table
+    table, planning = uncertain.split(table, source)
     c = Collector()
 
     _unknown_keys(c, table)
@@ -452,10 +468,12 @@ def validate(
             c.add("target.coverage_tolerance", f"must be below target.confidence ({confidence:g}), got {tol!r}")
             tol = None
         event_values, event_above = _event(c, target, estimand)
+        dropout = _num(c, target, "target", "dropout", 0.0, low=0, high=1, high_open=True)
         window = _num(c, target, "target", "window", 1.25, low=1, high=4)
     else:
         confidence = margin = assurance = tol = window = None
         event_values = event_above = None
+        dropout = 0.0
         bounds_t = {}
 
     # [data]
@@ -522,6 +540,14 @@ def validate(
         c.add("simulation.ratio", f"only for two-sample estimands ({', '.join(TWO_SAMPLE)}); estimand is {estimand!r}, got {ratio!r}")
     budget = _num(c, sim, "simulation", "budget", None, low=BUDGET_MIN, high=BUDGET_MAX, integer=True)
     path = _choice(c, sim, "simulation", "path", PATHS, default=DEFAULT_PATH)
+    random_dropout = sim.get("random_dropout", False)
+    if not isinstance(random_dropout, bool):
+        c.add("simulation.random_dropout", f"must be true or false, got {random_dropout!r}")
+        random_dropout = False
+    elif random_dropout and not dropout:
+        c.add("simulation.random_dropout", "needs target.dropout > 0 (the share lost after enrolment)")
+    elif random_dropout and estimand in TWO_SAMPLE:
+        c.add("simulation.random_dropout", "is for one-sample estimands only")
 
     clusters = _clusters(c, clusters_t) if clusters_t is not None else None
     population = _population(c, pop_t, bdir) if pop_t is not None else None
@@ -589,9 +615,12 @@ def validate(
         path=path,
         source=source,
         base_dir=bdir,
-        table=table,
+        table=given_table,
+        uncertain=planning,
         event_values=None if event_values is None else tuple(event_values),
         event_above=event_above,
+        dropout=float(dropout or 0.0),
+        random_dropout=bool(random_dropout),
         window=window,
         notices=_notices(notices, designs),
     )

@@ -15,6 +15,7 @@ results carry it, so every run can be repeated.
 
 from __future__ import annotations
 
+import dataclasses
 import inspect
 import secrets
 from numbers import Integral
@@ -154,6 +155,16 @@ def run_task(
         return None
 
     root, _ = resolve_seed(scenario, seed)
+    if scenario.uncertain:
+        return conditional_note(run_task(
+            dataclasses.replace(scenario, uncertain=()), task, n=n, n_min=n_min, n_max=n_max, step=step,
+            method=method, replicates=replicates, seed=seed, progress=progress, fields=fields), scenario)
+    if task == "check" and scenario.random_dropout:
+        from simcheck.dropout import check_random_dropout
+
+        out = [check_random_dropout(design, k, scenario.dropout, replicates=reps, rng=root, path=scenario.path)
+               for k in n_list]
+        return out[0] if isinstance(n, Integral) else out
     if task == "check":
         from simcheck import engine
 
@@ -189,7 +200,56 @@ def run_task(
     # compare() forwards its keywords to find_n()
     if scenario.path != "auto" and "path" in inspect.signature(search.find_n).parameters:
         kwargs["path"] = scenario.path
-    return fn(*args, **kwargs)
+    result = with_dropout(fn(*args, **kwargs), scenario.dropout)
+    if scenario.random_dropout:
+        text = ("simulation.random_dropout applies to check only: this search uses the analysed n as fixed "
+                "and reports n_enrolled = ceil(n / (1 - dropout))")
+        if hasattr(result, "by_method"):
+            return dataclasses.replace(result, by_method=tuple(
+                dataclasses.replace(r, notes=tuple(r.notes) + (text,)) for r in result.by_method))
+        return dataclasses.replace(result, notes=tuple(result.notes) + (text,))
+    return result
+
+
+def conditional_note(result: Any, scenario: Scenario) -> Any:
+    """The result(s) noting that they hold at the point values of uncertain planning values."""
+    from simcheck.results import CurveResult, MethodComparison
+
+    keys = ", ".join(u.key for u in scenario.uncertain)
+    text = (f"conditional on the point values of {keys} (given as distributions); "
+            "`simcheck predictive` gives the unconditional answer")
+
+    def one(r):
+        return dataclasses.replace(r, notes=tuple(r.notes) + (text,))
+
+    if isinstance(result, list):
+        return [one(r) for r in result]
+    if isinstance(result, CurveResult):
+        return dataclasses.replace(result, rows=tuple(one(r) for r in result.rows))
+    if isinstance(result, MethodComparison):
+        return dataclasses.replace(result, by_method=tuple(one(r) for r in result.by_method))
+    return one(result)
+
+
+def with_dropout(result: Any, dropout: float) -> Any:
+    """The search result(s) carrying ``target.dropout`` (for ``n_enrolled``)."""
+    import dataclasses
+
+    from simcheck.formulas import enrolled_n
+    from simcheck.results import MethodComparison
+
+    def one(r):
+        return dataclasses.replace(
+            r, dropout=dropout,
+            n_enrolled=None if r.n is None else enrolled_n(r.n, dropout),
+            n_b_enrolled=None if r.n_b is None else enrolled_n(r.n_b, dropout),
+        )
+
+    if not dropout:
+        return result
+    if isinstance(result, MethodComparison):
+        return dataclasses.replace(result, by_method=tuple(one(r) for r in result.by_method))
+    return one(result)
 
 
 def _method_design(c: Collector, scenario: Scenario, method: Any, name: str) -> Design:

@@ -14,7 +14,7 @@ from simcheck import __version__
 from simcheck.cli.common import Parser, UsageError, error_line, suggest, unknown_options
 from simcheck.errors import InputError
 
-COMMANDS = ["formula", "check", "curve", "search", "sweep", "export", "store", "report", "demo"]
+COMMANDS = ["formula", "check", "curve", "search", "sweep", "export", "store", "report", "demo", "fit", "predictive"]
 
 
 def build_parser() -> Parser:

@@ -54,6 +54,14 @@ def add_parser(subparsers) -> None:
                         "design effect 1 + ((V^2 + 1) M - 1) ICC")
     p.add_argument("--ratio", type=float, metavar="K",
                    help="allocation ratio for two-sample estimands: n_b = K * n_a, > 0 (default 1)")
+    p.add_argument("--dropout", type=float, metavar="D",
+                   help="share of enrolled units lost before analysis, in [0, 1): also reports "
+                        "n_enrolled = ceil(n / (1 - D)); n stays the number analysed")
+    p.add_argument("--pilot-n", dest="pilot_n", type=float, metavar="M",
+                   help="the SDs come from a pilot of M (>= 3) values: also reports the n with each SD raised "
+                        "to its upper one-sided confidence limit (Browne 1995), side by side (means only)")
+    p.add_argument("--pilot-confidence", dest="pilot_confidence", type=float, default=0.8, metavar="L",
+                   help="level of that upper confidence limit, in (0, 1) (default 0.8)")
     p.add_argument("--bound", choices=BOUNDS, default="two-sided", metavar="B",
                    help="two-sided (default), upper or lower: a one-sided limit uses the one-sided multiple "
                         "z_{1-alpha} (t_{1-alpha}); the margin is then the distance from the estimate to the limit")
@@ -132,7 +140,8 @@ def _strata(args: argparse.Namespace):
         sizes.append(int(nums[0]) if nums[0].is_integer() else nums[0])
         values.append(nums[1])
         extras.append(nums[2] if len(nums) > 2 else None)
-    for opt in ("sd", "sd_b", "p", "p_b", "population_size", "design_effect", "icc", "cluster_size", "ratio"):
+    for opt in ("sd", "sd_b", "p", "p_b", "population_size", "design_effect", "icc", "cluster_size", "ratio",
+                "dropout", "pilot_n"):
         if getattr(args, opt) is not None:
             c.add("--" + opt.replace("_", "-"), "not used with --stratum (give each stratum its own value)")
     c.raise_if_any()
@@ -162,6 +171,11 @@ def run(args: argparse.Namespace) -> int:
 
         raise InputError("--stratum", "missing: --allocation, --minimum and estimand total describe a stratified sample; give its strata with --stratum")
     _plan_problems(args)
+    if (args.limit is not None or args.relative_margin is not None) and (args.dropout is not None or args.pilot_n is not None):
+        from simcheck.errors import InputError
+
+        raise InputError("--dropout" if args.dropout is not None else "--pilot-n",
+                         "not available with --limit or --relative-margin")
     if args.limit is not None:
         plan = demonstration_plan(args.limit, args.events_allowed or 0, confidence=args.confidence, p=args.p)
         if args.json:
@@ -193,13 +207,59 @@ def run(args: argparse.Namespace) -> int:
         cluster_size=args.cluster_size,
         cluster_size_cv=args.cluster_size_cv,
         ratio=args.ratio,
+        dropout=args.dropout,
         bound=args.bound,
     )
+    browne = None if args.pilot_n is None else _browne(args, res)
     if args.json:
-        emit_json(res.to_dict())
+        d = res.to_dict()
+        if browne is not None:
+            d["browne"] = browne
+        emit_json(d)
         return 0
-    sys.stdout.write(render(res) + "\n")
+    text = render(res)
+    if browne is not None:
+        text += "\n\n" + _browne_text(res, browne)
+    sys.stdout.write(text + "\n")
     return 0
+
+
+def _browne(args: argparse.Namespace, res) -> dict:
+    """The n with each SD at its upper confidence limit from a pilot (Browne 1995)."""
+    from simcheck.errors import Collector
+    from simcheck.formulas import upper_sd_limit
+
+    c = Collector()
+    m = c.number("--pilot-n", args.pilot_n, low=3, high=10**7, integer=True)
+    level = c.number("--pilot-confidence", args.pilot_confidence, low=0, high=1, low_open=True, high_open=True)
+    if res.sd is None:
+        c.add("--pilot-n", "applies to means only (mean, mean-diff): the SD is what a pilot estimates")
+    c.raise_if_any()
+    sd_up = upper_sd_limit(res.sd, m, level)
+    sd_b_up = None if res.sd_b is None else upper_sd_limit(res.sd_b, m, level)
+    up = sample_size(
+        args.estimand, args.margin, confidence=args.confidence, sd=sd_up, sd_b=sd_b_up,
+        multiplier=args.multiplier, population_size=args.population_size, design_effect=args.design_effect,
+        icc=args.icc, cluster_size=args.cluster_size, cluster_size_cv=args.cluster_size_cv, ratio=args.ratio,
+        dropout=args.dropout, bound=args.bound,
+    )
+    return {"n": up.n, "n_b": up.n_b, "n_enrolled": up.n_enrolled, "sd_upper": sd_up, "sd_b_upper": sd_b_up,
+            "pilot_n": m, "level": level,
+            "formula": f"sd_upper = sd sqrt((m - 1) / chi2_{{1 - L}}(m - 1)) = {res.sd:g} sqrt({m - 1} / "
+                       f"chi2_{1 - level:g}({m - 1})) = {sd_up:.6g}"}
+
+
+def _browne_text(res, b: dict) -> str:
+    rows = [["at the planning SD", res.n, res.sd],
+            [f"SD at its upper {b['level']:g} limit (Browne 1995)", b["n"], b["sd_upper"]]]
+    return "\n".join([
+        f"SD from a pilot of {b['pilot_n']}: {b['formula']}", "",
+        table(["answer", "n", "sd"], rows), "",
+        "The planning SD is itself an estimate; over the pilot's sampling, the SD's upper limit is at least "
+        f"the true SD with probability {b['level']:g} (normal pilot data), and then this n is at least the "
+        "formula n at the true SD. `simcheck predictive` gives the "
+        "unconditional answer by simulation.",
+    ])
 
 
 def render(res) -> str:
@@ -221,6 +281,12 @@ def render(res) -> str:
         rows.append(["n", res.n])
     else:
         rows += [["n (group a)", res.n], ["n_b (group b)", res.n_b], ["n total", res.n_total]]
+    if res.dropout:
+        if res.n_b is None:
+            rows.append([f"n to enrol (dropout {res.dropout:g})", res.n_enrolled])
+        else:
+            rows += [[f"n to enrol, group a (dropout {res.dropout:g})", res.n_enrolled],
+                     ["n to enrol, group b", res.n_b_enrolled]]
     for name, k in getattr(res, "allocation", {}).items():
         rows.append([f"  n in {name}", k])
     if res.clusters is not None:

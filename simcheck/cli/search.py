@@ -139,6 +139,10 @@ def _one(r, design) -> list[str]:
         nb = f"   (group b: n_b = {r.n_b})" if r.n_b is not None else ""
         head = "UNDECIDED, conservative end: " if r.decision == "undecided" else ""
         lines.append(f"n found:     {head}{r.n}{nb}")
+        if r.dropout:
+            nbe = f"   (group b: {r.n_b_enrolled})" if r.n_b is not None else ""
+            lines.append(f"n to enrol:  {r.n_enrolled}{nbe}   (dropout {r.dropout:g}: ceil(n / (1 - dropout)); "
+                         "n counts the units analysed)")
         lines.append(f"n range:     {_range(r)}   (n consistent with the Monte Carlo error)"
                      if not r.exact else f"n range:     {_range(r)}   (exact: no Monte Carlo error)")
         if r.n_first is not None and r.n_first != r.n:

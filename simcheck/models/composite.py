@@ -199,63 +199,99 @@ class Mixture(StoredMoments):
 
 @register("empirical")
 class Empirical(StoredMoments):
-    """Resampling with replacement from one numeric column of a CSV file of pilot data.
+    """Resampling with replacement from pilot values: a CSV column or values given directly.
 
     The true value of the simulation is the pilot mean (the resampling law's
     mean); ``sd`` and ``skewness`` are those of the pilot values as a
-    population (divisor n). Empty cells are dropped (see ``notes``).
-    ``discrete`` is True when every pilot value is a whole number (counts,
-    ratings), where the sample mean lives on a lattice.
+    population: the SD uses divisor n (``sd_divisor = "n"``), because the
+    resampling law puts mass 1/n on each value; the usual sample SD (divisor
+    n - 1) is ``sample_sd``. Empty cells (missing values) are dropped (see
+    ``notes``). ``discrete`` is True when every pilot value is a whole number
+    (counts, ratings), where the sample mean lives on a lattice.
 
     Parameters (table keys)
     -----------------------
     file : str, path to a CSV (relative to the scenario file's folder)
     column : str, the column name
+    or values : list of numbers (from Python also a numpy array or a pandas Series)
     """
 
     name = "empirical"
     wants_base_dir = True
+    sd_divisor = "n"
 
     def __init__(self, params: dict[str, Any], *, base_dir: str | None = None) -> None:
-        import pandas as pd
-
-        t = ParamTable(self.name, params, ["file", "column"])
-        file = t.text("file")
-        column = t.text("column")
-        values = None
+        t = ParamTable(self.name, params, ["file", "column", "values"])
         self.notes: tuple[str, ...] = ()
-        if file is not None:
-            path = file if os.path.isabs(file) or base_dir is None else os.path.join(base_dir, file)
-            if not os.path.isfile(path):
-                t.c.add("file", f"no such file: {path}")
-            elif column is not None:
-                try:
-                    frame = pd.read_csv(path)
-                except Exception as e:  # pandas raises many kinds for unreadable files
-                    frame = None
-                    t.c.add("file", f"cannot read {path} as CSV: {str(e).splitlines()[0] if str(e) else type(e).__name__}")
-                if frame is not None:
-                    cols = [str(c) for c in frame.columns]
-                    if column not in cols:
-                        t.c.add("column", f"no column {column!r} in {file}; {suggest(column, cols)}")
-                    else:
-                        values = self._numeric(t.c, frame[frame.columns[cols.index(column)]], column, file)
+        which = t.choose(("file", "column"), ("values",))
+        file = column = path = None
+        values = None
+        if which == 0:
+            file, column = t.text("file"), t.text("column")
+            path, values = self._from_file(t.c, file, column, base_dir)
+        elif which == 1:
+            values = self._from_values(t.c, t.p["values"])
         t.done()
         self._given = t.given()
+        if which == 1:
+            # the values actually resampled, as plain floats (a Series or array is not a table value)
+            self._given["values"] = [float(v) for v in values]
         self.file, self.column, self.path = file, column, path
         self.values = values
         n = values.size
         self._m = float(values.mean())
         self._s = float(values.std())
+        self.sample_sd = float(values.std(ddof=1))
         self._g = float(stats.skew(values, bias=True)) if self._s > 0 else None
         self.discrete = bool(np.all(values == np.floor(values)))
         self.zero_one = bool(np.all((values == 0.0) | (values == 1.0)))
-        note = f"true value = mean of the pilot data (n={n}, file {file})"
+        where = f"file {file}" if file is not None else "values given directly"
+        note = (f"true value = mean of the pilot data (n={n}, {where}); its SD {self._s:.6g} uses divisor n "
+                f"(the sample SD with divisor n - 1 is {self.sample_sd:.6g})")
         if self.notes:
             note += "; " + "; ".join(self.notes)
         self.true_value_note = note
 
-    def _numeric(self, c: Collector, col, column: str, file: str) -> np.ndarray | None:
+    @classmethod
+    def from_values(cls, values: Any) -> "Empirical":
+        """The empirical model of values given from Python (list, numpy array or pandas Series)."""
+        return cls({"values": values})
+
+    def _from_file(self, c: Collector, file, column, base_dir):
+        import pandas as pd
+
+        if file is None:
+            return None, None
+        path = file if os.path.isabs(file) or base_dir is None else os.path.join(base_dir, file)
+        if not os.path.isfile(path):
+            c.add("file", f"no such file: {path}")
+            return path, None
+        if column is None:
+            return path, None
+        try:
+            frame = pd.read_csv(path)
+        except Exception as e:  # pandas raises many kinds for unreadable files
+            c.add("file", f"cannot read {path} as CSV: {str(e).splitlines()[0] if str(e) else type(e).__name__}")
+            return path, None
+        cols = [str(k) for k in frame.columns]
+        if column not in cols:
+            c.add("column", f"no column {column!r} in {file}; {suggest(column, cols)}")
+            return path, None
+        return path, self._numeric(c, "column", frame[frame.columns[cols.index(column)]], f"column {column!r} of {file}")
+
+    def _from_values(self, c: Collector, raw: Any) -> np.ndarray | None:
+        import pandas as pd
+
+        if isinstance(raw, (str, bytes, dict)) or not hasattr(raw, "__len__"):
+            c.add("values", f"must be a list of numbers, got {raw!r}")
+            return None
+        series = pd.Series(np.asarray(raw, dtype=object).ravel() if not isinstance(raw, pd.Series) else raw)
+        if series.map(lambda v: isinstance(v, bool)).any():
+            c.add("values", "must be numbers, got a boolean")
+            return None
+        return self._numeric(c, "values", series.reset_index(drop=True), "values")
+
+    def _numeric(self, c: Collector, field: str, col, what: str) -> np.ndarray | None:
         import pandas as pd
 
         empty = col.isna()
@@ -263,21 +299,21 @@ class Empirical(StoredMoments):
         bad = num.isna() & ~empty
         if bad.any():
             i = int(np.flatnonzero(bad.to_numpy())[0])
-            c.add("column", f"column {column!r} of {file} holds non-numeric values, e.g. {col.iloc[i]!r} in data row {i + 1}")
+            c.add(field, f"{what} holds non-numeric values, e.g. {col.iloc[i]!r} in data row {i + 1}")
             return None
         v = num[~empty].to_numpy(dtype=np.float64)
         if not np.all(np.isfinite(v)):
-            c.add("column", f"column {column!r} of {file} holds infinite values")
+            c.add(field, f"{what} holds infinite values")
             return None
         if v.size < 2:
-            c.add("column", f"column {column!r} of {file} has {v.size} value{'s' if v.size != 1 else ''}; at least 2 are needed to resample")
+            c.add(field, f"{what} has {v.size} value{'s' if v.size != 1 else ''}; at least 2 are needed to resample")
             return None
         if float(v.std()) == 0.0:
-            c.add("column", f"column {column!r} of {file} has one value only ({v[0]:g}); the data would not vary")
+            c.add(field, f"{what} has one value only ({v[0]:g}); the data would not vary")
             return None
         k = int(empty.sum())
         if k:
-            self.notes = (f"{k} empty value{'s' if k != 1 else ''} dropped from column {column!r}",)
+            self.notes = (f"{k} empty value{'s' if k != 1 else ''} dropped from {what}",)
         return v
 
     def bernoulli_p(self) -> float | None:

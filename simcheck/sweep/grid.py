@@ -2,7 +2,9 @@
 
 A sweep file names a base scenario, a task and, under ``[vary]``, dotted
 scenario keys with lists of values; every combination of values is one
-*cell*. The whole grid is validated before any work starts, so an overnight
+*cell*. Under ``[zip]``, lists of one common length vary together: the i-th
+values of all of them make one row, and each row is crossed with the
+``[vary]`` combinations. The whole grid is validated before any work starts, so an overnight
 run never stops at cell 317 on a typo.
 
 Each cell is identified by its *key*: the SHA-256 of the canonical JSON of
@@ -40,7 +42,7 @@ MAX_CELLS = 100_000
 
 #: floats with an integral value up to this size hash as the integer they equal
 _EXACT_INT = 2**53
-SWEEP_KEYS = ("title", "base", "task", "n", "n_min", "n_max", "seed", "vary")
+SWEEP_KEYS = ("title", "base", "task", "n", "n_min", "n_max", "seed", "vary", "zip")
 
 
 @dataclass(frozen=True)
@@ -72,11 +74,13 @@ class SweepSpec:
     n_min: int | None = None
     n_max: int | None = None
     title: str | None = None
+    zipped: tuple[tuple[str, tuple[Any, ...]], ...] = ()
 
     @property
     def size(self) -> int:
-        """Number of cells in the grid."""
-        return math.prod(len(v) for _, v in self.vary)
+        """Number of cells in the grid: the ``[zip]`` rows times the ``[vary]`` combinations."""
+        rows = len(self.zipped[0][1]) if self.zipped else 1
+        return rows * math.prod(len(v) for _, v in self.vary)
 
     def task_kwargs(self) -> dict[str, Any]:
         """Keyword arguments of :func:`simcheck.tasks.run_task` besides scenario, task and seed."""
@@ -87,9 +91,15 @@ class SweepSpec:
         return {}
 
     def combinations(self) -> list[dict[str, Any]]:
-        """Every combination of the varied values, in file order (last key fastest)."""
+        """Every cell's values: each ``[zip]`` row (its lists taken together, position by
+        position) crossed with every ``[vary]`` combination (last key fastest), zip rows outermost."""
         keys = [k for k, _ in self.vary]
-        return [dict(zip(keys, combo)) for combo in itertools.product(*(v for _, v in self.vary))]
+        crossed = [dict(zip(keys, combo)) for combo in itertools.product(*(v for _, v in self.vary))]
+        if not self.zipped:
+            return crossed
+        zkeys = [k for k, _ in self.zipped]
+        rows = [dict(zip(zkeys, row)) for row in zip(*(v for _, v in self.zipped))]
+        return [{**row, **combo} for row in rows for combo in crossed]
 
 
 def cell_label(values: dict[str, Any]) -> str:
@@ -271,6 +281,11 @@ def read_sweep(path: str | Path) -> SweepSpec:
             c.add("vary", f"the grid has {size:,} cells; one sweep may have at most {MAX_CELLS:,} "
                   "(split it into several sweep files, each with its own store)")
 
+    zipped = _read_zip(c, table.get("zip", {}), {k for k, _ in vary})
+    if zipped and len(zipped[0][1]) * math.prod(len(v) for _, v in vary) > MAX_CELLS:
+        c.add("zip", f"the grid has {len(zipped[0][1]) * math.prod(len(v) for _, v in vary):,} cells "
+              f"(zip rows x vary combinations); one sweep may have at most {MAX_CELLS:,}")
+
     base_path = None
     base_text = ""
     base = table.get("base")
@@ -298,11 +313,40 @@ def read_sweep(path: str | Path) -> SweepSpec:
         task=task,  # type: ignore[arg-type]
         seed=int(seed),
         vary=tuple(vary),
+        zipped=zipped,
         n=n_values,
         n_min=bounds["n_min"],
         n_max=bounds["n_max"],
         title=title,
     )
+
+
+def _read_zip(c: Collector, raw: Any, varied: set[str]) -> tuple[tuple[str, tuple[Any, ...]], ...]:
+    """The ``[zip]`` table: dotted keys -> lists of one common length, taken together per cell."""
+    if not isinstance(raw, dict):
+        c.add("zip", "must be a table of dotted scenario keys with lists of values of one length")
+        return ()
+    flat: dict[str, Any] = {}
+    _flatten_vary(raw, "", flat)
+    out: list[tuple[str, tuple[Any, ...]]] = []
+    for k, values in flat.items():
+        if not isinstance(values, list) or not values:
+            c.add(f"zip.{k}", f"must be a non-empty list of values, got {values!r}")
+        elif k in varied:
+            c.add(f"zip.{k}", "is also in [vary]; a key either varies on its own or together with others")
+        else:
+            try:
+                json.dumps(values, allow_nan=False)
+            except (TypeError, ValueError):
+                c.add(f"zip.{k}", "values must be numbers, strings, booleans, lists or tables (no dates, nan or inf)")
+                continue
+            out.append((k, tuple(values)))
+    lengths = {k: len(v) for k, v in out}
+    if len(set(lengths.values())) > 1:
+        c.add("zip", "lists must all have one length (one value each per cell), got "
+              + ", ".join(f"{k}: {n}" for k, n in lengths.items()))
+        return ()
+    return tuple(out)
 
 
 def _base_seed(base_path: Path, base_text: str, source: str) -> int:
