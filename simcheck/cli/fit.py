@@ -71,7 +71,7 @@ def render(res, file: str, column: str) -> str:
     lines += ["", f"Best by AIC: {res.best} ({res.best_fit.method}). Paste into a scenario:", ""]
     lines.append(res.data_table())
     lines += ["", "To carry the uncertainty of the fitted parameters into the plan (`simcheck predictive`), "
-                  f"add to the table:", "", f"pilot_n = {res.n}   # each draw refits the model to {res.n} simulated values"]
+                  "add to the table:", "", f"pilot_n = {res.n}   # each draw refits the model to {res.n} simulated values"]
     if res.best == "normal":
         lines += ["", "or, for the SD alone (its scaled chi-square law), give instead:", "",
                   f"sd = {{ pilot_n = {res.n}, pilot_sd = {res.sd:.6g} }}   # the sample SD, divisor n - 1"]
