@@ -14,7 +14,7 @@ from simcheck import __version__
 from simcheck.cli.common import Parser, UsageError
 from simcheck.errors import InputError
 
-COMMANDS = ["formula", "check", "curve", "search", "sweep", "export", "report", "demo"]
+COMMANDS = ["formula", "check", "curve", "search", "sweep", "export", "report", "demo", "examples"]
 
 
 def build_parser() -> Parser:

@@ -21,6 +21,7 @@ from simcheck.errors import Collector, InputError
 from simcheck.models.base import Model, StoredMoments, ZeroOneMoments, register
 from simcheck.models.continuous import ParamTable, event_args, suggest
 from simcheck.models.discrete import SUM_TOL
+from simcheck.models.population import value_array
 
 __all__ = ["ZeroInflated", "Mixture", "Empirical", "EventModel", "ScipyModel"]
 
@@ -211,6 +212,8 @@ class Empirical(StoredMoments):
     -----------------------
     file : str, path to a CSV (relative to the scenario file's folder)
     column : str, the column name
+    values : list of float, instead of file and column: the pilot values
+        themselves (from Python also a numpy array or a pandas Series)
     """
 
     name = "empirical"
@@ -219,11 +222,20 @@ class Empirical(StoredMoments):
     def __init__(self, params: dict[str, Any], *, base_dir: str | None = None) -> None:
         import pandas as pd
 
-        t = ParamTable(self.name, params, ["file", "column"])
-        file = t.text("file")
-        column = t.text("column")
-        values = None
+        t = ParamTable(self.name, params, ["file", "column", "values"])
         self.notes: tuple[str, ...] = ()
+        values = file = column = path = None
+        if t.has("values"):
+            # pilot values given directly (a list in a file; an array or a Series from Python)
+            if t.has("file") or t.has("column"):
+                t.c.add("values", "give values (the pilot data itself) or file and column, not both")
+            else:
+                values = value_array(t.c, "values", t.p["values"])
+                if values is not None:
+                    t.p["values"] = values
+        else:
+            file = t.text("file")
+            column = t.text("column")
         if file is not None:
             path = file if os.path.isabs(file) or base_dir is None else os.path.join(base_dir, file)
             if not os.path.isfile(path):
@@ -250,7 +262,8 @@ class Empirical(StoredMoments):
         self._g = float(stats.skew(values, bias=True)) if self._s > 0 else None
         self.discrete = bool(np.all(values == np.floor(values)))
         self.zero_one = bool(np.all((values == 0.0) | (values == 1.0)))
-        note = f"true value = mean of the pilot data (n={n}, file {file})"
+        where = f"file {file}" if file is not None else "values given"
+        note = f"true value = mean of the pilot data (n={n}, {where})"
         if self.notes:
             note += "; " + "; ".join(self.notes)
         self.true_value_note = note
@@ -285,6 +298,11 @@ class Empirical(StoredMoments):
 
     def params(self) -> dict[str, Any]:
         return dict(self._given)
+
+    def describe(self) -> str:
+        if self.file is None:  # values given: their count, not every value
+            return f"empirical({self.values.size} pilot values, mean {self._m:g})"
+        return super().describe()
 
     def event_probability(self, *, values=None, above=None) -> float:
         vals, a = event_args(values, above)
@@ -383,7 +401,9 @@ class ScipyModel(StoredMoments):
 
     Parameters
     ----------
-    dist : frozen scipy.stats distribution, e.g. ``scipy.stats.gamma(2, scale=3)``
+    dist : frozen scipy.stats distribution, e.g. ``scipy.stats.gamma(2, scale=3)``,
+        or a discrete law built with ``scipy.stats.rv_discrete(values=(xk, pk))``
+        (frozen or not)
     discrete : bool, optional
         Override the detection from ``isinstance(dist.dist, rv_discrete)``.
     """
@@ -391,6 +411,9 @@ class ScipyModel(StoredMoments):
     name = "scipy"
 
     def __init__(self, dist, discrete: bool | None = None) -> None:
+        if isinstance(dist, stats.rv_discrete) and hasattr(dist, "xk") and hasattr(dist, "pk"):
+            # rv_discrete(values=(xk, pk)) is fully specified without freezing
+            dist = dist()
         base = getattr(dist, "dist", None)
         if not isinstance(base, (stats.rv_continuous, stats.rv_discrete)):
             raise InputError("distribution", f"must be a frozen scipy.stats distribution, got {dist!r}")
@@ -413,10 +436,24 @@ class ScipyModel(StoredMoments):
         return self._m if self.zero_one else None
 
     def params(self) -> dict[str, Any]:
-        return {"distribution": self.dist_name, "args": [_num(a) for a in self.dist.args],
-                "kwds": {k: _num(v) for k, v in self.dist.kwds.items()}}
+        d: dict[str, Any] = {"distribution": self.dist_name, "args": [_num(a) for a in self.dist.args],
+                             "kwds": {k: _num(v) for k, v in self.dist.kwds.items()}}
+        xk = _support_points(self.dist)
+        if xk is not None:
+            d["distribution"] = "rv_discrete"
+            d["values"] = [float(v) for v in xk]
+            d["probs"] = [float(v) for v in self.dist.dist.pk]
+        return d
 
     def describe(self) -> str:
+        xk = _support_points(self.dist)
+        if xk is not None:
+            pk = self.dist.dist.pk
+            pairs = ", ".join(f"{x:g}: {p:g}" for x, p in zip(xk[:6], pk[:6]))
+            more = f", ... ({xk.size} values)" if xk.size > 6 else ""
+            loc = self.dist.kwds.get("loc")
+            shift = f" + {float(loc):g}" if loc else ""
+            return f"scipy.stats.rv_discrete(values {{{pairs}{more}}}){shift}"
         args = [f"{_num(a):g}" if isinstance(_num(a), float) else repr(a) for a in self.dist.args]
         args += [f"{k}={_num(v):g}" if isinstance(_num(v), float) else f"{k}={v!r}" for k, v in self.dist.kwds.items()]
         return f"scipy.stats.{self.dist_name}({', '.join(args)})"
@@ -431,6 +468,14 @@ class ScipyModel(StoredMoments):
 
     def _draw(self, rng, size, out) -> None:
         out[...] = self.dist.rvs(size=size, random_state=rng)
+
+
+def _support_points(dist) -> np.ndarray | None:
+    """The support of a frozen ``rv_discrete(values=...)`` law, else None."""
+    base = getattr(dist, "dist", None)
+    if isinstance(base, stats.rv_discrete) and hasattr(base, "xk") and hasattr(base, "pk"):
+        return np.asarray(base.xk, dtype=float)
+    return None
 
 
 def _num(v: Any) -> Any:
