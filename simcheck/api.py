@@ -733,6 +733,11 @@ def _write_sweep_files(scen: Scenario, vary: Mapping[str, Sequence[Any]], store:
         if isinstance(v, (str, bytes)) or not isinstance(v, Sequence):
             raise InputError(f"vary[{k!r}]", f"must be a list of values, got {v!r}")
     table = _absolute_files(scen.to_dict(), scen.base_dir)
+    data = table.get("data", {})
+    for group in (data, data.get("a"), data.get("b")):
+        if isinstance(group, dict) and group.get("model") == "scipy":
+            raise InputError("scenario", "a sweep writes its base scenario as TOML, and a scipy.stats model "
+                                         "cannot be written; use a named model or pilot values")
     base_text = _toml(table)
     sweep: dict[str, Any] = {"base": store.name + ".scenario.toml", "task": task, "seed": seed}
     for key, value in (("n", n), ("n_min", n_min), ("n_max", n_max)):

@@ -180,7 +180,7 @@ def test_empirical_values_refuse_bad_data_by_name():
         sc.scenario(estimand="mean", margin=1.0, interval="t", data={"model": "empirical", "values": [2.0, "x"]})
 
 
-def test_from_scipy_accepts_rv_discrete_values():
+def test_from_scipy_accepts_rv_discrete_values(tmp_path):
     xk, pk = np.array([0.0, 1.0, 2.0, 5.0]), np.array([0.1, 0.4, 0.3, 0.2])
     law = stats.rv_discrete(values=(xk, pk))
     for given in (law, law()):
@@ -195,6 +195,9 @@ def test_from_scipy_accepts_rv_discrete_values():
     s = sc.scenario(estimand="mean", margin=0.5, interval="t", replicates=300, data=law)
     assert s.design.true_value == pytest.approx(mean)
     assert sc.check(s, 30, rng=2).true_value == pytest.approx(mean)
+    with pytest.raises(InputError, match=r"^scenario: a sweep writes its base scenario as TOML"):
+        sc.sweep(s, {"margin": [0.5, 1.0]}, store=tmp_path / "x.sqlite", rng=1)
+    assert not (tmp_path / "x.sqlite").exists()
 
 
 # --------------------------------------------------------------------------
