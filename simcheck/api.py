@@ -82,6 +82,8 @@ KEYWORDS: dict[str, str] = {
     "path": "simulation.path",
     "clusters": "clusters",
     "population": "population",
+    "strata": "strata",
+    "allocation": "allocation",
 }
 
 
@@ -90,7 +92,7 @@ def _more_keywords() -> dict[str, str]:
     # keywords by their last part, unless that part is ambiguous.
     leaves: dict[str, list[str]] = {}
     for k in KNOWN_KEYS:
-        if "." in k and not k.startswith(("data", "clusters", "population")):
+        if "." in k and not k.startswith(("data", "clusters", "population", "strata", "allocation")):
             leaves.setdefault(k.rsplit(".", 1)[1], []).append(k)
     return {leaf: ks[0] for leaf, ks in leaves.items() if len(ks) == 1 and leaf not in KEYWORDS}
 
@@ -121,6 +123,8 @@ def scenario(
     path: str | None = None,
     clusters: Mapping[str, Any] | None = None,
     population: Mapping[str, Any] | None = None,
+    strata: Sequence[Mapping[str, Any]] | None = None,
+    allocation: Mapping[str, Any] | None = None,
     title: str | None = None,
     **more: Any,
 ) -> Scenario:
@@ -175,6 +179,11 @@ def scenario(
     population : dict, optional
         ``{"size": N}`` or ``{"values": array}``: a finite population sampled
         without replacement (its values as a list, numpy array or pandas Series).
+    strata : list of dict, optional
+        A stratified design: one dict per stratum with ``name``, ``size`` and
+        ``data`` (a model table), as the file's ``[[strata]]`` tables.
+    allocation : dict, optional
+        How n is shared among the strata, e.g. ``{"rule": "neyman"}``.
     title : str, optional
         A title for reports.
     **more

@@ -51,8 +51,10 @@ from numbers import Integral
 from pathlib import Path
 from typing import Any, Mapping
 
-from simcheck.design import ESTIMANDS, TWO_SAMPLE, ClusterSpec, Design, PopulationSpec
+from simcheck.design import ESTIMANDS, STRATIFIED_METHODS, TWO_SAMPLE, ClusterSpec, Design, PopulationSpec
 from simcheck.errors import Collector, InputError, Problem
+from simcheck.scenario_strata import KNOWN_KEYS as STRATA_KEYS
+from simcheck.scenario_strata import read_strata, strata_tables
 
 __all__ = [
     "KNOWN_KEYS",
@@ -117,12 +119,13 @@ KNOWN_KEYS: dict[str, str] = {
     "population.file": "CSV file of the population's values (relative to the scenario file)",
     "population.column": "column of population.file holding the values",
     "population.values": "the population's unit values as a list (instead of file; from Python an array or Series)",
+    **STRATA_KEYS,
 }
 
-_TOP = ("title", "target", "data", "method", "simulation", "clusters", "population")
+_TOP = ("title", "target", "data", "method", "simulation", "clusters", "population", "strata", "allocation")
 _TABLES: dict[str, tuple[str, ...]] = {}
 for _k in KNOWN_KEYS:
-    if "." in _k and not _k.startswith("data"):
+    if "." in _k and not _k.startswith(("data", "allocation")):
         _t, _leaf = _k.split(".", 1)
         _TABLES.setdefault(_t, ())
         _TABLES[_t] = _TABLES[_t] + (_leaf,)
@@ -187,6 +190,9 @@ class Scenario:
     def describe_data(self) -> str:
         """The data model(s) in one line."""
         d = self.design
+        if d.strata is not None:
+            return "; ".join(f"{name} (N = {size}): {m.describe()}"
+                             for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models))
         if d.two_sample:
             return f"a: {d.model.describe()}; b: {d.model_b.describe()}"
         return d.model.describe()
@@ -232,6 +238,9 @@ class Scenario:
             },
             "simulation": sim,
         }
+        if d.strata is not None:
+            out.pop("data")
+            out.update(_json_safe(copy.deepcopy(strata_tables(self.table))))
         if d.clusters is not None:
             out["clusters"] = _json_safe(d.clusters.to_dict())
         if d.population is not None:
@@ -417,7 +426,14 @@ def validate(
     # [data]
     model = model_b = None
     data = table.get("data")
-    if data is None:
+    strata = None
+    if "allocation" in table and "strata" not in table:
+        c.add("allocation", "only with [[strata]] tables")
+    if "strata" in table:
+        model, strata = _strata_model(c, table, bdir, event_values, event_above)
+        if data is not None:
+            c.add("data", "not used with [[strata]]: give each stratum its model in [strata.data]")
+    elif data is None:
         c.add("data", "missing: a [data] table with model = \"...\" (two-sample: [data.a] and [data.b])")
     elif _is_model(data) and estimand not in TWO_SAMPLE:  # a model object, from Python
         model = _model(c, data, "data", bdir)
@@ -442,7 +458,7 @@ def validate(
         else:
             model = _model(c, data, "data", bdir)
 
-    if model is not None and (event_values is not None or event_above is not None):
+    if strata is None and model is not None and (event_values is not None or event_above is not None):
         model = _wrap_event(c, model, event_values, event_above)
         if model_b is not None:
             model_b = _wrap_event(c, model_b, event_values, event_above)
@@ -451,7 +467,7 @@ def validate(
     methods: list[str] = []
     resamples = DEFAULT_RESAMPLES
     if method is not None:
-        methods = _methods(c, method, estimand)
+        methods = _methods(c, method, estimand, stratified="strata" in table)
         resamples = _num(c, method, "method", "resamples", DEFAULT_RESAMPLES, low=RESAMPLES_MIN, high=RESAMPLES_MAX, integer=True)
 
     # [simulation]
@@ -498,6 +514,7 @@ def validate(
                 resamples=resamples,
                 clusters=clusters,
                 population=population,
+                strata=strata,
             )
         except InputError as e:
             _extend_design(c, e, estimand)
@@ -699,6 +716,29 @@ def _model(c: Collector, tbl: Any, prefix: str, base_dir: str | None):
         return None
 
 
+def _strata_model(c: Collector, table: dict[str, Any], base_dir: str | None, values, above):
+    """The strata and the population's model (their mixture, weighted by stratum size)."""
+    from simcheck.models import make_model
+
+    def wrap(m):
+        return _wrap_event(c, m, values, above) if (values is not None or above is not None) else m
+
+    strata = read_strata(c, table, base_dir, wrap)
+    if strata is None:
+        return None, None
+    sizes = strata.sizes
+    if not all(isinstance(v, (int, float)) and not isinstance(v, bool) and v > 0 for v in sizes):
+        return None, strata  # Design reports the sizes
+    total = float(sum(sizes))
+    try:
+        mix = make_model({"model": "mixture", "weights": [v / total for v in sizes],
+                          "components": [t["data"] for t in table["strata"]]}, base_dir=base_dir)
+    except InputError as e:
+        c.extend(e.prefixed("strata"))
+        return None, strata
+    return wrap(mix), strata
+
+
 def _group(c: Collector, data: dict[str, Any], g: str, base_dir: str | None):
     if g not in data:
         c.add(f"data.{g}", f"missing: a two-sample estimand needs [data.a] and [data.b]; [data.{g}] is not given")
@@ -717,7 +757,7 @@ def _wrap_event(c: Collector, model, values, above):
         return None
 
 
-def _methods(c: Collector, method: dict[str, Any], estimand: str | None) -> list[str]:
+def _methods(c: Collector, method: dict[str, Any], estimand: str | None, stratified: bool = False) -> list[str]:
     from simcheck.intervals import REGISTRY, methods_for
 
     if "interval" not in method:
@@ -738,7 +778,11 @@ def _methods(c: Collector, method: dict[str, Any], estimand: str | None) -> list
         if m in out:
             c.add(name, f"{m!r} is listed twice")
             continue
-        if estimand is not None and (estimand, m) not in REGISTRY:
+        if stratified and estimand in STRATIFIED_METHODS:
+            if m not in STRATIFIED_METHODS[estimand]:
+                c.add(name, f"stratified {estimand} intervals: {', '.join(STRATIFIED_METHODS[estimand])}; got {m!r}")
+                continue
+        elif estimand is not None and (estimand, m) not in REGISTRY:
             known = methods_for(estimand)
             near = difflib.get_close_matches(m, known, n=1, cutoff=0.5)
             hint = f"did you mean {near[0]!r}? " if near else ""
