@@ -510,10 +510,10 @@ def search(
     --------
     >>> import simcheck as sc
     >>> s = sc.scenario(estimand="proportion", margin=0.1, interval="wilson",
-    ...                 data={"model": "bernoulli", "p": 0.2}, n_max=400)
+    ...                 data={"model": "bernoulli", "p": 0.2}, coverage_tolerance=0.02)
     >>> r = sc.search(s, rng=2)
-    >>> r.reached, r.exact
-    (True, True)
+    >>> r.reached, r.exact, r.decision
+    (True, True, 'clear')
     """
     _, out = _run("search", scenario, rng, progress, method=method, replicates=replicates,
                   n_min=n_min, n_max=n_max)

@@ -16,6 +16,7 @@ Defaults and limits (chosen here; documented in :data:`KNOWN_KEYS`):
 ``target.margin``              required, > 0 (the point of the tool)
 ``target.assurance``           0.5, in (0, 1)
 ``target.coverage_tolerance``  0.005, in [0, 0.5) and below the confidence
+``target.window``              1.25, in [1, 4] (exact searches: window criterion)
 ``method.interval``            required: a name or a list of names
 ``method.resamples``           1999, whole number in [99, 10**6]
 ``simulation.replicates``      10000, whole number in [100, 10**8]
@@ -95,6 +96,7 @@ KNOWN_KEYS: dict[str, str] = {
     "target.margin": "required: target half-width in the data's units, > 0",
     "target.assurance": f"required share of samples with half-width <= margin, in (0, 1); default {DEFAULT_ASSURANCE}",
     "target.coverage_tolerance": f"accepted coverage shortfall below the confidence, in [0, 0.5); default {DEFAULT_COVERAGE_TOLERANCE}",
+    "target.window": "exact searches: the targets must hold at every n from n to ceil(window x n), in [1, 4]; default 1.25 (1: the first n that meets them)",
     "target.event_values": "proportion estimand on a discrete non-0/1 model: the values that count (list of numbers)",
     "target.event_above": "proportion estimand on a non-0/1 model: values strictly above this number count",
     "data": "one-sample model table: model = \"...\" and its parameters",
@@ -178,6 +180,10 @@ class Scenario:
     table: dict[str, Any] = field(default_factory=dict, compare=False, hash=False, repr=False)
     event_values: tuple[float, ...] | None = None
     event_above: float | None = None
+    window: float = 1.25
+    #: warnings about values allowed but implausible, and settings not used;
+    #: the command line prints them on stderr
+    notices: tuple[str, ...] = ()
 
     @property
     def two_sample(self) -> bool:
@@ -195,6 +201,10 @@ class Scenario:
                              for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models))
         if d.two_sample:
             return f"a: {d.model.describe()}; b: {d.model_b.describe()}"
+        pop = d.population
+        if pop is not None and pop.file is not None:
+            given = self.table.get("population", {}).get("file", pop.file)
+            return f"the {pop.size} values of column {pop.column!r} of {given}"
         return d.model.describe()
 
     def to_dict(self) -> dict[str, Any]:
@@ -213,6 +223,8 @@ class Scenario:
             "assurance": float(self.assurance),
             "coverage_tolerance": float(self.coverage_tolerance),
         }
+        if self.window != 1.25:
+            target["window"] = float(self.window)  # only when set: default scenarios keep their hash
         if self.event_values is not None:
             target["event_values"] = [float(v) for v in self.event_values]
         if self.event_above is not None:
@@ -413,26 +425,39 @@ def validate(
         confidence = _num(c, target, "target", "confidence", DEFAULT_CONFIDENCE, low=0, high=1, low_open=True, high_open=True)
         margin = _num(c, target, "target", "margin", None, required=True, low=0, low_open=True,
                       what="the target half-width in the data's units, > 0")
+        if margin is not None and estimand in ("proportion", "proportion-diff") and margin >= 1:
+            # as `formula` refuses it: every interval of a proportion has half-width <= 1/2 (a difference 1)
+            c.add("target.margin", f"must be < 1 for a {estimand} (0.05 means 5 percentage points), got {margin!r}")
+            margin = None
         assurance = _num(c, target, "target", "assurance", DEFAULT_ASSURANCE, low=0, high=1, low_open=True, high_open=True)
         tol = _num(c, target, "target", "coverage_tolerance", DEFAULT_COVERAGE_TOLERANCE, low=0, high=0.5, high_open=True)
         if tol is not None and confidence is not None and tol >= confidence:
             c.add("target.coverage_tolerance", f"must be below target.confidence ({confidence:g}), got {tol!r}")
             tol = None
         event_values, event_above = _event(c, target, estimand)
+        window = _num(c, target, "target", "window", 1.25, low=1, high=4)
     else:
-        confidence = margin = assurance = tol = None
+        confidence = margin = assurance = tol = window = None
         event_values = event_above = None
 
     # [data]
     model = model_b = None
     data = table.get("data")
     strata = None
+    # population.file supplies the values: [data] is then neither needed nor used
+    from_file = (isinstance(pop_t, dict) and "file" in pop_t and estimand not in TWO_SAMPLE
+                 and "strata" not in table)
+    notices: list[str] = []
     if "allocation" in table and "strata" not in table:
         c.add("allocation", "only with [[strata]] tables")
     if "strata" in table:
         model, strata = _strata_model(c, table, bdir, event_values, event_above)
         if data is not None:
             c.add("data", "not used with [[strata]]: give each stratum its model in [strata.data]")
+    elif from_file:
+        if data:
+            notices.append("notice: [data] is not used: population.file supplies the values")
+        data = None  # the model comes from the file below
     elif data is None:
         c.add("data", "missing: a [data] table with model = \"...\" (two-sample: [data.a] and [data.b])")
     elif _is_model(data) and estimand not in TWO_SAMPLE:  # a model object, from Python
@@ -484,6 +509,8 @@ def validate(
 
     clusters = _clusters(c, clusters_t) if clusters_t is not None else None
     population = _population(c, pop_t, bdir) if pop_t is not None else None
+    if from_file and population is not None and population.file is not None and not c.problems:
+        model = _population_model(c, population, estimand)
 
     # n range (the population bounds n when units are sampled without replacement)
     n_max_given = "n_max" in sim
@@ -548,7 +575,43 @@ def validate(
         table=table,
         event_values=None if event_values is None else tuple(event_values),
         event_above=event_above,
+        window=window,
+        notices=_notices(notices, designs),
     )
+
+
+def _population_model(c: Collector, population: PopulationSpec, estimand: str | None):
+    """The data model standing for the values of population.file (mean, Cochran's S; 0/1: bernoulli).
+
+    The engine samples the file's values themselves; this model only gives the
+    design its estimand checks and the closed-form n its planning values.
+    """
+    from simcheck.models import make_model
+    from simcheck.models.population import read_population
+
+    try:
+        fp = read_population(population.file, population.column, population.size)
+    except InputError as e:
+        c.extend(e)
+        return None
+    if estimand == "proportion" and not fp.zero_one:
+        c.add("population.file", f"a proportion estimand needs 0/1 values in column {population.column!r}")
+        return None
+    if fp.zero_one:
+        return make_model({"model": "bernoulli", "p": fp.mean})
+    if not fp.S > 0:
+        c.add("population.file", "all values are equal: there is nothing to estimate")
+        return None
+    return make_model({"model": "normal", "mean": fp.mean, "sd": fp.S})
+
+
+def _notices(extra: list[str], designs: list[Design]) -> tuple[str, ...]:
+    from simcheck.engine.measures import plausibility_notes
+
+    out = list(extra)
+    for d in designs:
+        out += [t for t in plausibility_notes(d) if t not in out]
+    return tuple(out)
 
 
 # --- validation helpers -------------------------------------------------------
