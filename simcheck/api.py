@@ -1100,14 +1100,16 @@ def copy_examples(folder: str | Path) -> tuple[list[str], list[str]]:
     except OSError as e:
         raise InputError("--copy", f"cannot create {dest}: {e.strerror or e}") from None
     copied, skipped = [], []
-    for e in example_list():
-        target = dest / e.file
-        text = _examples_dir().joinpath(e.file).read_bytes()
+    # scenarios, sweeps and the data files they name (pilot or population CSVs)
+    names = sorted(f.name for f in _examples_dir().iterdir() if f.name.endswith((".toml", ".csv")))
+    for name in names:
+        target = dest / name
+        text = _examples_dir().joinpath(name).read_bytes()
         if target.exists():
             if target.read_bytes() != text:
-                skipped.append(e.file)
+                skipped.append(name)
             continue
-        with resources.as_file(_examples_dir().joinpath(e.file)) as src:
+        with resources.as_file(_examples_dir().joinpath(name)) as src:
             shutil.copyfile(src, target)
-        copied.append(e.file)
+        copied.append(name)
     return copied, skipped

@@ -20,7 +20,6 @@ from scipy import stats
 import simcheck as sc
 from simcheck.errors import InputError
 
-pytestmark = pytest.mark.minversions
 
 ROOT = Path(__file__).resolve().parents[1]
 

@@ -6,10 +6,6 @@ import re
 import tomllib
 from pathlib import Path
 
-import pytest
-
-pytestmark = pytest.mark.minversions
-
 ROOT = Path(__file__).resolve().parents[1]
 PYPROJECT = tomllib.loads((ROOT / "pyproject.toml").read_text(encoding="utf-8"))
 FLOORS_FILE = ROOT / ".ci" / "min-versions.txt"
