@@ -8,7 +8,8 @@ from typing import Any
 
 from simcheck import CAUTION
 from simcheck.cli.common import add_json, add_sim_overrides, emit_json, table
-from simcheck.cli.check import CLI_FIELDS, SearchProgress, add_method_option, run_seed
+from simcheck.bound_text import bound_words, coverage_words
+from simcheck.cli.check import CLI_FIELDS, SearchProgress, add_bound_option, add_method_option, bound_overrides, run_seed
 from simcheck.errors import Collector
 
 BUDGET_MIN, BUDGET_MAX = 100, 10**12
@@ -25,17 +26,24 @@ def add_parser(subparsers) -> None:
             "the crossing cheaply, then confirms it on fresh replicates, doubling them until the "
             "decision is clear against the Monte Carlo error or the replicate budget is spent. "
             "With several methods in method.interval, every method is searched on the same draws "
-            "and the one needing the least n is named."
+            "and the one needing the least n is named. Exact computations (proportions, normal data "
+            "with z or t) answer the smallest n at which the targets hold at every n up to "
+            "target.window x n (default 1.25): coverage of count data oscillates in n. Every answer "
+            "names its criterion and its decision (clear or undecided)."
         ),
     )
     p.add_argument("scenario", metavar="SCENARIO", help="scenario file (TOML)")
     p.add_argument("--budget", type=int, metavar="B",
                    help="cap on the replicates the search may simulate (overrides simulation.budget; "
                         "default 20 x replicates; 6 x for bootstrap methods)")
+    p.add_argument("--window", type=float, metavar="W",
+                   help="exact searches: the targets must hold at every n up to W x n (overrides "
+                        "target.window; default 1.25; 1 = the first n that meets them)")
     p.add_argument("--n-min", dest="n_min", type=int, metavar="A", help="smallest n considered (default: simulation.n_min)")
     p.add_argument("--n-max", dest="n_max", type=int, metavar="B",
                    help="search ceiling (default: simulation.n_max)")
     add_method_option(p)
+    add_bound_option(p)
     add_sim_overrides(p)
     add_json(p)
     p.set_defaults(run=run)
@@ -51,7 +59,12 @@ def run(args: argparse.Namespace) -> int:
         b = c.number("--budget", args.budget, low=BUDGET_MIN, high=BUDGET_MAX, integer=True)
         if b is not None:
             overrides["simulation.budget"] = int(b)
+    if args.window is not None:
+        w = c.number("--window", args.window, low=1, high=4)
+        if w is not None:
+            overrides["target.window"] = float(w)
     c.raise_if_any()
+    overrides.update(bound_overrides(args))
     scenario = load_scenario(args.scenario, overrides or None)
     seed = run_seed(scenario, args.seed)
     with SearchProgress(budget=overrides.get("simulation.budget", getattr(scenario, "budget", None))) as prog:
@@ -115,7 +128,8 @@ def _targets_line(t: dict) -> str:
     text = (f"targets:     coverage >= {t['coverage_target']:.4f} "
             f"({t['confidence']:.4g} confidence - {t['coverage_tolerance']:g} tolerance)")
     if t.get("margin") is not None and t.get("assurance") is not None:
-        text += f", assurance >= {t['assurance']:g} (share of samples with half-width <= {t['margin']:g})"
+        what = "half-width" if t.get("bound", "two-sided") == "two-sided" else "margin"
+        text += f", assurance >= {t['assurance']:g} (share of samples with {what} <= {t['margin']:g})"
     return text
 
 
@@ -133,6 +147,8 @@ def _one(r, design) -> list[str]:
         lines.append("n found:     UNDECIDED within n_max: the window of the candidate n reaches past n_max")
     elif _undecided(r):
         lines.append("n found:     UNDECIDED: the replicate budget was spent before any n was confirmed")
+        if r.n_range is not None:
+            lines.append(f"n range:     {_range(r)}   (the boundary may lie anywhere here)")
     else:
         lines.append("n found:     NOT REACHED by the search ceiling n_max")
     if r.n_formula is not None:
@@ -140,7 +156,7 @@ def _one(r, design) -> list[str]:
         lines.append(f"formula n:   {r.n_formula}{ratio}")
     else:
         lines.append("formula n:   - (no closed form applies)")
-    at = "at n" if r.reached else "at n_max"
+    at = "at n" if r.reached else (f"at n = {r.at_n.n}" if r.at_n is not None else "at n_max")
     if r.coverage is not None:
         mc = "" if r.exact else f" +/- {_p(r.coverage_mcse)} (MCSE)"
         lines.append(f"coverage:    {_p(r.coverage)}{mc}  {at}")
@@ -174,7 +190,12 @@ def report(scenario, res) -> str:
     lines = _header(scenario, design)
     if isinstance(res, MethodComparison):
         first = res.by_method[0]
-        lines.append(f"confidence:  {design.confidence:.4g}, target margin {_m(design.margin)}")
+        lines.append(f"confidence:  {design.confidence:.4g}, target margin {_m(design.margin)}"
+                     + (f" {design.units}" if design.units else "")
+                     + (f" ({design.relative_margin:g} of the true value)" if design.relative_margin is not None else ""))
+        if design.bound != "two-sided":
+            lines.append(f"bound:       one-sided {bound_words(design.bound)}: coverage = {coverage_words(design.bound)}; "
+                         "margin = distance from estimate to limit")
         lines.append(_targets_line(first.targets))
         lines.append("")
         headers = ["method", "n", "n range", "formula n", "n/formula", "coverage", "+/- mcse",
@@ -212,7 +233,11 @@ def report(scenario, res) -> str:
                 lines.append(f"note ({r.method}): {t}")
     else:
         d = design.with_method(res.method)
-        lines.append(f"method:      {d.method} interval, {d.confidence:.4g} confidence, target margin {_m(d.margin)}")
+        lines.append(f"method:      {d.method} {bound_words(d.bound)}, {d.confidence:.4g} confidence, target margin {_m(d.margin)}"
+                     + (f" {d.units}" if d.units else "")
+                     + (f" ({d.relative_margin:g} of the true value)" if d.relative_margin is not None else ""))
+        if d.bound != "two-sided":
+            lines.append(f"             one-sided: coverage = {coverage_words(d.bound)}; margin = distance from estimate to limit")
         lines.append(_targets_line(res.targets))
         lines.append("")
         lines.extend(_one(res, d))
