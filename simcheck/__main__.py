@@ -1,5 +1,6 @@
 """Allow ``python -m simcheck``."""
 
-from simcheck.cli import main
+if __name__ == "__main__":
+    from simcheck.cli import main
 
-raise SystemExit(main())
+    raise SystemExit(main())

@@ -48,9 +48,12 @@ class PopulationSpec:
     #: optional CSV file and column holding the population values
     file: str | None = None
     column: str | None = None
+    #: optional unit values given directly (``population.values``; from Python an array or Series)
+    values: tuple[float, ...] | None = field(default=None, repr=False)
 
     def to_dict(self) -> dict[str, Any]:
-        d = {"size": self.size, "fpc": self.fpc, "file": self.file, "column": self.column}
+        d = {"size": self.size, "fpc": self.fpc, "file": self.file, "column": self.column,
+             "values": None if self.values is None else list(self.values)}
         return {k: v for k, v in d.items() if v is not None}
 
 

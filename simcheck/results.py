@@ -162,6 +162,27 @@ class CheckResult:
         d["notes"] = " | ".join(d["notes"])
         return pd.DataFrame([d])
 
+    def __repr__(self) -> str:
+        from simcheck.notebook import estimate, num
+
+        return (f"CheckResult(method={self.method!r}, n={self.n}, coverage={estimate(self.coverage, self.coverage_mcse, self.exact)}, "
+                f"miss_low={num(self.miss_low)}, miss_high={num(self.miss_high)}, margin_median={num(self.margin_median)}, "
+                f"assurance={estimate(self.assurance, self.assurance_mcse, self.exact)}, replicates={self.replicates}, "
+                f"seed={self.seed}, exact={self.exact})")
+
+    def _repr_html_(self) -> str:
+        from simcheck.notebook import estimate, html_table, margin_png, png_html
+
+        rows = [("method", self.method), ("n", self.n), ("coverage", estimate(self.coverage, self.coverage_mcse, self.exact)),
+                ("nominal", self.confidence), ("miss low / high", f"{self.miss_low:.4g} / {self.miss_high:.4g}"),
+                ("margin mean / median / 90th pct", f"{self.margin_mean:.4g} / {self.margin_median:.4g} / {self.margin_p90:.4g}"),
+                ("target margin", self.target_margin), ("assurance", estimate(self.assurance, self.assurance_mcse, self.exact)),
+                ("replicates", self.replicates), ("seed", self.seed), ("path", self.path)]
+        out = html_table(f"Check at n = {self.n}", rows)
+        if self.margin_values is not None and len(self.margin_values):
+            out += png_html(margin_png(self.margin_values, self.margin_weights, target=self.target_margin), "achieved half-width")
+        return out
+
 
 @dataclass(frozen=True)
 class CurveResult:
@@ -191,6 +212,29 @@ class CurveResult:
         if not self.rows:
             return pd.DataFrame()
         return pd.concat([r.to_frame() for r in self.rows], ignore_index=True)
+
+    def __repr__(self) -> str:
+        from simcheck.notebook import num
+
+        if not self.rows:
+            return "CurveResult(0 rows)"
+        cov = self.column("coverage")
+        first = self.rows[0]
+        return (f"CurveResult({len(self.rows)} rows, method={first.method!r}, n={self.rows[0].n}..{self.rows[-1].n}, "
+                f"coverage {num(np.nanmin(cov))}..{num(np.nanmax(cov))}, replicates={first.replicates}, "
+                f"seed={first.seed}, exact={first.exact})")
+
+    def _repr_html_(self) -> str:
+        from simcheck.notebook import coverage_png, frame_html, png_html
+
+        if not self.rows:
+            return "<p>CurveResult: 0 rows</p>"
+        cols = ["n", "coverage", "coverage_mcse", "miss_low", "miss_high", "margin_median", "assurance", "exact"]
+        frame = self.to_frame()[cols]
+        png = coverage_png(self.n, self.column("coverage"), self.column("coverage_mcse"),
+                           confidence=self.rows[0].confidence)
+        return (f"<p><b>Curve</b>: {self.rows[0].method}, {len(self.rows):,} values of n, seed {self.rows[0].seed}</p>"
+                + frame_html(frame, max_rows=10) + png_html(png, "coverage against n"))
 
 
 @dataclass(frozen=True)
@@ -289,6 +333,33 @@ class SearchResult:
         d["notes"] = " | ".join(d["notes"])
         return pd.DataFrame([d])
 
+    def __repr__(self) -> str:
+        from simcheck.notebook import estimate
+
+        rng = f"{self.n_range[0]}-{self.n_range[1]}" if self.n_range else "-"
+        return (f"SearchResult(method={self.method!r}, n={self.n}, n_range={rng}, reached={self.reached}, "
+                f"decision={getattr(self, 'decision', '')!r}, criterion={getattr(self, 'criterion', '')!r}, "
+                f"coverage={estimate(self.coverage, self.coverage_mcse, self.exact)}, n_formula={self.n_formula}, "
+                f"replicates_used={self.replicates_used}, seed={self.seed})")
+
+    def _repr_html_(self) -> str:
+        from simcheck.notebook import coverage_png, estimate, html_table, png_html
+
+        rng = f"{self.n_range[0]}-{self.n_range[1]}" if self.n_range else "-"
+        rows = [("method", self.method), ("n", self.n if self.n is not None else "not reached"), ("n range", rng),
+                ("decision", getattr(self, "decision", "")), ("criterion", getattr(self, "criterion_text", "") or getattr(self, "criterion", "")),
+                ("coverage at n", estimate(self.coverage, self.coverage_mcse, self.exact)),
+                ("assurance at n", estimate(self.assurance, self.assurance_mcse, self.exact)),
+                ("formula n", self.n_formula), ("replicates used", self.replicates_used), ("seed", self.seed),
+                ("stop reason", self.stop_reason)]
+        out = html_table("Search: smallest n meeting the targets", rows)
+        c = self.curve
+        if c is not None and len(c.rows) > 1:
+            png = coverage_png(c.n, c.column("coverage"), c.column("coverage_mcse"),
+                               confidence=c.rows[0].confidence, mark=self.n)
+            out += png_html(png, "coverage around the n found")
+        return out
+
 
 @dataclass(frozen=True)
 class MethodComparison:
@@ -304,3 +375,14 @@ class MethodComparison:
         import pandas as pd
 
         return pd.concat([r.to_frame() for r in self.by_method], ignore_index=True)
+
+    def __repr__(self) -> str:
+        parts = ", ".join(f"{r.method}: n={r.n}" for r in self.by_method)
+        return f"MethodComparison(best={self.best!r}, {parts})"
+
+    def _repr_html_(self) -> str:
+        from simcheck.notebook import frame_html
+
+        cols = [c for c in ("method", "n", "n_range", "reached", "decision", "coverage", "coverage_mcse",
+                            "assurance", "n_formula", "seed") if c in self.to_frame().columns]
+        return f"<p><b>Methods compared</b>; best: {self.best}</p>" + frame_html(self.to_frame()[cols])

@@ -127,6 +127,7 @@ KNOWN_KEYS: dict[str, str] = {
     "population.fpc": "apply the finite population correction: true | false; default true",
     "population.file": "CSV file of the population's values (relative to the scenario file)",
     "population.column": "column of population.file holding the values",
+    "population.values": "the population's unit values as a list (instead of file; from Python an array or Series)",
     **STRATA_KEYS,
 }
 
@@ -496,6 +497,8 @@ def validate(
         data = None  # the model comes from the file below
     elif data is None:
         c.add("data", "missing: a [data] table with model = \"...\" (two-sample: [data.a] and [data.b])")
+    elif _is_model(data) and estimand not in TWO_SAMPLE:  # a model object, from Python
+        model = _model(c, data, "data", bdir)
     elif not isinstance(data, dict):
         c.add("data", f"must be a table, got {data!r}")
     elif estimand in TWO_SAMPLE or (estimand is None and data and set(data) <= {"a", "b"}):
@@ -841,10 +844,16 @@ def _event(c: Collector, target: dict[str, Any], estimand: str | None):
     return out, None
 
 
+def _is_model(v: Any) -> bool:
+    from simcheck.models import Model
+
+    return isinstance(v, Model)
+
+
 def _model(c: Collector, tbl: Any, prefix: str, base_dir: str | None):
     from simcheck.models import make_model
 
-    if not isinstance(tbl, dict):
+    if not isinstance(tbl, dict) and not _is_model(tbl):
         c.add(prefix, f"must be a model table (model = \"...\" and its parameters), got {tbl!r}")
         return None
     try:
@@ -996,11 +1005,32 @@ def _population(c: Collector, t: dict[str, Any], base_dir: str | None) -> Popula
                     c.add("population.size", f"must match the {rows} values in population.file, got {size}")
     elif "column" in t:
         c.add("population.column", "only with population.file")
-    if "size" not in t and "file" not in t:
+    values = None
+    if "values" in t:
+        values, size = _population_values(c, t, size)
+    if "size" not in t and "file" not in t and "values" not in t:
         c.add("population.size", "missing (required: the number of units in the population)")
     if len(c.problems) > n0 or size is None:
         return None
-    return PopulationSpec(size=size, fpc=fpc, file=resolved, column=column)
+    return PopulationSpec(size=size, fpc=fpc, file=resolved, column=column, values=values)
+
+
+def _population_values(c: Collector, t: dict[str, Any], size: int | None) -> tuple[tuple[float, ...] | None, int | None]:
+    from simcheck.models.population import value_array
+
+    if "file" in t:
+        c.add("population.values", "give values or file and column, not both")
+        return None, size
+    arr = value_array(c, "population.values", t["values"])
+    if arr is None:
+        return None, size
+    if arr.size > POPULATION_MAX:
+        c.add("population.values", f"holds {arr.size} values; at most {POPULATION_MAX}")
+        return None, size
+    if "size" in t and size is not None and size != arr.size:
+        c.add("population.size", f"must match the {arr.size} values in population.values, got {size}")
+        return None, size
+    return tuple(arr.tolist()), int(arr.size)
 
 
 def _population_file(c: Collector, file: str, column: str, base_dir: str | None):
@@ -1101,6 +1131,10 @@ def _json_safe(v: Any) -> Any:
         return [_json_safe(x) for x in v]
     if isinstance(v, (_dt.date, _dt.time, _dt.datetime)):
         return v.isoformat()
+    if _is_model(v):  # a model object given from Python: its table as far as it has one
+        return _json_safe({"model": v.name, **v.params()})
+    if hasattr(v, "tolist") and getattr(v, "ndim", 0) > 0:  # numpy array or pandas Series given from Python
+        return [_json_safe(x) for x in v.tolist()]
     if hasattr(v, "item") and not isinstance(v, (str, bytes)):  # numpy scalar
         return v.item()
     return v

@@ -178,7 +178,10 @@ def run_task(
 
         return engine.curve(design, n_list, replicates=reps, rng=root, path=scenario.path, progress=progress)
 
-    from simcheck import search
+    import importlib
+
+    # the module: the package attribute `simcheck.search` is the API function
+    search = importlib.import_module("simcheck.search")
 
     kwargs: dict[str, Any] = dict(
         assurance=scenario.assurance,

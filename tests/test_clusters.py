@@ -307,7 +307,7 @@ def test_search_finds_the_number_of_clusters_of_the_design_effect_law():
     # assurance at k clusters is P(chi2(k-1) <= k (k-1) B^2 / (t^2 tau^2))
     # (Kupper & Hafner 1989, The American Statistician 43:101-105), and the
     # z-based number of clusters is ceil(z^2 sigma^2 deff / (m B^2)).
-    from simcheck import search
+    from simcheck.search import find_n, formula_n
 
     sigma, B, m, icc = 2.0, 0.5, 10, 0.05
     d = Design(model=make_model({"model": "normal", "mean": 10.0, "sd": sigma}), method="cluster-t", margin=B,
@@ -320,16 +320,16 @@ def test_search_finds_the_number_of_clusters_of_the_design_effect_law():
         return stats.chi2.cdf(k * (k - 1) * B**2 / (t**2 * tau2), k - 1)
 
     z = stats.norm.ppf(0.975)
-    assert search.formula_n(d) == math.ceil(z**2 * sigma**2 * deff / (m * B**2))
+    assert formula_n(d) == math.ceil(z**2 * sigma**2 * deff / (m * B**2))
     k80 = next(k for k in range(2, 500) if assurance(k) >= 0.8)
-    r = search.find_n(d, assurance=0.8, coverage_tolerance=0.005, replicates=4000, rng=1, n_min=2, n_max=200)
+    r = find_n(d, assurance=0.8, coverage_tolerance=0.005, replicates=4000, rng=1, n_min=2, n_max=200)
     assert r.reached and r.n == k80
     # the same through full simulation: the answer's range holds the exact k
     k50 = next(k for k in range(2, 500) if assurance(k) >= 0.5)
-    s = search.find_n(d, assurance=0.5, coverage_tolerance=0.005, replicates=4000, rng=2, n_min=2, n_max=200, path="full")
+    s = find_n(d, assurance=0.5, coverage_tolerance=0.005, replicates=4000, rng=2, n_min=2, n_max=200, path="full")
     assert s.reached and s.n_range[0] <= k50 <= s.n_range[1]
     # the naive t never reaches 95 % coverage: it ignores deff (about 0.90 here)
-    naive = search.find_n(d.with_method("t"), assurance=0.5, coverage_tolerance=0.005, replicates=4000, rng=3,
+    naive = find_n(d.with_method("t"), assurance=0.5, coverage_tolerance=0.005, replicates=4000, rng=3,
                           n_min=2, n_max=100)
     assert not naive.reached
 

@@ -232,7 +232,7 @@ def test_sweep_coverage_panels_draw_their_own_nominal_level(tmp_path):
     # A sweep over the confidence level: each panel's reference line is its own level.
     import shutil
 
-    from simcheck import report as R
+    from simcheck.report import read_sweep, sweep_figures
     from simcheck.sweep.runner import run_sweep
 
     root = Path(__file__).resolve().parents[1] / "scenarios"
@@ -240,7 +240,7 @@ def test_sweep_coverage_panels_draw_their_own_nominal_level(tmp_path):
         shutil.copy(root / name, tmp_path / name)
     store = tmp_path / "s.sqlite"
     run_sweep(tmp_path / "top_box_check_sweep.toml", store)
-    fig = R.sweep_figures(R.read_sweep(store))["sweep"]
+    fig = sweep_figures(read_sweep(store))["sweep"]
     levels = []
     for ax in (a for a in fig.axes if a.get_visible()):
         # axhline: x data (0, 1) in axes coordinates

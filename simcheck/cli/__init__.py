@@ -14,7 +14,8 @@ from simcheck import __version__
 from simcheck.cli.common import Parser, UsageError, error_line, suggest, unknown_options
 from simcheck.errors import InputError
 
-COMMANDS = ["formula", "check", "curve", "search", "sweep", "export", "store", "report", "demo", "fit", "predictive"]
+COMMANDS = ["formula", "check", "curve", "search", "sweep", "export", "store", "report", "demo", "fit", "predictive",
+            "examples"]
 
 
 def build_parser() -> Parser:

@@ -43,7 +43,10 @@ def scenario_text() -> str:
 
 
 def run(args: argparse.Namespace) -> int:
-    from simcheck import report as rep
+    import importlib
+
+    # the subpackage: the package attribute `simcheck.report` is the API function
+    rep = importlib.import_module("simcheck.report")
     from simcheck.report.text import STATUS_TEXT, decision_status, fmt_estimate
     from simcheck.scenario import load_scenario
 

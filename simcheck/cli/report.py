@@ -43,7 +43,10 @@ def overrides(args: argparse.Namespace) -> dict[str, object]:
 
 
 def run(args: argparse.Namespace) -> int:
-    from simcheck import report as rep
+    import importlib
+
+    # the subpackage: the package attribute `simcheck.report` is the API function
+    rep = importlib.import_module("simcheck.report")
     from simcheck.errors import InputError
 
     src = Path(args.source)

@@ -88,6 +88,7 @@ from simcheck.models.population import (
     FinitePopulation,
     block_columns,
     draw_population,
+    population_from_values,
     read_population,
     sample_indices,
 )
@@ -165,7 +166,8 @@ def exact_available(design: Design) -> bool:
     if design.population is not None:
         if method.kind != "count":
             return False
-        return design.population.file is not None or bool(design.model.zero_one)
+        pop = design.population
+        return pop.file is not None or pop.values is not None or bool(design.model.zero_one)
     return False
 
 
@@ -404,6 +406,8 @@ def _pooled_count_pmf(cm: ClusteredModel, m: int, k: int) -> np.ndarray:
 def population_for(design: Design, root: np.random.SeedSequence) -> FinitePopulation:
     """The fixed population of one evaluation (file, or drawn from ``STAGE_POPULATION``)."""
     pop = design.population
+    if pop.values is not None:
+        return population_from_values(pop.values)
     if pop.file is not None:
         if pop.column is None:
             raise InputError("population.column", "missing (required with population.file)")

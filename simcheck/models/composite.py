@@ -322,6 +322,11 @@ class Empirical(StoredMoments):
     def params(self) -> dict[str, Any]:
         return dict(self._given)
 
+    def describe(self) -> str:
+        if self.file is None:  # values given: their count, not every value
+            return f"empirical({self.values.size} pilot values, mean {self._m:g})"
+        return super().describe()
+
     def event_probability(self, *, values=None, above=None) -> float:
         vals, a = event_args(values, above)
         if vals is not None:
@@ -419,7 +424,9 @@ class ScipyModel(StoredMoments):
 
     Parameters
     ----------
-    dist : frozen scipy.stats distribution, e.g. ``scipy.stats.gamma(2, scale=3)``
+    dist : frozen scipy.stats distribution, e.g. ``scipy.stats.gamma(2, scale=3)``,
+        or a discrete law built with ``scipy.stats.rv_discrete(values=(xk, pk))``
+        (frozen or not)
     discrete : bool, optional
         Override the detection from ``isinstance(dist.dist, rv_discrete)``.
     """
@@ -427,6 +434,9 @@ class ScipyModel(StoredMoments):
     name = "scipy"
 
     def __init__(self, dist, discrete: bool | None = None) -> None:
+        if isinstance(dist, stats.rv_discrete) and hasattr(dist, "xk") and hasattr(dist, "pk"):
+            # rv_discrete(values=(xk, pk)) is fully specified without freezing
+            dist = dist()
         base = getattr(dist, "dist", None)
         if not isinstance(base, (stats.rv_continuous, stats.rv_discrete)):
             raise InputError("distribution", f"must be a frozen scipy.stats distribution, got {dist!r}")
@@ -449,10 +459,24 @@ class ScipyModel(StoredMoments):
         return self._m if self.zero_one else None
 
     def params(self) -> dict[str, Any]:
-        return {"distribution": self.dist_name, "args": [_num(a) for a in self.dist.args],
-                "kwds": {k: _num(v) for k, v in self.dist.kwds.items()}}
+        d: dict[str, Any] = {"distribution": self.dist_name, "args": [_num(a) for a in self.dist.args],
+                             "kwds": {k: _num(v) for k, v in self.dist.kwds.items()}}
+        xk = _support_points(self.dist)
+        if xk is not None:
+            d["distribution"] = "rv_discrete"
+            d["values"] = [float(v) for v in xk]
+            d["probs"] = [float(v) for v in self.dist.dist.pk]
+        return d
 
     def describe(self) -> str:
+        xk = _support_points(self.dist)
+        if xk is not None:
+            pk = self.dist.dist.pk
+            pairs = ", ".join(f"{x:g}: {p:g}" for x, p in zip(xk[:6], pk[:6]))
+            more = f", ... ({xk.size} values)" if xk.size > 6 else ""
+            loc = self.dist.kwds.get("loc")
+            shift = f" + {float(loc):g}" if loc else ""
+            return f"scipy.stats.rv_discrete(values {{{pairs}{more}}}){shift}"
         args = [f"{_num(a):g}" if isinstance(_num(a), float) else repr(a) for a in self.dist.args]
         args += [f"{k}={_num(v):g}" if isinstance(_num(v), float) else f"{k}={v!r}" for k, v in self.dist.kwds.items()]
         return f"scipy.stats.{self.dist_name}({', '.join(args)})"
@@ -467,6 +491,14 @@ class ScipyModel(StoredMoments):
 
     def _draw(self, rng, size, out) -> None:
         out[...] = self.dist.rvs(size=size, random_state=rng)
+
+
+def _support_points(dist) -> np.ndarray | None:
+    """The support of a frozen ``rv_discrete(values=...)`` law, else None."""
+    base = getattr(dist, "dist", None)
+    if isinstance(base, stats.rv_discrete) and hasattr(base, "xk") and hasattr(base, "pk"):
+        return np.asarray(base.xk, dtype=float)
+    return None
 
 
 def _num(v: Any) -> Any:

@@ -19,7 +19,9 @@ References
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from numbers import Real
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -31,7 +33,8 @@ DRAW_MAX = 50_000_000
 #: rejection sampling when n * REJECT_RATIO <= N (collisions rare; faster there, measured)
 REJECT_RATIO = 8
 
-__all__ = ["FinitePopulation", "draw_population", "read_population", "sample_indices", "fpc_factor", "block_columns", "DRAW_MAX"]
+__all__ = ["FinitePopulation", "draw_population", "read_population", "population_from_values", "value_array",
+           "sample_indices", "fpc_factor", "block_columns", "DRAW_MAX"]
 
 
 @dataclass(frozen=True)
@@ -127,6 +130,60 @@ def read_population(file: str, column: str, size: int | None = None) -> FinitePo
     if size is not None and int(size) != v.size:
         raise InputError("population.size", f"must match the {v.size} values in population.file, got {size}")
     return _frozen(v, f"read from {p.name}, column {column!r}")
+
+
+def value_array(c: Collector, field_name: str, values: Any, *, min_len: int = 2) -> np.ndarray | None:
+    """Data values given directly (a list, a numpy array or a pandas Series) as a
+    read-only float64 array, or None after recording one problem in ``c``.
+
+    The values must be finite real numbers, at least ``min_len`` of them, and
+    not all equal (data that never vary give no interval to check).
+    """
+    if hasattr(values, "to_numpy") and not isinstance(values, (str, bytes, dict)):
+        values = values.to_numpy()
+    if isinstance(values, (str, bytes, dict)) or not isinstance(values, (list, tuple, np.ndarray)):
+        c.add(field_name, f"must be a list (or array) of numbers, got {type(values).__name__}")
+        return None
+    try:
+        raw = np.asarray(values)
+    except ValueError:  # ragged nesting
+        raw = np.asarray(values, dtype=object)
+    if raw.ndim != 1:
+        c.add(field_name, f"must be one-dimensional, got shape {raw.shape}")
+        return None
+    if raw.dtype.kind not in "iuf":  # bool, text, objects: refuse rather than guess
+        items = values.tolist() if isinstance(values, np.ndarray) else list(values)
+        bad = next((i for i, x in enumerate(items) if isinstance(x, bool) or not isinstance(x, Real)), 0)
+        c.add(f"{field_name}[{bad}]", f"must be a number, got {items[bad]!r}")
+        return None
+    arr = raw.astype(np.float64, copy=True)
+    finite = np.isfinite(arr)
+    if not finite.all():
+        i = int(np.flatnonzero(~finite)[0])
+        c.add(f"{field_name}[{i}]", f"must be a finite number, got {float(arr[i])!r}")
+        return None
+    if arr.size < min_len:
+        c.add(field_name, f"needs at least {min_len} values, got {arr.size}")
+        return None
+    if float(arr.min()) == float(arr.max()):
+        c.add(field_name, f"holds one value only ({arr[0]:g}); the data would not vary")
+        return None
+    arr.setflags(write=False)
+    return arr
+
+
+def population_from_values(values: Any, field_name: str = "population.values") -> FinitePopulation:
+    """The population given as its unit values (list, numpy array or pandas Series).
+
+    Raises
+    ------
+    InputError
+        Not finite numbers, fewer than 2 values, or all values equal.
+    """
+    c = Collector()
+    arr = value_array(c, field_name, values)
+    c.raise_if_any()
+    return _frozen(arr, f"given as {arr.size} values")
 
 
 def sample_indices(rng: np.random.Generator, N: int, shape: tuple[int, int], *, ordered: bool = True) -> np.ndarray:

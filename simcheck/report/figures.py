@@ -235,6 +235,7 @@ def _set_n_axis(ax, n_values: np.ndarray, label: str) -> None:
     if _use_log_x(n_values):
         ax.set_xscale("log")
         _plain_log(ax.xaxis)
+        label = f"{label} (log scale)"  # a reader must not take the spacing for linear
     ax.set_xlabel(label)
 
 
@@ -773,6 +774,9 @@ def _sweep_axes_finish(fig, axes, frame, lay: SweepLayout, value: str, value_lab
         if vals.size > 1 and vals.max() / vals.min() > 25:
             axes[0].set_yscale("log")
             _plain_log(axes[0].yaxis)
+            for ax in axes[:k]:
+                if ax.get_ylabel():
+                    ax.set_ylabel(f"{ax.get_ylabel()} (log scale)")
 
 
 def sweep_figure(

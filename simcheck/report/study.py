@@ -356,7 +356,10 @@ def run_study(scenario, *, seed: int | None = None, progress: Progress = None, p
     units : str, optional
         The data's units, for the half-width axis.
     """
-    from simcheck import search
+    import importlib
+
+    # the module: the package attribute `simcheck.search` is the API function
+    search = importlib.import_module("simcheck.search")
     from simcheck.tasks import resolve_seed
 
     say = progress or (lambda _msg: None)
