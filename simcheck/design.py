@@ -46,9 +46,11 @@ class PopulationSpec:
     #: optional CSV file and column holding the population values
     file: str | None = None
     column: str | None = None
+    #: a 0/1 population with exactly this many events (units of value 1)
+    events: int | None = None
 
     def to_dict(self) -> dict[str, Any]:
-        d = {"size": self.size, "fpc": self.fpc, "file": self.file, "column": self.column}
+        d = {"size": self.size, "fpc": self.fpc, "file": self.file, "column": self.column, "events": self.events}
         return {k: v for k, v in d.items() if v is not None}
 
 
@@ -100,7 +102,10 @@ class Design:
     model : Model
         Data model of the (only, or first) group. For proportion estimands it
         must produce 0/1 values (``bernoulli`` or an event model).
-    estimand : {"mean", "proportion", "mean-diff", "proportion-diff"}
+    estimand : {"mean", "proportion", "mean-diff", "proportion-diff", "total"}
+        ``total`` needs ``strata`` or ``population``: N times the mean (or
+        the proportion, for 0/1 data: the number of events), its interval N
+        times the mean's.
     method : str
         Interval method name (see :func:`simcheck.intervals.methods_for`).
     confidence : float
@@ -154,14 +159,28 @@ class Design:
                     c.add(label, "a proportion estimand needs 0/1 data: model 'bernoulli', or event_values / event_above in [target]")
         if self.strata is not None:
             self._check_strata(c)
-        elif self.estimand == "total":
-            c.add("target.estimand", "'total' needs a stratified design ([[strata]] tables with their sizes)")
+        elif self.estimand == "total" and self.population is None:
+            c.add("target.estimand", "'total' needs the population size: a [population] table, or [[strata]] tables with their sizes")
         elif self.estimand in ESTIMANDS:
             from simcheck.intervals import REGISTRY, methods_for
 
             if (self.estimand, self.method) not in REGISTRY:
                 c.add("method.interval", f"unknown interval {self.method!r} for estimand {self.estimand!r}; choose one of {', '.join(methods_for(self.estimand))}")
+            else:
+                self._check_finite(c, REGISTRY[(self.estimand, self.method)])
         c.raise_if_any()
+
+    def _check_finite(self, c: Collector, method) -> None:
+        """Rules of finite-population methods and of totals without strata."""
+        if method.needs_population_size and self.population is None:
+            c.add("method.interval", f"{self.method!r} needs the population size: use it with a [population] table")
+        if method.needs_population_size and self.clusters is not None:
+            c.add("method.interval", f"{self.method!r} is for units drawn from a finite population, not with [clusters]")
+        if self.estimand == "total":
+            if self.clusters is not None:
+                c.add("target.estimand", "'total' is not available with [clusters]; estimate the mean")
+            if self.base_estimand == "proportion" and isinstance(self.model, Model) and not self.model.zero_one:
+                c.add("method.interval", f"{self.method!r} is a proportion interval: a total with it needs 0/1 data")
 
     def _check_strata(self, c: Collector) -> None:
         st = self.strata
@@ -187,6 +206,15 @@ class Design:
         check_strata(c, st.sizes, st.rule, st.costs, st.given, st.minimum)
 
     @property
+    def base_estimand(self) -> str:
+        """What a total is N times (one-stage finite population): its method's mean or proportion."""
+        if self.estimand != "total" or self.strata is not None:
+            return self.estimand
+        from simcheck.intervals import REGISTRY
+
+        return "mean" if ("mean", self.method) in REGISTRY else "proportion"
+
+    @property
     def two_sample(self) -> bool:
         return self.estimand in TWO_SAMPLE
 
@@ -197,6 +225,8 @@ class Design:
             mean = sum(w * m.mean for w, m in zip(self.strata.weights, self.strata.models))
             return mean * self.strata.population_size if self.estimand == "total" else mean
         a = self.model.mean
+        if self.estimand == "total" and self.population is not None:
+            return a * self.population.size  # the planning value; an evaluation reports its population's
         return a - self.model_b.mean if self.two_sample else a
 
     def n_b(self, n: int) -> int | None:

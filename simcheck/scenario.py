@@ -120,6 +120,7 @@ KNOWN_KEYS: dict[str, str] = {
     "population.fpc": "apply the finite population correction: true | false; default true",
     "population.file": "CSV file of the population's values (relative to the scenario file)",
     "population.column": "column of population.file holding the values",
+    "population.events": "a 0/1 population with exactly this many events (units of value 1), whole number in [0, size]; no [data] needed",
     **STRATA_KEYS,
 }
 
@@ -444,7 +445,7 @@ def validate(
     data = table.get("data")
     strata = None
     # population.file supplies the values: [data] is then neither needed nor used
-    from_file = (isinstance(pop_t, dict) and "file" in pop_t and estimand not in TWO_SAMPLE
+    from_file = (isinstance(pop_t, dict) and ("file" in pop_t or "events" in pop_t) and estimand not in TWO_SAMPLE
                  and "strata" not in table)
     notices: list[str] = []
     if "allocation" in table and "strata" not in table:
@@ -454,9 +455,11 @@ def validate(
         if data is not None:
             c.add("data", "not used with [[strata]]: give each stratum its model in [strata.data]")
     elif from_file:
-        if data:
+        if data and "events" in pop_t:
+            c.add("data", "not used with population.events (the population is 0/1 with that many events); remove [data]")
+        elif data:
             notices.append("notice: [data] is not used: population.file supplies the values")
-        data = None  # the model comes from the file below
+        data = None  # the model comes from the file (or the fixed count) below
     elif data is None:
         c.add("data", "missing: a [data] table with model = \"...\" (two-sample: [data.a] and [data.b])")
     elif not isinstance(data, dict):
@@ -506,7 +509,7 @@ def validate(
 
     clusters = _clusters(c, clusters_t) if clusters_t is not None else None
     population = _population(c, pop_t, bdir) if pop_t is not None else None
-    if from_file and population is not None and population.file is not None and not c.problems:
+    if from_file and population is not None and (population.file or population.events is not None) and not c.problems:
         model = _population_model(c, population, estimand)
 
     # n range (the population bounds n when units are sampled without replacement)
@@ -586,6 +589,10 @@ def _population_model(c: Collector, population: PopulationSpec, estimand: str | 
     from simcheck.models import make_model
     from simcheck.models.population import read_population
 
+    if population.events is not None:
+        # planning value of the closed form (kept inside (0, 1)); the engine uses the fixed count itself
+        p = min(max(population.events / population.size, 1e-9), 1 - 1e-9)
+        return make_model({"model": "bernoulli", "p": p})
     try:
         fp = read_population(population.file, population.column, population.size)
     except InputError as e:
@@ -914,9 +921,17 @@ def _population(c: Collector, t: dict[str, Any], base_dir: str | None) -> Popula
         c.add("population.column", "only with population.file")
     if "size" not in t and "file" not in t:
         c.add("population.size", "missing (required: the number of units in the population)")
+    events = None
+    if "events" in t:
+        if "file" in t:
+            c.add("population.events", "give population.events (a 0/1 population with that many events) or population.file, not both")
+        else:
+            events = _num(c, t, "population", "events", None, low=0, integer=True)
+            if events is not None and size is not None and events > size:
+                c.add("population.events", f"must be <= population.size ({size}), got {events}")
     if len(c.problems) > n0 or size is None:
         return None
-    return PopulationSpec(size=size, fpc=fpc, file=resolved, column=column)
+    return PopulationSpec(size=size, fpc=fpc, file=resolved, column=column, events=events)
 
 
 def _population_file(c: Collector, file: str, column: str, base_dir: str | None):

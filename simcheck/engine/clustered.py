@@ -88,6 +88,7 @@ from simcheck.models.population import (
     FinitePopulation,
     block_columns,
     draw_population,
+    fixed_count_population,
     read_population,
     sample_indices,
 )
@@ -131,6 +132,10 @@ def evaluate(design: Design, ns: Sequence[int], replicates: int, rng, path: str,
     ``curve`` is accepted for the design-kind interface; the nested path is
     chosen here whenever several n are evaluated.
     """
+    if design.estimand == "total" and design.strata is None:
+        inner = total_inner(design)
+        rows = evaluate(inner, ns, replicates, rng, path, progress, chunk_bytes, curve)
+        return [_total_row(r, design) for r in rows]
     method = get_method(design.estimand, design.method)
     validate_design(design, method, ns, path)
     root, seed = rngmod.root_sequence(rng)
@@ -153,6 +158,8 @@ def exact_available(design: Design) -> bool:
     Populations: proportion methods on a 0/1 population (model-drawn
     populations are 0/1 exactly when the model is).
     """
+    if design.estimand == "total":
+        return exact_available(total_inner(design))
     method = get_method(design.estimand, design.method)
     if design.two_sample or (design.clusters is not None and design.population is not None):
         return False
@@ -165,12 +172,15 @@ def exact_available(design: Design) -> bool:
     if design.population is not None:
         if method.kind != "count":
             return False
-        return design.population.file is not None or bool(design.model.zero_one)
+        pop = design.population
+        return pop.file is not None or pop.events is not None or bool(design.model.zero_one)
     return False
 
 
 def available_paths(design: Design) -> list[str]:
     """The paths valid for a clustered or finite-population design, cheapest first."""
+    if design.estimand == "total":
+        return available_paths(total_inner(design))
     method = get_method(design.estimand, design.method)
     out = ["exact"] if exact_available(design) else []
     if design.clusters is not None:
@@ -399,6 +409,38 @@ def _pooled_count_pmf(cm: ClusteredModel, m: int, k: int) -> np.ndarray:
 
 
 # --------------------------------------------------------------------------
+# totals of a finite population (one stage)
+# --------------------------------------------------------------------------
+def total_inner(design: Design) -> Design:
+    """The mean (or proportion) design whose interval, times N, is the total's.
+
+    The target margin is divided by N: ``N hw <= B`` exactly when ``hw <= B / N``.
+    """
+    N = design.population.size
+    margin = None if design.margin is None else design.margin / N
+    return replace(design, estimand=design.base_estimand, margin=margin)
+
+
+def _total_row(r: CheckResult, design: Design) -> CheckResult:
+    """A mean's (proportion's) row as the total's: true value, limits and half-widths times N."""
+    N = float(design.population.size)
+
+    def times(v):
+        return None if v is None else v * N
+
+    note = (f"total = N x mean with N = {design.population.size}: its interval is N times the "
+            f"{design.base_estimand}'s, so coverage is the same and half-widths are N times as large")
+    return replace(
+        r, estimand="total", true_value=r.true_value * N, target_margin=design.margin,
+        margin_mean=r.margin_mean * N, margin_median=r.margin_median * N, margin_p90=r.margin_p90 * N,
+        margin_mean_mcse=times(r.margin_mean_mcse), margin_median_mcse=times(r.margin_median_mcse),
+        margin_p90_mcse=times(r.margin_p90_mcse),
+        margin_values=None if r.margin_values is None else r.margin_values * N,
+        notes=tuple(list(r.notes) + [note]),
+    )
+
+
+# --------------------------------------------------------------------------
 # finite populations
 # --------------------------------------------------------------------------
 def population_for(design: Design, root: np.random.SeedSequence) -> FinitePopulation:
@@ -408,6 +450,8 @@ def population_for(design: Design, root: np.random.SeedSequence) -> FinitePopula
         if pop.column is None:
             raise InputError("population.column", "missing (required with population.file)")
         return read_population(pop.file, pop.column, pop.size)
+    if pop.events is not None:
+        return fixed_count_population(pop.size, pop.events)
     # The population belongs to the seed, not to one evaluation: its stream
     # drops the spawn key, so the search's stages (and sweep cells with the
     # same root seed) all sample the same population.
@@ -415,16 +459,24 @@ def population_for(design: Design, root: np.random.SeedSequence) -> FinitePopula
     return draw_population(design.model, pop.size, rngmod.generator(base, rngmod.STAGE_POPULATION))
 
 
-def _population_notes(design: Design, fp: FinitePopulation, method: Method) -> list[str]:
+def _population_notes(design: Design, fp: FinitePopulation | None, method: Method) -> list[str]:
     notes = list(msr.design_notes(design))
-    notes.append(f"finite population of {fp.size} units, {fp.source}; samples drawn without replacement")
+    pop = design.population
+    if fp is None:  # a fixed count, evaluated without forming the population
+        size, source, mean = pop.size, f"{pop.events} with the event (a fixed count)", pop.events / pop.size
+    else:
+        size, source, mean = fp.size, fp.source, fp.mean
+    notes.append(f"finite population of {size} units, {source}; samples drawn without replacement")
     what = "share of events K/N" if design.estimand == "proportion" else "mean"
-    notes.append(f"true value: the population {what} ({fp.mean:.6g}), not the data model's")
-    if design.population.fpc and method.kind in ("summary", "count"):
+    given = "as given" if pop.events is not None or pop.file is not None else "not the data model's"
+    notes.append(f"true value: the population {what} ({mean:.6g}), {given}")
+    if method.needs_population_size:
+        notes.append(f"the {design.method} interval is exact for the finite population: no finite population correction applied")
+    elif design.population.fpc and method.kind in ("summary", "count"):
         notes.append("finite population correction: half-width x sqrt(1 - n/N)")
     elif not design.population.fpc:
         notes.append("no finite population correction (population.fpc = false)")
-    if design.method == "z":
+    if design.method == "z" and fp is not None:
         notes.append(f"z uses the population SD S = {fp.S:.6g} (divisor N - 1)")
     return notes
 
@@ -434,7 +486,25 @@ def _shrink(centre, lo, hi, f):
     return centre - (centre - lo) * f, centre + (hi - centre) * f
 
 
+def _population_exact(design, method, ns, N: int, K: int, seed, notes) -> list[CheckResult]:
+    """Exact rows by hypergeometric enumeration (a 0/1 population of N units with K events)."""
+    fpc = bool(design.population.fpc)
+    rows = []
+    for n in ns:
+        meas = exactmod.hypergeometric_measures(method, n, N, K, design.confidence, design.margin, fpc=fpc)
+        r = msr.row_from_measures(design, n, meas, seed, "exact-hypergeometric")
+        rows.append(replace(r, true_value=K / N, notes=tuple(list(r.notes) + notes)))
+    return rows
+
+
 def _population(design, method, ns, replicates, root, seed, path, curve, progress, chunk_bytes) -> list[CheckResult]:
+    pop = design.population
+    if pop.events is not None and method.kind == "count" and path in ("auto", "exact"):
+        # a fixed count is exact without forming its N values (N may be large)
+        for n in ns:
+            if n > pop.size:
+                raise InputError("n", f"must be <= population.size ({pop.size}) when sampling without replacement, got {n}")
+        return _population_exact(design, method, ns, pop.size, pop.events, seed, _population_notes(design, None, method))
     fp = population_for(design, root)
     N = fp.size
     for n in ns:
@@ -449,13 +519,7 @@ def _population(design, method, ns, replicates, root, seed, path, curve, progres
     if path == "exact" and not exact_ok:
         raise InputError("simulation.path", "path 'exact' is only for proportion intervals on a 0/1 population; available: auto, nested, full")
     if exact_ok and path in ("auto", "exact"):
-        K = fp.events
-        rows = []
-        for n in ns:
-            meas = exactmod.hypergeometric_measures(method, n, N, K, design.confidence, design.margin, fpc=fpc)
-            r = msr.row_from_measures(design, n, meas, seed, "exact-hypergeometric")
-            rows.append(replace(r, true_value=K / N, notes=tuple(list(r.notes) + notes)))
-        return rows
+        return _population_exact(design, method, ns, N, fp.events, seed, notes)
 
     nested = kind != "sample" and (path == "nested" or (path == "auto" and curve))
     groups = [ns] if nested else [[n] for n in ns]
@@ -507,6 +571,9 @@ def _population_intervals(design, method, x, group, nested, n_eval, f, fpc, fp, 
         return lo, hi, None
     if kind == "count":
         cnt = eng.prefix_counts(x, group, nested)
+        if method.needs_population_size:
+            # exact for the finite population: given N, never corrected
+            return (*method.func(cnt, n_eval, conf, population_size=fp.size), None)
         func = exactmod.with_fpc(method, fp.size) if fpc else method.func
         return (*func(cnt, n_eval, conf), None)
     if kind == "log":
