@@ -25,7 +25,7 @@ This module depends only on numpy, scipy and :mod:`simcheck.errors`.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any, Callable
 
 import numpy as np
@@ -37,6 +37,7 @@ __all__ = [
     "TWO_SAMPLE",
     "FormulaResult",
     "sample_size",
+    "total_sample_size",
     "ceil_robust",
     "z_value",
     "t_value",
@@ -780,6 +781,79 @@ def sample_size(
         p_b=pb if two else None,
         assumptions=tuple(assumptions),
         formula="; ".join(steps),
+    )
+
+
+def total_sample_size(
+    margin: float,
+    population_size: int,
+    *,
+    confidence: float = 0.95,
+    sd: float | None = None,
+    p: float | None = None,
+    multiplier: str = "z",
+) -> FormulaResult:
+    """Closed-form n for the total of a finite population (one-stage simple random sample).
+
+    The estimated total is ``N ybar`` (for 0/1 values, N times the sample share:
+    the number of events), with ``Var(N ybar) = N^2 (1 - n/N) S^2 / n``
+    ([1]_, chapter 2; for a proportion ``N^2 (N - n)/(N - 1) P Q / n``,
+    chapter 3). A half-width of at most B on the total is a half-width of at
+    most ``B / N`` on the mean, so this is :func:`sample_size` for the mean
+    (``sd``) or the proportion (``p``) with margin ``B / N`` and the finite
+    population correction of N, reported in the total's units.
+
+    Parameters
+    ----------
+    margin : float
+        Target half-width B of the total's interval, > 0, in the total's units
+        (< N for a number of events).
+    population_size : int
+        N, a whole number >= 2.
+    confidence : float
+        Confidence level in (0, 1).
+    sd, p : float
+        Exactly one: the planning SD S of the unit values (divisor N - 1), or
+        the planning share P of events (0/1 values).
+    multiplier : {"z", "t"}
+        As in :func:`sample_size` (``t`` with ``sd`` only).
+
+    Returns
+    -------
+    FormulaResult
+        ``estimand`` "total", ``margin`` B; the steps start with ``B / N``.
+
+    Raises
+    ------
+    InputError
+        All problems at once; fields are option names.
+
+    References
+    ----------
+    .. [1] Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, New
+       York; chapters 2 and 3 (estimate of a population total and its
+       variance). Chapter numbers from memory.
+    """
+    c = Collector()
+    B = None if margin is None else c.number("--margin", margin, low=0, low_open=True)
+    if margin is None:
+        c.add("--margin", "is required: the target half-width of the total's interval, > 0")
+    N = None
+    if population_size is None:
+        c.add("--population-size", "is required for a total without strata: the number of units N")
+    else:
+        N = c.number("--population-size", population_size, low=2, integer=True)
+    if (sd is None) == (p is None):
+        c.add("--sd", "a total needs exactly one of --sd (planning SD of the values) or --p (share of events, 0/1 values)")
+    if p is not None and B is not None and N is not None and B >= N:
+        c.add("--margin", f"must be < the population size ({N}) for a number of events, got {margin!r}")
+    c.raise_if_any()
+    base = "mean" if sd is not None else "proportion"
+    res = sample_size(base, B / N, confidence=confidence, sd=sd, p=p, multiplier=multiplier, population_size=N)
+    step = f"total = N x {base}: margin on the {base} B / N = {_g(B)} / {N} = {_g(B / N)}"
+    return replace(
+        res, estimand="total", margin=float(B), formula=f"{step}; {res.formula}",
+        assumptions=res.assumptions + (f"the total's interval is N = {N} times the {base}'s (one-stage sample, no clusters)",),
     )
 
 

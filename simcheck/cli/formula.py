@@ -24,7 +24,7 @@ def add_parser(subparsers) -> None:
     )
     p.add_argument("--estimand", choices=ESTIMANDS + ("total",), metavar="E",
                    help="what is estimated: mean, proportion, mean-diff or proportion-diff (difference a - b); "
-                        "total (N times the mean) with --stratum")
+                        "total (N times the mean; with --stratum, or with --population-size and --sd or --p)")
     p.add_argument("--margin", type=float, metavar="B",
                    help="target half-width of the interval, > 0, in the data's units (0.05 = 5 points for proportions); required")
     p.add_argument("--confidence", type=float, default=0.95, metavar="C",
@@ -100,6 +100,21 @@ def _strata(args: argparse.Namespace):
         minimum=MINIMUM if args.minimum is None else args.minimum, confidence=args.confidence)
 
 
+def _total(args: argparse.Namespace):
+    """The total of a finite population from one stage: N times the mean (--sd) or the share of events (--p)."""
+    from simcheck.errors import Collector
+    from simcheck.formulas import total_sample_size
+
+    c = Collector()
+    for opt in ("sd_b", "p_b", "design_effect", "icc", "cluster_size", "cluster_size_cv", "ratio"):
+        if getattr(args, opt) is not None:
+            c.add("--" + opt.replace("_", "-"), "not used with --estimand total without --stratum (a one-stage "
+                  "sample of a finite population: give --population-size and --sd or --p)")
+    c.raise_if_any()
+    return total_sample_size(args.margin, args.population_size, confidence=args.confidence, sd=args.sd, p=args.p,
+                             multiplier=args.multiplier)
+
+
 def run(args: argparse.Namespace) -> int:
     if args.stratum:
         res = _strata(args)
@@ -108,10 +123,17 @@ def run(args: argparse.Namespace) -> int:
             return 0
         sys.stdout.write(render(res) + "\n")
         return 0
-    if args.allocation is not None or args.minimum is not None or args.estimand == "total":
+    if args.allocation is not None or args.minimum is not None:
         from simcheck.errors import InputError
 
-        raise InputError("--stratum", "missing: --allocation, --minimum and estimand total describe a stratified sample; give its strata with --stratum")
+        raise InputError("--stratum", "missing: --allocation and --minimum describe a stratified sample; give its strata with --stratum")
+    if args.estimand == "total":
+        res = _total(args)
+        if args.json:
+            emit_json(res.to_dict())
+            return 0
+        sys.stdout.write(render(res) + "\n")
+        return 0
     res = sample_size(
         args.estimand,
         args.margin,
