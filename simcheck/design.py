@@ -30,9 +30,13 @@ class ClusterSpec:
     size_cv: float | None = None
     #: distribution of the cluster effect for continuous models: "normal" or "gamma"
     effect: str = "normal"
+    #: clusters in the population (M): n clusters are drawn without replacement
+    #: from M clusters drawn once, with the first-stage correction sqrt(1 - n/M)
+    count: int | None = None
 
     def to_dict(self) -> dict[str, Any]:
-        d = {"icc": self.icc, "size": self.size, "size_mean": self.size_mean, "size_cv": self.size_cv, "effect": self.effect}
+        d = {"icc": self.icc, "size": self.size, "size_mean": self.size_mean, "size_cv": self.size_cv, "effect": self.effect,
+             "count": self.count}
         return {k: v for k, v in d.items() if v is not None}
 
 

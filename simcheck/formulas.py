@@ -38,6 +38,7 @@ __all__ = [
     "FormulaResult",
     "sample_size",
     "total_sample_size",
+    "finite_clusters",
     "ceil_robust",
     "z_value",
     "t_value",
@@ -855,6 +856,40 @@ def total_sample_size(
         res, estimand="total", margin=float(B), formula=f"{step}; {res.formula}",
         assumptions=res.assumptions + (f"the total's interval is N = {N} times the {base}'s (one-stage sample, no clusters)",),
     )
+
+
+def finite_clusters(res: FormulaResult, cluster_count: int) -> FormulaResult:
+    """A one-sample clustered result with n clusters drawn without replacement from M.
+
+    The number of clusters before the correction is ``k0 = n0 deff / m`` (the
+    unrounded n of ``res`` over the mean cluster size m); the cluster-level
+    variance carries the first-stage factor ``1 - k/M``, so
+    ``k = k0 / (1 + k0 / M)`` (the ``"S2"`` form of :func:`fpc_n`: the variance
+    is estimated from the sampled clusters), rounded up; n = ceil(k m)
+    observations. Cochran (1977), chapter 9 (cluster sampling; from memory).
+
+    Raises
+    ------
+    InputError
+        ``--cluster-count`` not a whole number >= 2, or ``res`` not a
+        one-sample clustered result without a population size.
+    """
+    c = Collector()
+    M = c.number("--cluster-count", cluster_count, low=2, integer=True)
+    if res.cluster_size is None or res.n_b is not None:
+        c.add("--cluster-count", "needs a one-sample clustered design: --icc and --cluster-size")
+    if res.population_size is not None:
+        c.add("--population-size", "counts units; with --cluster-count (clusters in the population) leave it out")
+    c.raise_if_any()
+    m = float(res.cluster_size)
+    k0 = res.n_unrounded / m
+    k_un = float(fpc_n(k0, M, "S2"))
+    k = ceil_robust(k_un)
+    step = (f"clusters drawn from M = {M}: k0 = n / m = {_g(res.n_unrounded)} / {_g(m)} = {_g(k0)}; "
+            f"k = k0 / (1 + k0 / M) = {_g(k_un)}; clusters = ceil({_g(k_un)}) = {k}; n = ceil(k m) = {ceil_robust(k * m)}")
+    return replace(res, n=int(ceil_robust(k * m)), clusters=int(k), formula=f"{res.formula}; {step}",
+                   assumptions=res.assumptions + (f"clusters drawn without replacement from {M} clusters "
+                                                  "(first-stage finite population correction)",))
 
 
 @dataclass(frozen=True)

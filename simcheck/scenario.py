@@ -83,6 +83,7 @@ SEED_MAX = 2**63 - 1  # fits an SQLite INTEGER (sweep stores)
 BUDGET_MIN, BUDGET_MAX = 100, 10**12
 RATIO_MAX = 100.0
 CLUSTER_SIZE_MAX = 10**5
+CLUSTER_COUNT_MAX = 10**7
 POPULATION_MAX = 10**9
 PATHS = ("auto", "exact", "sufficient", "nested", "full")
 CLUSTER_EFFECTS = ("normal", "gamma")
@@ -116,6 +117,7 @@ KNOWN_KEYS: dict[str, str] = {
     "clusters.size_mean": "mean cluster size, >= 1 (varying sizes)",
     "clusters.size_cv": "coefficient of variation of the cluster sizes, >= 0 (with size_mean)",
     "clusters.effect": "distribution of the cluster effect: normal | gamma; default normal",
+    "clusters.count": f"clusters in the population (M), whole number in [2, {CLUSTER_COUNT_MAX}]: n clusters drawn without replacement, cluster-t with sqrt(1 - n/M)",
     "population.size": f"finite population size, whole number in [2, {POPULATION_MAX}] (default: the rows of file)",
     "population.fpc": "apply the finite population correction: true | false; default true",
     "population.file": "CSV file of the population's values (relative to the scenario file)",
@@ -521,6 +523,13 @@ def validate(
     if population is not None and clusters is None and n_max is not None and n_max_given and n_max > population.size:
         c.add("simulation.n_max", f"must be <= population.size ({population.size}) when sampling without replacement, got {n_max}")
         n_max = None
+    if clusters is not None and clusters.count is not None and n_max is not None:
+        # n counts clusters drawn without replacement from clusters.count
+        if n_max_given and n_max > clusters.count:
+            c.add("simulation.n_max", f"must be <= clusters.count ({clusters.count}) when clusters are drawn without replacement, got {n_max}")
+            n_max = None
+        elif not n_max_given:
+            n_max = min(n_max, clusters.count)
     if n_min is not None and n_max is not None and n_max <= n_min:
         default = "" if n_max_given else " (the default)"
         c.add("simulation.n_max", f"must be > simulation.n_min ({n_min}), got {n_max}{default}")
@@ -887,9 +896,10 @@ def _clusters(c: Collector, t: dict[str, Any]) -> ClusterSpec | None:
     else:
         c.add("clusters.size", "missing (required: size, or size_mean and size_cv)")
     effect = _choice(c, t, "clusters", "effect", CLUSTER_EFFECTS, default="normal")
+    count = _num(c, t, "clusters", "count", None, low=2, high=CLUSTER_COUNT_MAX, integer=True) if "count" in t else None
     if len(c.problems) > n0:
         return None
-    return ClusterSpec(icc=icc, size=size, size_mean=size_mean, size_cv=size_cv, effect=effect)
+    return ClusterSpec(icc=icc, size=size, size_mean=size_mean, size_cv=size_cv, effect=effect, count=count)
 
 
 def _population(c: Collector, t: dict[str, Any], base_dir: str | None) -> PopulationSpec | None:

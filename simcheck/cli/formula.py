@@ -51,6 +51,10 @@ def add_parser(subparsers) -> None:
     p.add_argument("--cluster-size-cv", dest="cluster_size_cv", type=float, metavar="V",
                    help="coefficient of variation of cluster sizes (SD with divisor k), >= 0: "
                         "design effect 1 + ((V^2 + 1) M - 1) ICC")
+    p.add_argument("--cluster-count", dest="cluster_count", type=float, metavar="M",
+                   help="clusters in the population, a whole number >= 2: clusters drawn without replacement, "
+                        "k = k0 / (1 + k0 / M) with k0 = n0 deff / m (needs --icc and --cluster-size; "
+                        "not with --population-size)")
     p.add_argument("--ratio", type=float, metavar="K",
                    help="allocation ratio for two-sample estimands: n_b = K * n_a, > 0 (default 1)")
     p.add_argument("--stratum", action="append", metavar="NAME:SIZE:VALUE[:EXTRA]",
@@ -88,7 +92,7 @@ def _strata(args: argparse.Namespace):
         sizes.append(int(nums[0]) if nums[0].is_integer() else nums[0])
         values.append(nums[1])
         extras.append(nums[2] if len(nums) > 2 else None)
-    for opt in ("sd", "sd_b", "p", "p_b", "population_size", "design_effect", "icc", "cluster_size", "ratio"):
+    for opt in ("sd", "sd_b", "p", "p_b", "population_size", "design_effect", "icc", "cluster_size", "ratio", "cluster_count"):
         if getattr(args, opt) is not None:
             c.add("--" + opt.replace("_", "-"), "not used with --stratum (give each stratum its own value)")
     c.raise_if_any()
@@ -106,7 +110,7 @@ def _total(args: argparse.Namespace):
     from simcheck.formulas import total_sample_size
 
     c = Collector()
-    for opt in ("sd_b", "p_b", "design_effect", "icc", "cluster_size", "cluster_size_cv", "ratio"):
+    for opt in ("sd_b", "p_b", "design_effect", "icc", "cluster_size", "cluster_size_cv", "ratio", "cluster_count"):
         if getattr(args, opt) is not None:
             c.add("--" + opt.replace("_", "-"), "not used with --estimand total without --stratum (a one-stage "
                   "sample of a finite population: give --population-size and --sd or --p)")
@@ -134,6 +138,7 @@ def run(args: argparse.Namespace) -> int:
             return 0
         sys.stdout.write(render(res) + "\n")
         return 0
+    _clusters_and_population(args)
     res = sample_size(
         args.estimand,
         args.margin,
@@ -150,11 +155,29 @@ def run(args: argparse.Namespace) -> int:
         cluster_size_cv=args.cluster_size_cv,
         ratio=args.ratio,
     )
+    if args.cluster_count is not None:
+        from simcheck.formulas import finite_clusters
+
+        res = finite_clusters(res, args.cluster_count)
     if args.json:
         emit_json(res.to_dict())
         return 0
     sys.stdout.write(render(res) + "\n")
     return 0
+
+
+def _clusters_and_population(args: argparse.Namespace) -> None:
+    """What the engine supports is what the formula takes: a finite population of units is not
+    sampled in clusters; clusters from a finite number of clusters are (--cluster-count)."""
+    from simcheck.errors import Collector
+
+    c = Collector()
+    if args.population_size is not None and (args.icc is not None or args.cluster_size is not None):
+        c.add("--population-size", "counts units and cannot be combined with clusters; for clusters drawn from a "
+              "finite number of clusters give --cluster-count M")
+    if args.cluster_count is not None and (args.icc is None or args.cluster_size is None):
+        c.add("--cluster-count", "needs --icc and --cluster-size (the clusters it counts)")
+    c.raise_if_any()
 
 
 def render(res) -> str:

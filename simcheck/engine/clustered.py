@@ -164,6 +164,8 @@ def exact_available(design: Design) -> bool:
     if design.two_sample or (design.clusters is not None and design.population is not None):
         return False
     if design.clusters is not None:
+        if design.clusters.count is not None:
+            return False  # a finite population of clusters is simulated
         try:
             cm, law = cluster_model_for(design)
         except InputError:
@@ -183,6 +185,8 @@ def available_paths(design: Design) -> list[str]:
         return available_paths(total_inner(design))
     method = get_method(design.estimand, design.method)
     out = ["exact"] if exact_available(design) else []
+    if design.clusters is not None and design.clusters.count is not None:
+        return ["nested", "full"]
     if design.clusters is not None:
         try:
             cm, _ = cluster_model_for(design)
@@ -200,7 +204,8 @@ def validate_design(design: Design, method: Method, ns, path: str) -> None:
     c = Collector()
     which = "clusters" if design.clusters is not None else "population"
     if design.clusters is not None and design.population is not None:
-        c.add("population", "cannot be combined with [clusters] (sampling clusters from a finite population is not supported)")
+        c.add("population", "cannot be combined with [clusters]; for clusters drawn from a finite number of "
+              "clusters give clusters.count (the number of clusters in the population)")
     if design.two_sample:
         c.add(which, f"only for the one-sample estimands mean and proportion, not {design.estimand!r}")
     c.raise_if_any()
@@ -213,6 +218,8 @@ def validate_design(design: Design, method: Method, ns, path: str) -> None:
         if method.kind not in ("cluster", "summary", "count"):
             c.add("method.interval", f"{design.method!r} is not available with [clusters]; use cluster-t, "
                   "or t / z / a proportion interval to see the effect of ignoring the clustering")
+        elif design.clusters.count is not None:
+            _validate_cluster_count(c, design, method, ns, path)
     else:
         pop = design.population
         if method.kind == "cluster":
@@ -226,6 +233,19 @@ def validate_design(design: Design, method: Method, ns, path: str) -> None:
         if path == "sufficient":
             c.add("simulation.path", "path 'sufficient' is not available with [population]; use auto, exact, nested or full")
     c.raise_if_any()
+
+
+def _validate_cluster_count(c: Collector, design: Design, method: Method, ns, path: str) -> None:
+    M = design.clusters.count
+    if method.kind != "cluster":
+        c.add("method.interval", f"with clusters.count only cluster-t is available (the first-stage correction "
+              f"sqrt(1 - n/M) applies to the cluster-level variance); got {design.method!r}")
+    for n in ns:
+        if n > M:
+            c.add("n", f"must be <= clusters.count ({M}) when clusters are drawn without replacement, got {n}")
+            break
+    if path in ("exact", "sufficient"):
+        c.add("simulation.path", f"path {path!r} is not available with clusters.count; use auto, nested or full")
 
 
 # --------------------------------------------------------------------------
@@ -268,6 +288,8 @@ def _observations(k: int, law: SizeLaw) -> int:
 
 def _clusters(design, method, ns, replicates, root, seed, path, curve, progress, chunk_bytes) -> list[CheckResult]:
     cm, law = cluster_model_for(design)
+    if design.clusters.count is not None:
+        return _finite_clusters(design, method, ns, replicates, root, seed, path, curve, progress, cm, law)
     powers = 3 if method.needs_m3 else 2
     notes = _cluster_notes(design, cm, law, method)
     exact_kind = _cluster_exact_kind(design, method, cm, law)
@@ -301,6 +323,70 @@ def _clusters(design, method, ns, replicates, root, seed, path, curve, progress,
         for j, k in enumerate(group):
             r = acc.row(j, design, k, replicates, seed, label)
             rows.append(replace(r, observations=_observations(k, law), notes=tuple(list(r.notes) + notes)))
+    return rows
+
+
+#: largest number of observations drawn to form a finite population of clusters
+#: when its cluster sums cannot be drawn from their exact law (8 bytes each)
+CLUSTER_DRAW_MAX = 50_000_000
+
+
+def cluster_population_for(design: Design, root: np.random.SeedSequence) -> tuple[np.ndarray, np.ndarray, float]:
+    """The M clusters of a finite cluster population: sizes, totals, and the population mean.
+
+    Drawn once from the clustered model on the stream ``STAGE_POPULATION``
+    below the root's entropy (spawn key dropped, as for unit populations), so
+    every n, search stage and sweep cell with one seed samples the same clusters.
+    The mean is the ratio of all totals to all sizes (the mean over the
+    population's observations).
+    """
+    cm, law = cluster_model_for(design)
+    M = int(design.clusters.count)
+    fast = cm.fast_ok(2)
+    if not fast and M * law.mean > CLUSTER_DRAW_MAX:
+        raise InputError("clusters.count", f"{M} clusters of mean size {law.mean:g} exceed {CLUSTER_DRAW_MAX} "
+                         "observations to draw for this model; use fewer clusters")
+    base = np.random.SeedSequence(entropy=root.entropy, pool_size=root.pool_size)
+    g = rngmod.generator(base, rngmod.STAGE_POPULATION)
+    m = law.draw(g, (1, M))
+    s1, _, _ = cm.cluster_sums(g, m, centre=0.0, powers=2, fast=fast)
+    sizes, totals = m.ravel().astype(np.float64), s1.ravel()
+    return sizes, totals, float(totals.sum() / sizes.sum())
+
+
+def _finite_clusters(design, method, ns, replicates, root, seed, path, curve, progress, cm, law) -> list[CheckResult]:
+    """cluster-t on n of M clusters drawn without replacement, first-stage FPC sqrt(1 - n/M)."""
+    M = int(design.clusters.count)
+    sizes, totals, truth = cluster_population_for(design, root)
+    notes = _cluster_notes(design, cm, law, method)
+    notes.append(f"n clusters drawn without replacement from a population of {M} clusters (drawn once from the model)")
+    notes.append(f"true value: the population's mean over its {M} clusters ({truth:.6g}), not the data model's")
+    notes.append("first-stage finite population correction: half-width x sqrt(1 - n/M)")
+    plain = get_method("mean", "cluster-t")  # unclipped: corrected first, then clipped once for proportions
+    nested = path == "nested" or (path == "auto" and curve)
+    groups = [ns] if nested else [[n] for n in ns]
+    rows: list[CheckResult] = []
+    for group in groups:
+        K = max(group)
+        f = np.sqrt(fpc_variance_factor(np.asarray(group, dtype=np.float64), M, "S2"))
+        acc = msr.Accumulator(len(group), replicates, design.margin)
+        for bi, g, ps, pe, last in _pieces(root, replicates, block_columns(M, K)):
+            idx = sample_indices(g, M, (pe - ps, K), ordered=nested)
+            lo, hi = _cluster_intervals(design, plain, sizes[idx], totals[idx], None, None, group, law.fixed)
+            centre = (lo + hi) / 2.0
+            lo, hi = centre - (centre - lo) * f, centre + (hi - centre) * f
+            # a census (n = M) estimates the population mean itself: exact, zero width
+            lo, hi = np.where(f == 0, truth, lo), np.where(f == 0, truth, hi)
+            if design.estimand == "proportion":
+                lo, hi = np.clip(lo, 0.0, 1.0), np.clip(hi, 0.0, 1.0)
+            acc.add(lo, hi, truth)
+            if progress and last:
+                progress(pe, replicates)
+        acc.finish()
+        for j, k in enumerate(group):
+            r = acc.row(j, design, k, replicates, seed, "nested" if nested else "simulation")
+            rows.append(replace(r, true_value=truth, observations=_observations(k, law),
+                                notes=tuple(list(r.notes) + notes)))
     return rows
 
 
