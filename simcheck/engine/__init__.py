@@ -36,6 +36,7 @@ from simcheck.engine.simple import CHUNK_BYTES, PATHS, block_size, piece_rows, u
 from simcheck.errors import InputError
 from simcheck.intervals import get_method
 from simcheck.results import CheckResult, CurveResult
+from simcheck.threads import thread_count
 
 Progress = Callable[[int, int], None] | None
 
@@ -61,6 +62,7 @@ def check(
     path: str = "auto",
     progress: Progress = None,
     chunk_bytes: int = CHUNK_BYTES,
+    threads: int | None = None,
 ) -> CheckResult:
     """Coverage, misses, achieved margin and assurance of ``design`` at ``n``.
 
@@ -80,6 +82,9 @@ def check(
         ``progress(done, total)`` called after each chunk of replicates.
     chunk_bytes : int
         Memory budget of one chunk's draw buffer; does not change results.
+    threads : int, optional
+        Threads for this computation; default ``SIMCHECK_THREADS``, else the
+        cores available to the process. Does not change results.
 
     Returns
     -------
@@ -89,7 +94,7 @@ def check(
     ----------
     .. [1] Morris, White & Crowther (2019), Statistics in Medicine 38:2074-2102.
     """
-    rows = _evaluate(design, [n], replicates, rng, path, progress, chunk_bytes, curve=False)
+    rows = _evaluate(design, [n], replicates, rng, path, progress, chunk_bytes, curve=False, threads=threads)
     return rows[0]
 
 
@@ -102,6 +107,7 @@ def curve(
     path: str = "auto",
     progress: Progress = None,
     chunk_bytes: int = CHUNK_BYTES,
+    threads: int | None = None,
 ) -> CurveResult:
     """:func:`check` for every n in ``n_values`` (sorted, duplicates dropped).
 
@@ -112,7 +118,7 @@ def curve(
     ns = sorted({_as_n(v) for v in n_values})
     if not ns:
         raise InputError("n", "no sample sizes to evaluate")
-    rows = _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve=True)
+    rows = _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve=True, threads=threads)
     return CurveResult(rows=tuple(rows))
 
 
@@ -141,14 +147,15 @@ def _as_n(v) -> int:
     return int(v)
 
 
-def _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve):
+def _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve, threads=None):
     if path not in PATHS:
         raise InputError("simulation.path", f"must be one of {', '.join(PATHS)}, got {path!r}")
     if isinstance(replicates, bool) or not isinstance(replicates, (int, np.integer)) or replicates < 1:
         raise InputError("simulation.replicates", f"must be a whole number >= 1, got {replicates!r}")
     if design.strata is None:
         _check_simple_n(design, ns)
-    return kind_for(design).evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve)
+    n_threads = thread_count(threads)
+    return kind_for(design).evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve, n_threads)
 
 
 def _check_simple_n(design: Design, ns) -> None:

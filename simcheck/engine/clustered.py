@@ -125,7 +125,7 @@ def _pieces(root: np.random.SeedSequence, replicates: int, columns: int):
 # entry point
 # --------------------------------------------------------------------------
 def evaluate(design: Design, ns: Sequence[int], replicates: int, rng, path: str, progress, chunk_bytes: int,
-             curve: bool = True) -> list[CheckResult]:
+             curve: bool = True, threads: int = 1) -> list[CheckResult]:
     """One :class:`CheckResult` per n in ``ns`` (n = clusters, or units from the population).
 
     ``path``: "auto", "exact", "sufficient" (clusters only), "nested" or "full".
