@@ -174,3 +174,15 @@ def test_invoice_audit_example_loads_and_is_labelled_invented():
     assert (s.design.population.size, s.design.population.events) == (2400, 48)
     r = engine.check(s.design, 404, replicates=1000, rng=s.seed)
     assert r.exact and r.coverage >= 0.95  # exact method: at least the nominal level
+
+
+def test_nested_curve_on_a_drawn_population_agrees_with_exact_within_4_mcse():
+    # a population drawn from a model (not a fixed count): nested prefixes vs hypergeometric enumeration
+    d = Design(model=make_model({"model": "bernoulli", "p": 0.1}), estimand="proportion", method="hypergeometric",
+               margin=0.05, population=PopulationSpec(size=500))
+    nested = engine.curve(d, [50, 100, 150], replicates=4000, rng=3, path="nested").rows
+    exact = engine.curve(d, [50, 100, 150], replicates=4000, rng=3).rows
+    for a, b in zip(nested, exact):
+        assert b.exact and not a.exact and a.true_value == b.true_value
+        assert abs(a.coverage - b.coverage) <= 4 * math.sqrt(b.coverage * (1 - b.coverage) / 4000) + 1e-12
+        assert abs(a.margin_mean - b.margin_mean) <= 4 * a.margin_mean_mcse + 1e-12
