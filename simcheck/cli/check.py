@@ -257,7 +257,7 @@ class SearchProgress(Progress):
 
     def describe(self, done: int, total: int) -> str:
         what = f"stage {self.stage}" + (f" ({self.stage_name})" if self.stage_name else "")
-        share = f" {100.0 * done / total:.0f}%" if total else ""
+        share = f", {100.0 * done / total:.0f}% of this evaluation" if total else ""
         return f"search {what}{share}"
 
     def __call__(self, done: int, total: int, stage: str | None = None) -> None:

@@ -223,8 +223,9 @@ def strata_text(data: Mapping[str, Any]) -> str:
     """'3 strata sampled without replacement: north (N = 4,000), a lognormal ...; ...' from Design.to_dict()."""
     parts = [f"{s['name']} (N = {s['size']:,}), {describe_model(s['data'])}" for s in data["strata"]]
     rule = data.get("allocation", {}).get("rule", "proportional")
-    return (f"{len(parts)} strata, each sampled without replacement and the total n allocated by the "
-            f"{rule} rule: " + "; ".join(parts))
+    rule = {"neyman": "Neyman", "optimum": "optimum (cost-weighted)"}.get(rule, rule)
+    return (f"{len(parts)} {'stratum' if len(parts) == 1 else 'strata'}, each sampled without replacement and the total n allocated by "
+            f"{rule} allocation: " + "; ".join(parts))
 
 
 def model_text(data: Mapping[str, Any]) -> str:
@@ -236,10 +237,19 @@ def model_text(data: Mapping[str, Any]) -> str:
     return describe_model(data.get("data", {}))
 
 
-def interval_text(methods: Sequence[str], confidence: float) -> str:
-    names = join_words([method_text(m) for m in methods])
-    kind = "interval" if len(methods) == 1 else "intervals"
-    return f"the two-sided {fmt_pct(confidence)} {names} {kind}"
+#: how the stratified evaluator computes each method (simcheck.engine.stratified)
+STRATIFIED_METHOD_TEXT = {
+    "t": "stratified t interval (Satterthwaite degrees of freedom)",
+    "z": "stratified normal (z) interval",
+    "wald": "stratified Wald interval",
+}
+
+
+def interval_text(methods: Sequence[str], confidence: float, stratified: bool = False) -> str:
+    texts = STRATIFIED_METHOD_TEXT if stratified else {}
+    names = join_words([texts.get(m) or method_text(m) for m in methods])
+    kind = "interval" if len(methods) == 1 and not stratified else ("intervals" if len(methods) > 1 else "")
+    return f"the two-sided {fmt_pct(confidence)} {names}{' ' + kind if kind else ''}"
 
 
 # ---------------------------------------------------------------------------
@@ -312,7 +322,8 @@ def _n_unit(s: StudyResults) -> str:
 
 
 def _design_sentences(s: StudyResults) -> list[str]:
-    parts = [f"Data were assumed to follow {model_text(s.data)}."]
+    lead = "The population was assumed to consist of" if "strata" in s.data else "Data were assumed to follow"
+    parts = [f"{lead} {model_text(s.data)}."]
     if "clusters" in s.data:
         cl = s.data["clusters"]
         size = cl.get("size", cl.get("size_mean"))
@@ -346,7 +357,8 @@ def _simulation_sentences(s: StudyResults) -> list[str]:
     else:
         what = f"n {_n_unit(s)}"
     return [f"For each candidate sample size n the search drew independent samples of {what} (at least "
-            f"{s.replicates:,} per n) and computed {interval_text(s.methods, s.confidence)} for {est} in each.",
+            f"{s.replicates:,} per n) and computed {interval_text(s.methods, s.confidence, 'strata' in s.data)} "
+            f"for {est} in each.",
             "Coverage is the share of intervals that contained the true value; its Monte Carlo standard "
             "error (MCSE) is sqrt(c(1 − c)/R) for coverage c estimated from R samples"
             + (" (methods with an exact path were enumerated instead)." if any_exact else ".")]
@@ -356,7 +368,7 @@ def _formula_sentence(s: StudyResults) -> str:
     f = s.formula or {}
     kind = f.get("multiplier_kind", "z")
     deff = f.get("design_effect")
-    extra = f", design effect {fmt_g(deff)}" if deff not in (None, 1, 1.0) else ""
+    extra = f", design effect {float(deff):.3g}" if deff not in (None, 1, 1.0) else ""
     fc = [(m, s.formula_checks[m]) for m in s.methods if m in s.formula_checks]
     nf_unit = " clusters" if _n_unit(s) == "clusters" else ""
     text = (f"The closed-form formula ({kind} multiple{extra}) gives n = {s.n_formula:,}{nf_unit} for a "
@@ -385,9 +397,21 @@ def _criterion_sentences(s: StudyResults) -> list[str]:
         t = (getattr(r, "criterion_text", "") or "").strip()
         if t and t not in texts:
             texts.append(t)
-    for t in texts:
-        parts.append(t[0].upper() + t[1:] + ("" if t.endswith(".") else "."))
+    parts += [criterion_sentence(t) for t in texts]
     return parts
+
+
+def criterion_sentence(text: str) -> str:
+    """The search's criterion as a sentence: 'The answer n is the smallest n at which ...'."""
+    t = " ".join(str(text).split()).rstrip(".").replace("n_range", "the n range")
+    if not t:
+        return ""
+    if t.lower().startswith("n is "):
+        t = t[5:]
+    if t.lower().startswith(("the smallest", "the largest", "smallest", "the first")):
+        t = "the " + t if t.lower().startswith("smallest") else t
+        return f"The answer n is {t[0].lower() + t[1:]}."
+    return t[0].upper() + t[1:] + "."
 
 
 def _figures_text(s: StudyResults, m: str, r) -> str:
@@ -420,7 +444,7 @@ def _result_sentences(s: StudyResults, m: str) -> list[str]:
         if r.best_coverage is not None and r.best_coverage_n is not None:
             txt += f" (highest coverage {r.best_coverage:.3f} at n = {r.best_coverage_n:,})"
         return [txt + "."]
-    group = ("" if r.n_b is None else f" in each group" if r.n_b == r.n
+    group = ("" if r.n_b is None else " in each group" if r.n_b == r.n
              else f" in group a and {r.n_b:,} in group b")
     if status == "undecided":
         txt = (f"{who} search was undecided: its replicate budget was spent before the Monte Carlo error settled "
@@ -443,8 +467,11 @@ def _wiggle_sentences(s: StudyResults) -> list[str]:
     if not late:
         return []
     if len(late) == 1 or len(s.methods) == 1:
-        _m, r = late[0]
-        return [wiggle_sentence(r.n_first, r.n, s.discrete, r.exact)]
+        m, r = late[0]
+        text = wiggle_sentence(r.n_first, r.n, s.discrete, r.exact)
+        if len(s.methods) > 1:
+            text = f"With the {method_text(m)} interval, {text[0].lower() + text[1:]}"
+        return [text]
     firsts = join_words([f"{method_text(m)} {r.n_first:,}" for m, r in late])
     if s.discrete:
         how = "exactly" if all(r.exact for _, r in late) else "by simulation"
