@@ -29,7 +29,7 @@ import numpy as np
 
 from simcheck import rng as rngmod
 from simcheck.design import Design
-from simcheck.engine import clustered, simple, stratified
+from simcheck.engine import clustered, onesided, simple, stratified
 from simcheck.engine.kinds import KINDS, DesignKind, kind_for, register_kind
 from simcheck.engine.measures import share_mcse
 from simcheck.engine.simple import CHUNK_BYTES, PATHS, block_size, piece_rows, unit_rows
@@ -152,10 +152,16 @@ def _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve, t
         raise InputError("simulation.path", f"must be one of {', '.join(PATHS)}, got {path!r}")
     if isinstance(replicates, bool) or not isinstance(replicates, (int, np.integer)) or replicates < 1:
         raise InputError("simulation.replicates", f"must be a whole number >= 1, got {replicates!r}")
+    if design.one_sided:
+        kind = kind_for(design)
+        work = onesided.evaluation_design(design, simple_kind=kind.name == "simple")
+        rows = _evaluate(work, ns, replicates, rng, path, progress, chunk_bytes, curve, threads)
+        return onesided.finish_rows(design, onesided.one_sided_rows(design, rows))
     if design.strata is None:
         _check_simple_n(design, ns)
     n_threads = thread_count(threads)
-    return kind_for(design).evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve, n_threads)
+    rows = kind_for(design).evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve, n_threads)
+    return onesided.finish_rows(design, rows)
 
 
 def _check_simple_n(design: Design, ns) -> None:

@@ -40,7 +40,7 @@ References
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Sequence
 
 import numpy as np
@@ -180,6 +180,7 @@ def exact_rows(design: Design, method: Method, ns: Sequence[int], seed) -> list[
             values, weights = np.array([hw]), np.array([1.0])
             mean_hw = med = p90 = hw
             assurance = None if margin is None else float(hw <= margin * (1 + 1e-12))
+            at_assurance = hw
         else:
             if df is None:
                 df = n - 1
@@ -190,6 +191,7 @@ def exact_rows(design: Design, method: Method, ns: Sequence[int], seed) -> list[
             med = c * math.sqrt(stats.chi2.ppf(0.5, df) / df)
             p90 = c * math.sqrt(stats.chi2.ppf(0.9, df) / df)
             assurance = None if margin is None else float(stats.chi2.cdf(df * (margin / c) ** 2, df))
+            at_assurance = c * math.sqrt(stats.chi2.ppf(design.assurance, df) / df)
             probs = (np.arange(400) + 0.5) / 400
             values = c * np.sqrt(stats.chi2.ppf(probs, df) / df)
             weights = np.full(400, 1 / 400)
@@ -204,7 +206,7 @@ def exact_rows(design: Design, method: Method, ns: Sequence[int], seed) -> list[
             "margin_values": values,
             "margin_weights": weights,
         }
-        rows.append(row_from_measures(design, n, m, seed, "exact-normal"))
+        rows.append(replace(row_from_measures(design, n, m, seed, "exact-normal"), margin_at_assurance=at_assurance))
     return rows
 
 
@@ -293,7 +295,7 @@ def _piece_sums(model, root, stage: int, first: int, blocks, columns: int, trans
 # sufficient statistics for normal data
 # --------------------------------------------------------------------------
 def sufficient_ok(design: Design, method: Method) -> bool:
-    if method.kind == "summary" and not method.needs_m3:
+    if method.kind == "summary" and not method.needs_m3 and method.shift_equivariant:
         return normal_params_of(design.model) is not None
     if method.kind == "summary2":
         return normal_params_of(design.model) is not None and normal_params_of(design.model_b) is not None
@@ -341,7 +343,10 @@ def _sufficient(design, method, n, replicates, root, seed, progress, chunk_bytes
         if progress:
             progress(lim.stop, replicates)
     acc.finish()
-    return acc.row(0, design, n, replicates, seed, "sufficient")
+    r = acc.row(0, design, n, replicates, seed, "sufficient")
+    if design.assurance in (0.5, 0.9):  # the median / 90th percentile already computed
+        return r
+    return replace(r, margin_at_assurance=float(acc.quantiles(design.assurance)[0]))
 
 
 # --------------------------------------------------------------------------
@@ -468,8 +473,13 @@ def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes,
     acc.finish()
     path = "nested" if nested else "simulation"
     rows = []
+    # the median and 90th percentile are computed already; other levels in one pass
+    at_assurance = None if design.assurance in (0.5, 0.9) else acc.quantiles(design.assurance)
     for j, n in enumerate(ns):
-        rows.append(acc.row(j, design, n, replicates, seed, path))
+        r = acc.row(j, design, n, replicates, seed, path)
+        if at_assurance is not None:
+            r = replace(r, margin_at_assurance=float(at_assurance[j]))
+        rows.append(r)
     return rows
 
 
@@ -489,10 +499,18 @@ def _log_transform(plan: _SimPlan):
     return f
 
 
+def summary_shift(design: Design, method: Method) -> float:
+    """The value subtracted from one-sample summary data: the true mean for
+    shift-equivariant methods (precision), 0 for the others (e.g. grice-bain
+    needs the raw values)."""
+    return design.model.mean if method.shift_equivariant else 0.0
+
+
 def _fused_item(plan: _SimPlan, first: int, blocks) -> _Limits:
     """A chunk of whole blocks, each piece reduced to power sums as it is drawn."""
     d, kind = plan.design, plan.method.kind
-    tr_a = {"summary": _centre_by(d.model.mean), "summary2": _centre_by(d.model.mean), "log": _log_transform(plan)}.get(kind)
+    tr_a = {"summary": _centre_by(summary_shift(d, plan.method)), "summary2": _centre_by(d.model.mean),
+            "log": _log_transform(plan)}.get(kind)
     ma = _piece_sums(d.model, plan.root, rngmod.STAGE_MAIN, first, blocks, plan.ncol_a, tr_a, plan.method.needs_m3)
     mb = None
     if plan.two:
@@ -528,7 +546,7 @@ def _limits(plan: _SimPlan, ma, mb, xa, xb, g_boot, starts, stop) -> _Limits:
     degenerate = None
     if kind in ("summary", "summary2"):
         if ma is None:
-            xa -= d.model.mean
+            xa -= summary_shift(d, method) if kind == "summary" else d.model.mean
             ma = prefix_moments(xa, plan.ns, nested, method.needs_m3)
         sa = summary_from_sums(*ma, n_eval, d.model.sd)
         if kind == "summary" and method.centre_half is not None:

@@ -28,5 +28,6 @@ __all__ = ["TOTAL_KINDS"]
 TOTAL_KINDS = ("summary", "count")
 
 for (_estimand, _name), _m in sorted(REGISTRY.items()):
-    if _estimand in ("mean", "proportion") and _m.kind in TOTAL_KINDS and _name != "cluster-t":
+    if (_estimand in ("mean", "proportion") and _m.kind in TOTAL_KINDS and _name != "cluster-t"
+            and "two-sided" in _m.bounds):
         register(replace(_m, estimand="total", summary=f"N x the {_estimand} interval: {_m.summary}"))

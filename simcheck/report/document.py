@@ -223,7 +223,8 @@ def study_figures(study: StudyResults) -> dict[str, Any]:
     """The study's figures, by name: ``coverage``, ``margin``, ``misses``."""
     from simcheck.report import figures as F
 
-    label = {m: f"{m} interval" for m in study.methods}
+    what = "interval" if study.data.get("bound", "two-sided") == "two-sided" else f"{study.data['bound']} limit"
+    label = {m: f"{m} {what}" for m in study.methods}
     found = {label[m]: s.n for m, s in study.searches.items() if m in label}
     curves = {label[m]: study.curves[m] for m in study.methods if m in study.curves and study.curves[m].rows}
     out: dict[str, Any] = {}
@@ -231,7 +232,8 @@ def study_figures(study: StudyResults) -> dict[str, Any]:
         out["coverage"] = F.coverage_figure(curves, confidence=study.confidence, tolerance=study.coverage_tolerance,
                                             n_formula=study.n_formula, n_found=found, n_label=study.n_label,
                                             undecided=[label[m] for m, s in study.searches.items()
-                                                       if m in label and decision_status(s) == "undecided"])
+                                                       if m in label and decision_status(s) == "undecided"],
+                                            bound=study.data.get("bound", "two-sided"))
     checks = {label[m]: c for m in study.methods if (c := _half_width_check(study, m)) is not None}
     if checks:
         has_assurance = any(r.assurance is not None for c in curves.values() for r in c.rows)

@@ -293,8 +293,9 @@ def coverage_figure(
     width: float = FULL_WIDTH,
     height: float = 3.3,
     undecided: Sequence[str] = (),
+    bound: str = "two-sided",
 ) -> Figure:
-    """Coverage against n with its Monte Carlo band.
+    """Coverage against n with its Monte Carlo band (``bound``: one-sided limits say so on the axis).
 
     Parameters
     ----------
@@ -348,7 +349,8 @@ def coverage_figure(
         lo, hi = float(np.nanmin(lows)), float(np.nanmax(highs))
         pad = max(0.002, 0.06 * (hi - lo))
         ax.set_ylim(max(0.0, lo - pad), min(1.0, hi + pad) if hi + pad <= 1.0 else 1.0 + 0.001)
-        ax.set_ylabel("Coverage (share of intervals\ncontaining the true value)")
+        ax.set_ylabel("Coverage (share of intervals\ncontaining the true value)" if bound == "two-sided" else
+                      f"Coverage (share of {bound} limits\n{'at or above' if bound == 'upper' else 'at or below'} the true value)")
         _outside_legend(fig, ax)
     return fig
 
@@ -445,6 +447,8 @@ def margin_figure(
         target_margin = next((c.target_margin for c in checks.values() if c.target_margin is not None), None)
     labels = list(dict.fromkeys(list(checks) + list(curve_map)))
     found = _per_method(n_found, labels)
+    # a one-sided limit's margin is the distance from the estimate to the limit
+    hw = "half-width" if all(getattr(c, "bound", "two-sided") == "two-sided" for c in checks.values()) else "margin"
     with rc_context(STYLE):
         fig = _new_figure(width, height)
         if curve_map:
@@ -475,17 +479,17 @@ def margin_figure(
             ax.axvline(target_margin, color=REFERENCE_COLOUR, linestyle=(0, (4, 2)), linewidth=0.9,
                        label=f"target margin {target_margin:g}")
         ax.set_xlabel(value_label)
-        ax.set_ylabel("Share of samples with\nhalf-width at most x")
+        ax.set_ylabel(f"Share of samples with\n{hw} at most x")
         ax.set_ylim(-0.02, 1.02)
         ax.text(0.02, 0.98, "A", transform=ax.transAxes, va="top", ha="left", fontweight="bold")
         if ax2 is not None:
-            _assurance_panel(ax2, curve_map, labels, found, assurance, n_label, single=len(checks) <= 1)
+            _assurance_panel(ax2, curve_map, labels, found, assurance, n_label, single=len(checks) <= 1, hw=hw)
         _outside_legend(fig, ax)
     return fig
 
 
 def _assurance_panel(ax2, curve_map: Mapping[str, CurveResult], labels: Sequence[str], found: Mapping[str, Any],
-                     assurance: float | None, n_label: str, single: bool) -> None:
+                     assurance: float | None, n_label: str, single: bool, hw: str = "half-width") -> None:
     """Panel B of the margin figure: assurance against n, ± 2 MCSE, the required level and the n found."""
     if assurance is not None:
         ax2.axhline(assurance, color=REFERENCE_COLOUR, linewidth=0.9, label=f"required assurance {assurance:g}")
@@ -505,7 +509,7 @@ def _assurance_panel(ax2, curve_map: Mapping[str, CurveResult], labels: Sequence
         if nf is not None:
             ax2.axvline(nf, color=st["color"], linestyle=(0, (6, 2)), linewidth=1.0)
     _set_n_axis(ax2, np.concatenate(all_n) if all_n else np.array([1.0]), n_label)
-    ax2.set_ylabel("Assurance (share with\nhalf-width at most target)")
+    ax2.set_ylabel(f"Assurance (share with\n{hw} at most target)")
     ax2.set_ylim(-0.02, 1.02)
     ax2.text(0.02, 0.98, "B", transform=ax2.transAxes, va="top", ha="left", fontweight="bold")
 

@@ -9,6 +9,7 @@ import math
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, Mapping, Sequence
 
+from simcheck.bound_text import coverage_words, target_sentences
 from simcheck import __version__
 
 if TYPE_CHECKING:  # the study module imports this one
@@ -42,6 +43,10 @@ METHOD_TEXT = {
     "newcombe": "Newcombe",
     "agresti-caffo": "Agresti–Caffo",
     "cluster-t": "cluster-level t",
+    "land": "Land's exact (H-based)",
+    "chen-modified-t": "Chen's modified-t",
+    "chebyshev": "Chebyshev (Cantelli)",
+    "grice-bain": "gamma-based (Grice–Bain)",
 }
 
 
@@ -245,9 +250,14 @@ STRATIFIED_METHOD_TEXT = {
 }
 
 
-def interval_text(methods: Sequence[str], confidence: float, stratified: bool = False) -> str:
+def interval_text(methods: Sequence[str], confidence: float, stratified: bool = False,
+                  bound: str = "two-sided") -> str:
     texts = STRATIFIED_METHOD_TEXT if stratified else {}
     names = join_words([texts.get(m) or method_text(m) for m in methods])
+    if bound != "two-sided":
+        # "the one-sided 95% Land's exact (H-based) upper limit"
+        kind = f"{bound} limit" if len(methods) == 1 else f"{bound} limits"
+        return f"the one-sided {fmt_pct(confidence)} {names} {kind}"
     kind = "interval" if len(methods) == 1 and not stratified else ("intervals" if len(methods) > 1 else "")
     return f"the two-sided {fmt_pct(confidence)} {names}{' ' + kind if kind else ''}"
 
@@ -321,9 +331,18 @@ def _n_unit(s: StudyResults) -> str:
     return "clusters" if "clusters" in s.data else "observations"
 
 
+def _bound(s: StudyResults) -> str:
+    return s.data.get("bound", "two-sided")
+
+
+def _lim(s: StudyResults) -> str:
+    return "interval" if _bound(s) == "two-sided" else "limit"
+
+
 def _design_sentences(s: StudyResults) -> list[str]:
     lead = "The population was assumed to consist of" if "strata" in s.data else "Data were assumed to follow"
     parts = [f"{lead} {model_text(s.data)}."]
+    parts += target_sentences(s.data, s.confidence, s.margin)
     if "clusters" in s.data:
         cl = s.data["clusters"]
         size = cl.get("size", cl.get("size_mean"))
@@ -348,7 +367,7 @@ def _simulation_sentences(s: StudyResults) -> list[str]:
         how = ("by enumerating the binomial distribution of the event count"
                if s.estimand in ("proportion", "proportion-diff")
                else "from the sampling law of the sample mean and variance")
-        return [f"For each candidate sample size n, coverage of {interval_text(s.methods, s.confidence)} for {est} "
+        return [f"For each candidate sample size n, coverage of {interval_text(s.methods, s.confidence, 'strata' in s.data, _bound(s))} for {est} "
                 f"was computed exactly {how} instead of by simulation, so it carries no Monte Carlo error."]
     if "data_a" in s.data:
         ratio = float(s.data.get("ratio", 1.0) or 1.0)
@@ -357,9 +376,10 @@ def _simulation_sentences(s: StudyResults) -> list[str]:
     else:
         what = f"n {_n_unit(s)}"
     return [f"For each candidate sample size n the search drew independent samples of {what} (at least "
-            f"{s.replicates:,} per n) and computed {interval_text(s.methods, s.confidence, 'strata' in s.data)} "
+            f"{s.replicates:,} per n) and computed {interval_text(s.methods, s.confidence, 'strata' in s.data, _bound(s))} "
             f"for {est} in each.",
-            "Coverage is the share of intervals that contained the true value; its Monte Carlo standard "
+            ("Coverage is the share of intervals that contained the true value" if _bound(s) == "two-sided"
+             else f"Coverage is the {coverage_words(_bound(s))}") + "; its Monte Carlo standard "
             "error (MCSE) is sqrt(c(1 − c)/R) for coverage c estimated from R samples"
             + (" (methods with an exact path were enumerated instead)." if any_exact else ".")]
 
@@ -372,13 +392,13 @@ def _formula_sentence(s: StudyResults) -> str:
     fc = [(m, s.formula_checks[m]) for m in s.methods if m in s.formula_checks]
     nf_unit = " clusters" if _n_unit(s) == "clusters" else ""
     text = (f"The closed-form formula ({kind} multiple{extra}) gives n = {s.n_formula:,}{nf_unit} for a "
-            f"half-width of {fmt_g(s.margin)}")
+            f"{'half-width' if _bound(s) == 'two-sided' else 'margin'} of {fmt_g(s.margin)}")
     if not fc:
         return text + "."
     said = []
     for m, c in fc:
         a = f" and assurance {c.assurance:.3f}" if c.assurance is not None else ""
-        who = f" with the {method_text(m)} interval" if len(s.methods) > 1 else ""
+        who = f" with the {method_text(m)} {_lim(s)}" if len(s.methods) > 1 else ""
         said.append(f"coverage {fmt_estimate(c.coverage, c.coverage_mcse, c.exact)}{a}{who}")
     reps = {c.replicates for _, c in fc if not c.exact}
     gave = ("the exact computation gave" if not reps
@@ -436,7 +456,7 @@ def _result_sentences(s: StudyResults, m: str) -> list[str]:
     if r is None:
         return []
     status = decision_status(r)
-    who = f"With the {method_text(m)} interval the" if len(s.methods) > 1 else "The"
+    who = f"With the {method_text(m)} {_lim(s)} the" if len(s.methods) > 1 else "The"
     if r.n is None:
         txt = f"{who} targets were not met by any n up to {s.n_max:,}"
         if status == "undecided":
@@ -489,7 +509,7 @@ def _fewest_sentence(s: StudyResults) -> str | None:
         return None
     n_min = min(n for n, _ in found)
     fewest = [m for n, m in found if n == n_min]
-    names = join_words([f"the {method_text(m)} interval" for m in fewest])
+    names = join_words([f"the {method_text(m)} {_lim(s)}" for m in fewest])
     per = ""
     if "data_a" in s.data:
         per = " per group" if ratio_text(s.data.get("ratio", 1.0)) == "groups of equal size" else " in group a"
@@ -508,7 +528,7 @@ def methods_paragraph(study: StudyResults) -> str:
              f"NumPy {s.versions.get('numpy', '?')}, SciPy {s.versions.get('scipy', '?')})."]
     parts += _design_sentences(s)
     parts += _simulation_sentences(s)
-    if s.margin is not None:
+    if s.margin is not None and _bound(s) == "two-sided":
         parts.append(f"The achieved margin of error is half the width of each interval; assurance is the share of "
                      f"samples whose half-width was at most the target of {fmt_g(s.margin)}.")
     if s.n_formula is not None:
@@ -592,6 +612,9 @@ def n_axis_label(design) -> str:
 
 
 def value_axis_label(scenario, units: str | None = None) -> str:
+    units = units or scenario.design.units
+    if scenario.design.bound != "two-sided":
+        return f"Achieved margin, limit to estimate ({units or 'data units'})"
     if units:
         return f"Achieved half-width ({units})"
     if scenario.design.estimand in ("proportion", "proportion-diff"):
