@@ -32,9 +32,13 @@ class ClusterSpec:
     size_cv: float | None = None
     #: distribution of the cluster effect for continuous models: "normal" or "gamma"
     effect: str = "normal"
+    #: clusters in the population (M): n clusters are drawn without replacement
+    #: from M clusters drawn once, with the first-stage correction sqrt(1 - n/M)
+    count: int | None = None
 
     def to_dict(self) -> dict[str, Any]:
-        d = {"icc": self.icc, "size": self.size, "size_mean": self.size_mean, "size_cv": self.size_cv, "effect": self.effect}
+        d = {"icc": self.icc, "size": self.size, "size_mean": self.size_mean, "size_cv": self.size_cv, "effect": self.effect,
+             "count": self.count}
         return {k: v for k, v in d.items() if v is not None}
 
 
@@ -50,10 +54,12 @@ class PopulationSpec:
     column: str | None = None
     #: optional unit values given directly (``population.values``; from Python an array or Series)
     values: tuple[float, ...] | None = field(default=None, repr=False)
+    #: a 0/1 population with exactly this many events (units of value 1)
+    events: int | None = None
 
     def to_dict(self) -> dict[str, Any]:
         d = {"size": self.size, "fpc": self.fpc, "file": self.file, "column": self.column,
-             "values": None if self.values is None else list(self.values)}
+             "values": None if self.values is None else list(self.values), "events": self.events}
         return {k: v for k, v in d.items() if v is not None}
 
 
@@ -105,7 +111,10 @@ class Design:
     model : Model
         Data model of the (only, or first) group. For proportion estimands it
         must produce 0/1 values (``bernoulli`` or an event model).
-    estimand : {"mean", "proportion", "mean-diff", "proportion-diff"}
+    estimand : {"mean", "proportion", "mean-diff", "proportion-diff", "total"}
+        ``total`` needs ``strata`` or ``population``: N times the mean (or
+        the proportion, for 0/1 data: the number of events), its interval N
+        times the mean's.
     method : str
         Interval method name (see :func:`simcheck.intervals.methods_for`).
     confidence : float
@@ -183,8 +192,8 @@ class Design:
                     c.add(label, "a proportion estimand needs 0/1 data: model 'bernoulli', or event_values / event_above in [target]")
         if self.strata is not None:
             self._check_strata(c)
-        elif self.estimand == "total":
-            c.add("target.estimand", "'total' needs a stratified design ([[strata]] tables with their sizes)")
+        elif self.estimand == "total" and self.population is None:
+            c.add("target.estimand", "'total' needs the population size: a [population] table, or [[strata]] tables with their sizes")
         elif self.estimand in ESTIMANDS:
             from simcheck.intervals import methods_for
             from simcheck.intervals.base import lookup
@@ -194,7 +203,21 @@ class Design:
                 c.add("method.interval", f"unknown interval {self.method!r} for estimand {self.estimand!r}; choose one of {', '.join(methods_for(self.estimand))}")
             elif self.bound in BOUNDS and self.bound not in m.bounds:
                 c.add("method.interval", f"{self.method!r} is a one-sided {'/'.join(m.bounds)} limit; set target.bound = \"{m.bounds[0]}\"")
+            else:
+                self._check_finite(c, m)
         c.raise_if_any()
+
+    def _check_finite(self, c: Collector, method) -> None:
+        """Rules of finite-population methods and of totals without strata."""
+        if method.needs_population_size and self.population is None:
+            c.add("method.interval", f"{self.method!r} needs the population size: use it with a [population] table")
+        if method.needs_population_size and self.clusters is not None:
+            c.add("method.interval", f"{self.method!r} is for units drawn from a finite population, not with [clusters]")
+        if self.estimand == "total":
+            if self.clusters is not None:
+                c.add("target.estimand", "'total' is not available with [clusters]; estimate the mean")
+            if self.base_estimand == "proportion" and isinstance(self.model, Model) and not self.model.zero_one:
+                c.add("method.interval", f"{self.method!r} is a proportion interval: a total with it needs 0/1 data")
 
     def _check_bounds(self, c: Collector) -> None:
         """Bound, relative margin, units and demonstration plan (new target keys)."""
@@ -255,6 +278,15 @@ class Design:
         check_strata(c, st.sizes, st.rule, st.costs, st.given, st.minimum)
 
     @property
+    def base_estimand(self) -> str:
+        """What a total is N times (one-stage finite population): its method's mean or proportion."""
+        if self.estimand != "total" or self.strata is not None:
+            return self.estimand
+        from simcheck.intervals import REGISTRY
+
+        return "mean" if ("mean", self.method) in REGISTRY else "proportion"
+
+    @property
     def two_sample(self) -> bool:
         return self.estimand in TWO_SAMPLE
 
@@ -265,6 +297,8 @@ class Design:
             mean = sum(w * m.mean for w, m in zip(self.strata.weights, self.strata.models))
             return mean * self.strata.population_size if self.estimand == "total" else mean
         a = self.model.mean
+        if self.estimand == "total" and self.population is not None:
+            return a * self.population.size  # the planning value; an evaluation reports its population's
         return a - self.model_b.mean if self.two_sample else a
 
     def n_b(self, n: int) -> int | None:

@@ -25,7 +25,7 @@ This module depends only on numpy, scipy and :mod:`simcheck.errors`.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any, Callable
 
 import numpy as np
@@ -37,6 +37,8 @@ __all__ = [
     "TWO_SAMPLE",
     "FormulaResult",
     "sample_size",
+    "total_sample_size",
+    "finite_clusters",
     "ceil_robust",
     "z_value",
     "t_value",
@@ -871,6 +873,113 @@ def upper_sd_limit(pilot_sd: float, pilot_n: int, level: float) -> float:
     determination. Statistics in Medicine 14, 1933-1940.
     """
     return float(pilot_sd * math.sqrt((pilot_n - 1) / _stats().chi2.ppf(1 - level, pilot_n - 1)))
+
+
+def total_sample_size(
+    margin: float,
+    population_size: int,
+    *,
+    confidence: float = 0.95,
+    sd: float | None = None,
+    p: float | None = None,
+    multiplier: str = "z",
+) -> FormulaResult:
+    """Closed-form n for the total of a finite population (one-stage simple random sample).
+
+    The estimated total is ``N ybar`` (for 0/1 values, N times the sample share:
+    the number of events), with ``Var(N ybar) = N^2 (1 - n/N) S^2 / n``
+    ([1]_, chapter 2; for a proportion ``N^2 (N - n)/(N - 1) P Q / n``,
+    chapter 3). A half-width of at most B on the total is a half-width of at
+    most ``B / N`` on the mean, so this is :func:`sample_size` for the mean
+    (``sd``) or the proportion (``p``) with margin ``B / N`` and the finite
+    population correction of N, reported in the total's units.
+
+    Parameters
+    ----------
+    margin : float
+        Target half-width B of the total's interval, > 0, in the total's units
+        (< N for a number of events).
+    population_size : int
+        N, a whole number >= 2.
+    confidence : float
+        Confidence level in (0, 1).
+    sd, p : float
+        Exactly one: the planning SD S of the unit values (divisor N - 1), or
+        the planning share P of events (0/1 values).
+    multiplier : {"z", "t"}
+        As in :func:`sample_size` (``t`` with ``sd`` only).
+
+    Returns
+    -------
+    FormulaResult
+        ``estimand`` "total", ``margin`` B; the steps start with ``B / N``.
+
+    Raises
+    ------
+    InputError
+        All problems at once; fields are option names.
+
+    References
+    ----------
+    .. [1] Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, New
+       York; chapters 2 and 3 (estimate of a population total and its
+       variance). Chapter numbers from memory.
+    """
+    c = Collector()
+    B = None if margin is None else c.number("--margin", margin, low=0, low_open=True)
+    if margin is None:
+        c.add("--margin", "is required: the target half-width of the total's interval, > 0")
+    N = None
+    if population_size is None:
+        c.add("--population-size", "is required for a total without strata: the number of units N")
+    else:
+        N = c.number("--population-size", population_size, low=2, integer=True)
+    if (sd is None) == (p is None):
+        c.add("--sd", "a total needs exactly one of --sd (planning SD of the values) or --p (share of events, 0/1 values)")
+    if p is not None and B is not None and N is not None and B >= N:
+        c.add("--margin", f"must be < the population size ({N}) for a number of events, got {margin!r}")
+    c.raise_if_any()
+    base = "mean" if sd is not None else "proportion"
+    res = sample_size(base, B / N, confidence=confidence, sd=sd, p=p, multiplier=multiplier, population_size=N)
+    step = f"total = N x {base}: margin on the {base} B / N = {_g(B)} / {N} = {_g(B / N)}"
+    return replace(
+        res, estimand="total", margin=float(B), formula=f"{step}; {res.formula}",
+        assumptions=res.assumptions + (f"the total's interval is N = {N} times the {base}'s (one-stage sample, no clusters)",),
+    )
+
+
+def finite_clusters(res: FormulaResult, cluster_count: int) -> FormulaResult:
+    """A one-sample clustered result with n clusters drawn without replacement from M.
+
+    The number of clusters before the correction is ``k0 = n0 deff / m`` (the
+    unrounded n of ``res`` over the mean cluster size m); the cluster-level
+    variance carries the first-stage factor ``1 - k/M``, so
+    ``k = k0 / (1 + k0 / M)`` (the ``"S2"`` form of :func:`fpc_n`: the variance
+    is estimated from the sampled clusters), rounded up; n = ceil(k m)
+    observations. Cochran (1977), chapter 9 (cluster sampling; from memory).
+
+    Raises
+    ------
+    InputError
+        ``--cluster-count`` not a whole number >= 2, or ``res`` not a
+        one-sample clustered result without a population size.
+    """
+    c = Collector()
+    M = c.number("--cluster-count", cluster_count, low=2, integer=True)
+    if res.cluster_size is None or res.n_b is not None:
+        c.add("--cluster-count", "needs a one-sample clustered design: --icc and --cluster-size")
+    if res.population_size is not None:
+        c.add("--population-size", "counts units; with --cluster-count (clusters in the population) leave it out")
+    c.raise_if_any()
+    m = float(res.cluster_size)
+    k0 = res.n_unrounded / m
+    k_un = float(fpc_n(k0, M, "S2"))
+    k = ceil_robust(k_un)
+    step = (f"clusters drawn from M = {M}: k0 = n / m = {_g(res.n_unrounded)} / {_g(m)} = {_g(k0)}; "
+            f"k = k0 / (1 + k0 / M) = {_g(k_un)}; clusters = ceil({_g(k_un)}) = {k}; n = ceil(k m) = {ceil_robust(k * m)}")
+    return replace(res, n=int(ceil_robust(k * m)), clusters=int(k), formula=f"{res.formula}; {step}",
+                   assumptions=res.assumptions + (f"clusters drawn without replacement from {M} clusters "
+                                                  "(first-stage finite population correction)",))
 
 
 # ---------------------------------------------------------------------------

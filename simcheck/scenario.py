@@ -83,6 +83,7 @@ SEED_MAX = 2**63 - 1  # fits an SQLite INTEGER (sweep stores)
 BUDGET_MIN, BUDGET_MAX = 100, 10**12
 RATIO_MAX = 100.0
 CLUSTER_SIZE_MAX = 10**5
+CLUSTER_COUNT_MAX = 10**7
 POPULATION_MAX = 10**9
 PATHS = ("auto", "exact", "sufficient", "nested", "full")
 CLUSTER_EFFECTS = ("normal", "gamma")
@@ -123,11 +124,13 @@ KNOWN_KEYS: dict[str, str] = {
     "clusters.size_mean": "mean cluster size, >= 1 (varying sizes)",
     "clusters.size_cv": "coefficient of variation of the cluster sizes, >= 0 (with size_mean)",
     "clusters.effect": "distribution of the cluster effect: normal | gamma; default normal",
+    "clusters.count": f"clusters in the population (M), whole number in [2, {CLUSTER_COUNT_MAX}]: n clusters drawn without replacement, cluster-t with sqrt(1 - n/M)",
     "population.size": f"finite population size, whole number in [2, {POPULATION_MAX}] (default: the rows of file)",
     "population.fpc": "apply the finite population correction: true | false; default true",
     "population.file": "CSV file of the population's values (relative to the scenario file)",
     "population.column": "column of population.file holding the values",
     "population.values": "the population's unit values as a list (instead of file; from Python an array or Series)",
+    "population.events": "a 0/1 population with exactly this many events (units of value 1), whole number in [0, size]; no [data] needed",
     **STRATA_KEYS,
 }
 
@@ -482,7 +485,7 @@ def validate(
     data = table.get("data")
     strata = None
     # population.file supplies the values: [data] is then neither needed nor used
-    from_file = (isinstance(pop_t, dict) and "file" in pop_t and estimand not in TWO_SAMPLE
+    from_file = (isinstance(pop_t, dict) and ("file" in pop_t or "events" in pop_t) and estimand not in TWO_SAMPLE
                  and "strata" not in table)
     notices: list[str] = []
     if "allocation" in table and "strata" not in table:
@@ -492,9 +495,11 @@ def validate(
         if data is not None:
             c.add("data", "not used with [[strata]]: give each stratum its model in [strata.data]")
     elif from_file:
-        if data:
+        if data and "events" in pop_t:
+            c.add("data", "not used with population.events (the population is 0/1 with that many events); remove [data]")
+        elif data:
             notices.append("notice: [data] is not used: population.file supplies the values")
-        data = None  # the model comes from the file below
+        data = None  # the model comes from the file (or the fixed count) below
     elif data is None:
         c.add("data", "missing: a [data] table with model = \"...\" (two-sample: [data.a] and [data.b])")
     elif _is_model(data) and estimand not in TWO_SAMPLE:  # a model object, from Python
@@ -554,7 +559,7 @@ def validate(
 
     clusters = _clusters(c, clusters_t) if clusters_t is not None else None
     population = _population(c, pop_t, bdir) if pop_t is not None else None
-    if from_file and population is not None and population.file is not None and not c.problems:
+    if from_file and population is not None and (population.file or population.events is not None) and not c.problems:
         model = _population_model(c, population, estimand)
 
     # n range (the population bounds n when units are sampled without replacement)
@@ -566,6 +571,13 @@ def validate(
     if population is not None and clusters is None and n_max is not None and n_max_given and n_max > population.size:
         c.add("simulation.n_max", f"must be <= population.size ({population.size}) when sampling without replacement, got {n_max}")
         n_max = None
+    if clusters is not None and clusters.count is not None and n_max is not None:
+        # n counts clusters drawn without replacement from clusters.count
+        if n_max_given and n_max > clusters.count:
+            c.add("simulation.n_max", f"must be <= clusters.count ({clusters.count}) when clusters are drawn without replacement, got {n_max}")
+            n_max = None
+        elif not n_max_given:
+            n_max = min(n_max, clusters.count)
     if n_min is not None and n_max is not None and n_max <= n_min:
         default = "" if n_max_given else " (the default)"
         c.add("simulation.n_max", f"must be > simulation.n_min ({n_min}), got {n_max}{default}")
@@ -638,6 +650,10 @@ def _population_model(c: Collector, population: PopulationSpec, estimand: str | 
     from simcheck.models import make_model
     from simcheck.models.population import read_population
 
+    if population.events is not None:
+        # planning value of the closed form (kept inside (0, 1)); the engine uses the fixed count itself
+        p = min(max(population.events / population.size, 1e-9), 1 - 1e-9)
+        return make_model({"model": "bernoulli", "p": p})
     try:
         fp = read_population(population.file, population.column, population.size)
     except InputError as e:
@@ -973,9 +989,10 @@ def _clusters(c: Collector, t: dict[str, Any]) -> ClusterSpec | None:
     else:
         c.add("clusters.size", "missing (required: size, or size_mean and size_cv)")
     effect = _choice(c, t, "clusters", "effect", CLUSTER_EFFECTS, default="normal")
+    count = _num(c, t, "clusters", "count", None, low=2, high=CLUSTER_COUNT_MAX, integer=True) if "count" in t else None
     if len(c.problems) > n0:
         return None
-    return ClusterSpec(icc=icc, size=size, size_mean=size_mean, size_cv=size_cv, effect=effect)
+    return ClusterSpec(icc=icc, size=size, size_mean=size_mean, size_cv=size_cv, effect=effect, count=count)
 
 
 def _population(c: Collector, t: dict[str, Any], base_dir: str | None) -> PopulationSpec | None:
@@ -1010,9 +1027,17 @@ def _population(c: Collector, t: dict[str, Any], base_dir: str | None) -> Popula
         values, size = _population_values(c, t, size)
     if "size" not in t and "file" not in t and "values" not in t:
         c.add("population.size", "missing (required: the number of units in the population)")
+    events = None
+    if "events" in t:
+        if "file" in t or "values" in t:
+            c.add("population.events", "give population.events (a 0/1 population with that many events) or population.file / values, not both")
+        else:
+            events = _num(c, t, "population", "events", None, low=0, integer=True)
+            if events is not None and size is not None and events > size:
+                c.add("population.events", f"must be <= population.size ({size}), got {events}")
     if len(c.problems) > n0 or size is None:
         return None
-    return PopulationSpec(size=size, fpc=fpc, file=resolved, column=column, values=values)
+    return PopulationSpec(size=size, fpc=fpc, file=resolved, column=column, values=values, events=events)
 
 
 def _population_values(c: Collector, t: dict[str, Any], size: int | None) -> tuple[tuple[float, ...] | None, int | None]:

@@ -131,9 +131,10 @@ def report(scenario, rows: Sequence[Any]) -> str:
     if d.population is not None:
         pop = d.population
         fpc = "with" if pop.fpc else "without"
-        lines.append(f"population:  {pop.size} units, sampled without replacement ({fpc} finite population correction)")
+        count = f", {pop.events} with the event (a fixed count)" if pop.events is not None else ""
+        lines.append(f"population:  {pop.size} units{count}, sampled without replacement ({fpc} finite population correction)")
     what = {"mean": "mean", "proportion": "proportion", "mean-diff": "difference of means a - b",
-            "proportion-diff": "difference of proportions a - b"}[d.estimand]
+            "proportion-diff": "difference of proportions a - b", "total": "population total"}[d.estimand]
     # the result's true value: for a finite population it is the population's mean, not the model's
     true = rows[0].true_value if rows else d.true_value
     lines.append(f"true value:  {_g(float(true), 6)} ({what})")

@@ -25,7 +25,7 @@ def add_parser(subparsers) -> None:
     )
     p.add_argument("--estimand", choices=ESTIMANDS + ("total",), metavar="E",
                    help="what is estimated: mean, proportion, mean-diff or proportion-diff (difference a - b); "
-                        "total (N times the mean) with --stratum")
+                        "total (N times the mean; with --stratum, or with --population-size and --sd or --p)")
     p.add_argument("--margin", type=float, metavar="B",
                    help="target half-width of the interval, > 0, in the data's units (0.05 = 5 points for proportions); required")
     p.add_argument("--confidence", type=float, default=0.95, metavar="C",
@@ -52,6 +52,10 @@ def add_parser(subparsers) -> None:
     p.add_argument("--cluster-size-cv", dest="cluster_size_cv", type=float, metavar="V",
                    help="coefficient of variation of cluster sizes (SD with divisor k), >= 0: "
                         "design effect 1 + ((V^2 + 1) M - 1) ICC")
+    p.add_argument("--cluster-count", dest="cluster_count", type=float, metavar="M",
+                   help="clusters in the population, a whole number >= 2: clusters drawn without replacement, "
+                        "k = k0 / (1 + k0 / M) with k0 = n0 deff / m (needs --icc and --cluster-size; "
+                        "not with --population-size)")
     p.add_argument("--ratio", type=float, metavar="K",
                    help="allocation ratio for two-sample estimands: n_b = K * n_a, > 0 (default 1)")
     p.add_argument("--dropout", type=float, metavar="D",
@@ -141,7 +145,7 @@ def _strata(args: argparse.Namespace):
         values.append(nums[1])
         extras.append(nums[2] if len(nums) > 2 else None)
     for opt in ("sd", "sd_b", "p", "p_b", "population_size", "design_effect", "icc", "cluster_size", "ratio",
-                "dropout", "pilot_n"):
+                "dropout", "pilot_n", "cluster_count"):
         if getattr(args, opt) is not None:
             c.add("--" + opt.replace("_", "-"), "not used with --stratum (give each stratum its own value)")
     c.raise_if_any()
@@ -151,6 +155,21 @@ def _strata(args: argparse.Namespace):
         args.estimand, args.margin, names=names, sizes=sizes, sds=None if prop else values,
         ps=values if prop else None, rule=rule, costs=extras if rule == "optimum" else None, given=given,
         minimum=MINIMUM if args.minimum is None else args.minimum, confidence=args.confidence)
+
+
+def _total(args: argparse.Namespace):
+    """The total of a finite population from one stage: N times the mean (--sd) or the share of events (--p)."""
+    from simcheck.errors import Collector
+    from simcheck.formulas import total_sample_size
+
+    c = Collector()
+    for opt in ("sd_b", "p_b", "design_effect", "icc", "cluster_size", "cluster_size_cv", "ratio", "cluster_count"):
+        if getattr(args, opt) is not None:
+            c.add("--" + opt.replace("_", "-"), "not used with --estimand total without --stratum (a one-stage "
+                  "sample of a finite population: give --population-size and --sd or --p)")
+    c.raise_if_any()
+    return total_sample_size(args.margin, args.population_size, confidence=args.confidence, sd=args.sd, p=args.p,
+                             multiplier=args.multiplier)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -166,16 +185,23 @@ def run(args: argparse.Namespace) -> int:
             return 0
         sys.stdout.write(render(res) + "\n")
         return 0
-    if args.allocation is not None or args.minimum is not None or args.estimand == "total":
+    if args.allocation is not None or args.minimum is not None:
         from simcheck.errors import InputError
 
-        raise InputError("--stratum", "missing: --allocation, --minimum and estimand total describe a stratified sample; give its strata with --stratum")
+        raise InputError("--stratum", "missing: --allocation and --minimum describe a stratified sample; give its strata with --stratum")
     _plan_problems(args)
     if (args.limit is not None or args.relative_margin is not None) and (args.dropout is not None or args.pilot_n is not None):
         from simcheck.errors import InputError
 
         raise InputError("--dropout" if args.dropout is not None else "--pilot-n",
                          "not available with --limit or --relative-margin")
+    if args.estimand == "total":
+        res = _total(args)
+        if args.json:
+            emit_json(res.to_dict())
+            return 0
+        sys.stdout.write(render(res) + "\n")
+        return 0
     if args.limit is not None:
         plan = demonstration_plan(args.limit, args.events_allowed or 0, confidence=args.confidence, p=args.p)
         if args.json:
@@ -192,6 +218,7 @@ def run(args: argparse.Namespace) -> int:
         else:
             sys.stdout.write(render(res) + "\n")
         return 0
+    _clusters_and_population(args)
     res = sample_size(
         args.estimand,
         args.margin,
@@ -210,6 +237,10 @@ def run(args: argparse.Namespace) -> int:
         dropout=args.dropout,
         bound=args.bound,
     )
+    if args.cluster_count is not None:
+        from simcheck.formulas import finite_clusters
+
+        res = finite_clusters(res, args.cluster_count)
     browne = None if args.pilot_n is None else _browne(args, res)
     if args.json:
         d = res.to_dict()
@@ -260,6 +291,20 @@ def _browne_text(res, b: dict) -> str:
         "formula n at the true SD. `simcheck predictive` gives the "
         "unconditional answer by simulation.",
     ])
+
+
+def _clusters_and_population(args: argparse.Namespace) -> None:
+    """What the engine supports is what the formula takes: a finite population of units is not
+    sampled in clusters; clusters from a finite number of clusters are (--cluster-count)."""
+    from simcheck.errors import Collector
+
+    c = Collector()
+    if args.population_size is not None and (args.icc is not None or args.cluster_size is not None):
+        c.add("--population-size", "counts units and cannot be combined with clusters; for clusters drawn from a "
+              "finite number of clusters give --cluster-count M")
+    if args.cluster_count is not None and (args.icc is None or args.cluster_size is None):
+        c.add("--cluster-count", "needs --icc and --cluster-size (the clusters it counts)")
+    c.raise_if_any()
 
 
 def render(res) -> str:

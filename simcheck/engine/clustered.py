@@ -88,6 +88,7 @@ from simcheck.models.population import (
     FinitePopulation,
     block_columns,
     draw_population,
+    fixed_count_population,
     population_from_values,
     read_population,
     sample_indices,
@@ -132,6 +133,10 @@ def evaluate(design: Design, ns: Sequence[int], replicates: int, rng, path: str,
     ``curve`` is accepted for the design-kind interface; the nested path is
     chosen here whenever several n are evaluated.
     """
+    if design.estimand == "total" and design.strata is None:
+        inner = total_inner(design)
+        rows = evaluate(inner, ns, replicates, rng, path, progress, chunk_bytes, curve)
+        return [_total_row(r, design) for r in rows]
     method = get_method(design.estimand, design.method)
     validate_design(design, method, ns, path)
     root, seed = rngmod.root_sequence(rng)
@@ -154,10 +159,14 @@ def exact_available(design: Design) -> bool:
     Populations: proportion methods on a 0/1 population (model-drawn
     populations are 0/1 exactly when the model is).
     """
+    if design.estimand == "total":
+        return exact_available(total_inner(design))
     method = get_method(design.estimand, design.method)
     if design.two_sample or (design.clusters is not None and design.population is not None):
         return False
     if design.clusters is not None:
+        if design.clusters.count is not None:
+            return False  # a finite population of clusters is simulated
         try:
             cm, law = cluster_model_for(design)
         except InputError:
@@ -167,14 +176,19 @@ def exact_available(design: Design) -> bool:
         if method.kind != "count":
             return False
         pop = design.population
-        return pop.file is not None or pop.values is not None or bool(design.model.zero_one)
+        return (pop.file is not None or pop.values is not None or pop.events is not None
+                or bool(design.model.zero_one))
     return False
 
 
 def available_paths(design: Design) -> list[str]:
     """The paths valid for a clustered or finite-population design, cheapest first."""
+    if design.estimand == "total":
+        return available_paths(total_inner(design))
     method = get_method(design.estimand, design.method)
     out = ["exact"] if exact_available(design) else []
+    if design.clusters is not None and design.clusters.count is not None:
+        return ["nested", "full"]
     if design.clusters is not None:
         try:
             cm, _ = cluster_model_for(design)
@@ -192,7 +206,8 @@ def validate_design(design: Design, method: Method, ns, path: str) -> None:
     c = Collector()
     which = "clusters" if design.clusters is not None else "population"
     if design.clusters is not None and design.population is not None:
-        c.add("population", "cannot be combined with [clusters] (sampling clusters from a finite population is not supported)")
+        c.add("population", "cannot be combined with [clusters]; for clusters drawn from a finite number of "
+              "clusters give clusters.count (the number of clusters in the population)")
     if design.two_sample:
         c.add(which, f"only for the one-sample estimands mean and proportion, not {design.estimand!r}")
     c.raise_if_any()
@@ -205,6 +220,8 @@ def validate_design(design: Design, method: Method, ns, path: str) -> None:
         if method.kind not in ("cluster", "summary", "count"):
             c.add("method.interval", f"{design.method!r} is not available with [clusters]; use cluster-t, "
                   "or t / z / a proportion interval to see the effect of ignoring the clustering")
+        elif design.clusters.count is not None:
+            _validate_cluster_count(c, design, method, ns, path)
     else:
         pop = design.population
         if method.kind == "cluster":
@@ -218,6 +235,19 @@ def validate_design(design: Design, method: Method, ns, path: str) -> None:
         if path == "sufficient":
             c.add("simulation.path", "path 'sufficient' is not available with [population]; use auto, exact, nested or full")
     c.raise_if_any()
+
+
+def _validate_cluster_count(c: Collector, design: Design, method: Method, ns, path: str) -> None:
+    M = design.clusters.count
+    if method.kind != "cluster":
+        c.add("method.interval", f"with clusters.count only cluster-t is available (the first-stage correction "
+              f"sqrt(1 - n/M) applies to the cluster-level variance); got {design.method!r}")
+    for n in ns:
+        if n > M:
+            c.add("n", f"must be <= clusters.count ({M}) when clusters are drawn without replacement, got {n}")
+            break
+    if path in ("exact", "sufficient"):
+        c.add("simulation.path", f"path {path!r} is not available with clusters.count; use auto, nested or full")
 
 
 # --------------------------------------------------------------------------
@@ -260,6 +290,8 @@ def _observations(k: int, law: SizeLaw) -> int:
 
 def _clusters(design, method, ns, replicates, root, seed, path, curve, progress, chunk_bytes) -> list[CheckResult]:
     cm, law = cluster_model_for(design)
+    if design.clusters.count is not None:
+        return _finite_clusters(design, method, ns, replicates, root, seed, path, curve, progress, cm, law)
     powers = 3 if method.needs_m3 else 2
     notes = _cluster_notes(design, cm, law, method)
     exact_kind = _cluster_exact_kind(design, method, cm, law)
@@ -293,6 +325,70 @@ def _clusters(design, method, ns, replicates, root, seed, path, curve, progress,
         for j, k in enumerate(group):
             r = acc.row(j, design, k, replicates, seed, label)
             rows.append(replace(r, observations=_observations(k, law), notes=tuple(list(r.notes) + notes)))
+    return rows
+
+
+#: largest number of observations drawn to form a finite population of clusters
+#: when its cluster sums cannot be drawn from their exact law (8 bytes each)
+CLUSTER_DRAW_MAX = 50_000_000
+
+
+def cluster_population_for(design: Design, root: np.random.SeedSequence) -> tuple[np.ndarray, np.ndarray, float]:
+    """The M clusters of a finite cluster population: sizes, totals, and the population mean.
+
+    Drawn once from the clustered model on the stream ``STAGE_POPULATION``
+    below the root's entropy (spawn key dropped, as for unit populations), so
+    every n, search stage and sweep cell with one seed samples the same clusters.
+    The mean is the ratio of all totals to all sizes (the mean over the
+    population's observations).
+    """
+    cm, law = cluster_model_for(design)
+    M = int(design.clusters.count)
+    fast = cm.fast_ok(2)
+    if not fast and M * law.mean > CLUSTER_DRAW_MAX:
+        raise InputError("clusters.count", f"{M} clusters of mean size {law.mean:g} exceed {CLUSTER_DRAW_MAX} "
+                         "observations to draw for this model; use fewer clusters")
+    base = np.random.SeedSequence(entropy=root.entropy, pool_size=root.pool_size)
+    g = rngmod.generator(base, rngmod.STAGE_POPULATION)
+    m = law.draw(g, (1, M))
+    s1, _, _ = cm.cluster_sums(g, m, centre=0.0, powers=2, fast=fast)
+    sizes, totals = m.ravel().astype(np.float64), s1.ravel()
+    return sizes, totals, float(totals.sum() / sizes.sum())
+
+
+def _finite_clusters(design, method, ns, replicates, root, seed, path, curve, progress, cm, law) -> list[CheckResult]:
+    """cluster-t on n of M clusters drawn without replacement, first-stage FPC sqrt(1 - n/M)."""
+    M = int(design.clusters.count)
+    sizes, totals, truth = cluster_population_for(design, root)
+    notes = _cluster_notes(design, cm, law, method)
+    notes.append(f"n clusters drawn without replacement from a population of {M} clusters (drawn once from the model)")
+    notes.append(f"true value: the population's mean over its {M} clusters ({truth:.6g}), not the data model's")
+    notes.append("first-stage finite population correction: half-width x sqrt(1 - n/M)")
+    plain = get_method("mean", "cluster-t")  # unclipped: corrected first, then clipped once for proportions
+    nested = path == "nested" or (path == "auto" and curve)
+    groups = [ns] if nested else [[n] for n in ns]
+    rows: list[CheckResult] = []
+    for group in groups:
+        K = max(group)
+        f = np.sqrt(fpc_variance_factor(np.asarray(group, dtype=np.float64), M, "S2"))
+        acc = msr.Accumulator(len(group), replicates, design.margin)
+        for bi, g, ps, pe, last in _pieces(root, replicates, block_columns(M, K)):
+            idx = sample_indices(g, M, (pe - ps, K), ordered=nested)
+            lo, hi = _cluster_intervals(design, plain, sizes[idx], totals[idx], None, None, group, law.fixed)
+            centre = (lo + hi) / 2.0
+            lo, hi = centre - (centre - lo) * f, centre + (hi - centre) * f
+            # a census (n = M) estimates the population mean itself: exact, zero width
+            lo, hi = np.where(f == 0, truth, lo), np.where(f == 0, truth, hi)
+            if design.estimand == "proportion":
+                lo, hi = np.clip(lo, 0.0, 1.0), np.clip(hi, 0.0, 1.0)
+            acc.add(lo, hi, truth)
+            if progress and last:
+                progress(pe, replicates)
+        acc.finish()
+        for j, k in enumerate(group):
+            r = acc.row(j, design, k, replicates, seed, "nested" if nested else "simulation")
+            rows.append(replace(r, true_value=truth, observations=_observations(k, law),
+                                notes=tuple(list(r.notes) + notes)))
     return rows
 
 
@@ -401,6 +497,38 @@ def _pooled_count_pmf(cm: ClusteredModel, m: int, k: int) -> np.ndarray:
 
 
 # --------------------------------------------------------------------------
+# totals of a finite population (one stage)
+# --------------------------------------------------------------------------
+def total_inner(design: Design) -> Design:
+    """The mean (or proportion) design whose interval, times N, is the total's.
+
+    The target margin is divided by N: ``N hw <= B`` exactly when ``hw <= B / N``.
+    """
+    N = design.population.size
+    margin = None if design.margin is None else design.margin / N
+    return replace(design, estimand=design.base_estimand, margin=margin)
+
+
+def _total_row(r: CheckResult, design: Design) -> CheckResult:
+    """A mean's (proportion's) row as the total's: true value, limits and half-widths times N."""
+    N = float(design.population.size)
+
+    def times(v):
+        return None if v is None else v * N
+
+    note = (f"total = N x mean with N = {design.population.size}: its interval is N times the "
+            f"{design.base_estimand}'s, so coverage is the same and half-widths are N times as large")
+    return replace(
+        r, estimand="total", true_value=r.true_value * N, target_margin=design.margin,
+        margin_mean=r.margin_mean * N, margin_median=r.margin_median * N, margin_p90=r.margin_p90 * N,
+        margin_mean_mcse=times(r.margin_mean_mcse), margin_median_mcse=times(r.margin_median_mcse),
+        margin_p90_mcse=times(r.margin_p90_mcse),
+        margin_values=None if r.margin_values is None else r.margin_values * N,
+        notes=tuple(list(r.notes) + [note]),
+    )
+
+
+# --------------------------------------------------------------------------
 # finite populations
 # --------------------------------------------------------------------------
 def population_for(design: Design, root: np.random.SeedSequence) -> FinitePopulation:
@@ -412,6 +540,8 @@ def population_for(design: Design, root: np.random.SeedSequence) -> FinitePopula
         if pop.column is None:
             raise InputError("population.column", "missing (required with population.file)")
         return read_population(pop.file, pop.column, pop.size)
+    if pop.events is not None:
+        return fixed_count_population(pop.size, pop.events)
     # The population belongs to the seed, not to one evaluation: its stream
     # drops the spawn key, so the search's stages (and sweep cells with the
     # same root seed) all sample the same population.
@@ -419,16 +549,24 @@ def population_for(design: Design, root: np.random.SeedSequence) -> FinitePopula
     return draw_population(design.model, pop.size, rngmod.generator(base, rngmod.STAGE_POPULATION))
 
 
-def _population_notes(design: Design, fp: FinitePopulation, method: Method) -> list[str]:
+def _population_notes(design: Design, fp: FinitePopulation | None, method: Method) -> list[str]:
     notes = list(msr.design_notes(design))
-    notes.append(f"finite population of {fp.size} units, {fp.source}; samples drawn without replacement")
+    pop = design.population
+    if fp is None:  # a fixed count, evaluated without forming the population
+        size, source, mean = pop.size, f"{pop.events} with the event (a fixed count)", pop.events / pop.size
+    else:
+        size, source, mean = fp.size, fp.source, fp.mean
+    notes.append(f"finite population of {size} units, {source}; samples drawn without replacement")
     what = "share of events K/N" if design.estimand == "proportion" else "mean"
-    notes.append(f"true value: the population {what} ({fp.mean:.6g}), not the data model's")
-    if design.population.fpc and method.kind in ("summary", "count"):
+    given = "as given" if pop.events is not None or pop.file is not None else "not the data model's"
+    notes.append(f"true value: the population {what} ({mean:.6g}), {given}")
+    if method.needs_population_size:
+        notes.append(f"the {design.method} interval is exact for the finite population: no finite population correction applied")
+    elif design.population.fpc and method.kind in ("summary", "count"):
         notes.append("finite population correction: half-width x sqrt(1 - n/N)")
     elif not design.population.fpc:
         notes.append("no finite population correction (population.fpc = false)")
-    if design.method == "z":
+    if design.method == "z" and fp is not None:
         notes.append(f"z uses the population SD S = {fp.S:.6g} (divisor N - 1)")
     return notes
 
@@ -438,7 +576,25 @@ def _shrink(centre, lo, hi, f):
     return centre - (centre - lo) * f, centre + (hi - centre) * f
 
 
+def _population_exact(design, method, ns, N: int, K: int, seed, notes) -> list[CheckResult]:
+    """Exact rows by hypergeometric enumeration (a 0/1 population of N units with K events)."""
+    fpc = bool(design.population.fpc)
+    rows = []
+    for n in ns:
+        meas = exactmod.hypergeometric_measures(method, n, N, K, design.confidence, design.margin, fpc=fpc)
+        r = msr.row_from_measures(design, n, meas, seed, "exact-hypergeometric")
+        rows.append(replace(r, true_value=K / N, notes=tuple(list(r.notes) + notes)))
+    return rows
+
+
 def _population(design, method, ns, replicates, root, seed, path, curve, progress, chunk_bytes) -> list[CheckResult]:
+    pop = design.population
+    if pop.events is not None and method.kind == "count" and path in ("auto", "exact"):
+        # a fixed count is exact without forming its N values (N may be large)
+        for n in ns:
+            if n > pop.size:
+                raise InputError("n", f"must be <= population.size ({pop.size}) when sampling without replacement, got {n}")
+        return _population_exact(design, method, ns, pop.size, pop.events, seed, _population_notes(design, None, method))
     fp = population_for(design, root)
     N = fp.size
     for n in ns:
@@ -453,13 +609,7 @@ def _population(design, method, ns, replicates, root, seed, path, curve, progres
     if path == "exact" and not exact_ok:
         raise InputError("simulation.path", "path 'exact' is only for proportion intervals on a 0/1 population; available: auto, nested, full")
     if exact_ok and path in ("auto", "exact"):
-        K = fp.events
-        rows = []
-        for n in ns:
-            meas = exactmod.hypergeometric_measures(method, n, N, K, design.confidence, design.margin, fpc=fpc)
-            r = msr.row_from_measures(design, n, meas, seed, "exact-hypergeometric")
-            rows.append(replace(r, true_value=K / N, notes=tuple(list(r.notes) + notes)))
-        return rows
+        return _population_exact(design, method, ns, N, fp.events, seed, notes)
 
     nested = kind != "sample" and (path == "nested" or (path == "auto" and curve))
     groups = [ns] if nested else [[n] for n in ns]
@@ -511,6 +661,9 @@ def _population_intervals(design, method, x, group, nested, n_eval, f, fpc, fp, 
         return lo, hi, None
     if kind == "count":
         cnt = eng.prefix_counts(x, group, nested)
+        if method.needs_population_size:
+            # exact for the finite population: given N, never corrected
+            return (*method.func(cnt, n_eval, conf, population_size=fp.size), None)
         func = exactmod.with_fpc(method, fp.size) if fpc else method.func
         return (*func(cnt, n_eval, conf), None)
     if kind == "log":

@@ -46,6 +46,7 @@ Medicine* 17, 873-890 (exact evaluation over the two binomials).
 
 from __future__ import annotations
 
+import functools
 from numbers import Integral, Real
 from typing import Callable, Iterable
 
@@ -584,6 +585,8 @@ def hypergeometric_measures(
     -------
     dict
         ``n``, ``population_size``, ``fpc`` and the keys of :func:`binomial_measures`.
+        A method with ``needs_population_size`` (the hypergeometric interval)
+        is given N and never corrected (``fpc`` is then reported false).
 
     References
     ----------
@@ -605,7 +608,12 @@ def hypergeometric_measures(
         c.add("K", f"must be <= the population size {N}, got {K}")
     c.raise_if_any()
     margin = None if margin is None else float(margin)
-    func = with_fpc(method_func, N) if fpc else plain
+    if isinstance(method_func, Method) and method_func.needs_population_size:
+        # exact for the finite population already: N is passed, no correction applied
+        func = functools.partial(plain, population_size=N)
+        fpc = False
+    else:
+        func = with_fpc(method_func, N) if fpc else plain
     x = np.arange(max(0, n - (N - K)), min(n, K) + 1)
     w = stats.hypergeom.pmf(x, N, K, n)
     lo, hi = func(x, np.full(x.shape, n), confidence)

@@ -8,5 +8,7 @@ from simcheck.intervals import proportion as _proportion  # noqa: F401
 from simcheck.intervals import bootstrap as _bootstrap  # noqa: F401
 from simcheck.intervals import cluster as _cluster  # noqa: F401
 from simcheck.intervals import upper as _upper  # noqa: F401
+from simcheck.intervals import hypergeometric as _hypergeometric  # noqa: F401
+from simcheck.intervals import total as _total  # noqa: F401  (after the mean and proportion methods)
 
 __all__ = ["ESTIMANDS", "REGISTRY", "Method", "Summary", "get_method", "methods_for", "register"]

@@ -77,6 +77,10 @@ class Method:
     needs_m3: bool = False
     #: needs the model's true SD (z)
     needs_true_sd: bool = False
+    #: the interval needs the population size N (keyword ``population_size``):
+    #: only with a finite population, whose evaluator passes N and never
+    #: applies the finite population correction to it (it is exact already)
+    needs_population_size: bool = False
     summary: str = ""
     references: tuple[str, ...] = ()
     #: optional ``(s, confidence) -> (centre, half)`` for symmetric intervals;

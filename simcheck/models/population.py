@@ -33,8 +33,8 @@ DRAW_MAX = 50_000_000
 #: rejection sampling when n * REJECT_RATIO <= N (collisions rare; faster there, measured)
 REJECT_RATIO = 8
 
-__all__ = ["FinitePopulation", "draw_population", "read_population", "population_from_values", "value_array",
-           "sample_indices", "fpc_factor", "block_columns", "DRAW_MAX"]
+__all__ = ["FinitePopulation", "draw_population", "fixed_count_population", "read_population", "population_from_values",
+           "value_array", "sample_indices", "fpc_factor", "block_columns", "DRAW_MAX"]
 
 
 @dataclass(frozen=True)
@@ -95,6 +95,28 @@ def draw_population(model: Model, size: int, rng: np.random.Generator) -> Finite
     c.raise_if_any()
     x = model.draw(rng, (1, int(size))).ravel()
     return _frozen(x, f"drawn once from {model.describe()}")
+
+
+def fixed_count_population(size: int, events: int) -> FinitePopulation:
+    """A 0/1 population of ``size`` units with exactly ``events`` of value 1.
+
+    The order of the units does not matter (samples are uniformly random
+    subsets), so the events come first. Only the simulated paths form the
+    values; the exact path uses N and K alone.
+
+    Raises
+    ------
+    InputError
+        ``population.size`` not in [2, DRAW_MAX] or ``population.events`` not
+        a whole number in [0, size].
+    """
+    c = Collector()
+    c.number("population.size", size, low=2, high=DRAW_MAX, integer=True)
+    c.number("population.events", events, low=0, high=size, integer=True)
+    c.raise_if_any()
+    v = np.zeros(int(size), dtype=np.float64)
+    v[: int(events)] = 1.0
+    return _frozen(v, f"{int(events)} with the event (a fixed count)")
 
 
 def read_population(file: str, column: str, size: int | None = None) -> FinitePopulation:

@@ -105,6 +105,7 @@ METHOD_STYLES: dict[str, dict[str, Any]] = {
     "agresti-coull": _style(_G, "^", "-."),
     "clopper-pearson": _style(_P, "D", ":"),
     "jeffreys": _style(_O, "v", (0, (5, 1, 1, 1, 1, 1))),
+    "hypergeometric": _style(_S, "*", (0, (3, 1))),
     "newcombe": _style(_B, "o", "-"),
     "agresti-caffo": _style(_G, "^", "-."),
 }

@@ -348,9 +348,14 @@ def _design_sentences(s: StudyResults) -> list[str]:
         size = cl.get("size", cl.get("size_mean"))
         parts.append(f"Observations came in clusters of {fmt_g(size)} with intracluster correlation {fmt_g(cl.get('icc'))}; "
                      f"n counts clusters.")
+        if cl.get("count") is not None:
+            parts.append(f"Clusters were drawn without replacement from {fmt_g(cl['count'])} clusters, with the "
+                         f"first-stage finite population correction on the cluster-t interval.")
     if "population" in s.data:
         parts.append(f"Samples were drawn without replacement from a finite population of "
                      f"{fmt_g(s.data['population'].get('size'))} units.")
+        if s.data["population"].get("events") is not None:
+            parts.append(f"The population held exactly {fmt_g(s.data['population']['events'])} units with the event.")
     return parts
 
 
@@ -573,6 +578,8 @@ KEY_LABELS = {
     "clusters.size_mean": "Mean cluster size",
     "clusters.size_cv": "CV of the cluster sizes",
     "population.size": "Population size",
+    "population.events": "Events in the population",
+    "clusters.count": "Clusters in the population",
     "simulation.ratio": "Allocation ratio n_b / n_a",
     "simulation.replicates": "Replicates",
     "n": "Sample size n",
