@@ -11,13 +11,13 @@ a non-bernoulli model) and :class:`ScipyModel` (Python API,
 from __future__ import annotations
 
 import math
-import os
 from typing import Any
 
 import numpy as np
 from scipy import stats
 
 from simcheck.errors import Collector, InputError
+from simcheck.files import read_csv_column, regular_file, resolve_data_path
 from simcheck.models.base import Model, StoredMoments, ZeroOneMoments, register
 from simcheck.models.continuous import ParamTable, event_args, suggest
 from simcheck.models.discrete import SUM_TOL
@@ -25,11 +25,11 @@ from simcheck.models.discrete import SUM_TOL
 __all__ = ["ZeroInflated", "Mixture", "Empirical", "EventModel", "ScipyModel"]
 
 
-def _build(spec: Any, base_dir: str | None) -> Model:
+def _build(spec: Any, base_dir: str | None, allow_outside_files: bool = False) -> Model:
     # Imported here: simcheck.models imports this module while it initialises.
     from simcheck.models import make_model
 
-    return make_model(spec, base_dir=base_dir)
+    return make_model(spec, base_dir=base_dir, allow_outside_files=allow_outside_files)
 
 
 def _raw_moments(m: Model) -> tuple[float, float, float | None]:
@@ -67,7 +67,8 @@ class ZeroInflated(StoredMoments):
     name = "zero-inflated"
     wants_base_dir = True
 
-    def __init__(self, params: dict[str, Any], *, base_dir: str | None = None) -> None:
+    def __init__(self, params: dict[str, Any], *, base_dir: str | None = None,
+                 allow_outside_files: bool = False) -> None:
         t = ParamTable(self.name, params, ["zero_prob", "inner"])
         pi = t.number("zero_prob", low=0, high=1, low_open=True, high_open=True)
         inner = None
@@ -75,7 +76,7 @@ class ZeroInflated(StoredMoments):
             t.c.add("inner", 'missing; give the non-zero part as a table, e.g. inner = {model = "lognormal", mean = 50, cv = 1}')
         else:
             try:
-                inner = _build(t.p["inner"], base_dir)
+                inner = _build(t.p["inner"], base_dir, allow_outside_files)
             except InputError as e:
                 t.c.extend(e.prefixed("inner"))
         t.done()
@@ -127,7 +128,8 @@ class Mixture(StoredMoments):
     name = "mixture"
     wants_base_dir = True
 
-    def __init__(self, params: dict[str, Any], *, base_dir: str | None = None) -> None:
+    def __init__(self, params: dict[str, Any], *, base_dir: str | None = None,
+                 allow_outside_files: bool = False) -> None:
         t = ParamTable(self.name, params, ["weights", "components"])
         w = t.numbers("weights", low=0, high=1, low_open=True)
         comps: list[Model] | None = None
@@ -139,7 +141,7 @@ class Mixture(StoredMoments):
             comps, ok = [], True
             for i, spec in enumerate(t.p["components"]):
                 try:
-                    comps.append(_build(spec, base_dir))
+                    comps.append(_build(spec, base_dir, allow_outside_files))
                 except InputError as e:
                     t.c.extend(e.prefixed(f"components[{i}]"))
                     ok = False
@@ -216,30 +218,23 @@ class Empirical(StoredMoments):
     name = "empirical"
     wants_base_dir = True
 
-    def __init__(self, params: dict[str, Any], *, base_dir: str | None = None) -> None:
-        import pandas as pd
-
+    def __init__(self, params: dict[str, Any], *, base_dir: str | None = None,
+                 allow_outside_files: bool = False) -> None:
         t = ParamTable(self.name, params, ["file", "column"])
         file = t.text("file")
         column = t.text("column")
-        values = None
+        values = path = None
         self.notes: tuple[str, ...] = ()
         if file is not None:
-            path = file if os.path.isabs(file) or base_dir is None else os.path.join(base_dir, file)
-            if not os.path.isfile(path):
-                t.c.add("file", f"no such file: {path}")
-            elif column is not None:
-                try:
-                    frame = pd.read_csv(path)
-                except Exception as e:  # pandas raises many kinds for unreadable files
-                    frame = None
-                    t.c.add("file", f"cannot read {path} as CSV: {str(e).splitlines()[0] if str(e) else type(e).__name__}")
-                if frame is not None:
-                    cols = [str(c) for c in frame.columns]
-                    if column not in cols:
-                        t.c.add("column", f"no column {column!r} in {file}; {suggest(column, cols)}")
-                    else:
-                        values = self._numeric(t.c, frame[frame.columns[cols.index(column)]], column, file)
+            try:
+                path = str(resolve_data_path(file, base_dir, field="file", allow_outside=allow_outside_files))
+                if column is not None:
+                    values = self._read(t.c, path, column, file)
+                else:
+                    regular_file(path, field="file", what="data file")
+            except InputError as e:
+                for p in e.problems:
+                    t.c.add(p.field, p.message if file in p.message else f"{file}: {p.message}")
         t.done()
         self._given = t.given()
         self.file, self.column, self.path = file, column, path
@@ -255,27 +250,16 @@ class Empirical(StoredMoments):
             note += "; " + "; ".join(self.notes)
         self.true_value_note = note
 
-    def _numeric(self, c: Collector, col, column: str, file: str) -> np.ndarray | None:
-        import pandas as pd
-
-        empty = col.isna()
-        num = pd.to_numeric(col, errors="coerce")
-        bad = num.isna() & ~empty
-        if bad.any():
-            i = int(np.flatnonzero(bad.to_numpy())[0])
-            c.add("column", f"column {column!r} of {file} holds non-numeric values, e.g. {col.iloc[i]!r} in data row {i + 1}")
-            return None
-        v = num[~empty].to_numpy(dtype=np.float64)
-        if not np.all(np.isfinite(v)):
-            c.add("column", f"column {column!r} of {file} holds infinite values")
-            return None
+    def _read(self, c: Collector, path: str, column: str, file: str) -> np.ndarray | None:
+        # Errors name the line and column, never a cell's text (see simcheck.files).
+        v, k = read_csv_column(path, column, file_field="file", column_field="column",
+                               value_field="column", name=file)
         if v.size < 2:
             c.add("column", f"column {column!r} of {file} has {v.size} value{'s' if v.size != 1 else ''}; at least 2 are needed to resample")
             return None
         if float(v.std()) == 0.0:
-            c.add("column", f"column {column!r} of {file} has one value only ({v[0]:g}); the data would not vary")
+            c.add("column", f"column {column!r} of {file} has one value only (all values are equal); the data would not vary")
             return None
-        k = int(empty.sum())
         if k:
             self.notes = (f"{k} empty value{'s' if k != 1 else ''} dropped from column {column!r}",)
         return v
