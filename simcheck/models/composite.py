@@ -19,7 +19,7 @@ from scipy import stats
 from simcheck.errors import Collector, InputError
 from simcheck.files import read_csv_column, regular_file, resolve_data_path
 from simcheck.models.base import Model, StoredMoments, ZeroOneMoments, register
-from simcheck.models.continuous import ParamTable, event_args, suggest
+from simcheck.models.continuous import ParamTable, event_args, moments_ok, prob_ok, suggest
 from simcheck.models.discrete import SUM_TOL
 
 __all__ = ["ZeroInflated", "Mixture", "Empirical", "EventModel", "ScipyModel"]
@@ -71,6 +71,7 @@ class ZeroInflated(StoredMoments):
                  allow_outside_files: bool = False) -> None:
         t = ParamTable(self.name, params, ["zero_prob", "inner"])
         pi = t.number("zero_prob", low=0, high=1, low_open=True, high_open=True)
+        prob_ok(t.c, "zero_prob", pi, upper=True)
         inner = None
         if not t.has("inner"):
             t.c.add("inner", 'missing; give the non-zero part as a table, e.g. inner = {model = "lognormal", mean = 50, cv = 1}')
@@ -132,6 +133,8 @@ class Mixture(StoredMoments):
                  allow_outside_files: bool = False) -> None:
         t = ParamTable(self.name, params, ["weights", "components"])
         w = t.numbers("weights", low=0, high=1, low_open=True)
+        for i, wi in enumerate(w or []):
+            prob_ok(t.c, f"weights[{i}]", wi)
         comps: list[Model] | None = None
         if not t.has("components"):
             t.c.add("components", 'missing; give a list of model tables, e.g. components = [{model = "normal", mean = 10, sd = 2}, ...]')
@@ -318,6 +321,10 @@ class EventModel(ZeroOneMoments):
             raise InputError(field, f"the event never happens (P = 0): {what}")
         if p >= 1.0:
             raise InputError(field, f"the event always happens (P = 1): {what}")
+        c = Collector()
+        if not prob_ok(c, field, p, upper=True):
+            raise InputError(field, f"the event's probability {p:.3g} is too close to {'1' if p > 0.5 else '0'} "
+                                    f"for simulated draws to follow it (the generator's resolution is 2^-53): {what}")
         self.inner, self.values, self.above, self.p = inner, vals, a, p
         self.iid = inner.iid
         self.true_value_note = inner.true_value_note
