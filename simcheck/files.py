@@ -171,7 +171,7 @@ def read_toml(path: str | Path, *, label: str | None = None, field: str = "",
 
 
 def resolve_data_path(file: str, base_dir: str | Path | None, *, field: str,
-                      allow_outside: bool = False) -> Path:
+                      allow_outside: bool = False, folder: str = "the scenario's folder") -> Path:
     """The path of a data file named in a scenario, resolved against its folder.
 
     ``base_dir`` is the scenario's folder (the current folder when None). The
@@ -193,15 +193,15 @@ def resolve_data_path(file: str, base_dir: str | Path | None, *, field: str,
     if allow_outside:
         return full
     how = (f"pass {OUTSIDE_OPTION} (Python: allow_outside_files=True) to read it anyway, "
-           "or copy the file next to the scenario")
+           f"or copy the file into {folder}")
     if p.is_absolute():
-        raise InputError(field, f"an absolute path is refused: data files are read from the scenario's folder or below it; {how}")
+        raise InputError(field, f"an absolute path is refused: files are read from {folder} or below it; {how}")
     try:
         inside = full.resolve().is_relative_to(base.resolve())
     except (OSError, RuntimeError):  # a symbolic-link loop
         inside = False
     if not inside:
-        raise InputError(field, f"{_plain_name(file)} leaves the scenario's folder (through '..' or a symbolic link); {how}")
+        raise InputError(field, f"{_plain_name(file)} leaves {folder} (through '..' or a symbolic link); {how}")
     return full
 
 

@@ -8,6 +8,7 @@ from pathlib import Path
 
 from simcheck import CAUTION
 from simcheck.cli.common import add_json, add_sim_overrides, emit_json, note
+from simcheck.cli.options import add_allow_outside
 
 
 def add_parser(subparsers) -> None:
@@ -26,6 +27,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("--out", required=True, metavar="DIR", help="output folder (created when missing)")
     add_sim_overrides(p)
     add_json(p)
+    add_allow_outside(p)
     p.set_defaults(run=run)
 
 
@@ -50,7 +52,7 @@ def run(args: argparse.Namespace) -> int:
     rep.check_out_dir_usable(args.out)
     if rep.is_store(src) and overrides(args):
         raise InputError("--replicates/--seed", "apply to a scenario file, not to a sweep store")
-    files, results = rep.report(src, args.out, overrides=overrides(args), progress=lambda m: note(f"simcheck: {m}"))
+    files, results = rep.report(src, args.out, overrides=overrides(args), allow_outside_files=args.allow_outside_files, progress=lambda m: note(f"simcheck: {m}"))
     if args.json:
         emit_json({"report": files.to_dict(), "summary": results.to_dict()})
         return 0

@@ -8,6 +8,7 @@ from typing import Any
 
 from simcheck import CAUTION
 from simcheck.cli.common import add_json, add_sim_overrides, emit_json, table
+from simcheck.cli.options import add_allow_outside
 from simcheck.cli.check import CLI_FIELDS, Progress, add_method_option, run_seed
 from simcheck.errors import Collector
 
@@ -38,6 +39,7 @@ def add_parser(subparsers) -> None:
     add_method_option(p)
     add_sim_overrides(p)
     add_json(p)
+    add_allow_outside(p)
     p.set_defaults(run=run)
 
 
@@ -52,7 +54,7 @@ def run(args: argparse.Namespace) -> int:
         if b is not None:
             overrides["simulation.budget"] = int(b)
     c.raise_if_any()
-    scenario = load_scenario(args.scenario, overrides or None)
+    scenario = load_scenario(args.scenario, overrides or None, allow_outside_files=args.allow_outside_files)
     seed = run_seed(scenario, args.seed)
     with Progress() as prog:
         res = run_task(scenario, "search", n_min=args.n_min, n_max=args.n_max, method=args.method,
