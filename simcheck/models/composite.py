@@ -19,7 +19,7 @@ from scipy import stats
 from simcheck.errors import Collector, InputError
 from simcheck.files import read_csv_column, regular_file, resolve_data_path
 from simcheck.models.base import Model, StoredMoments, ZeroOneMoments, register
-from simcheck.models.continuous import ParamTable, event_args, moments_ok, prob_ok, suggest
+from simcheck.models.continuous import ParamTable, event_args, prob_ok
 from simcheck.models.discrete import SUM_TOL
 
 __all__ = ["ZeroInflated", "Mixture", "Empirical", "EventModel", "ScipyModel"]
