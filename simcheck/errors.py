@@ -61,7 +61,11 @@ class InputError(ValueError):
         text = "; ".join(str(p) for p in self.problems)
         if self.source:
             text = f"{self.source}: {text}"
-        return text.replace("\n", " ")
+        # keys and values may hold any character: the line must stay one line
+        text = text.replace("\n", " ")
+        if not text.isprintable():
+            text = "".join(ch if ch.isprintable() else repr(ch)[1:-1] for ch in text)
+        return text
 
     def with_source(self, source: str) -> "InputError":
         return InputError(self.problems, source=source)
