@@ -116,7 +116,7 @@ KNOWN_KEYS: dict[str, str] = {
     "clusters.effect": "distribution of the cluster effect: normal | gamma; default normal",
     "population.size": f"finite population size, whole number in [2, {POPULATION_MAX}] (default: the rows of file)",
     "population.fpc": "apply the finite population correction: true | false; default true",
-    "population.file": "CSV file of the population's values (relative to the scenario file)",
+    "population.file": "CSV file of the population's values, relative to the scenario file's folder and inside it (unless --allow-outside-files)",
     "population.column": "column of population.file holding the values",
 }
 
