@@ -200,6 +200,12 @@ def test_dev_zero_and_a_fifo_do_not_hang(tmp_path):
                            env={**os.environ, "PYTHONPATH": str(ROOT)})
         assert p.returncode == 2 and p.stderr.count("\n") == 1, p.stderr
         assert "not a regular file" in p.stderr
+    # report sniffs for a store by reading the first bytes: refused before that (in process)
+    err = one_line_exit_2(*run_cli(["report", fifo, "--out", tmp_path / "r"]))
+    assert "not a regular file" in err
+    # a data file that is a FIFO
+    s = write_toml(tmp_path / "s.toml", small(data={"model": "empirical", "file": "fifo.toml", "column": "x"}))
+    assert "not a regular file" in check_file(s)
 
 
 def test_scenario_larger_than_the_cap(tmp_path):

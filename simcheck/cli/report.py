@@ -43,12 +43,11 @@ def overrides(args: argparse.Namespace) -> dict[str, object]:
 def run(args: argparse.Namespace) -> int:
     from simcheck import report as rep
     from simcheck.errors import InputError
+    from simcheck.files import regular_file
 
     src = Path(args.source)
-    if not src.exists():
-        raise InputError("SCENARIO|STORE", f"file not found: {src}")
-    if src.is_dir():
-        raise InputError("SCENARIO|STORE", f"{src} is a folder, not a scenario file or sweep store")
+    # a regular file only: a FIFO or device would hang the store sniffing below
+    regular_file(src, label=str(src), what="scenario file or sweep store")
     rep.check_out_dir_usable(args.out)
     if rep.is_store(src) and overrides(args):
         raise InputError("--replicates/--seed", "apply to a scenario file, not to a sweep store")
