@@ -14,8 +14,10 @@ from typing import Any
 from simcheck.errors import Collector
 from simcheck.models.base import Model
 
-ESTIMANDS = ("mean", "proportion", "mean-diff", "proportion-diff")
+ESTIMANDS = ("mean", "proportion", "mean-diff", "proportion-diff", "total")
 TWO_SAMPLE = ("mean-diff", "proportion-diff")
+#: interval methods of stratified designs (computed by the stratified evaluator)
+STRATIFIED_METHODS = {"mean": ("t", "z"), "total": ("t", "z"), "proportion": ("t", "wald")}
 
 
 @dataclass(frozen=True)
@@ -51,6 +53,45 @@ class PopulationSpec:
 
 
 @dataclass(frozen=True)
+class StrataSpec:
+    """A stratified design: H strata of known sizes, each with its own data model.
+
+    ``n`` then counts the whole sample, shared among the strata by ``rule``
+    (see :mod:`simcheck.strata`); each stratum is sampled without replacement.
+    """
+
+    names: tuple[str, ...]
+    sizes: tuple[int, ...]
+    models: tuple[Model, ...]
+    rule: str = "proportional"
+    costs: tuple[float, ...] | None = None
+    given: tuple[int, ...] | None = None
+    minimum: int = 2
+    #: apply the finite population correction in each stratum
+    fpc: bool = True
+
+    @property
+    def population_size(self) -> int:
+        return int(sum(self.sizes))
+
+    @property
+    def weights(self) -> tuple[float, ...]:
+        N = self.population_size
+        return tuple(s / N for s in self.sizes)
+
+    def to_dict(self) -> dict[str, Any]:
+        out = []
+        for i, (name, size, m) in enumerate(zip(self.names, self.sizes, self.models)):
+            d: dict[str, Any] = {"name": name, "size": size, "data": m.to_dict()}
+            if self.costs is not None:
+                d["cost"] = self.costs[i]
+            if self.given is not None:
+                d["n"] = self.given[i]
+            out.append(d)
+        return {"strata": out, "allocation": {"rule": self.rule, "minimum": self.minimum}, "fpc": self.fpc}
+
+
+@dataclass(frozen=True)
 class Design:
     """Data model, estimand, interval method, confidence and target margin.
 
@@ -74,6 +115,9 @@ class Design:
         Bootstrap resamples.
     clusters, population : optional
         Clustered sampling or a finite population.
+    strata : StrataSpec, optional
+        A stratified design; ``model`` is then the mixture of the strata
+        models weighted by stratum size (the population as a whole).
     """
 
     model: Model
@@ -86,6 +130,7 @@ class Design:
     resamples: int = 1999
     clusters: ClusterSpec | None = None
     population: PopulationSpec | None = None
+    strata: StrataSpec | None = None
     extra: dict[str, Any] = field(default_factory=dict, compare=False)
 
     def __post_init__(self) -> None:
@@ -107,12 +152,39 @@ class Design:
             for label, m in (("data", self.model), ("data.b", self.model_b)):
                 if isinstance(m, Model) and not m.zero_one:
                     c.add(label, "a proportion estimand needs 0/1 data: model 'bernoulli', or event_values / event_above in [target]")
-        if self.estimand in ESTIMANDS:
+        if self.strata is not None:
+            self._check_strata(c)
+        elif self.estimand == "total":
+            c.add("target.estimand", "'total' needs a stratified design ([[strata]] tables with their sizes)")
+        elif self.estimand in ESTIMANDS:
             from simcheck.intervals import REGISTRY, methods_for
 
             if (self.estimand, self.method) not in REGISTRY:
                 c.add("method.interval", f"unknown interval {self.method!r} for estimand {self.estimand!r}; choose one of {', '.join(methods_for(self.estimand))}")
         c.raise_if_any()
+
+    def _check_strata(self, c: Collector) -> None:
+        st = self.strata
+        allowed = STRATIFIED_METHODS.get(self.estimand)
+        if allowed is None:
+            c.add("target.estimand", f"stratified designs estimate a mean, a proportion or a total, not {self.estimand!r}")
+        elif self.method not in allowed:
+            c.add("method.interval", f"stratified {self.estimand} intervals: {', '.join(allowed)}; got {self.method!r}")
+        if self.clusters is not None or self.population is not None:
+            c.add("strata", "cannot be combined with [clusters] or [population] (each stratum is its own finite population)")
+        if len(st.sizes) < 2:
+            c.add("strata", f"needs at least two strata, got {len(st.sizes)}")
+        if not (len(st.names) == len(st.sizes) == len(st.models)):
+            c.add("strata", "names, sizes and models must have one entry per stratum")
+        if len(set(st.names)) != len(st.names):
+            c.add("strata", f"stratum names must differ, got {list(st.names)}")
+        if self.estimand == "proportion":
+            for i, m in enumerate(st.models):
+                if not m.zero_one:
+                    c.add(f"strata[{i}].data", "a proportion estimand needs 0/1 data: model 'bernoulli', or event_values / event_above in [target]")
+        from simcheck.strata import check_strata
+
+        check_strata(c, st.sizes, st.rule, st.costs, st.given, st.minimum)
 
     @property
     def two_sample(self) -> bool:
@@ -120,6 +192,10 @@ class Design:
 
     @property
     def true_value(self) -> float:
+        if self.strata is not None:
+            # the planning value; an evaluation reports its finite populations' value
+            mean = sum(w * m.mean for w, m in zip(self.strata.weights, self.strata.models))
+            return mean * self.strata.population_size if self.estimand == "total" else mean
         a = self.model.mean
         return a - self.model_b.mean if self.two_sample else a
 
@@ -148,7 +224,7 @@ class Design:
             d["data_a"] = self.model.to_dict()
             d["data_b"] = self.model_b.to_dict()
             d["ratio"] = self.ratio
-        else:
+        elif self.strata is None:
             d["data"] = self.model.to_dict()
         if self.method.startswith("bootstrap"):
             d["resamples"] = self.resamples
@@ -156,4 +232,6 @@ class Design:
             d["clusters"] = self.clusters.to_dict()
         if self.population is not None:
             d["population"] = self.population.to_dict()
+        if self.strata is not None:
+            d.update(self.strata.to_dict())
         return d

@@ -24,7 +24,7 @@ This module depends only on numpy, scipy and :mod:`simcheck.errors`.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, Callable
 
 import numpy as np
@@ -720,3 +720,15 @@ def sample_size(
         assumptions=tuple(assumptions),
         formula="; ".join(steps),
     )
+
+
+@dataclass(frozen=True)
+class StratifiedFormulaResult(FormulaResult):
+    """A stratified sample's closed-form total n, with its per-stratum counts."""
+
+    allocation: dict[str, int] = field(default_factory=dict)
+
+    def to_dict(self) -> dict[str, Any]:
+        d = super().to_dict()
+        d["allocation"] = dict(self.allocation)
+        return d

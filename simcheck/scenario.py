@@ -50,9 +50,11 @@ from numbers import Integral
 from pathlib import Path
 from typing import Any, Mapping
 
-from simcheck.design import ESTIMANDS, TWO_SAMPLE, ClusterSpec, Design, PopulationSpec
+from simcheck.design import ESTIMANDS, STRATIFIED_METHODS, TWO_SAMPLE, ClusterSpec, Design, PopulationSpec
 from simcheck.errors import Collector, InputError, Problem, shown
 from simcheck.files import read_csv_column, read_toml, regular_file, resolve_data_path
+from simcheck.scenario_strata import KNOWN_KEYS as STRATA_KEYS
+from simcheck.scenario_strata import read_strata, strata_tables
 
 __all__ = [
     "KNOWN_KEYS",
@@ -118,12 +120,13 @@ KNOWN_KEYS: dict[str, str] = {
     "population.fpc": "apply the finite population correction: true | false; default true",
     "population.file": "CSV file of the population's values, relative to the scenario file's folder and inside it (unless --allow-outside-files)",
     "population.column": "column of population.file holding the values",
+    **STRATA_KEYS,
 }
 
-_TOP = ("title", "target", "data", "method", "simulation", "clusters", "population")
+_TOP = ("title", "target", "data", "method", "simulation", "clusters", "population", "strata", "allocation")
 _TABLES: dict[str, tuple[str, ...]] = {}
 for _k in KNOWN_KEYS:
-    if "." in _k and not _k.startswith("data"):
+    if "." in _k and not _k.startswith(("data", "allocation")):
         _t, _leaf = _k.split(".", 1)
         _TABLES.setdefault(_t, ())
         _TABLES[_t] = _TABLES[_t] + (_leaf,)
@@ -188,6 +191,9 @@ class Scenario:
     def describe_data(self) -> str:
         """The data model(s) in one line."""
         d = self.design
+        if d.strata is not None:
+            return "; ".join(f"{name} (N = {size}): {m.describe()}"
+                             for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models))
         if d.two_sample:
             return f"a: {d.model.describe()}; b: {d.model_b.describe()}"
         return d.model.describe()
@@ -233,6 +239,9 @@ class Scenario:
             },
             "simulation": sim,
         }
+        if d.strata is not None:
+            out.pop("data")
+            out.update(_json_safe(copy.deepcopy(strata_tables(self.table))))
         if d.clusters is not None:
             out["clusters"] = _json_safe(d.clusters.to_dict())
         if d.population is not None:
@@ -419,15 +428,15 @@ def validate(
     pop_t = _table(c, table, "population", required=False) if "population" in table else None
 
     tgt = _target(c, target_t) if target_t is not None else _Target()
-    model, model_b = _data(c, table.get("data"), tgt.estimand, files)
-    if model is not None and (tgt.event_values is not None or tgt.event_above is not None):
+    model, model_b, strata = _data(c, table, tgt, files)
+    if strata is None and model is not None and (tgt.event_values is not None or tgt.event_above is not None):
         model = _wrap_event(c, model, tgt.event_values, tgt.event_above)
         if model_b is not None:
             model_b = _wrap_event(c, model_b, tgt.event_values, tgt.event_above)
     methods: list[str] = []
     resamples = DEFAULT_RESAMPLES
     if method_t is not None:
-        methods = _methods(c, method_t, tgt.estimand)
+        methods = _methods(c, method_t, tgt.estimand, stratified="strata" in table)
         resamples = _num(c, method_t, "method", "resamples", DEFAULT_RESAMPLES, low=RESAMPLES_MIN, high=RESAMPLES_MAX, integer=True)
     sim = _simulation(c, sim_t if sim_t is not None else {}, tgt.estimand)
     clusters = _clusters(c, clusters_t) if clusters_t is not None else None
@@ -436,7 +445,7 @@ def validate(
 
     design = None
     if not c.problems and model is not None and methods:
-        design = _designs(c, tgt, model, model_b, methods, sim, resamples, clusters, population)
+        design = _designs(c, tgt, model, model_b, methods, sim, resamples, clusters, population, strata)
     _dedupe(c)
     c.raise_if_any(source=source)
     assert design is not None  # every path without a design recorded a problem
@@ -520,30 +529,38 @@ def _target(c: Collector, target: dict[str, Any]) -> _Target:
     return t
 
 
-def _data(c: Collector, data: Any, estimand: str | None, files: _Files):
-    """The model (and group b's model) of the [data] table."""
+def _data(c: Collector, table: dict[str, Any], tgt: _Target, files: _Files):
+    """The model, group b's model and the strata of the [data] (or [[strata]]) tables."""
+    data, estimand = table.get("data"), tgt.estimand
+    if "allocation" in table and "strata" not in table:
+        c.add("allocation", "only with [[strata]] tables")
+    if "strata" in table:
+        model, strata = _strata_model(c, table, files, tgt.event_values, tgt.event_above)
+        if data is not None:
+            c.add("data", "not used with [[strata]]: give each stratum its model in [strata.data]")
+        return model, None, strata
     if data is None:
         c.add("data", "missing: a [data] table with model = \"...\" (two-sample: [data.a] and [data.b])")
-        return None, None
+        return None, None, None
     if not isinstance(data, dict):
         c.add("data", f"must be a table, got {shown(data)}")
-        return None, None
+        return None, None, None
     if estimand in TWO_SAMPLE or (estimand is None and data and set(data) <= {"a", "b"}):
         # (an invalid estimand is already reported; still check both groups' models)
         if "model" in data:
             c.add("data", f"estimand {estimand!r} compares two groups: put their models in [data.a] and [data.b]")
-            return None, None
+            return None, None, None
         for k in data:
             if k not in ("a", "b"):
                 near = difflib.get_close_matches(str(k), ["a", "b"], n=1, cutoff=0.5)
                 hint = f"did you mean 'data.{near[0]}'?" if near else "two-sample data has only [data.a] and [data.b]"
                 c.add(f"data.{k}", f"unknown key; {hint}")
-        return _group(c, data, "a", files), _group(c, data, "b", files)
+        return _group(c, data, "a", files), _group(c, data, "b", files), None
     if data and "model" not in data and set(data) <= {"a", "b"}:
         what = f"estimand {estimand!r} is one-sample" if estimand else "a one-sample estimand"
         c.add("data", f"{what}: give one model in [data]; [data.a] and [data.b] are for mean-diff or proportion-diff")
-        return None, None
-    return _model(c, data, "data", files), None
+        return None, None, None
+    return _model(c, data, "data", files), None, None
 
 
 def _simulation(c: Collector, sim: dict[str, Any], estimand: str | None) -> _Simulation:
@@ -580,7 +597,7 @@ def _n_range(c: Collector, sim: _Simulation, population, clusters) -> int | None
 
 
 def _designs(c: Collector, tgt: _Target, model, model_b, methods: list[str], sim: _Simulation,
-             resamples, clusters, population) -> Design | None:
+             resamples, clusters, population, strata) -> Design | None:
     """The combination: Design's constructor is the one check of model / estimand / method."""
     try:
         design = Design(
@@ -594,6 +611,7 @@ def _designs(c: Collector, tgt: _Target, model, model_b, methods: list[str], sim
             resamples=resamples,
             clusters=clusters,
             population=population,
+            strata=strata,
         )
     except InputError as e:
         _extend_design(c, e, tgt.estimand)
@@ -767,6 +785,30 @@ def _model(c: Collector, tbl: Any, prefix: str, files: _Files):
         return None
 
 
+def _strata_model(c: Collector, table: dict[str, Any], files: _Files, values, above):
+    """The strata and the population's model (their mixture, weighted by stratum size)."""
+    from simcheck.models import make_model
+
+    def wrap(m):
+        return _wrap_event(c, m, values, above) if (values is not None or above is not None) else m
+
+    strata = read_strata(c, table, files.base_dir, wrap)
+    if strata is None:
+        return None, None
+    sizes = strata.sizes
+    if not all(isinstance(v, (int, float)) and not isinstance(v, bool) and v > 0 for v in sizes):
+        return None, strata  # Design reports the sizes
+    total = float(sum(sizes))
+    try:
+        mix = make_model({"model": "mixture", "weights": [v / total for v in sizes],
+                          "components": [t["data"] for t in table["strata"]]},
+                         base_dir=files.base_dir, allow_outside_files=files.allow_outside)
+    except InputError as e:
+        c.extend(e.prefixed("strata"))
+        return None, strata
+    return wrap(mix), strata
+
+
 def _group(c: Collector, data: dict[str, Any], g: str, files: _Files):
     if g not in data:
         c.add(f"data.{g}", f"missing: a two-sample estimand needs [data.a] and [data.b]; [data.{g}] is not given")
@@ -785,7 +827,7 @@ def _wrap_event(c: Collector, model, values, above):
         return None
 
 
-def _methods(c: Collector, method: dict[str, Any], estimand: str | None) -> list[str]:
+def _methods(c: Collector, method: dict[str, Any], estimand: str | None, stratified: bool = False) -> list[str]:
     from simcheck.intervals import REGISTRY, methods_for
 
     if "interval" not in method:
@@ -806,7 +848,11 @@ def _methods(c: Collector, method: dict[str, Any], estimand: str | None) -> list
         if m in out:
             c.add(name, f"{m!r} is listed twice")
             continue
-        if estimand is not None and (estimand, m) not in REGISTRY:
+        if stratified and estimand in STRATIFIED_METHODS:
+            if m not in STRATIFIED_METHODS[estimand]:
+                c.add(name, f"stratified {estimand} intervals: {', '.join(STRATIFIED_METHODS[estimand])}; got {m!r}")
+                continue
+        elif estimand is not None and (estimand, m) not in REGISTRY:
             known = methods_for(estimand)
             near = difflib.get_close_matches(m, known, n=1, cutoff=0.5)
             hint = f"did you mean {near[0]!r}? " if near else ""

@@ -154,6 +154,8 @@ def _formula(design: Design):
 
     if design.margin is None:
         return None
+    if design.strata is not None:
+        return _stratified_formula(design)
     kw: dict[str, Any] = {"confidence": design.confidence, "multiplier": "z"}
     try:
         if design.estimand in ("mean", "mean-diff"):
@@ -182,6 +184,22 @@ def _formula(design: Design):
         return None
     n = res.clusters if cl is not None else res.n
     return None if n is None else (res, int(n))
+
+
+def _stratified_formula(design: Design):
+    from simcheck.strata import stratified_sample_size
+
+    st = design.strata
+    prop = design.estimand == "proportion"
+    try:
+        res = stratified_sample_size(
+            design.estimand, float(design.margin), names=st.names, sizes=st.sizes,
+            sds=None if prop else [m.sd for m in st.models], ps=[m.mean for m in st.models] if prop else None,
+            means=[m.mean for m in st.models], rule=st.rule, costs=st.costs, given=st.given,
+            minimum=st.minimum, confidence=design.confidence)
+    except (InputError, ValueError, ZeroDivisionError, OverflowError):
+        return None
+    return res, int(res.n)
 
 
 # --------------------------------------------------------------------------

@@ -22,8 +22,9 @@ def add_parser(subparsers) -> None:
             "`simcheck check` and `simcheck search` test whether n really delivers the interval."
         ),
     )
-    p.add_argument("--estimand", choices=ESTIMANDS, metavar="E",
-                   help="what is estimated: mean, proportion, mean-diff or proportion-diff (difference a - b)")
+    p.add_argument("--estimand", choices=ESTIMANDS + ("total",), metavar="E",
+                   help="what is estimated: mean, proportion, mean-diff or proportion-diff (difference a - b); "
+                        "total (N times the mean) with --stratum")
     p.add_argument("--margin", type=float, metavar="B",
                    help="target half-width of the interval, > 0, in the data's units (0.05 = 5 points for proportions); required")
     p.add_argument("--confidence", type=float, default=0.95, metavar="C",
@@ -52,11 +53,65 @@ def add_parser(subparsers) -> None:
                         "design effect 1 + ((V^2 + 1) M - 1) ICC")
     p.add_argument("--ratio", type=float, metavar="K",
                    help="allocation ratio for two-sample estimands: n_b = K * n_a, > 0 (default 1)")
+    p.add_argument("--stratum", action="append", metavar="NAME:SIZE:VALUE[:EXTRA]",
+                   help="a stratum of a stratified sample (repeat for each): its name, size N_h, planning SD "
+                        "(mean, total) or proportion (proportion), and with --allocation optimum its per-unit "
+                        "cost or with --allocation given its n; e.g. --stratum north:4000:35")
+    p.add_argument("--allocation", choices=("proportional", "neyman", "optimum", "given"), default=None,
+                   help="how the total n is shared among the strata (default proportional)")
+    p.add_argument("--minimum", type=int, default=None, metavar="K",
+                   help="least n per stratum, >= 2 (default 2)")
     add_json(p)
     p.set_defaults(run=run)
 
 
+def _strata(args: argparse.Namespace):
+    """The stratified closed form from repeated --stratum options."""
+    from simcheck.errors import Collector
+    from simcheck.strata import MINIMUM, stratified_sample_size
+
+    c = Collector()
+    rule = args.allocation or "proportional"
+    names, sizes, values, extras = [], [], [], []
+    for i, text in enumerate(args.stratum):
+        parts = text.split(":")
+        want = "NAME:SIZE:VALUE:EXTRA" if rule in ("optimum", "given") else "NAME:SIZE:VALUE"
+        if len(parts) != want.count(":") + 1:
+            c.add(f"--stratum {i + 1}", f"expected {want}, got {text!r}")
+            continue
+        try:
+            nums = [float(v) for v in parts[1:]]
+        except ValueError:
+            c.add(f"--stratum {i + 1}", f"SIZE, VALUE{' and EXTRA' if len(parts) > 3 else ''} must be numbers, got {text!r}")
+            continue
+        names.append(parts[0] or f"stratum {i + 1}")
+        sizes.append(int(nums[0]) if nums[0].is_integer() else nums[0])
+        values.append(nums[1])
+        extras.append(nums[2] if len(nums) > 2 else None)
+    for opt in ("sd", "sd_b", "p", "p_b", "population_size", "design_effect", "icc", "cluster_size", "ratio"):
+        if getattr(args, opt) is not None:
+            c.add("--" + opt.replace("_", "-"), "not used with --stratum (give each stratum its own value)")
+    c.raise_if_any()
+    prop = args.estimand == "proportion"
+    given = [int(v) if float(v).is_integer() else v for v in extras] if rule == "given" else None
+    return stratified_sample_size(
+        args.estimand, args.margin, names=names, sizes=sizes, sds=None if prop else values,
+        ps=values if prop else None, rule=rule, costs=extras if rule == "optimum" else None, given=given,
+        minimum=MINIMUM if args.minimum is None else args.minimum, confidence=args.confidence)
+
+
 def run(args: argparse.Namespace) -> int:
+    if args.stratum:
+        res = _strata(args)
+        if args.json:
+            emit_json(res.to_dict())
+            return 0
+        sys.stdout.write(render(res) + "\n")
+        return 0
+    if args.allocation is not None or args.minimum is not None or args.estimand == "total":
+        from simcheck.errors import InputError
+
+        raise InputError("--stratum", "missing: --allocation, --minimum and estimand total describe a stratified sample; give its strata with --stratum")
     res = sample_size(
         args.estimand,
         args.margin,
@@ -96,6 +151,8 @@ def render(res) -> str:
         rows.append(["n", res.n])
     else:
         rows += [["n (group a)", res.n], ["n_b (group b)", res.n_b], ["n total", res.n_total]]
+    for name, k in getattr(res, "allocation", {}).items():
+        rows.append([f"  n in {name}", k])
     if res.clusters is not None:
         if res.clusters_b is None:
             rows.append(["clusters", res.clusters])

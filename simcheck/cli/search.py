@@ -88,6 +88,10 @@ def _header(scenario, design) -> list[str]:
     if d.two_sample:
         lines.append(f"data a:      {d.model.describe()}")
         lines.append(f"data b:      {d.model_b.describe()}  (n_b = {d.ratio:g} x n)")
+    elif d.strata is not None:
+        for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models):
+            lines.append(f"stratum:     {name} (N = {size}): {m.describe()}")
+        lines.append(f"allocation:  {d.strata.rule}; n counts the whole sample")
     else:
         lines.append(f"data:        {d.model.describe()}")
     if d.clusters is not None:

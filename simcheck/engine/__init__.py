@@ -29,7 +29,7 @@ import numpy as np
 
 from simcheck import rng as rngmod
 from simcheck.design import Design
-from simcheck.engine import clustered, simple
+from simcheck.engine import clustered, simple, stratified
 from simcheck.engine.kinds import KINDS, DesignKind, kind_for, register_kind
 from simcheck.engine.measures import share_mcse
 from simcheck.engine.simple import CHUNK_BYTES, PATHS, block_size, piece_rows, unit_rows
@@ -43,6 +43,7 @@ Progress = Callable[[int, int], None] | None
 #: enumeration may hold (about 100 bytes each while it runs, measured: 0.5 GB).
 EXACT2_PAIRS_MAX = 5_000_000
 
+register_kind(DesignKind("stratified", stratified.applies, stratified.available_paths, stratified.evaluate))
 register_kind(DesignKind("clustered-or-population", clustered.applies, clustered.available_paths, clustered.evaluate))
 register_kind(DesignKind("simple", simple.applies, simple.available_paths, simple.evaluate, fallback=True))
 
@@ -180,6 +181,14 @@ def _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve):
         raise InputError("simulation.path", f"must be one of {', '.join(PATHS)}, got {path!r}")
     if isinstance(replicates, bool) or not isinstance(replicates, (int, np.integer)) or replicates < 1:
         raise InputError("simulation.replicates", f"must be a whole number >= 1, got {replicates!r}")
+    if design.strata is None:
+        _check_simple_n(design, ns)
+        _exact_pairs_cap(design, ns, path)
+    return kind_for(design).evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve)
+
+
+def _check_simple_n(design: Design, ns) -> None:
+    """n checks that depend on the registered interval method (every non-stratified design)."""
     method = get_method(design.estimand, design.method)
     min_n = 1 if method.kind in ("count", "count2") else 2
     for n in ns:
@@ -191,5 +200,3 @@ def _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve):
                 raise InputError("simulation.ratio", f"gives group b only {design.n_b(n)} observations at n = {n}")
     if method.kind == "cluster" and design.clusters is None:
         raise InputError("method.interval", f"{design.method!r} needs a [clusters] table (n then counts clusters)")
-    _exact_pairs_cap(design, ns, path)
-    return kind_for(design).evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve)

@@ -310,8 +310,10 @@ def _study_doc(study: StudyResults, figs: dict[str, Path], base: Path) -> _Doc:
 def _data_rows(data: Mapping[str, Any]) -> list[list[str]]:
     rows: list[list[str]] = []
 
-    def model_rows(prefix: str, d: Mapping[str, Any]) -> None:
+    def model_rows(prefix: str, d: Mapping[str, Any], skip_true: bool = False) -> None:
         for k, v in d.items():
+            if skip_true and k.startswith("true_"):
+                continue
             if isinstance(v, (dict, list)):
                 v = json.dumps(v, sort_keys=True)
             rows.append([f"{prefix}{k.replace('_', ' ')}", fmt_g(v)])
@@ -326,6 +328,13 @@ def _data_rows(data: Mapping[str, Any]) -> list[list[str]]:
         if key in data:
             for k, v in data[key].items():
                 rows.append([f"{key}: {k.replace('_', ' ')}", fmt_g(v)])
+    for st in data.get("strata", ()):
+        model_rows(f"stratum {st['name']} (N = {st['size']:,}): ", st["data"], skip_true=True)
+        for k in ("cost", "n"):
+            if k in st:
+                rows.append([f"stratum {st['name']}: {k}", fmt_g(st[k])])
+    if "allocation" in data:
+        rows.append(["allocation rule", str(data["allocation"]["rule"])])
     return rows
 
 

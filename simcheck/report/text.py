@@ -128,7 +128,17 @@ def describe_model(d: Mapping[str, Any]) -> str:
     return text + (f" with {join_words(parts)}" if parts else "")
 
 
+def strata_text(data: Mapping[str, Any]) -> str:
+    """'3 strata sampled without replacement: north (N = 4,000), a lognormal ...; ...' from Design.to_dict()."""
+    parts = [f"{s['name']} (N = {s['size']:,}), {describe_model(s['data'])}" for s in data["strata"]]
+    rule = data.get("allocation", {}).get("rule", "proportional")
+    return (f"{len(parts)} strata, each sampled without replacement and the total n allocated by the "
+            f"{rule} rule: " + "; ".join(parts))
+
+
 def model_text(data: Mapping[str, Any]) -> str:
+    if "strata" in data:
+        return strata_text(data)
     if "data_a" in data:
         return (f"{describe_model(data['data_a'])} in group a and {describe_model(data['data_b'])} in group b "
                 f"(group b {fmt_g(data.get('ratio', 1.0))} times the size of group a)")
