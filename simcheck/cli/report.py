@@ -47,7 +47,12 @@ def run(args: argparse.Namespace) -> int:
 
     src = Path(args.source)
     # a regular file only: a FIFO or device would hang the store sniffing below
-    regular_file(src, label=str(src), what="scenario file or sweep store")
+    try:
+        regular_file(src, label=str(src), what="scenario file or sweep store")
+    except InputError as exc:
+        if exc.problems[0].message == "no such file":
+            raise InputError("SCENARIO|STORE", f"file not found: {src}") from None
+        raise
     rep.check_out_dir_usable(args.out)
     if rep.is_store(src) and overrides(args):
         raise InputError("--replicates/--seed", "apply to a scenario file, not to a sweep store")
