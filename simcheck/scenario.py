@@ -792,7 +792,7 @@ def _strata_model(c: Collector, table: dict[str, Any], files: _Files, values, ab
     def wrap(m):
         return _wrap_event(c, m, values, above) if (values is not None or above is not None) else m
 
-    strata = read_strata(c, table, files.base_dir, wrap)
+    strata = read_strata(c, table, files.base_dir, wrap, allow_outside_files=files.allow_outside)
     if strata is None:
         return None, None
     sizes = strata.sizes

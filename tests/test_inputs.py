@@ -343,3 +343,15 @@ def test_no_function_in_the_scenario_module_is_longer_than_a_screen():
     long = [(f.name, f.end_lineno - f.lineno + 1) for f in ast.walk(tree)
             if isinstance(f, (ast.FunctionDef, ast.AsyncFunctionDef)) and f.end_lineno - f.lineno + 1 > 80]
     assert long == []
+
+
+def test_strata_data_files_follow_the_same_rule(tmp_path):
+    folder, csv = _outside_layout(tmp_path)
+    table = small(data=None, strata=[
+        {"name": "north", "size": 400, "data": {"model": "empirical", "file": "../private/pilot.csv", "column": "hours"}},
+        {"name": "south", "size": 600, "data": {"model": "normal", "mean": 5.0, "sd": 2.0}},
+    ])
+    s = write_toml(folder / "s.toml", table)
+    with pytest.raises(InputError, match=r"strata\[0\]\.data\.file: .*leaves the scenario's folder"):
+        load_scenario(s)
+    assert load_scenario(s, allow_outside_files=True).design.strata is not None
