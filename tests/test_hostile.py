@@ -150,6 +150,7 @@ SCENARIO_KEYS = [
     "simulation.ratio", "simulation.budget", "simulation.path", "clusters.icc", "clusters.size",
     "clusters.size_mean", "clusters.size_cv", "clusters.effect", "population.size", "population.fpc",
     "population.file", "population.column", "data", "target", "method", "simulation", "extra.key", "vary",
+    "strata", "allocation.rule", "allocation.minimum",
 ]
 # valid values that would make a run slow: refused by the strategy, not by simcheck
 MUTATE = 1
@@ -185,8 +186,14 @@ def scenario_tables(draw):
         "method": {"interval": method},
         "simulation": {"replicates": 100, "seed": 7, "n_max": 40},
     }
-    extra = "none" if estimand.endswith("-diff") else draw(st.sampled_from(["none", "clusters", "population", "population-file"]))
-    if extra == "clusters" or method == "cluster-t":
+    extra = "none" if estimand.endswith("-diff") else draw(
+        st.sampled_from(["none", "clusters", "population", "population-file", "strata"]))
+    if extra == "strata" and estimand == "mean" and method in ("t", "z"):
+        table.pop("data")
+        table["strata"] = [{"name": "north", "size": 300, "data": data},
+                           {"name": "south", "size": draw(st.sampled_from([200, 5, 1])), "data": one()}]
+        table["allocation"] = {"rule": draw(st.sampled_from(["proportional", "neyman", "x"]))}
+    elif extra == "clusters" or method == "cluster-t":
         table["clusters"] = {"icc": 0.05, "size": 4}
     elif extra == "population":
         table["population"] = {"size": 200}
