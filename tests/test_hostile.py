@@ -4,7 +4,8 @@ Hypothesis builds scenario tables (valid templates with random keys, wrong
 types, huge, tiny, NaN and infinite numbers, deep nesting and broken model
 tables), raw file bytes (byte-order marks, other encodings, NUL bytes) and
 command lines, runs ``simcheck.cli.main`` in process and checks the contract
-of INTERFACE.md on every one:
+of INTERFACE.md on every one (sweep files are validated only, never run, and
+must raise nothing but a one-line InputError):
 
 * exit code 0 or 2 only (1 means an unexpected failure; no traceback ever);
 * exit 2: stdout empty and exactly one ``simcheck: error:`` line, the last on
@@ -13,9 +14,9 @@ of INTERFACE.md on every one:
   [0, 1], n >= 1, finite non-negative half-widths);
 * no run takes more than 60 s (an interval timer fails the example).
 
-The budget is fixed and seeded (``derandomize=True``): 230 + 110 + 40 = 380
-generated cases plus a handful of real processes per run, about 30-60 s on
-the project machine. Runs are tiny (100 replicates, n <= 60), and the value
+The budget is fixed and seeded (``derandomize=True``): 200 scenario tables,
+40 byte strings, 90 command lines and 40 sweep files (370 generated cases)
+plus 3 real processes per run, about 35-50 s on the (loaded) project machine. Runs are tiny (100 replicates, n <= 60), and the value
 strategies avoid inputs that are valid but expensive (bootstrap methods,
 populations of millions), which would test patience rather than the contract.
 """
@@ -451,3 +452,42 @@ def test_real_processes_exit_2_with_one_line(tmp_path, content):
                        env={**os.environ, "PYTHONPATH": str(ROOT)})
     assert p.returncode == 2 and p.stdout == "", p.stderr
     assert p.stderr.count("\n") == 1 and p.stderr.startswith("simcheck: error: ") and "Traceback" not in p.stderr
+
+
+# --- sweep files (validation only: no cell is run) -------------------------------------------------
+@st.composite
+def sweep_tables(draw):
+    table: dict = {"base": "base.toml", "task": draw(st.sampled_from(["check", "curve", "search", "x"])),
+                   "vary": {"data.sd": [1.0, 2.0]}}
+    if table["task"] == "check":
+        table["n"] = [10]
+    for _ in range(draw(st.sampled_from([0, 1, 1, 2]))):
+        key = draw(st.sampled_from(["base", "task", "n", "n_min", "n_max", "seed", "title", "vary", "extra"]))
+        table[key] = draw(values)
+    if draw(st.booleans()):
+        key = draw(st.sampled_from(["data.sd", "data.mean", "method.interval", "simulation.n_max", "target.margin",
+                                    "data", "x.y"]))
+        table["vary"] = {key: draw(st.lists(values, max_size=3))}
+    return table
+
+
+@settings(max_examples=40, **SETTINGS)
+@given(table=sweep_tables())
+def test_generated_sweep_files_raise_only_input_errors(folder, table):
+    from simcheck.errors import InputError
+    from simcheck.sweep.grid import load_sweep
+
+    (folder / "base.toml").write_bytes(GOOD_TEXT)
+    path = folder / "sweep.toml"
+    path.write_text(toml_text(table), encoding="utf-8")
+    old = signal.signal(signal.SIGALRM, _alarm)
+    signal.setitimer(signal.ITIMER_REAL, HANG_SECONDS)
+    try:
+        load_sweep(path)
+        event("sweep: valid")
+    except InputError as e:
+        event("sweep: refused")
+        assert "\n" not in e.one_line()
+    finally:
+        signal.setitimer(signal.ITIMER_REAL, 0)
+        signal.signal(signal.SIGALRM, old)
