@@ -9,7 +9,8 @@ baseline that :mod:`simcheck.search` starts from and compares against.
 Order of the corrections (one-sample): the simple-random-sampling size
 ``n0 = m^2 V / B^2`` (``m`` the z or t multiple, ``V`` the unit variance) is
 multiplied by the design effect, then reduced by the finite population
-correction ``n0 / (1 + (n0 - 1) / N)``, then rounded up.
+correction (:func:`fpc_n`: ``n0 / (1 + n0 / N)`` for a mean planned with
+Cochran's S, ``n0 / (1 + (n0 - 1) / N)`` for a proportion), then rounded up.
 
 Two-sample estimands (difference a - b) allocate ``n_b = ceil(ratio * n_a)``
 with ``n_a = m^2 deff (V_a + V_b / ratio) / B^2``. With ``multiplier="t"`` a
@@ -41,6 +42,8 @@ __all__ = [
     "t_value",
     "design_effect_from_icc",
     "fpc_n",
+    "fpc_variance_factor",
+    "FPC_UNIT_VARIANCE",
     "welch_df",
 ]
 
@@ -159,22 +162,75 @@ def design_effect_from_icc(icc: float, m: float, cv: float = 0.0) -> float:
     return 1.0 + ((v * v + 1.0) * mm - 1.0) * r
 
 
-def fpc_n(n0: Any, N: float) -> Any:
-    """Finite population correction of a sample size: ``n0 / (1 + (n0 - 1) / N)``.
+#: unit variance each one-sample estimand plans with: a mean's planning SD is
+#: Cochran's S (divisor N - 1), a proportion's planning variance is P Q (divisor N)
+FPC_UNIT_VARIANCE = {"mean": "S2", "proportion": "PQ"}
 
-    Exact for the variance factor ``(N - n) / (N - 1)`` of sampling without
-    replacement. Accepts arrays for ``n0``.
+
+def fpc_variance_factor(n: Any, N: float, unit_variance: str = "S2") -> Any:
+    """Factor by which sampling n of N units without replacement multiplies a variance.
+
+    The one finite population correction of simcheck; the closed-form n, the
+    engine and the exact enumeration all use it. Which form applies depends on
+    the unit variance the factor multiplies:
+
+    ``"S2"``: ``1 - n / N``
+        for Cochran's S^2 (divisor N - 1), under which Var(sample mean) =
+        (1 - n/N) S^2 / n exactly ([1]_, section 2.5). Used for the planning SD
+        of a mean, and for every interval, whose variance is estimated from
+        the sample: s^2 estimates S^2 without bias, and for a proportion the
+        unbiased estimate is (1 - n/N) p q / (n - 1) ([1]_, section 3.2), so
+        an interval's own variance estimate is multiplied by 1 - n/N.
+    ``"PQ"``: ``(N - n) / (N - 1)``
+        for the variance P Q (divisor N) of a planning proportion, under
+        which Var(p) = (N - n)/(N - 1) P Q / n exactly ([1]_, section 3.2).
+
+    Both are the same law: P Q = S^2 (N - 1) / N for 0/1 values. Accepts
+    arrays for ``n``; values of n above N give 0.
 
     References
     ----------
-    .. [1] Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, New York.
+    .. [1] Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, New
+       York; section 2.5 (variance of the mean), section 3.2 (variance of a
+       proportion and its estimate). Section numbers from memory.
+    """
+    if unit_variance not in ("S2", "PQ"):
+        raise InputError("unit_variance", f"must be 'S2' or 'PQ', got {unit_variance!r}")
+    Nf = float(N)
+    na = np.asarray(n, dtype=float)
+    if unit_variance == "S2":
+        out = 1.0 - na / Nf
+    else:
+        out = (Nf - na) / (Nf - 1.0)
+    out = np.maximum(out, 0.0)
+    return float(out) if out.ndim == 0 else out
+
+
+def fpc_n(n0: Any, N: float, unit_variance: str = "PQ") -> Any:
+    """Finite population correction of a sample size, solving ``n = n0 * factor(n)``.
+
+    With :func:`fpc_variance_factor`: ``"PQ"`` (a planning proportion) gives
+    ``n0 / (1 + (n0 - 1) / N)`` ([1]_, section 4.4); ``"S2"`` (a planning SD
+    of a mean) gives ``n0 / (1 + n0 / N)`` ([1]_, section 4.6). Accepts
+    arrays for ``n0``.
+
+    References
+    ----------
+    .. [1] Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, New
+       York; section 4.4 (n for proportions), section 4.6 (n for continuous
+       data). Section numbers from memory.
     """
     if not (isinstance(N, (int, float, np.integer, np.floating)) and not isinstance(N, bool)):
         raise InputError("population_size", f"must be a number, got {N!r}")
     if not (math.isfinite(float(N)) and N >= 1):
         raise InputError("population_size", f"must be a finite number >= 1, got {N!r}")
+    if unit_variance not in ("S2", "PQ"):
+        raise InputError("unit_variance", f"must be 'S2' or 'PQ', got {unit_variance!r}")
     n0a = np.asarray(n0, dtype=float)
-    out = n0a / (1.0 + (n0a - 1.0) / float(N))
+    if unit_variance == "S2":
+        out = n0a / (1.0 + n0a / float(N))
+    else:
+        out = n0a / (1.0 + (n0a - 1.0) / float(N))
     return float(out) if out.ndim == 0 else out
 
 
@@ -491,7 +547,9 @@ def sample_size(
         for mean-diff the Welch--Satterthwaite df of the planned groups.
         Means only.
     population_size : int, optional
-        Finite population size N >= 2 (one-sample): n0 / (1 + (n0 - 1) / N).
+        Finite population size N >= 2 (one-sample): n0 / (1 + n0 / N) for a
+        mean, n0 / (1 + (n0 - 1) / N) for a proportion (Cochran 1977,
+        sections 4.6 and 4.4; :func:`fpc_n`).
     design_effect : float, optional
         Design effect given directly (> 0). Not together with ``icc``.
     icc, cluster_size, cluster_size_cv : float, optional
@@ -603,7 +661,7 @@ def sample_size(
 
         def final(mult: float) -> float:
             x = base(mult)
-            return fpc_n(x, N) if N is not None else x
+            return fpc_n(x, N, FPC_UNIT_VARIANCE[estimand]) if N is not None else x
 
         nz_un = final(z)
         _too_large(nz_un)
@@ -626,8 +684,12 @@ def sample_size(
             steps.append(f"n0 * deff = {_g(x0)} * {_g(deff)} = {_g(x0 * deff)}")
         if N is not None:
             n_before_fpc = x0 * deff
-            steps.append(f"FPC: n0 / (1 + (n0 - 1) / N) = {_g(n_before_fpc)} / (1 + ({_g(n_before_fpc)} - 1) / {N})"
-                         f" = {_g(n_un)}")
+            if FPC_UNIT_VARIANCE[estimand] == "S2":
+                steps.append(f"FPC: n0 / (1 + n0 / N) = {_g(n_before_fpc)} / (1 + {_g(n_before_fpc)} / {N})"
+                             f" = {_g(n_un)} (Cochran 1977, mean)")
+            else:
+                steps.append(f"FPC: n0 / (1 + (n0 - 1) / N) = {_g(n_before_fpc)} / (1 + ({_g(n_before_fpc)} - 1) / {N})"
+                             f" = {_g(n_un)} (Cochran 1977, proportion)")
     else:
         ra = (math.sqrt(var_a) if sa is None else sa) / B
         rb = (math.sqrt(var_b) if sb is None else sb) / B

@@ -38,8 +38,10 @@ class CheckResult:
 
     ``n`` is the sample size of group a (or the number of clusters); ``n_b``
     the size of group b for two-sample estimands. Proportions (coverage,
-    misses, assurance) are shares of replicates; on an exact path they are
-    exact probabilities and the MCSEs are 0.
+    misses, assurance, degenerate share) are shares of replicates; on an exact
+    path they are exact probabilities and the MCSEs are 0. ``degenerate``
+    counts zero-width intervals (0 on exact paths, which have no replicates;
+    ``degenerate_share`` is their probability there).
     """
 
     n: int
@@ -65,6 +67,20 @@ class CheckResult:
     degenerate: int = 0
     path: str = "simulation"
     notes: tuple[str, ...] = ()
+    #: Monte Carlo standard errors of the misses and half-width measures (0 on
+    #: exact paths; None where no finite error exists, e.g. unbounded intervals)
+    miss_low_mcse: float | None = None
+    miss_high_mcse: float | None = None
+    margin_mean_mcse: float | None = None
+    margin_median_mcse: float | None = None
+    margin_p90_mcse: float | None = None
+    #: share (exact paths: probability) of zero-width intervals, which never
+    #: count as meeting the margin
+    degenerate_share: float = 0.0
+    degenerate_share_mcse: float | None = None
+    #: intervals that could not be computed (NaN limits): not covering, not
+    #: within the margin, left out of the half-width mean and quantiles
+    not_computed: int = 0
     # Distribution of the achieved half-width, for figures (not in to_dict):
     # simulated values (weights None) or exact support points with weights.
     margin_values: np.ndarray | None = field(default=None, repr=False, compare=False)
@@ -78,10 +94,15 @@ class CheckResult:
             "coverage": self.coverage,
             "coverage_mcse": self.coverage_mcse,
             "miss_low": self.miss_low,
+            "miss_low_mcse": self.miss_low_mcse,
             "miss_high": self.miss_high,
+            "miss_high_mcse": self.miss_high_mcse,
             "margin_mean": self.margin_mean,
+            "margin_mean_mcse": self.margin_mean_mcse,
             "margin_median": self.margin_median,
+            "margin_median_mcse": self.margin_median_mcse,
             "margin_p90": self.margin_p90,
+            "margin_p90_mcse": self.margin_p90_mcse,
             "assurance": self.assurance,
             "assurance_mcse": self.assurance_mcse,
             "method": self.method,
@@ -93,6 +114,9 @@ class CheckResult:
             "n_b": self.n_b,
             "observations": self.observations,
             "degenerate": self.degenerate,
+            "degenerate_share": self.degenerate_share,
+            "degenerate_share_mcse": self.degenerate_share_mcse,
+            "not_computed": self.not_computed,
             "path": self.path,
             "notes": list(self.notes),
         }

@@ -16,6 +16,7 @@ Defaults and limits (chosen here; documented in :data:`KNOWN_KEYS`):
 ``target.margin``              required, > 0 (the point of the tool)
 ``target.assurance``           0.5, in (0, 1)
 ``target.coverage_tolerance``  0.005, in [0, 0.5) and below the confidence
+``target.window``              1.25, in [1, 4] (exact searches: window criterion)
 ``method.interval``            required: a name or a list of names
 ``method.resamples``           1999, whole number in [99, 10**6]
 ``simulation.replicates``      10000, whole number in [100, 10**8]
@@ -97,6 +98,7 @@ KNOWN_KEYS: dict[str, str] = {
     "target.margin": "required: target half-width in the data's units, > 0",
     "target.assurance": f"required share of samples with half-width <= margin, in (0, 1); default {DEFAULT_ASSURANCE}",
     "target.coverage_tolerance": f"accepted coverage shortfall below the confidence, in [0, 0.5); default {DEFAULT_COVERAGE_TOLERANCE}",
+    "target.window": "exact searches: the targets must hold at every n from n to ceil(window x n), in [1, 4]; default 1.25 (1: the first n that meets them)",
     "target.event_values": "proportion estimand on a discrete non-0/1 model: the values that count (list of numbers)",
     "target.event_above": "proportion estimand on a non-0/1 model: values strictly above this number count",
     "data": "one-sample model table: model = \"...\" and its parameters",
@@ -179,6 +181,10 @@ class Scenario:
     table: dict[str, Any] = field(default_factory=dict, compare=False, hash=False, repr=False)
     event_values: tuple[float, ...] | None = None
     event_above: float | None = None
+    window: float = 1.25
+    #: warnings about values allowed but implausible, and settings not used;
+    #: the command line prints them on stderr
+    notices: tuple[str, ...] = ()
 
     @property
     def two_sample(self) -> bool:
@@ -196,6 +202,10 @@ class Scenario:
                              for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models))
         if d.two_sample:
             return f"a: {d.model.describe()}; b: {d.model_b.describe()}"
+        pop = d.population
+        if pop is not None and pop.file is not None:
+            given = self.table.get("population", {}).get("file", pop.file)
+            return f"the {pop.size} values of column {pop.column!r} of {given}"
         return d.model.describe()
 
     def to_dict(self) -> dict[str, Any]:
@@ -214,6 +224,8 @@ class Scenario:
             "assurance": float(self.assurance),
             "coverage_tolerance": float(self.coverage_tolerance),
         }
+        if self.window != 1.25:
+            target["window"] = float(self.window)  # only when set: default scenarios keep their hash
         if self.event_values is not None:
             target["event_values"] = [float(v) for v in self.event_values]
         if self.event_above is not None:
@@ -388,6 +400,7 @@ class _Target:
     tolerance: float | None = None
     event_values: list[float] | None = None
     event_above: float | None = None
+    window: float | None = None
 
 
 @dataclass
@@ -428,7 +441,11 @@ def validate(
     pop_t = _table(c, table, "population", required=False) if "population" in table else None
 
     tgt = _target(c, target_t) if target_t is not None else _Target()
-    model, model_b, strata = _data(c, table, tgt, files)
+    # population.file supplies the values: [data] is then neither needed nor used
+    from_file = (isinstance(pop_t, dict) and "file" in pop_t and tgt.estimand not in TWO_SAMPLE
+                 and "strata" not in table)
+    notices: list[str] = []
+    model, model_b, strata = _data(c, table, tgt, files, from_file, notices)
     if strata is None and model is not None and (tgt.event_values is not None or tgt.event_above is not None):
         model = _wrap_event(c, model, tgt.event_values, tgt.event_above)
         if model_b is not None:
@@ -441,11 +458,13 @@ def validate(
     sim = _simulation(c, sim_t if sim_t is not None else {}, tgt.estimand)
     clusters = _clusters(c, clusters_t) if clusters_t is not None else None
     population = _population(c, pop_t, files) if pop_t is not None else None
+    if from_file and population is not None and population.file is not None and not c.problems:
+        model = _population_model(c, population, tgt.estimand)
     n_max = _n_range(c, sim, population, clusters)
 
-    design = None
+    design, designs = None, []
     if not c.problems and model is not None and methods:
-        design = _designs(c, tgt, model, model_b, methods, sim, resamples, clusters, population, strata)
+        design, designs = _designs(c, tgt, model, model_b, methods, sim, resamples, clusters, population, strata)
     _dedupe(c)
     c.raise_if_any(source=source)
     assert design is not None  # every path without a design recorded a problem
@@ -466,6 +485,8 @@ def validate(
         table=table,
         event_values=None if tgt.event_values is None else tuple(tgt.event_values),
         event_above=tgt.event_above,
+        window=tgt.window,
+        notices=_notices(notices, designs),
     )
 
 
@@ -520,17 +541,26 @@ def _target(c: Collector, target: dict[str, Any]) -> _Target:
     t.confidence = _num(c, target, "target", "confidence", DEFAULT_CONFIDENCE, low=0, high=1, low_open=True, high_open=True)
     t.margin = _num(c, target, "target", "margin", None, required=True, low=0, low_open=True,
                     what="the target half-width in the data's units, > 0")
+    if t.margin is not None and t.estimand in ("proportion", "proportion-diff") and t.margin >= 1:
+        # as `formula` refuses it: every interval of a proportion has half-width <= 1/2 (a difference 1)
+        c.add("target.margin", f"must be < 1 for a {t.estimand} (0.05 means 5 percentage points), got {t.margin!r}")
+        t.margin = None
     t.assurance = _num(c, target, "target", "assurance", DEFAULT_ASSURANCE, low=0, high=1, low_open=True, high_open=True)
     t.tolerance = _num(c, target, "target", "coverage_tolerance", DEFAULT_COVERAGE_TOLERANCE, low=0, high=0.5, high_open=True)
     if t.tolerance is not None and t.confidence is not None and t.tolerance >= t.confidence:
         c.add("target.coverage_tolerance", f"must be below target.confidence ({t.confidence:g}), got {t.tolerance!r}")
         t.tolerance = None
     t.event_values, t.event_above = _event(c, target, t.estimand)
+    t.window = _num(c, target, "target", "window", 1.25, low=1, high=4)
     return t
 
 
-def _data(c: Collector, table: dict[str, Any], tgt: _Target, files: _Files):
-    """The model, group b's model and the strata of the [data] (or [[strata]]) tables."""
+def _data(c: Collector, table: dict[str, Any], tgt: _Target, files: _Files, from_file: bool, notices: list[str]):
+    """The model, group b's model and the strata of the [data] (or [[strata]]) tables.
+
+    With ``from_file`` (population.file supplies the values) there is no model
+    yet: it comes from the file once [population] is read.
+    """
     data, estimand = table.get("data"), tgt.estimand
     if "allocation" in table and "strata" not in table:
         c.add("allocation", "only with [[strata]] tables")
@@ -539,6 +569,10 @@ def _data(c: Collector, table: dict[str, Any], tgt: _Target, files: _Files):
         if data is not None:
             c.add("data", "not used with [[strata]]: give each stratum its model in [strata.data]")
         return model, None, strata
+    if from_file:
+        if data:
+            notices.append("notice: [data] is not used: population.file supplies the values")
+        return None, None, None
     if data is None:
         c.add("data", "missing: a [data] table with model = \"...\" (two-sample: [data.a] and [data.b])")
         return None, None, None
@@ -597,7 +631,7 @@ def _n_range(c: Collector, sim: _Simulation, population, clusters) -> int | None
 
 
 def _designs(c: Collector, tgt: _Target, model, model_b, methods: list[str], sim: _Simulation,
-             resamples, clusters, population, strata) -> Design | None:
+             resamples, clusters, population, strata) -> tuple[Design | None, list[Design]]:
     """The combination: Design's constructor is the one check of model / estimand / method."""
     try:
         design = Design(
@@ -615,7 +649,7 @@ def _designs(c: Collector, tgt: _Target, model, model_b, methods: list[str], sim
         )
     except InputError as e:
         _extend_design(c, e, tgt.estimand)
-        return None
+        return None, []
     designs = [design]
     for m in methods[1:]:
         try:
@@ -623,9 +657,41 @@ def _designs(c: Collector, tgt: _Target, model, model_b, methods: list[str], sim
         except InputError as e:
             _extend_design(c, e, tgt.estimand)
     _check_engine(c, designs, sim.path)
-    return design
+    return design, designs
 
 
+def _population_model(c: Collector, population: PopulationSpec, estimand: str | None):
+    """The data model standing for the values of population.file (mean, Cochran's S; 0/1: bernoulli).
+
+    The engine samples the file's values themselves; this model only gives the
+    design its estimand checks and the closed-form n its planning values.
+    """
+    from simcheck.models import make_model
+    from simcheck.models.population import read_population
+
+    try:
+        fp = read_population(population.file, population.column, population.size)
+    except InputError as e:
+        c.extend(e)
+        return None
+    if estimand == "proportion" and not fp.zero_one:
+        c.add("population.file", f"a proportion estimand needs 0/1 values in column {population.column!r}")
+        return None
+    if fp.zero_one:
+        return make_model({"model": "bernoulli", "p": fp.mean})
+    if not fp.S > 0:
+        c.add("population.file", "all values are equal: there is nothing to estimate")
+        return None
+    return make_model({"model": "normal", "mean": fp.mean, "sd": fp.S})
+
+
+def _notices(extra: list[str], designs: list[Design]) -> tuple[str, ...]:
+    from simcheck.engine.measures import plausibility_notes
+
+    out = list(extra)
+    for d in designs:
+        out += [t for t in plausibility_notes(d) if t not in out]
+    return tuple(out)
 # --- validation helpers -------------------------------------------------------
 def _unknown_keys(c: Collector, table: dict[str, Any]) -> None:
     for k in table:

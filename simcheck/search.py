@@ -3,9 +3,13 @@
 Targets. An n *passes* when its coverage is at least ``confidence -
 coverage_tolerance`` and (when the design has a target margin) its assurance,
 the share of samples whose half-width is at most the margin, is at least the
-``assurance`` target. The answer ``n`` is the smallest n from which every
-larger evaluated n passes (discrete data can make coverage oscillate in n;
-``n_first``, the first passing n, is reported when it differs).
+``assurance`` target. Every result names the criterion that defines its
+``n`` (``criterion``, ``criterion_text``) and its ``decision`` (``clear`` or
+``undecided``); ``n_first`` is the first n seen to pass.
+
+Criteria: ``window`` on exact paths (the targets hold at every n in ``[n,
+ceil(window n)]``, :mod:`simcheck.window`; ``first`` when window = 1) and
+``crossing`` on simulated paths (below).
 
 Stages of a simulated search (each stage draws from its own spawn key below
 the root, so no stage reuses another's replicates):
@@ -36,23 +40,24 @@ Decision rules (Monte Carlo error, MCSE = sqrt(p (1 - p) / R), Morris et al.
 * the *score* of an n is the smaller of ``(coverage - target) / MCSE`` and
   ``(assurance - target) / MCSE``; an n *clearly fails* when its score is
   below -2 and *clearly passes* when above +2;
-* ``n_range = [low, high]``: ``low`` is one above the largest confirmed n
-  below the answer that clearly fails, ``high`` the smallest confirmed n
-  from which every confirmed n clearly passes. These are the n consistent
-  with the Monte Carlo error: the boundary may lie anywhere in between;
-* the decision is *clear* when both ends of ``n_range`` were found inside the
-  confirmation window (or at ``n_min`` / ``n_max``) and
-  ``high - low <= max(1, round(precision * n))`` (default precision 0.1:
-  n is pinned down to about +-5 %; planning inputs such as an SD or CV are
-  rarely known better). With the example of a steep boundary
-  (n - 1 fails and n passes, each by more than 2 MCSE) ``n_range`` is
-  ``[n, n]``.
+* ``n_range = [low, high]`` is read off every simulated evaluation of the
+  search (each n at its row with the most replicates; confirmation rounds
+  pooled): ``low`` is one above the largest n that clearly fails, ``high``
+  the smallest larger n that clearly passes (``n_max`` if none does). These
+  are the n the Monte Carlo error cannot tell from the boundary;
+* ``n = high``, the conservative end (criterion ``crossing``);
+* the decision is *clear* when ``high - low <= max(1, round(precision *
+  n))`` (default precision 0.1: n is pinned down to about +-5 %; planning
+  inputs such as an SD or CV are rarely known better), else *undecided*,
+  and ``replicates_needed`` estimates the replicates per n that would
+  settle it. With a steep boundary (n - 1 fails and n passes, each by more
+  than 2 MCSE) ``n_range`` is ``[n, n]``.
 
-Exact paths (proportion methods on iid 0/1 data by binomial enumeration;
-normal data with z or t) have no Monte Carlo error: the answer is exact,
-``n_range = [n, n]``. Binomial enumeration scans every n from ``n_min`` to
-``n_max`` (up to :data:`EXACT_SCAN_MAX` values), so the answer is the
-smallest n from which the target holds for every larger n up to ``n_max``.
+Exact paths (proportion methods on 0/1 data by enumeration; normal data with
+z or t by exact laws) have no Monte Carlo error: ``n_range = [n, n]``. Count
+data are scanned exactly for the window criterion (:class:`WindowScan`), so
+the answer does not depend on ``n_max`` once ``n_max >= ceil(window n)``;
+normal data are monotone in n and bisected.
 
 ``replicates_used`` counts simulated samples: a whole-curve (nested)
 evaluation draws each replicate once at its largest n and counts R; an
@@ -85,11 +90,12 @@ from simcheck.design import Design
 from simcheck.errors import Collector, InputError
 from simcheck.intervals import get_method
 from simcheck.results import CheckResult, CurveResult, MethodComparison, SearchResult
+from simcheck.window import DEFAULT_WINDOW, WINDOW_MAX, ScanOutcome, WindowScan, window_top
 
-__all__ = ["formula_n", "find_n", "compare", "EXACT_SCAN_MAX"]
+__all__ = ["formula_n", "formula_result", "find_n", "compare", "criterion_for", "DEFAULT_WINDOW"]
 
-#: at most this many n values are enumerated exactly in one binomial scan
-EXACT_SCAN_MAX = 10_000
+#: full rows (with the half-width distribution) kept for figures after an exact scan
+SHOWN_ROWS = 41
 #: spawn keys of the search stages below the root (STAGE_CONFIRM from rng)
 #: resamples of bootstrap methods while bracketing and locating
 EXPLORE_RESAMPLES = 499
@@ -102,6 +108,9 @@ STAGE_LOCATE = 102
 STAGE_OTHERS = 103
 #: scores beyond this many MCSE count as a clear pass or a clear fail
 CLEAR_Z = 2.0
+#: exploration rows (bracket, locate: up to LOCATE_MAX n on few replicates) count as clear
+#: evidence only beyond this many MCSE: Bonferroni over 100 n at two-sided 5 % (z = 3.48)
+EXPLORE_Z = 3.5
 #: confirmation windows cover the n within this many full-replicate MCSE (seen at the locate stage)
 LOCATE_Z = 3.0
 #: largest number of n values of the locate stage's whole-curve evaluation
@@ -217,6 +226,13 @@ class _Targets:
             return r.assurance is not None and r.assurance >= self.assurance - 1e-12
         return True
 
+    def passes_arrays(self, coverage: np.ndarray, assurance: np.ndarray | None) -> np.ndarray:
+        """:meth:`passes` on arrays of exact coverage and assurance (same allowance)."""
+        ok = np.asarray(coverage) >= self.coverage - 1e-12
+        if self.assurance is not None:
+            ok &= np.asarray(assurance) >= self.assurance - 1e-12
+        return ok
+
     def score(self, r: CheckResult) -> float:
         """Smallest margin of pass of the targets, in MCSE (+-inf on exact rows)."""
         z = _z(r.coverage - self.coverage, r.coverage, r.replicates, r.exact)
@@ -248,41 +264,9 @@ def _f(x) -> str:
 
 def _pool(a: CheckResult, b: CheckResult) -> CheckResult:
     """Two evaluations of the same n on independent replicates, as one."""
-    ra, rb = a.replicates, b.replicates
-    R = ra + rb
+    from simcheck.engine.measures import pool_checks
 
-    def w(x, y):
-        if x is None or y is None:
-            return None
-        return (x * ra + y * rb) / R
-
-    cov = w(a.coverage, b.coverage)
-    ass = w(a.assurance, b.assurance)
-    vals = None
-    med, p90 = w(a.margin_median, b.margin_median), w(a.margin_p90, b.margin_p90)
-    if a.margin_values is not None and b.margin_values is not None:
-        vals = np.concatenate([a.margin_values, b.margin_values])
-        if vals.size:
-            med, p90 = (float(v) for v in np.quantile(vals, [0.5, 0.9]))
-    notes = list(a.notes)
-    notes += [t for t in b.notes if t not in notes]
-    return replace(
-        a,
-        replicates=R,
-        coverage=float(cov),
-        coverage_mcse=engine.mcse(cov, R),
-        miss_low=float(w(a.miss_low, b.miss_low)),
-        miss_high=float(w(a.miss_high, b.miss_high)),
-        margin_mean=float(w(a.margin_mean, b.margin_mean)),
-        margin_median=float(med),
-        margin_p90=float(p90),
-        assurance=None if ass is None else float(ass),
-        assurance_mcse=None if ass is None else engine.mcse(ass, R),
-        degenerate=a.degenerate + b.degenerate,
-        notes=tuple(notes),
-        margin_values=vals,
-        margin_weights=None,
-    )
+    return pool_checks(a, b)
 
 
 # --------------------------------------------------------------------------
@@ -350,6 +334,8 @@ def find_n(
     progress: Progress = None,
     path: str = "auto",
     precision: float = 0.1,
+    window: float = DEFAULT_WINDOW,
+    listed: Sequence[str] | None = None,
 ) -> SearchResult:
     """The smallest n whose coverage and assurance meet the targets.
 
@@ -382,6 +368,13 @@ def find_n(
     precision : float
         Largest width of ``n_range``, relative to n, at which the decision
         counts as clear (default 0.1, i.e. about +-5 %).
+    window : float
+        Exact paths: the targets must hold at every n in ``[n, ceil(window
+        n)]`` (default 1.25; 1 gives the first n meeting them). See
+        :mod:`simcheck.window`.
+    listed : sequence of str, optional
+        The methods the user listed; suggestions of other methods say
+        "not among your methods".
 
     Returns
     -------
@@ -410,6 +403,7 @@ def find_n(
     if budget is not None:
         c.number("budget", budget, low=1, integer=True)
     c.number("precision", precision, low=0, high=1, low_open=True)
+    c.number("window", window, low=1, high=WINDOW_MAX)
     c.raise_if_any()
     exact, dense = _dense_paths(design, path)
     if budget is None:
@@ -435,6 +429,7 @@ def find_n(
         "coverage_target": targets.coverage,
         "margin": design.margin,
         "assurance": targets.assurance,
+        "window": float(window),
     }
     nf = formula_n(design)
     start = nf if nf is not None else DEFAULT_START
@@ -443,14 +438,29 @@ def find_n(
     if not exact and (design.clusters is not None or design.population is not None) and path in ("auto", "exact"):
         # the clustered engine decides exactness itself: ask it once, cheaply
         exact = run.curve([start], min(R, 100), STAGE_BRACKET, 0)[0].exact
-    ctx = dict(design=design, targets=targets, targets_d=targets_d, nf=nf, seed=seed, lo_n=lo_n, hi_n=hi_n, R=R)
+    ctx = dict(design=design, targets=targets, targets_d=targets_d, nf=nf, seed=seed, lo_n=lo_n, hi_n=hi_n, R=R,
+               window=float(window), listed=tuple(listed) if listed is not None else (design.method,))
     if exact:
         return _exact_search(run, start, **ctx)
     return _simulated_search(run, start, budget, precision, **ctx)
 
 
+def criterion_for(exact: bool, window: float) -> tuple[str, str]:
+    """(criterion, criterion_text): the named rule that defines a search's n."""
+    if not exact:
+        return ("crossing", "the smallest n at which coverage and assurance meet the targets by more than "
+                f"{CLEAR_Z:g} Monte Carlo SE there and at every larger n checked; n_range holds the n the "
+                "Monte Carlo error cannot tell from the boundary")
+    if window <= 1.0:
+        return ("first", "the smallest n at which the targets hold (exact computation)")
+    return ("window", f"the smallest n at which the targets hold at every n from n to ceil({window:g} n) "
+                      "(exact computation; coverage of count data oscillates in n)")
+
+
 def _result(run: _Runner, *, design, targets_d, nf, seed, n, reached, n_range, at, stop, exact,
-            n_first=None, notes=(), curve_rows=None, best=None, others=()) -> SearchResult:
+            n_first=None, notes=(), curve_rows=None, best=None, others=(), window=None,
+            decision="clear", replicates_needed=None) -> SearchResult:
+    crit = criterion_for(exact, targets_d.get("window", DEFAULT_WINDOW) if window is None else window)
     curve = None
     if curve_rows:
         uniq = {r.n: r for r in curve_rows}
@@ -469,13 +479,17 @@ def _result(run: _Runner, *, design, targets_d, nf, seed, n, reached, n_range, a
         method=design.method,
         seed=seed,
         n_b=None if n is None else design.n_b(n),
-        n_first=n_first if (n_first is not None and n_first != n) else None,
+        n_first=n_first,
         stop_reason=stop,
         exact=exact,
         best_coverage=None if best is None else best.coverage,
         best_coverage_n=None if best is None else best.n,
         methods_that_reach=tuple(others),
         notes=tuple(notes),
+        decision=decision,
+        criterion=crit[0],
+        criterion_text=crit[1],
+        replicates_needed=replicates_needed,
         curve=curve,
         at_n=at,
     )
@@ -499,7 +513,11 @@ def _not_reached(run: _Runner, ctx: dict, at_top: CheckResult, n_first: int | No
     if n_first is not None:
         notes.append(f"the targets hold at n = {n_first} but not for every larger n up to n_max (coverage oscillates in n)")
     if others:
-        notes.append(f"methods that reach the targets at n = {hi_n}: {', '.join(others)}")
+        mine = [m for m in others if m in ctx["listed"]]
+        theirs = [m for m in others if m not in ctx["listed"]]
+        said = ", ".join(mine) + ("; " if mine and theirs else "")
+        said += f"not among your methods: {', '.join(theirs)}" if theirs else ""
+        notes.append(f"methods that reach the targets at n = {hi_n}: {said}")
     else:
         notes.append(f"no other interval method in simcheck reaches the targets at n = {hi_n}; "
                      "a larger n_max or a different margin may be needed")
@@ -537,41 +555,79 @@ def _methods_that_reach(run: _Runner, ctx: dict) -> list[str]:
 # exact paths
 # --------------------------------------------------------------------------
 def _exact_search(run: _Runner, start: int, **ctx) -> SearchResult:
-    design, targets, lo_n, hi_n = ctx["design"], ctx["targets"], ctx["lo_n"], ctx["hi_n"]
-    # counts (binomial, beta-binomial, hypergeometric) make coverage oscillate in n
-    scan = design.estimand == "proportion"
-    notes: list[str] = []
-    if scan:
-        # binomial coverage oscillates in n: enumerate every n up to the ceiling
-        top = min(hi_n, lo_n + EXACT_SCAN_MAX - 1)
-        if top < hi_n:
-            notes.append(f"exact enumeration covered n = {lo_n}..{top}; 'for every larger n' is checked up to {top}")
-        rows = run.curve(range(lo_n, top + 1), 1, 0)
-        ok = np.array([targets.passes(r) for r in rows])
-        ns = np.array([r.n for r in rows])
-        n_first = int(ns[ok][0]) if ok.any() else None
-        n = None
-        if ok[-1]:
-            bad = np.flatnonzero(~ok)
-            n = int(ns[bad[-1] + 1]) if bad.size else int(ns[0])
-        if n is None:
-            return _not_reached(run, ctx, rows[-1], n_first)
-        at = rows[int(n - ns[0])]
-        if n_first is not None and n_first != n:
-            notes.append(
-                f"coverage oscillates in n (discrete data): the targets first hold at n = {n_first}, "
-                f"but hold for every n up to n_max = {top} only from n = {n}; n is the latter"
-            )
-        if n_first != n and top - n < max(10, 0.1 * (top - lo_n)):
-            notes.append(
-                f"n = {n} lies close to the search ceiling n_max = {top}: the 'every larger n' rule was "
-                "checked only that far; raise simulation.n_max to see whether the targets keep holding"
-            )
-        notes = _formula_note(ctx["nf"], n) + notes
-        return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=n,
-                       reached=True, n_range=(n, n), at=at, stop="exact", exact=True, n_first=n_first,
-                       notes=notes, curve_rows=rows)
+    # counts (binomial, beta-binomial, hypergeometric) make coverage oscillate in n;
+    # the exact laws of normal data give coverage and assurance monotone in n
+    if ctx["design"].estimand in ("proportion", "proportion-diff"):
+        return _exact_scan(run, **ctx)
+    return _exact_monotone(run, start, **ctx)
 
+
+def _count_passes(run: _Runner, design: Design, targets: _Targets) -> Callable[[Sequence[int]], np.ndarray]:
+    """passes(ns) for the exact count paths: coverage and assurance only where the engine offers it."""
+    from simcheck.engine import exact as exactmod
+
+    kind = engine.exact_kind(design) if design.clusters is None and design.population is None else None
+    func = get_method(design.estimand, design.method).func
+    conf, margin = design.confidence, design.margin
+    if kind == "binomial":
+        p = design.model.bernoulli_p()
+        return lambda ns: targets.passes_arrays(*exactmod.binomial_targets(func, ns, p, conf, margin))
+    if kind == "binomial2":
+        pa, pb = design.model.bernoulli_p(), design.model_b.bernoulli_p()
+        return lambda ns: targets.passes_arrays(*exactmod.two_binomial_targets(
+            func, ns, [design.n_b(n) for n in ns], pa, pb, conf, margin))
+
+    def by_rows(ns: Sequence[int]) -> np.ndarray:
+        got = {r.n: targets.passes(r) for r in run.curve(ns, 1, 0)}
+        return np.array([got[int(n)] for n in ns])
+
+    return by_rows
+
+
+def _exact_scan(run: _Runner, **ctx) -> SearchResult:
+    design, targets, lo_n, hi_n, window = ctx["design"], ctx["targets"], ctx["lo_n"], ctx["hi_n"], ctx["window"]
+    out = WindowScan(_count_passes(run, design, targets), lo_n, hi_n, window).run()
+    if out.status == "none":
+        return _not_reached(run, ctx, run.curve([hi_n], 1, 0)[0], out.n_first)
+    if out.status == "window beyond n_max":
+        return _window_beyond(run, ctx, out)
+    n, top = out.n, window_top(out.n, window)
+    # full rows (half-width distribution) only where the answer is shown: n, n_first, the window
+    pick = {n, top} | ({out.n_first} if out.n_first is not None else set())
+    shown = SHOWN_ROWS if not design.two_sample else SHOWN_ROWS // 4  # a full two-binomial row is costly
+    pick |= {int(k) for k in np.linspace(n, top, min(top - n + 1, shown))}
+    rows = run.curve(sorted(pick), 1, 0)
+    at = next(r for r in rows if r.n == n)
+    notes = _formula_note(ctx["nf"], n)
+    if out.n_first is not None and out.n_first != n:
+        notes.append(f"coverage oscillates in n (discrete data): the targets first hold at n = {out.n_first}, "
+                     f"and hold at every n from {n} to {top} (window {window:g}) from n = {n} on")
+    notes.append(f"exact enumeration of {out.evaluated} values of n (no Monte Carlo error); "
+                 "n does not depend on n_max once n_max >= ceil(window x n)")
+    return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=n,
+                   reached=True, n_range=(n, n), at=at, stop="exact", exact=True, n_first=out.n_first,
+                   notes=notes, curve_rows=rows, window=window)
+
+
+def _window_beyond(run: _Runner, ctx: dict, out: ScanOutcome) -> SearchResult:
+    """The targets hold from a candidate n up to n_max, but its window reaches past n_max."""
+    hi_n, window, cand = ctx["hi_n"], ctx["window"], out.candidate
+    top = window_top(cand, window)
+    rows = run.curve(sorted({cand, hi_n} | ({out.n_first} if out.n_first else set())), 1, 0)
+    notes = [
+        f"undecided within n_max: the targets hold at every n from {cand} to n_max = {hi_n}, but the window "
+        f"criterion ({window:g}) needs them up to n = {top}; raise simulation.n_max to at least {top} to settle it "
+        "(the answer is not moved to the ceiling)",
+    ]
+    if out.n_first is not None and out.n_first != cand:
+        notes.append(f"the targets first hold at n = {out.n_first} (coverage oscillates in n)")
+    return _result(run, design=ctx["design"], targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=None,
+                   reached=False, n_range=None, at=rows[-1], stop="window reaches n_max", exact=True,
+                   n_first=out.n_first, notes=notes, curve_rows=rows, window=window, decision="undecided")
+
+
+def _exact_monotone(run: _Runner, start: int, **ctx) -> SearchResult:
+    design, targets, lo_n, hi_n, window = ctx["design"], ctx["targets"], ctx["lo_n"], ctx["hi_n"], ctx["window"]
     cache: dict[int, CheckResult] = {}
 
     def ev(n: int) -> CheckResult:
@@ -590,16 +646,21 @@ def _exact_search(run: _Runner, start: int, **ctx) -> SearchResult:
         else:
             lo = mid
     n = hi
+    wtop = window_top(n, window)
+    if wtop <= hi_n and not targets.passes(ev(wtop)):
+        # not monotone after all: fall back to the exact scan
+        return _exact_scan(run, **ctx)
     # a short exact window for figures and to see an earlier pass, if any
     win = run.curve(range(max(lo_n, n - 20), min(hi_n, n + 5) + 1), 1, 0)
     n_first = next((r.n for r in win if targets.passes(r)), n)
+    notes = _formula_note(ctx["nf"], n)
     if n_first != n:
         notes.append(f"the targets first hold at n = {n_first}, and for every larger n checked from n = {n}")
-    notes = _formula_note(ctx["nf"], n) + notes
-    notes.append("exact: computed from the exact law of the sample mean and variance (no Monte Carlo error)")
+    notes.append("exact: computed from the exact law of the sample mean and variance of normal data "
+                 "(no Monte Carlo error); coverage and assurance rise monotonically in n, so the window holds")
     return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=n,
                    reached=True, n_range=(n, n), at=ev(n), stop="exact", exact=True, n_first=n_first,
-                   notes=notes, curve_rows=win)
+                   notes=notes, curve_rows=win, window=window)
 
 
 def _bracket(passes: Callable[[int], bool], start: int, lo_n: int, hi_n: int) -> tuple[int | None, int]:
@@ -626,38 +687,27 @@ def _bracket(passes: Callable[[int], bool], start: int, lo_n: int, hi_n: int) ->
 # simulated paths
 # --------------------------------------------------------------------------
 def _simulated_search(run: _Runner, start: int, budget: int, precision: float, **ctx) -> SearchResult:
-    design, targets, lo_n, hi_n, R = ctx["design"], ctx["targets"], ctx["lo_n"], ctx["hi_n"], ctx["R"]
-    r_pilot = max(min(R, 200), R // 10)
-    r_locate = max(min(R, 500), R // 8)
-    notes: list[str] = []
+    """Bracket, locate, confirm, conclude: each step below is one function."""
+    found = _sim_bracket(run, start, **ctx)
+    if isinstance(found, SearchResult):
+        return found
+    lo, hi = found
+    window = _sim_locate(run, lo, hi, precision, **ctx)
+    pooled, win, stop = _sim_confirm(run, window, budget, precision, **ctx)
+    return _sim_conclude(run, pooled, win, stop, budget, precision, **ctx)
 
-    # -- bracket (pilot replicates, one stream per step)
+
+def _sim_bracket(run: _Runner, start: int, **ctx) -> tuple[int, int] | SearchResult:
+    """(an n that fails, a larger n that passes) on pilot replicates, one stream per step."""
+    targets, lo_n, hi_n, R = ctx["targets"], ctx["lo_n"], ctx["hi_n"], ctx["R"]
+    r_pilot = max(min(R, 200), R // 10)
     step = [0]
 
     def pilot(n: int) -> bool:
         step[0] += 1
         return targets.passes(run.curve([n], r_pilot, STAGE_BRACKET, step[0])[0])
 
-    top_checked: CheckResult | None = None
-    if not pilot(start):
-        lo = start
-        while True:
-            m = min(hi_n, lo * 2)
-            if pilot(m):
-                hi = m
-                break
-            if m == hi_n:
-                # the ceiling fails on the pilot: check it on full, fresh replicates
-                top_checked = run.curve([hi_n], R, rngmod.STAGE_CONFIRM, 0)[0]
-                if not targets.passes(top_checked):
-                    extra = []
-                    if targets.score(top_checked) > -CLEAR_Z:
-                        extra.append(f"at n_max the shortfall is within {CLEAR_Z:g} MCSE: more replicates may show it reached")
-                    return _not_reached(run, ctx, top_checked, None, extra)
-                hi = hi_n
-                break
-            lo = m
-    else:
+    if pilot(start):
         hi, lo = start, None
         while hi > lo_n:
             m = max(lo_n, hi // 2)
@@ -666,146 +716,190 @@ def _simulated_search(run: _Runner, start: int, budget: int, precision: float, *
             else:
                 lo = m
                 break
-    if lo is None:
-        lo = lo_n  # lo_n passes on the pilot; the window starts there
+        return (lo_n if lo is None else lo), hi  # lo_n passing on the pilot: the window starts there
+    lo = start
+    while True:
+        m = min(hi_n, lo * 2)
+        if pilot(m):
+            return lo, m
+        if m == hi_n:
+            # the ceiling fails on the pilot: check it on full, fresh replicates
+            top = run.curve([hi_n], R, rngmod.STAGE_CONFIRM, 0)[0]
+            if targets.passes(top):
+                return lo, hi_n
+            extra = []
+            if targets.score(top) > -CLEAR_Z:
+                extra.append(f"at n_max the shortfall is within {CLEAR_Z:g} MCSE: more replicates may show it reached")
+            return _not_reached(run, ctx, top, None, extra)
+        lo = m
 
-    # -- locate (an eighth of the replicates)
+
+def _sim_locate(run: _Runner, lo: int, hi: int, precision: float, **ctx) -> list[int]:
+    """The confirmation window around the crossing, located on an eighth of the replicates."""
+    targets, lo_n, hi_n, R = ctx["targets"], ctx["lo_n"], ctx["hi_n"], ctx["R"]
+    r_locate = max(min(R, 500), R // 8)
     if run.dense:
         top = min(hi_n, max(hi + 1, int(math.ceil(hi * 1.1))))
-        span = top - lo + 1
-        stride = max(1, int(math.ceil(span / LOCATE_MAX)))
+        stride = max(1, int(math.ceil((top - lo + 1) / LOCATE_MAX)))
         grid = list(range(lo, top + 1, stride))
         if grid[-1] != top:
             grid.append(top)
         rows = run.curve(grid, r_locate, STAGE_LOCATE, 0)
         cand = _crossing(rows, targets)
-        if cand is None:
-            cand = top
-        # the window covers every n the locate stage could not tell from the
-        # boundary, plus a pad: |score| <= 3 sqrt(r_locate / R) at the locate
-        # stage is about 3 MCSE at the full replicates
-        lz = LOCATE_Z * math.sqrt(r_locate / R)
-        band = _band(rows, targets, cand, lz)
+        cand = top if cand is None else cand
+        # the window covers every n the locate stage could not tell from the boundary, plus a pad:
+        # |score| <= 3 sqrt(r_locate / R) at the locate stage is about 3 MCSE at the full replicates
+        band = _band(rows, targets, cand, LOCATE_Z * math.sqrt(r_locate / R))
         w = max(3, int(math.ceil(precision * cand / 2)), stride)
-        window = _dense_window(max(lo_n, min(band) - w), min(hi_n, max(band) + w))
-    else:
-        it = 0
-        a, b = lo, hi
-        b_checked = False
-        while b - a > max(1, int(precision * b / 2)) and it < 8:
-            it += 1
-            k = min(4, b - a - 1)
-            grid = sorted(set(int(round(a + (b - a) * (i + 1) / (k + 1))) for i in range(k)) - {a, b})
-            if not b_checked:
-                grid.append(b)  # the pilot's passing n, once more on more replicates
+        return _dense_window(max(lo_n, min(band) - w), min(hi_n, max(band) + w))
+    it, a, b, b_checked = 0, lo, hi, False
+    while b - a > max(1, int(precision * b / 2)) and it < 8:
+        it += 1
+        k = min(4, b - a - 1)
+        grid = sorted(set(int(round(a + (b - a) * (i + 1) / (k + 1))) for i in range(k)) - {a, b})
+        if not b_checked:
+            grid.append(b)  # the pilot's passing n, once more on more replicates
+        if not grid:
+            break
+        rows = run.curve(grid, r_locate, STAGE_LOCATE, it)
+        if not b_checked:
+            b_checked = True
+            if not targets.passes(rows[-1]) and b < hi_n:
+                a, b, b_checked = b, min(hi_n, 2 * b), False
+                continue
+            grid, rows = grid[:-1], rows[:-1]
             if not grid:
+                continue
+        ok = [targets.passes(r) for r in rows]
+        new_b = b
+        for g, o in zip(reversed(grid), reversed(ok)):
+            if not o:
                 break
-            rows = run.curve(grid, r_locate, STAGE_LOCATE, it)
-            if not b_checked:
-                b_checked = True
-                if not targets.passes(rows[-1]) and b < hi_n:
-                    a, b, b_checked = b, min(hi_n, 2 * b), False
-                    continue
-                grid, rows = grid[:-1], rows[:-1]
-                if not grid:
-                    continue
-            ok = [targets.passes(r) for r in rows]
-            new_b = b
-            for g, o in zip(reversed(grid), reversed(ok)):
-                if o:
-                    new_b = g
-                else:
-                    break
-            fails_below = [g for g, o in zip(grid, ok) if not o and g < new_b]
-            a = max(fails_below) if fails_below else a
-            b = new_b
-        cand = b
-        w = max(1, int(math.ceil(precision * cand / 2)))
-        window = _sparse_window(cand, w, lo_n, hi_n)
+            new_b = g
+        fails_below = [g for g, o in zip(grid, ok) if not o and g < new_b]
+        a, b = (max(fails_below) if fails_below else a), new_b
+    return _sparse_window(b, max(1, int(math.ceil(precision * b / 2))), lo_n, hi_n)
 
-    # -- confirm on fresh replicates, doubling until clear or the budget is spent
-    rnd = 0
-    moves = 0
+
+def _sim_confirm(run: _Runner, win: list[int], budget: int, precision: float, **ctx):
+    """Fresh replicates on the win, doubled (pooled) where the decision is not yet clear."""
+    targets, lo_n, hi_n, R = ctx["targets"], ctx["lo_n"], ctx["hi_n"], ctx["R"]
+    rnd = moves = 0
     pooled: dict[int, CheckResult] = {}
     reps = R
-    stop = ""
     while True:
-        rows = run.curve(window, reps, rngmod.STAGE_CONFIRM, rnd)
-        rnd += 1
-        for r in rows:
+        for r in run.curve(win, reps, rngmod.STAGE_CONFIRM, rnd):
             pooled[r.n] = r if r.n not in pooled else _pool(pooled[r.n], r)
-        cur = [pooled[k] for k in window]
-        ana = _analyse(cur, targets, lo_n, hi_n, precision)
-        if ana["clear"]:
-            stop = "decision clear"
-            break
+        rnd += 1
+        ana = _analyse([pooled[k] for k in win], targets, lo_n, hi_n, precision)
+        if ana["clear"] and _evidence(run, pooled, targets, lo_n, hi_n, precision)["clear"]:
+            return pooled, win, "decision clear"
         # widening only pays while n_range could still come out narrow enough
         widen = any(ana["extend"]) and ana["n_range"] is not None and (
             ana["n_range"][1] - ana["n_range"][0] <= max(1, round(precision * ana["n"])))
         new = None
         if moves < MAX_SHIFTS and (ana["shift"] or widen):
-            # the crossing or an end of n_range lies outside the window: move or widen it
-            new = _move(window, ana["shift"], ana["extend"], lo_n, hi_n, run.dense, precision)
-        if new is not None and new != window:
+            new = _move(win, ana["shift"], ana["extend"], lo_n, hi_n, run.dense, precision)
+        if new is not None and new != win:
             moves += 1
             # n not yet confirmed start at R; the others keep to the doubling schedule
             next_reps = max(R, min((pooled[k].replicates for k in new if k in pooled), default=R))
         else:
-            new = window
-            next_reps = max(pooled[k].replicates for k in window)  # doubling: match the pooled total
+            new = win
+            next_reps = max(pooled[k].replicates for k in win)  # doubling: match the pooled total
         if run.used + run.cost(len(new), next_reps) > budget:
-            stop = "replicate budget spent"
-            break
-        window, reps = new, next_reps
-    cur = [pooled[k] for k in window]
-    ana = _analyse(cur, targets, lo_n, hi_n, precision)
-    n = ana["n"]
-    if n is None:
-        # no n of the window holds the targets on the confirmation
-        if window[-1] >= hi_n:
-            return _not_reached(run, ctx, cur[-1], ana["n_first"])
-        above = [r for r in run.rows if r.n > window[-1] and targets.passes(r)]
-        if not above:
-            return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=None,
-                           reached=False, n_range=None, at=None, stop="replicate budget spent", exact=False,
-                           notes=[f"undecided: the replicate budget ({budget}) was spent before any n was confirmed "
-                                  f"to meet the targets (none of n = {window[0]}..{window[-1]} does on the "
-                                  "confirmation); the targets may still be reached at a larger n: raise the budget"],
-                           curve_rows=cur)
-        best_above = min(above, key=lambda r: (r.n, -r.replicates))
-        n = best_above.n
-        pooled[n] = best_above
-        notes.append("the confirmation found no passing n inside its window before the budget was spent; "
-                     f"n = {n} is the smallest larger n that passed in the exploration, and is uncertain")
-        ana["n_range"] = (window[-1] + 1, n)
-        ana["truncated"] = True
-    if ana["truncated"]:
-        notes.append(f"n_range reaches the edge of the confirmed window ({window[0]}-{window[-1]}): "
-                     "the n consistent with the Monte Carlo error may extend beyond it")
-    pooled_rows = cur
-    at = pooled[n]
-    low, high = ana["n_range"]
-    notes = _formula_note(ctx["nf"], n) + notes
-    total = at.replicates
-    notes.append(
-        f"confirmed on {total} fresh replicates per n, independent of the exploration stages; "
-        f"n_range {low}-{high}: n whose coverage/assurance are within {CLEAR_Z:g} MCSE of the targets"
-    )
+            return pooled, win, "replicate budget spent"
+        win, reps = new, next_reps
+
+
+def _evidence(run: _Runner, pooled: dict, targets: _Targets, lo_n: int, hi_n: int, precision: float) -> dict:
+    """n_range from every simulated evaluation of the search, each n at its best-supported row.
+
+    ``low`` is one above the largest n that clearly fails (score < -2);
+    ``high`` the smallest larger n that clearly passes (score > +2), ``n_max``
+    when none does. Rows in between, or above ``high`` without a clear
+    fail, are consistent with the boundary lying anywhere in ``[low, high]``:
+    no n the evidence cannot tell from the boundary is left out.
+    """
+    best: dict[int, CheckResult] = {}
+    for r in run.rows:
+        if not r.exact and (r.n not in best or r.replicates > best[r.n].replicates):
+            best[r.n] = r
+    best.update(pooled)
+    ns = sorted(best)
+    z = {k: targets.score(best[k]) for k in ns}
+    # many exploration n on few replicates: a stricter bar against chance extremes
+    bar = {k: CLEAR_Z if k in pooled else EXPLORE_Z for k in ns}
+    fails = [k for k in ns if z[k] < -bar[k]]
+    low = max(fails) + 1 if fails else lo_n
+    high = next((k for k in ns if k >= low and z[k] > bar[k]), None)
+    high_found = high is not None
+    high = hi_n if high is None else high
+    low_found = True
+    n_first = next((k for k in ns if targets.passes(best[k])), None)
+    width_ok = high - low <= max(1, round(precision * high))
+    return {"low": low, "high": high, "clear": high_found and low_found and width_ok, "rows": best,
+            "high_found": high_found, "n_first": n_first}
+
+
+def _replicates_needed(ev: dict, precision: float) -> int:
+    """Replicates per n that would likely narrow n_range to the precision (MCSE ~ 1/sqrt(R))."""
+    at = ev["rows"].get(ev["high"])
+    reps = at.replicates if at is not None else max(r.replicates for r in ev["rows"].values())
+    width = max(1, ev["high"] - ev["low"])
+    goal = max(1, round(precision * ev["high"]))
+    need = reps * max(2.0, (width / goal) ** 2)
+    return int(math.ceil(need / 1000.0) * 1000)
+
+
+def _sim_undecided(run: _Runner, ev: dict, cur: list, stop: str, budget: int, precision: float,
+                   **ctx) -> SearchResult:
+    """No evaluated n meets the targets clearly: no n is claimed, the range and the budget are said."""
+    low, hi_n = ev["low"], ctx["hi_n"]
+    notes = [f"undecided: no evaluated n meets the targets by more than {CLEAR_Z:g} MCSE before the replicate "
+             f"budget ({budget}) was spent; the boundary may lie anywhere from n = {low} to n_max = {hi_n}; "
+             "raise the replicates or the budget (see replicates_needed)"]
+    if ev["n_first"] is not None:
+        notes.append(f"the point estimates first meet the targets at n = {ev['n_first']}")
+    at = max(cur, key=lambda r: (ctx["targets"].score(r), r.n))  # the best-supported n of the window
+    return _result(run, design=ctx["design"], targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=None,
+                   reached=False, n_range=(low, hi_n), at=at, stop="replicate budget spent", exact=False,
+                   n_first=ev["n_first"], notes=notes, curve_rows=cur, decision="undecided",
+                   replicates_needed=_replicates_needed(ev, precision))
+
+
+def _sim_conclude(run: _Runner, pooled: dict, win: list[int], stop: str, budget: int, precision: float,
+                  **ctx) -> SearchResult:
+    """n (the conservative end of n_range), the decision and the notes."""
+    design, targets, lo_n, hi_n = ctx["design"], ctx["targets"], ctx["lo_n"], ctx["hi_n"]
+    ev = _evidence(run, pooled, targets, lo_n, hi_n, precision)
+    cur = [pooled[k] for k in win]
+    if not ev["high_found"] and not any(targets.passes(r) for r in cur) and win[-1] >= hi_n:
+        return _not_reached(run, ctx, cur[-1], ev["n_first"])
+    if not ev["high_found"]:
+        return _sim_undecided(run, ev, cur, stop, budget, precision, **ctx)
+    low, n = ev["low"], ev["high"]
+    decision = "clear" if ev["clear"] else "undecided"
+    at = ev["rows"].get(n) or run.curve([n], ctx["R"], rngmod.STAGE_CONFIRM, 99)[0]
+    notes = _formula_note(ctx["nf"], n)
+    if decision == "undecided":
+        notes.insert(0, f"undecided: the Monte Carlo error cannot tell n = {low}..{n} from the boundary; "
+                        f"n = {n} is the conservative end (every evaluated n from it on meets the targets clearly)")
+    notes.append(f"confirmed on {at.replicates} replicates at n; n_range {low}-{n}: n whose coverage/assurance "
+                 f"are within {CLEAR_Z:g} MCSE of the targets, over every n the search evaluated")
     if stop == "replicate budget spent":
         notes.append(f"replicate budget ({budget}) spent before the decision was clear "
                      f"(n_range wider than {max(1, round(precision * n))}); raise the budget or the replicates")
-    if ana["n_first"] is not None and ana["n_first"] != n:
-        notes.append(
-            f"the targets first hold at n = {ana['n_first']} but hold for every larger confirmed n only from n = {n}"
-            " (coverage oscillates in n); n is the latter"
-        )
-    below = [r for r in pooled_rows if r.n < n and not targets.passes(r)]
+    if ev["n_first"] is not None and ev["n_first"] != n:
+        notes.append(f"the point estimates first meet the targets at n = {ev['n_first']}; "
+                     f"n = {n} is the smallest n meeting them clearly there and at every larger n evaluated")
+    below = [r for k, r in sorted(ev["rows"].items()) if k < n and not targets.passes(r)]
     if below:
-        r = below[-1]
-        notes.append(f"at n = {r.n} the targets are missed: {'; '.join(targets.failing(r))}")
+        notes.append(f"at n = {below[-1].n} the targets are missed: {'; '.join(targets.failing(below[-1]))}")
     return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=n,
-                   reached=True, n_range=(low, high), at=at, stop=stop, exact=False, n_first=ana["n_first"],
-                   notes=notes, curve_rows=pooled_rows)
+                   reached=True, n_range=(low, n), at=at, stop=stop, exact=False, n_first=ev["n_first"],
+                   notes=notes, curve_rows=cur + [at], decision=decision,
+                   replicates_needed=None if decision == "clear" else _replicates_needed(ev, precision))
 
 
 def _crossing(rows: Sequence[CheckResult], targets: _Targets) -> int | None:
@@ -934,6 +1028,7 @@ def compare(design: Design, methods: Sequence[str], **kwargs: Any) -> MethodComp
     if not methods:
         raise InputError("method.interval", "compare needs at least one method")
     root, seed = rngmod.root_sequence(kwargs.pop("rng", None))
+    kwargs.setdefault("listed", tuple(methods))
     out = [find_n(design.with_method(m), rng=root, **kwargs) for m in methods]
     reached = [r for r in out if r.reached and r.n is not None]
     best = None

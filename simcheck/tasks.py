@@ -75,6 +75,7 @@ def run_task(
     seed: int | None = None,
     progress: Progress = None,
     fields: Mapping[str, str] | None = None,
+    validate_only: bool = False,
 ):
     """Run ``task`` on ``scenario``.
 
@@ -99,6 +100,9 @@ def run_task(
         ``progress(done, total)``, passed to the engine.
     fields : dict, optional
         Names of the arguments in error messages (the CLI passes ``--n``...).
+    validate_only : bool
+        Check the arguments against the scenario and return None without
+        computing (sweeps check every cell before any runs).
 
     Returns
     -------
@@ -158,6 +162,8 @@ def run_task(
     elif task == "search" and n is not None:
         c.add(names["n"], "not used by task 'search' (it finds n); give n_min / n_max instead")
     c.raise_if_any()
+    if validate_only:
+        return None
 
     root, _ = resolve_seed(scenario, seed)
     if task == "check":
@@ -184,6 +190,7 @@ def run_task(
         n_max=hi,
         budget=scenario.budget,
         progress=progress,
+        window=scenario.window,
     )
     if method is None and len(scenario.methods) > 1:
         fn = search.compare

@@ -71,7 +71,7 @@ def _ref_quantile(pairs, q):
 
 
 def _ref_measures(intervals_and_weights, true, margin):
-    cov = low = high = mean = assure = 0.0
+    cov = low = high = mean = assure = deg = 0.0
     pairs = []
     for (lo, hi), w in intervals_and_weights:
         hw = (hi - lo) / 2
@@ -79,18 +79,23 @@ def _ref_measures(intervals_and_weights, true, margin):
         low += w * (hi < true)
         high += w * (lo > true)
         mean += w * hw
-        assure += w * (hw <= margin)
+        # a zero-width interval that misses (Wald at x = 0 or n) never meets the margin
+        # (issue 12; this reference used to count it as assured)
+        zero = hw == 0 and not (lo <= true <= hi)
+        assure += w * (hw <= margin and not zero)
+        deg += w * zero
         pairs.append((hw, w))
     return {"coverage": cov, "miss_low": low, "miss_high": high, "margin_mean": mean,
             "margin_median": _ref_quantile(pairs, 0.5), "margin_p90": _ref_quantile(pairs, 0.9),
-            "assurance": assure}
+            "assurance": assure, "degenerate_share": deg}
 
 
 def _pmf(x, n, p):
     return math.comb(n, x) * p ** x * (1 - p) ** (n - x)
 
 
-KEYS = ("coverage", "miss_low", "miss_high", "margin_mean", "margin_median", "margin_p90", "assurance")
+KEYS = ("coverage", "miss_low", "miss_high", "margin_mean", "margin_median", "margin_p90", "assurance",
+        "degenerate_share")
 
 
 @pytest.mark.parametrize("name", PROPORTION)
@@ -117,7 +122,10 @@ def test_weighted_quantile_is_smallest_value_reaching_q():
     assert got["margin_median"] == 1.0
     assert got["margin_p90"] == 3.0
     assert got["margin_mean"] == pytest.approx(1.5)
-    assert got["assurance"] == pytest.approx(0.5)
+    # the zero-width interval at x = 0 (probability 1/8) does not meet the margin
+    # (issue 12; this test counted it): P(0 < hw <= 1.5) = 3/8
+    assert got["assurance"] == pytest.approx(0.375)
+    assert got["degenerate_share"] == pytest.approx(0.125)
     assert binomial_measures(widths, 3, 0.5, CONF)["assurance"] is None
 
 
@@ -227,9 +235,12 @@ def test_two_binomial_large_n_is_bounded_and_consistent():
 def test_hypergeometric_measures_equal_a_loop(fpc):
     # Sampling without replacement: X ~ hypergeometric (Cochran 1977, Sampling
     # Techniques, chapter 3); the fpc wrapper scales each limit's distance from
-    # x/n by sqrt((N - n)/(N - 1)).
+    # x/n by sqrt(1 - n/N): the interval's variance is estimated from the sample,
+    # and the estimate v(p) = (1 - n/N) p q / (n - 1) carries 1 - n/N (Cochran 1977,
+    # section 3.2). This test used sqrt((N - n)/(N - 1)), the factor of the true
+    # variance P Q, which does not apply to an estimated one.
     N, K, n, margin = 60, 17, 25, 0.15
-    f = math.sqrt((N - n) / (N - 1)) if fpc else 1.0
+    f = math.sqrt(1 - n / N) if fpc else 1.0
     items = []
     for x in range(0, n + 1):
         w = math.comb(K, x) * math.comb(N - K, n - x) / math.comb(N, n) if x <= K and n - x <= N - K else 0.0

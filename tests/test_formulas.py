@@ -17,6 +17,7 @@ from simcheck.formulas import (
     ceil_robust,
     design_effect_from_icc,
     fpc_n,
+    fpc_variance_factor,
     sample_size,
     t_value,
     welch_df,
@@ -133,15 +134,41 @@ def test_krejcie_morgan_table(N, s, _status):
 
 
 def test_fpc_is_exact_for_sampling_without_replacement():
-    # exact: Var(mean) = S^2/n * (N - n)/(N - 1) (Cochran 1977, Sampling Techniques, eq. 2.8
-    # with S^2 on divisor N-1 replaced by sigma^2 on divisor N); solving z^2 Var = B^2 for n
-    # gives n0 / (1 + (n0 - 1)/N).
-    z, sigma, B, N = stats.norm.ppf(0.975), 12.0, 1.5, 800
-    n = optimize.brentq(lambda n: z**2 * sigma**2 / n * (N - n) / (N - 1) - B**2, 1, N)
-    assert fpc_n(z**2 * sigma**2 / B**2, N) == pytest.approx(n, rel=1e-10)
-    r = sample_size("mean", B, sd=sigma, population_size=N)
+    # Means: Var(mean) = (1 - n/N) S^2 / n with S^2 on divisor N - 1 (Cochran 1977,
+    # Sampling Techniques, 3rd ed., section 2.5; the planning SD of a mean is S, as in
+    # section 4.6): solving z^2 Var = B^2 for n gives n0 / (1 + n0 / N). (This test used
+    # to plan a mean with sigma on divisor N, i.e. the proportion form below: wrong for
+    # Cochran's S.)
+    z, S, B, N = stats.norm.ppf(0.975), 12.0, 1.5, 800
+    n = optimize.brentq(lambda n: z**2 * S**2 / n * (1 - n / N) - B**2, 1, N)
+    n0 = z**2 * S**2 / B**2
+    assert fpc_n(n0, N, "S2") == pytest.approx(n, rel=1e-10)
+    assert n == pytest.approx(n0 / (1 + n0 / N), rel=1e-10)
+    r = sample_size("mean", B, sd=S, population_size=N)
     assert r.n_unrounded == pytest.approx(n, rel=1e-10)
     assert r.n == math.ceil(n)
+    # Proportions: Var(p) = (N - n)/(N - 1) P Q / n (Cochran 1977, section 3.2) gives
+    # n0 / (1 + (n0 - 1) / N) (section 4.4).
+    P = 0.3
+    n = optimize.brentq(lambda n: z**2 * P * (1 - P) / n * (N - n) / (N - 1) - 0.04**2, 1, N)
+    assert fpc_n(z**2 * P * (1 - P) / 0.04**2, N) == pytest.approx(n, rel=1e-10)
+    r = sample_size("proportion", 0.04, p=P, population_size=N)
+    assert r.n_unrounded == pytest.approx(n, rel=1e-10)
+
+
+def test_fpc_variance_factor_forms():
+    # the same law two ways: for 0/1 values P Q = S^2 (N - 1) / N, so
+    # (1 - n/N) S^2 = (N - n)/(N - 1) P Q (Cochran 1977, sections 2.5 and 3.2)
+    N, n = 500, 100
+    pop = np.r_[np.ones(5), np.zeros(495)]
+    S2, PQ = pop.var(ddof=1), pop.var(ddof=0)
+    assert fpc_variance_factor(n, N, "S2") * S2 == pytest.approx(fpc_variance_factor(n, N, "PQ") * PQ, rel=1e-12)
+    assert fpc_variance_factor(n, N, "S2") == pytest.approx(0.8, rel=1e-15)
+    assert fpc_variance_factor(n, N, "PQ") == pytest.approx(400 / 499, rel=1e-15)
+    # the variance of the mean of n units drawn without replacement, by the exact
+    # hypergeometric law (scipy): Var(X/n) with X ~ Hypergeom(N, K, n)
+    v = stats.hypergeom(N, 5, n).var() / n**2
+    assert v == pytest.approx(fpc_variance_factor(n, N, "S2") * S2 / n, rel=1e-12)
 
 
 def test_t_iteration_small_case():
@@ -162,7 +189,9 @@ def test_t_iteration_against_scipy(sd, B, c, N):
     r = sample_size("mean", B, sd=sd, confidence=c, multiplier="t", population_size=N)
 
     def half_width(n):
-        f = 1.0 if N is None else math.sqrt((N - n) / (N - 1))
+        # a mean's planning SD is Cochran's S: half-width factor sqrt(1 - n/N)
+        # (Cochran 1977, section 2.5; was sqrt((N - n)/(N - 1)), the proportion form)
+        f = 1.0 if N is None else math.sqrt(1 - n / N)
         return stats.t.ppf((1 + c) / 2, n - 1) * sd / math.sqrt(n) * f
 
     assert half_width(r.n) <= B * (1 + 1e-9)

@@ -327,7 +327,7 @@ def test_exact_two_proportion_enumeration_cap(tmp_path):
     s = write_toml(tmp_path / "s.toml", table)
     err = one_line_exit_2(*run_cli(["check", s, "--n", 300_000]))
     assert "n:" in err and "over the limit of 5e+06" in err
-    err = one_line_exit_2(*run_cli(["search", s]))
+    err = one_line_exit_2(*run_cli(["curve", s, "--n-values", "1000,400000"]))
     assert "over the limit" in err
 
 

@@ -175,3 +175,55 @@ def test_bootstrap_without_fpc_and_exact_flag():
     p = Design(model=make_model({"model": "bernoulli", "p": 0.3}), estimand="proportion", method="wilson",
                margin=0.05, population=PopulationSpec(size=500))
     assert exact_available(p) and engine.check(p, 50, rng=1).exact
+
+
+# --- the finite population correction of a 0/1 interval (issue 12) -----------
+def _wald_fpc_by_hand(N, K, n, conf, margin):
+    # Written out here (not simcheck): X ~ hypergeom(N, K, n) (scipy); Wald with the
+    # finite population correction p +- z sqrt(1 - n/N) sqrt(p q / n), clipped to
+    # [0, 1] ONCE (Cochran 1977, Sampling Techniques, 3rd ed., section 3.2: the
+    # estimated variance of p carries the factor 1 - n/N). Returns the half-width
+    # law as (value, probability) pairs.
+    z = stats.norm.ppf(0.5 + conf / 2)
+    out = []
+    for x in range(max(0, n - (N - K)), min(n, K) + 1):
+        p = x / n
+        h = z * math.sqrt(1 - n / N) * math.sqrt(p * (1 - p) / n)
+        lo, hi = max(0.0, p - h), min(1.0, p + h)
+        out.append(((hi - lo) / 2, float(stats.hypergeom.pmf(x, N, K, n))))
+    return out
+
+
+def test_fpc_on_0_1_data_is_clipped_once_issue_example(tmp_path):
+    # The issue's example: N = 500, 5 events, n = 100, margin 0.0135. Clip, shrink,
+    # clip again gave half-width 0.0132 at x = 1 and assurance 0.738; clipped once
+    # the half-width at x = 1 is 0.0137 > 0.0135, so only x = 0 (the zero-width
+    # [0, 0]) is within the margin: P(X = 0) = 0.326.
+    N, K, n, margin = 500, 5, 100, 0.0135
+    law = _wald_fpc_by_hand(N, K, n, 0.95, margin)
+    p0 = stats.hypergeom.pmf(0, N, K, n)
+    assert p0 == pytest.approx(0.3259, abs=5e-4)
+    within = sum(w for h, w in law if h <= margin)
+    assert within == pytest.approx(p0, rel=1e-12)  # only the zero-width x = 0
+    from simcheck.engine.exact import hypergeometric_measures
+    from simcheck.intervals import get_method
+
+    got = hypergeometric_measures(get_method("proportion", "wald"), n, N, K, 0.95, margin=margin, fpc=True)
+    assert got["margin_mean"] == pytest.approx(sum(h * w for h, w in law), rel=1e-12)
+    # the engine on a population file holding exactly these 500 units
+    hw = np.array([h for h, _ in law])
+    w = np.array([w for _, w in law])
+    order = np.argsort(hw, kind="stable")
+    cum = np.cumsum(w[order])
+    median = hw[order][np.searchsorted(cum, 0.5)]  # smallest value with P(hw <= value) >= 1/2
+    f = tmp_path / "ledger.csv"
+    f.write_text("unit,flag\n" + "\n".join(f"{i},{int(i < K)}" for i in range(N)) + "\n")
+    d = Design(model=make_model({"model": "bernoulli", "p": 0.5}), estimand="proportion", method="wald",
+               margin=margin, population=PopulationSpec(size=N, file=str(f), column="flag"))
+    r = engine.check(d, n, rng=1)
+    assert r.exact and r.true_value == K / N
+    assert r.margin_mean == pytest.approx(sum(h * w for h, w in law), rel=1e-12)
+    assert r.margin_median == pytest.approx(median, rel=1e-12)
+    sim = engine.check(d, n, replicates=20_000, rng=1, path="full")
+    se = math.sqrt(sum(h * h * w for h, w in law) - r.margin_mean**2) / math.sqrt(20_000)
+    _within(sim.margin_mean, r.margin_mean, se)

@@ -184,12 +184,16 @@ def test_report_documents(study, written):
 def test_methods_paragraph_names_seed_replicates_and_n(study):
     text = methods_paragraph(study)
     assert str(SEED) in text
-    assert f"{R:,} independent samples" in text
+    assert f"at least {R:,} per n" in text
     assert "n = 140" in text  # the formula n
     assert "smallest such n was 480" in text and "smallest such n was 180" in text
-    assert "We chose n = 180" in text  # the method needing the least n
-    chk = study.checks["cox"]
-    assert f"coverage {chk.coverage:.3f}, MCSE {chk.coverage_mcse:.3f}" in text
+    # the method needing the fewest n is named, not chosen for the reader
+    assert "Cox lognormal interval needed the fewest observations (n = 180)" in text
+    assert "We chose" not in text
+    # the quoted figures are the search's own, with the replicates behind them
+    r, chk = study.searches["cox"], study.checks["cox"]
+    assert f"coverage {r.coverage:.3f}, MCSE {r.coverage_mcse:.3f}" in text
+    assert f"from {chk.replicates:,} fresh samples at that n, {r.replicates_used:,} simulated in the whole search" in text
     assert "lognormal distribution with mean 6 and CV 1" in text
     assert "`" not in text  # pasted into a manuscript: no Markdown marks
 
@@ -221,7 +225,7 @@ def test_sweep_figure_small_multiples():
     fig = F.sweep_figure(pd.DataFrame(rows))
     visible = [ax for ax in fig.axes if ax.get_visible()]
     assert len(visible) == 2  # one panel per confidence level
-    assert [ax.get_title(loc="left") for ax in visible] == ["target.confidence = 0.9", "target.confidence = 0.95"]
+    assert [ax.get_title(loc="left") for ax in visible] == ["Confidence level = 0.9", "Confidence level = 0.95"]
     labels = [t.get_text() for t in fig.legends[0].get_texts()]
     assert labels == ["formula n", "cox interval", "t interval"]
 
@@ -324,7 +328,9 @@ estimand = "mean"
 confidence = 0.95
 margin = 2.0
 assurance = 0.5
-coverage_tolerance = 0.01
+# 0.03: with 1,000 replicates a coverage target of 0.94 cannot be told from the t interval's
+# plateau near 0.943, so the search would (rightly) end undecided
+coverage_tolerance = 0.03
 [data]
 model = "gamma"
 mean = 10.0
@@ -365,10 +371,15 @@ def test_report_cli_on_a_scenario(scenario_report):
     assert set(rows) == {"t", "johnson-t"}
     md = (d / "out" / "report.md").read_text(encoding="utf-8")
     para = summary["methods_paragraph"]
-    assert para in md and "4242" in para and "1,000 independent samples" in para
+    assert para in md and "4242" in para and "at least 1,000 per n" in para
     for m, r in rows.items():
-        if r["reached"]:
+        assert r["decision"] in ("clear", "undecided", "not reached")
+        if r["reached"] and r["decision"] == "clear":
             assert f"smallest such n was {r['n_found']:,}" in para
+        elif r["decision"] == "undecided":
+            # the status comes before the number
+            i = para.index(f"With the {'Student t' if m == 't' else 'skewness-corrected (Johnson) t'} interval")
+            assert para.index("undecided", i) < para.index(f"n = {r['n_found']:,}", i)
     for paths in obj["report"]["figures"].values():
         _assert_valid_files({k: Path(v) for k, v in paths.items()})
 

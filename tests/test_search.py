@@ -115,13 +115,12 @@ def brute_force_pass(p, margin, assurance, n_values, conf=CONF, tol=0.005):
 
 
 def test_wilson_exact_path_equals_brute_force_scan():
-    p, margin, n_min, n_max = 0.1, 0.12, 5, 220
-    ok = brute_force_pass(p, margin, 0.5, range(n_min, n_max + 1))
+    p, margin, n_min, n_max = 0.07, 0.09, 5, 400
     ns = list(range(n_min, n_max + 1))
-    first = ns[ok.index(True)]
-    # smallest n from which the target holds for every larger n up to n_max
-    last_fail = max(i for i, o in enumerate(ok) if not o)
-    stable = ns[last_fail + 1]
+    ok = dict(zip(ns, brute_force_pass(p, margin, 0.5, ns)))
+    first = next(n for n in ns if ok[n])
+    # the window criterion: every n in [n, ceil(1.25 n)] meets the targets
+    stable = next(n for n in ns if math.ceil(1.25 * n) <= n_max and all(ok[k] for k in range(n, math.ceil(1.25 * n) + 1)))
     assert first != stable  # coverage oscillates here (Brown, Cai & DasGupta 2001, Fig. 1)
     res = find_n(bernoulli_design(p, margin, "wilson"), rng=1, n_min=n_min, n_max=n_max)
     assert res.exact and res.reached
@@ -317,6 +316,11 @@ def test_cli_json_contract(tmp_path):
     assert obj["n_range"][0] <= obj["n"] <= obj["n_range"][1]
     assert set(obj["targets"]) >= {"confidence", "coverage_tolerance", "coverage_target", "margin", "assurance"}
     assert obj["seed"] == 9
+    # one method: every old key, plus by_method (a list of one) and best
+    assert [r["method"] for r in obj["by_method"]] == ["t"] and obj["best"] == "t"
+    assert obj["by_method"][0]["n"] == obj["n"]
+    assert obj["decision"] in ("clear", "undecided") and obj["criterion"] == "crossing" and obj["criterion_text"]
+    assert "n_first" in obj and "replicates_needed" in obj
     code2, out2, _ = run_cli(["search", str(path), "--json", "--replicates", "500", "--seed", "9"])
     assert json.loads(out2) == obj  # reproducible from the seed
 
@@ -324,6 +328,7 @@ def test_cli_json_contract(tmp_path):
     code, out, _ = run_cli(["search", str(multi), "--json", "--replicates", "500"])
     obj = json.loads(out)
     assert code == 0 and set(obj) == {"by_method", "best"}
+    assert all(r["decision"] in ("clear", "undecided") and r["criterion"] for r in obj["by_method"])
     assert [r["method"] for r in obj["by_method"]] == ["t", "johnson-t"]
     assert all(SEARCH_KEYS <= set(r) for r in obj["by_method"])
     assert obj["best"] in ("t", "johnson-t")
@@ -332,13 +337,15 @@ def test_cli_json_contract(tmp_path):
     code, out, _ = run_cli(["search", str(p), "--json", "--seed", "2"])
     obj = json.loads(out)
     assert code == 0 and obj["n"] is None and obj["reached"] is False and obj["methods_that_reach"]
+    assert any("not among your methods" in t for t in obj["notes"])
 
 
 def test_cli_text_and_bad_budget(tmp_path):
     path = write_scenario(tmp_path, "m.toml", MEAN_TOML.format(interval='"t"'))
     code, out, _ = run_cli(["search", str(path), "--replicates", "500", "--budget", "20000"])
     assert code == 0
-    for word in ("n found:", "n range:", "formula n:", "coverage:", "assurance:", "stopped:", "statistician"):
+    for word in ("n found:", "n range:", "formula n:", "coverage:", "assurance:", "stopped:", "statistician",
+                 "decision:", "criterion:"):
         assert word in out
     code, out, err = run_cli(["search", str(path), "--budget", "5"])
     assert code == 2 and out == ""

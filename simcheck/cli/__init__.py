@@ -11,10 +11,10 @@ import os
 import sys
 
 from simcheck import __version__
-from simcheck.cli.common import Parser, UsageError
+from simcheck.cli.common import Parser, UsageError, error_line, suggest, unknown_options
 from simcheck.errors import InputError
 
-COMMANDS = ["formula", "check", "curve", "search", "sweep", "export", "report", "demo"]
+COMMANDS = ["formula", "check", "curve", "search", "sweep", "export", "store", "report", "demo"]
 
 
 def build_parser() -> Parser:
@@ -43,7 +43,13 @@ def build_parser() -> Parser:
 def main(argv: list[str] | None = None) -> int:
     try:
         parser = build_parser()
-        args = parser.parse_args(argv)
+        argv = sys.argv[1:] if argv is None else list(argv)
+        if argv and not argv[0].startswith("-") and argv[0] not in COMMANDS:
+            raise UsageError(error_line(f"unknown command {argv[0]!r}{suggest(argv[0], COMMANDS) or ''}; "
+                                        f"commands: {', '.join(COMMANDS)}"))
+        args, extras = parser.parse_known_args(argv)
+        if extras:
+            raise unknown_options(parser, getattr(args, "command", None), extras)
         if not getattr(args, "command", None):
             parser.print_help(sys.stderr)
             return 2
@@ -52,15 +58,15 @@ def main(argv: list[str] | None = None) -> int:
         sys.stderr.write(f"{exc}\n")
         return 2
     except InputError as exc:
-        sys.stderr.write(f"simcheck: error: {exc.one_line()}\n")
+        sys.stderr.write(error_line(exc.one_line()) + "\n")
         return 2
     except KeyboardInterrupt:
-        sys.stderr.write("simcheck: interrupted\n")
+        sys.stderr.write(error_line("interrupted") + "\n")
         return 130
     except BrokenPipeError:
         return 0
     except Exception as exc:  # the contract: exit 1, one line, no traceback
         if os.environ.get("SIMCHECK_DEBUG"):
             raise
-        sys.stderr.write(f"simcheck: unexpected failure: {type(exc).__name__}: {exc}\n")
+        sys.stderr.write(error_line(f"unexpected failure: {type(exc).__name__}: {exc}") + "\n")
         return 1

@@ -71,9 +71,15 @@ def run(args: argparse.Namespace) -> int:
 
 
 def run_seed(scenario, seed: int | None) -> int:
-    """The run's root seed; when neither --seed nor the file gives one, draw it and say so."""
+    """The run's root seed; when neither --seed nor the file gives one, draw it and say so.
+
+    Also prints the scenario's notices (implausible values, settings not used)
+    on stderr: every computing command calls this right after loading.
+    """
     from simcheck.tasks import resolve_seed
 
+    for t in getattr(scenario, "notices", ()):
+        note(f"simcheck: {t}")
     root, drawn = resolve_seed(scenario, seed)
     if drawn:
         note(f"simcheck: no seed given; using seed {root} (add --seed {root} to repeat this run)")
@@ -152,15 +158,13 @@ def report(scenario, rows: Sequence[Any]) -> str:
     elif any(r.exact for r in rows):
         lines.append("* exact: computed by enumeration or exact law, not simulation (MCSE 0).")
     lines.append(f"coverage = share of intervals that contain the true value (nominal {d.confidence:.4g}); "
-                 f"assurance = share with half-width <= {_g(d.margin, 6)}.")
+                 f"assurance = share with half-width <= {_g(d.margin, 6)} "
+                 "(zero-width intervals that miss the true value do not count).")
     notes: list[str] = []
     for r in rows:
-        for t in r.notes:
+        for t in r.notes:  # zero-width (degenerate) intervals are named in the notes
             if t not in notes:
                 notes.append(t)
-        if r.degenerate:
-            t = f"n = {r.n}: {r.degenerate} replicates gave a degenerate interval"
-            notes.append(t)
     for t in notes:
         lines.append(f"note: {t}")
     lines.append("")
@@ -208,12 +212,74 @@ class Progress:
         self.stream.flush()
 
     def close(self) -> None:
+        """Remove the bar (it never stays above or below the results printed next)."""
         if self.bar is not None:
             self.bar.close()
             self.bar = None
+            self.stream.flush()
 
     def __enter__(self) -> "Progress":
         return self
 
     def __exit__(self, *exc) -> None:
         self.close()
+
+
+class SearchProgress(Progress):
+    """Progress of a whole search: which evaluation (stage) it is in and how much it has simulated overall.
+
+    The search runs many engine evaluations one after another (bracketing, the
+    whole-curve location, confirmations on fresh replicates), each reporting
+    ``progress(done, total)`` from zero; a bar per evaluation would jump back
+    and forth. Here a new evaluation is recognised when ``done`` falls back or
+    ``total`` changes; the line shows the stage number and the replicates
+    simulated so far (and their share of the budget when it is known).
+    ``progress(done, total, stage="confirm")`` names the stage when the search
+    passes one.
+    """
+
+    def __init__(self, budget: int | None = None, **kwargs: Any) -> None:
+        super().__init__(**kwargs)
+        self.budget = budget
+        self.stage = 0
+        self.stage_name: str | None = None
+        self.base = 0
+        self.prev = (0, -1)
+
+    def overall(self, done: int, total: int, stage: str | None = None) -> int:
+        """Replicates simulated so far over all evaluations (and move to a new stage when one starts)."""
+        p_done, p_total = self.prev
+        if total != p_total or done < p_done or (stage is not None and stage != self.stage_name):
+            self.base += max(p_done, 0) if p_total >= 0 else 0
+            self.stage += 1
+            self.stage_name = stage
+        self.prev = (done, total)
+        return self.base + done
+
+    def describe(self, done: int, total: int) -> str:
+        what = f"stage {self.stage}" + (f" ({self.stage_name})" if self.stage_name else "")
+        share = f" {100.0 * done / total:.0f}%" if total else ""
+        return f"search {what}{share}"
+
+    def __call__(self, done: int, total: int, stage: str | None = None) -> None:
+        overall = self.overall(done, total, stage)
+        now = time.monotonic()
+        elapsed = now - self.start
+        if self.tty:
+            if self.bar is None:
+                if elapsed < self.delay:
+                    return
+                from tqdm import tqdm
+
+                self.bar = tqdm(total=self.budget, file=self.stream, unit="rep", leave=False, dynamic_ncols=True)
+            self.bar.set_description(self.describe(done, total), refresh=False)
+            self.bar.n = min(overall, self.budget) if self.budget else overall
+            self.bar.refresh()
+            return
+        if elapsed < self.quiet or (self.last is not None and now - self.last < self.every):
+            return
+        self.last = now
+        of = f" ({100.0 * overall / self.budget:.0f}% of the budget {self.budget:,})" if self.budget else ""
+        self.stream.write(f"simcheck: {self.describe(done, total)}; {overall:,} replicates simulated so far{of}, "
+                          f"{elapsed:.0f} s\n")
+        self.stream.flush()

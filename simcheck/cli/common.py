@@ -10,15 +10,61 @@ from typing import Any
 from simcheck.results import clean_json
 
 
+#: The one prefix of every error line the command writes.
+ERROR_PREFIX = "simcheck: error: "
+
+
 class UsageError(Exception):
     """A command-line usage problem (exit 2, one line)."""
 
 
+def error_line(message: str) -> str:
+    """One error line with the common prefix (never doubled)."""
+    text = " ".join(str(message).split())
+    return text if text.startswith(ERROR_PREFIX) else ERROR_PREFIX + text
+
+
 class Parser(argparse.ArgumentParser):
-    """ArgumentParser whose errors are one line on stderr and exit code 2."""
+    """ArgumentParser whose errors are one line on stderr and exit code 2.
+
+    Abbreviated options are refused (``--rep`` is not ``--replicates``): an
+    abbreviation silently changes meaning when a new option is added, and an
+    unknown option gets a "did you mean" suggestion instead.
+    """
+
+    def __init__(self, *args: Any, **kwargs: Any) -> None:
+        kwargs.setdefault("allow_abbrev", False)
+        super().__init__(*args, **kwargs)
 
     def error(self, message: str) -> None:  # noqa: D401
-        raise UsageError(f"{self.prog}: {message}")
+        where = self.prog.removeprefix("simcheck").strip()
+        hint = f" (see simcheck {where} --help)" if where else " (see simcheck --help)"
+        raise UsageError(error_line(f"{where + ': ' if where else ''}{message}{hint}"))
+
+    def option_names(self) -> list[str]:
+        return [o for a in self._actions for o in a.option_strings if o.startswith("--")]
+
+
+def suggest(word: str, choices: list[str]) -> str:
+    """' (did you mean --replicates?)' for the closest choice, or ''."""
+    import difflib
+
+    close = difflib.get_close_matches(word.split("=")[0], choices, n=1, cutoff=0.6)
+    return f" (did you mean {close[0]}?)" if close else ""
+
+
+def unknown_options(parser: "Parser", command: str | None, extras: list[str]) -> UsageError:
+    """The usage error for arguments no parser took, with a suggestion for the first unknown option."""
+    sub = None
+    for a in parser._actions:  # the sub-command's own parser knows its options
+        if isinstance(a, argparse._SubParsersAction) and command in a.choices:
+            sub = a.choices[command]
+    names = sub.option_names() if isinstance(sub, Parser) else parser.option_names()
+    first = next((e for e in extras if e.startswith("-")), extras[0])
+    where = f"{command}: " if command else ""
+    see = f" (see simcheck {command} --help)" if command else " (see simcheck --help)"
+    hint = suggest(first, names) if first.startswith("-") else ""
+    return UsageError(error_line(f"{where}unrecognized arguments: {' '.join(extras)}{hint or see}"))
 
 
 def add_json(p: argparse.ArgumentParser) -> None:

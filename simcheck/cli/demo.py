@@ -44,6 +44,7 @@ def scenario_text() -> str:
 
 def run(args: argparse.Namespace) -> int:
     from simcheck import report as rep
+    from simcheck.report.text import STATUS_TEXT, decision_status, fmt_estimate
     from simcheck.scenario import load_scenario
 
     if args.show_scenario:
@@ -63,8 +64,10 @@ def run(args: argparse.Namespace) -> int:
         "n_formula": study.n_formula,
         "coverage_at_formula_n": {m: _cov(c) for m, c in study.formula_checks.items()},
         "n_found": {m: s.n for m, s in study.searches.items()},
-        "coverage_at_n_found": {m: _cov(c) for m, c in study.checks.items()},
+        "decision": {m: decision_status(s) for m, s in study.searches.items()},
+        "coverage_at_n_found": {m: _found(s) for m, s in study.searches.items()},
         "best": study.best,
+        "fewest_n": study.fewest_n(),
         "replicates": study.replicates,
         "seed": study.seed,
         "report": files.to_dict(),
@@ -81,19 +84,28 @@ def run(args: argparse.Namespace) -> int:
         out.append(f"  coverage at n = {c.n} with {m}: {c.coverage:.4f} (MCSE {c.coverage_mcse:.4f}), "
                    f"assurance {c.assurance:.3f}")
     for m, s in study.searches.items():
-        if s.reached:
-            c = study.checks.get(m)
-            cov = "" if c is None else f": coverage {c.coverage:.4f} (MCSE {c.coverage_mcse:.4f})"
-            out.append(f"n found with {m}: {s.n}{cov}")
+        status = decision_status(s)
+        if s.n is not None:
+            cov = "" if s.coverage is None else f", coverage {fmt_estimate(s.coverage, s.coverage_mcse, s.exact)}"
+            lead = "" if status == "clear" else f"{STATUS_TEXT[status]}: "
+            out.append(f"n found with {m}: {lead}{s.n:,}{cov}")
         else:
-            out.append(f"n found with {m}: none up to {study.n_max}")
-    if study.best:
-        out.append(f"needs the least n: {study.best}")
+            out.append(f"n found with {m}: {STATUS_TEXT.get(status, status)} (none up to {study.n_max:,})")
+    if study.fewest_n():
+        out.append(f"needs the fewest n: {', '.join(study.fewest_n())}")
     out.append(f"report: {files.html} (and report.md, figures/) in {seconds:.0f} s")
     out.append("")
     out.append(CAUTION)
     sys.stdout.write("\n".join(out) + "\n")
     return 0
+
+
+def _found(s) -> dict:
+    """The search's own confirmation figures at the n found."""
+    from simcheck.report.text import decision_status
+
+    return {"n": s.n, "coverage": s.coverage, "coverage_mcse": s.coverage_mcse, "assurance": s.assurance,
+            "decision": decision_status(s), "replicates_used": s.replicates_used}
 
 
 def _cov(c) -> dict:

@@ -11,6 +11,10 @@ from simcheck.cli.common import add_json, add_sim_overrides, emit_json, note
 from simcheck.cli.options import add_allow_outside
 
 
+#: file kinds people hand to `report` by mistake (pilot data, exported tables)
+DATA_SUFFIXES = (".csv", ".tsv", ".txt", ".parquet", ".json", ".xlsx", ".xls")
+
+
 def add_parser(subparsers) -> None:
     p = subparsers.add_parser(
         "report",
@@ -53,6 +57,9 @@ def run(args: argparse.Namespace) -> int:
         if exc.problems[0].message == "no such file":
             raise InputError("SCENARIO|STORE", f"file not found: {src}") from None
         raise
+    if not rep.is_store(src) and src.suffix.lower() in DATA_SUFFIXES:
+        raise InputError("SCENARIO|STORE", f"{src.name} is a {src.suffix.lower()[1:].upper()} data file; report expects "
+                                           "a scenario file (.toml) or a sweep store (.sqlite)")
     rep.check_out_dir_usable(args.out)
     if rep.is_store(src) and overrides(args):
         raise InputError("--replicates/--seed", "apply to a scenario file, not to a sweep store")
@@ -66,21 +73,22 @@ def run(args: argparse.Namespace) -> int:
 
 def text_summary(files, results) -> str:
     from simcheck.report import StudyResults
+    from simcheck.report.text import STATUS_TEXT, decision_status, fmt_estimate
 
     lines = [results.title, ""]
     if isinstance(results, StudyResults):
         lines.append(f"formula n:   {results.n_formula if results.n_formula is not None else '-'}")
         for m in results.methods:
             s = results.searches.get(m)
-            c = results.checks.get(m)
             if s is None:
                 continue
-            if s.reached:
-                cov = "" if c is None else (f"  coverage {c.coverage:.4f} (exact)" if c.exact
-                                            else f"  coverage {c.coverage:.4f} (MCSE {c.coverage_mcse:.4f})")
-                lines.append(f"n found:     {s.n} with {m}{cov}")
+            status = decision_status(s)
+            lead = "" if status == "clear" else f"{STATUS_TEXT[status]}: "
+            if s.n is not None:
+                cov = "" if s.coverage is None else f"  coverage {fmt_estimate(s.coverage, s.coverage_mcse, s.exact)}"
+                lines.append(f"n found:     {lead}{s.n:,} with {m}{cov}")
             else:
-                lines.append(f"n found:     none up to {results.n_max} with {m}")
+                lines.append(f"n found:     {lead}none up to {results.n_max:,} with {m}")
     else:
         lines.append(f"cells:       {results.to_dict()['cells']} (task {results.task})")
     lines.append(f"report:      {files.html}")

@@ -8,8 +8,8 @@ from typing import Any
 
 from simcheck import CAUTION
 from simcheck.cli.common import add_json, add_sim_overrides, emit_json, table
+from simcheck.cli.check import CLI_FIELDS, SearchProgress, add_method_option, run_seed
 from simcheck.cli.options import add_allow_outside
-from simcheck.cli.check import CLI_FIELDS, Progress, add_method_option, run_seed
 from simcheck.errors import Collector
 
 BUDGET_MIN, BUDGET_MAX = 100, 10**12
@@ -56,14 +56,26 @@ def run(args: argparse.Namespace) -> int:
     c.raise_if_any()
     scenario = load_scenario(args.scenario, overrides or None, allow_outside_files=args.allow_outside_files)
     seed = run_seed(scenario, args.seed)
-    with Progress() as prog:
+    with SearchProgress(budget=overrides.get("simulation.budget", getattr(scenario, "budget", None))) as prog:
         res = run_task(scenario, "search", n_min=args.n_min, n_max=args.n_max, method=args.method,
                        replicates=args.replicates, seed=seed, progress=prog, fields=CLI_FIELDS)
     if args.json:
-        emit_json(res.to_dict())
+        emit_json(json_object(res))
         return 0
     sys.stdout.write(report(scenario, res) + "\n")
     return 0
+
+
+def json_object(res) -> dict:
+    """The search JSON: one method keeps every key of its result and adds ``by_method`` and ``best``."""
+    from simcheck.results import MethodComparison
+
+    if isinstance(res, MethodComparison):
+        return res.to_dict()
+    d = res.to_dict()
+    d["by_method"] = [res.to_dict()]
+    d["best"] = res.method if res.reached else None
+    return d
 
 
 # --- readable output ------------------------------------------------------------
@@ -113,11 +125,14 @@ def _one(r, design) -> list[str]:
     lines = []
     if r.reached:
         nb = f"   (group b: n_b = {r.n_b})" if r.n_b is not None else ""
-        lines.append(f"n found:     {r.n}{nb}")
+        head = "UNDECIDED, conservative end: " if r.decision == "undecided" else ""
+        lines.append(f"n found:     {head}{r.n}{nb}")
         lines.append(f"n range:     {_range(r)}   (n consistent with the Monte Carlo error)"
                      if not r.exact else f"n range:     {_range(r)}   (exact: no Monte Carlo error)")
-        if r.n_first is not None:
-            lines.append(f"first n:     {r.n_first}   (the targets first hold here, but not for every larger n)")
+        if r.n_first is not None and r.n_first != r.n:
+            lines.append(f"first n:     {r.n_first}   (the targets first hold here)")
+    elif r.stop_reason == "window reaches n_max":
+        lines.append("n found:     UNDECIDED within n_max: the window of the candidate n reaches past n_max")
     elif _undecided(r):
         lines.append("n found:     UNDECIDED: the replicate budget was spent before any n was confirmed")
     else:
@@ -138,12 +153,16 @@ def _one(r, design) -> list[str]:
         if r.best_coverage is not None:
             lines.append(f"best:        coverage {_p(r.best_coverage)} at n = {r.best_coverage_n}")
         if r.methods_that_reach:
-            lines.append(f"suggested:   methods that reach the targets here: {', '.join(r.methods_that_reach)}")
+            lines.append(f"suggested:   methods that reach the targets here (not among your methods): "
+                         f"{', '.join(r.methods_that_reach)}")
         else:
             lines.append("suggested:   no other interval method in simcheck reaches the targets by n_max")
     sim = "exact (no simulation)" if r.exact else f"{r.replicates_used} replicates simulated"
     lines.append(f"run:         {sim}, seed {r.seed}, method {r.method}")
     lines.append(f"stopped:     {r.stop_reason}")
+    lines.append(f"decision:    {r.decision}" + (f"   (about {r.replicates_needed} replicates per n would settle it)"
+                                                  if r.replicates_needed else ""))
+    lines.append(f"criterion:   {r.criterion}: {r.criterion_text}")
     for t in r.notes:
         lines.append(f"note: {t}")
     return lines
@@ -161,7 +180,7 @@ def report(scenario, res) -> str:
         lines.append(_targets_line(first.targets))
         lines.append("")
         headers = ["method", "n", "n range", "formula n", "n/formula", "coverage", "+/- mcse",
-                   "assurance", "+/- mcse", "stopped"]
+                   "assurance", "+/- mcse", "decision", "stopped"]
         rows = []
         for r in res.by_method:
             rows.append([
@@ -169,19 +188,25 @@ def report(scenario, res) -> str:
                 "-" if r.n_formula is None else str(r.n_formula),
                 "-" if r.ratio_to_formula is None else f"{r.ratio_to_formula:.2f}",
                 _p(r.coverage), "exact" if r.exact else _p(r.coverage_mcse),
-                _p(r.assurance), "exact" if r.exact else _p(r.assurance_mcse), r.stop_reason,
+                _p(r.assurance), "exact" if r.exact else _p(r.assurance_mcse), r.decision, r.stop_reason,
             ])
         lines.append(table(headers, rows))
+        crit = {(r.criterion, r.criterion_text) for r in res.by_method}
+        for name, text in sorted(crit):
+            lines.append(f"criterion:   {name}: {text}")
         lines.append("")
         if res.best is not None:
             lines.append(f"best:        {res.best} (needs the least n; ties broken by coverage)")
+        elif any(_undecided(r) for r in res.by_method):
+            lines.append("best:        undecided (the replicate budget was spent before every method was decided)")
         else:
             lines.append("best:        none of the methods reaches the targets by n_max")
         for r in res.by_method:
             if not r.reached and _undecided(r):
                 lines.append(f"{r.method}: undecided (replicate budget spent before any n was confirmed)")
             elif not r.reached:
-                sug = ", ".join(r.methods_that_reach) or "none"
+                mine = {x.method for x in res.by_method}
+                sug = ", ".join(m if m in mine else f"{m} (not among your methods)" for m in r.methods_that_reach) or "none"
                 lines.append(f"{r.method}: not reached by n_max (best coverage {_p(r.best_coverage)} at n = "
                              f"{r.best_coverage_n}); methods that reach it: {sug}")
         for r in res.by_method:

@@ -7,7 +7,7 @@ import signal
 import sys
 import time
 
-from simcheck.cli.common import add_json, emit_json, note
+from simcheck.cli.common import add_json, emit_json, error_line, note
 from simcheck.cli.options import add_allow_outside
 
 # Plain progress lines (stderr not a terminal) at most this often, in seconds.
@@ -81,6 +81,35 @@ class _Progress:
             self.bar = None
 
 
+def resume_command(args: argparse.Namespace) -> str:
+    """The command that resumes this sweep: the same arguments, --jobs and the backend included."""
+    import shlex
+
+    parts = ["simcheck", "sweep", args.sweep, "--store", args.store]
+    if getattr(args, "jobs", 1) != 1:
+        parts += ["--jobs", str(args.jobs)]
+    if getattr(args, "backend", None):
+        parts += ["--backend", args.backend]
+    if getattr(args, "scheduler", None):
+        parts += ["--scheduler", args.scheduler]
+    return " ".join(shlex.quote(str(p)) for p in parts)
+
+
+class _Checking:
+    """Progress of the check of every cell before the run (only for grids that take a while)."""
+
+    def __init__(self) -> None:
+        self.t0 = self.last = time.monotonic()
+
+    def __call__(self, done: int, total: int) -> None:
+        now = time.monotonic()
+        if done == 0 and total >= 2000:
+            note(f"sweep: checking all {total:,} cells before anything runs")
+        elif now - self.last >= 10.0:
+            self.last = now
+            note(f"sweep: checked {done:,} of {total:,} cells")
+
+
 def _duration(seconds: float) -> str:
     if seconds != seconds:
         return "?"
@@ -136,7 +165,7 @@ def run(args: argparse.Namespace) -> int:
         note("sweep: note: --jobs is not used with --backend dask; every worker thread of the cluster runs cells")
     _version_notice(args.store)
     old = signal.signal(signal.SIGTERM, _sigterm)
-    resume = f"run the same command again to resume: simcheck sweep {args.sweep} --store {args.store}"
+    resume = f"run the same command again to resume: {resume_command(args)}"
     try:
         sweep = args.sweep
         if args.allow_outside_files:
@@ -146,18 +175,19 @@ def run(args: argparse.Namespace) -> int:
         summary = run_sweep(
             sweep, args.store, jobs=args.jobs, backend=backend, scheduler=args.scheduler,
             on_start=progress.start, on_cell=on_cell,
+            on_notice=lambda line: note(f"sweep: note: {line}"), on_validate=_Checking(),
         )
     except SweepInterrupted as exc:
         progress.close()
         s = exc.summary
-        note(f"simcheck: interrupted: {s.stored_ok} of {s.cells_total} cells are stored in {s.store}; {resume}")
+        note(error_line(f"interrupted: {s.stored_ok} of {s.cells_total} cells are stored in {s.store}; {resume}"))
         if args.json:
             emit_json(s.to_dict())
         return 130
     except SweepAborted as exc:
         progress.close()
         s = exc.summary
-        note(f"simcheck: sweep stopped: {exc}; {s.stored_ok} of {s.cells_total} cells are stored in {s.store}; {resume}")
+        note(error_line(f"sweep stopped: {exc}; {s.stored_ok} of {s.cells_total} cells are stored in {s.store}; {resume}"))
         if args.json:
             emit_json(s.to_dict())
         return 1

@@ -33,7 +33,9 @@ Finite populations (``design.population``)
     the population mean (K / N for 0/1 populations), not the model mean.
     With ``population.fpc`` the half-width of ``t``, ``z``, ``johnson-t`` and
     the proportion methods is multiplied by sqrt(1 - n/N) about the point
-    estimate (proportions then clipped to [0, 1]); ``z`` uses the
+    estimate (:func:`simcheck.formulas.fpc_variance_factor`; proportions
+    through :func:`simcheck.engine.exact.with_fpc`: Wald and Agresti--Coull
+    before their clipping, all clipped to [0, 1] once); ``z`` uses the
     population's S (divisor N - 1). Proportion methods on a 0/1 population
     are exact by hypergeometric enumeration.
 
@@ -44,10 +46,10 @@ block and piece sizes depend only on the design and n, so ``chunk_bytes``
 (accepted for the engine's signature) never changes results: memory is
 bounded by the pieces.
 
-Helpers reused from :mod:`simcheck.engine`: ``_Acc`` (with ``_mcse``),
-``_columns``, ``_moments``, ``_summary``, ``_counts``,
-``_row_from_measures``, ``_exact``, ``_notes``. From :mod:`simcheck.exact`:
-``hypergeometric_measures`` and ``_measures``.
+Measures go through :mod:`simcheck.engine.measures` (``Accumulator``,
+``row_from_measures``); exact enumerations through :mod:`simcheck.engine.exact`
+(``hypergeometric_measures``, ``weighted_measures``, ``with_fpc``); the finite
+population correction is :func:`simcheck.formulas.fpc_variance_factor`.
 
 References
 ----------
@@ -76,6 +78,7 @@ from simcheck.engine import simple as eng
 from simcheck import rng as rngmod
 from simcheck.design import Design
 from simcheck.errors import Collector, InputError
+from simcheck.formulas import fpc_variance_factor
 from simcheck.intervals import Summary, get_method
 from simcheck.intervals.base import Method
 from simcheck.intervals.cluster import ClusterSums
@@ -85,7 +88,6 @@ from simcheck.models.population import (
     FinitePopulation,
     block_columns,
     draw_population,
-    fpc_factor,
     read_population,
     sample_indices,
 )
@@ -193,6 +195,11 @@ def validate_design(design: Design, method: Method, ns, path: str) -> None:
         c.add(which, f"only for the one-sample estimands mean and proportion, not {design.estimand!r}")
     c.raise_if_any()
     if design.clusters is not None:
+        if design.clusters.effect == "gamma" and design.model.zero_one:
+            # 0/1 data are clustered through a beta-binomial law; a gamma effect
+            # would be shown but not used, so it is refused
+            c.add("clusters.effect", "'gamma' applies to continuous data only; 0/1 data are clustered by a "
+                  "beta-binomial law (cluster proportions ~ Beta), so leave clusters.effect out")
         if method.kind not in ("cluster", "summary", "count"):
             c.add("method.interval", f"{design.method!r} is not available with [clusters]; use cluster-t, "
                   "or t / z / a proportion interval to see the effect of ignoring the clustering")
@@ -273,22 +280,17 @@ def _clusters(design, method, ns, replicates, root, seed, path, curve, progress,
         K = max(group)
         per_rep = K * (2 if fast else max(1, math.ceil(law.mean)))
         acc = msr.Accumulator(len(group), replicates, design.margin)
-        nan_total = np.zeros(len(group), np.int64)
         for bi, g, ps, pe, last in _pieces(root, replicates, per_rep):
             m = law.draw(g, (pe - ps, K))
             s1, s2, s3 = cm.cluster_sums(g, m, centre=centre, powers=powers, fast=fast)
             lo, hi = _cluster_intervals(design, method, m, s1, s2, s3, group, law.fixed)
-            bad = np.isnan(lo) | np.isnan(hi)
-            if bad.any():
-                nan_total += np.count_nonzero(bad, axis=0)
             acc.add(lo, hi, truth)
             if progress and last:
                 progress(pe, replicates)
         acc.finish()
         for j, k in enumerate(group):
-            r = acc.row(j, design, k, replicates, seed, label, nan_count=int(nan_total[j]))
-            extra = [f"{int(nan_total[j])} intervals could not be computed and count as not covering"] if nan_total[j] else []
-            rows.append(replace(r, observations=_observations(k, law), notes=tuple(list(r.notes) + notes + extra)))
+            r = acc.row(j, design, k, replicates, seed, label)
+            rows.append(replace(r, observations=_observations(k, law), notes=tuple(list(r.notes) + notes)))
     return rows
 
 
@@ -427,23 +429,9 @@ def _population_notes(design: Design, fp: FinitePopulation, method: Method) -> l
     return notes
 
 
-def _shrink(centre, lo, hi, f, clip: bool):
-    lo = centre - (centre - lo) * f
-    hi = centre + (hi - centre) * f
-    if clip:
-        return np.clip(lo, 0.0, 1.0), np.clip(hi, 0.0, 1.0)
-    return lo, hi
-
-
-def _fpc_count(func, N: int):
-    """A count interval with its limits pulled towards x/n by sqrt(1 - n/N), clipped to [0, 1]."""
-
-    def corrected(x, n, confidence):
-        lo, hi = func(x, n, confidence)
-        phat = np.asarray(x, dtype=float) / np.asarray(n, dtype=float)
-        return _shrink(phat, np.asarray(lo, float), np.asarray(hi, float), fpc_factor(n, N), clip=True)
-
-    return corrected
+def _shrink(centre, lo, hi, f):
+    """Limits pulled towards ``centre`` by the factor ``f`` (means: no clipping)."""
+    return centre - (centre - lo) * f, centre + (hi - centre) * f
 
 
 def _population(design, method, ns, replicates, root, seed, path, curve, progress, chunk_bytes) -> list[CheckResult]:
@@ -462,10 +450,9 @@ def _population(design, method, ns, replicates, root, seed, path, curve, progres
         raise InputError("simulation.path", "path 'exact' is only for proportion intervals on a 0/1 population; available: auto, nested, full")
     if exact_ok and path in ("auto", "exact"):
         K = fp.events
-        func = _fpc_count(method.func, N) if fpc else method.func
         rows = []
         for n in ns:
-            meas = exactmod.hypergeometric_measures(func, n, N, K, design.confidence, design.margin, fpc=False)
+            meas = exactmod.hypergeometric_measures(method, n, N, K, design.confidence, design.margin, fpc=fpc)
             r = msr.row_from_measures(design, n, meas, seed, "exact-hypergeometric")
             rows.append(replace(r, true_value=K / N, notes=tuple(list(r.notes) + notes)))
         return rows
@@ -482,9 +469,9 @@ def _population(design, method, ns, replicates, root, seed, path, curve, progres
         nmax = max(group)
         cols_per_rep = block_columns(N, nmax)
         acc = msr.Accumulator(len(group), replicates, design.margin)
-        nan_total = np.zeros(len(group), np.int64)
         n_eval = np.asarray(group, dtype=np.int64)
-        f = fpc_factor(n_eval, N)
+        # the interval's variance is estimated from the sample: factor 1 - n/N
+        f = np.sqrt(fpc_variance_factor(n_eval, N, "S2"))
         boot = None
         for bi, g, ps, pe, last in _pieces(root, replicates, cols_per_rep):
             if kind == "sample" and (boot is None or boot[0] != bi):
@@ -498,18 +485,14 @@ def _population(design, method, ns, replicates, root, seed, path, curve, progres
             b = pe - ps
             lo = np.broadcast_to(np.asarray(lo, dtype=np.float64).reshape(b, -1), (b, len(group)))
             hi = np.broadcast_to(np.asarray(hi, dtype=np.float64).reshape(b, -1), (b, len(group)))
-            bad = np.isnan(lo) | np.isnan(hi)
-            if bad.any():
-                nan_total += np.count_nonzero(bad, axis=0)
             acc.add(lo, hi, truth, None if deg is None else np.asarray(deg).reshape(-1, 1))
             if progress and last:
                 progress(pe, replicates)
         acc.finish()
         label = "nested" if nested else "simulation"
         for j, n in enumerate(group):
-            r = acc.row(j, design, n, replicates, seed, label, nan_count=int(nan_total[j]))
-            extra = [f"{int(nan_total[j])} intervals could not be computed and count as not covering"] if nan_total[j] else []
-            rows.append(replace(r, true_value=fp.mean, notes=tuple(list(r.notes) + notes + extra)))
+            r = acc.row(j, design, n, replicates, seed, label)
+            rows.append(replace(r, true_value=fp.mean, notes=tuple(list(r.notes) + notes)))
     return rows
 
 
@@ -520,11 +503,11 @@ def _population_intervals(design, method, x, group, nested, n_eval, f, fpc, fp, 
         s = eng.summary_from_sums(*eng.prefix_moments(x, group, nested, method.needs_m3), n_eval, fp.S)
         lo, hi = method.func(s, conf)
         if fpc:
-            lo, hi = _shrink(s.mean, lo, hi, f, clip=False)
+            lo, hi = _shrink(s.mean, lo, hi, f)
         return lo, hi, None
     if kind == "count":
         cnt = eng.prefix_counts(x, group, nested)
-        func = _fpc_count(method.func, fp.size) if fpc else method.func
+        func = exactmod.with_fpc(method, fp.size) if fpc else method.func
         return (*func(cnt, n_eval, conf), None)
     if kind == "log":
         np.log(x, out=x)

@@ -14,10 +14,15 @@ Conventions, shared with the simulation engine:
 * the achieved margin is the half-width ``(upper - lower) / 2``;
 * ``margin_median`` and ``margin_p90`` are weighted quantiles of the
   half-width under the sampling distribution, defined as the smallest
-  support value whose cumulative probability is >= q (q = 0.5, 0.9); the
-  cumulative probability is normalised by the total weight enumerated;
-* ``assurance`` is P(half-width <= margin) (None when no margin is given),
-  with a relative allowance of 1e-12 for rounding (:data:`MARGIN_RTOL`);
+  support value whose cumulative probability is >= q (q = 0.5, 0.9): the
+  inverse-CDF definition (Hyndman & Fan 1996, definition 1), the same as
+  on the simulated paths; the cumulative probability is normalised by the
+  total weight enumerated;
+* ``assurance`` is P(half-width <= margin, not degenerate) (None when no
+  margin is given), with a relative allowance of 1e-12 for rounding
+  (:data:`MARGIN_RTOL`); ``degenerate_share`` is the probability of a
+  zero-width interval that misses the true value, which never counts as
+  meeting the margin;
 * ``margin_values`` / ``margin_weights`` hold the half-width distribution:
   values in ascending order with their probabilities (ties not merged);
 * binomial tails of probability below :data:`TAIL_TRIM` (1e-17 each) are not
@@ -97,7 +102,9 @@ def _weighted_quantile(sorted_values: np.ndarray, sorted_weights: np.ndarray, q:
     total = cum[-1]
     if total <= 0:
         return float("nan")
-    idx = int(np.searchsorted(cum / total, q, side="left"))
+    # the allowance keeps a cumulative probability equal to q up to rounding at q,
+    # as the rank ceil(m q) does on the simulated paths (one definition)
+    idx = int(np.searchsorted(cum / total, q - 1e-12, side="left"))
     return float(sorted_values[min(idx, sorted_values.size - 1)])
 
 
@@ -108,6 +115,9 @@ def weighted_measures(lo: np.ndarray, hi: np.ndarray, w: np.ndarray, true: float
     covered = (lo <= true) & (true <= hi)
     order = np.argsort(hw, kind="stable")
     hw_s, w_s = hw[order], w[order]
+    # a zero-width interval that misses (Wald at x = 0 or x = n) does not
+    # deliver the promised precision: counted apart, never within the margin
+    zero = (hw <= 0) & ~covered
     return {
         "true_value": float(true),
         "coverage": float(w[covered].sum() / total),
@@ -116,7 +126,8 @@ def weighted_measures(lo: np.ndarray, hi: np.ndarray, w: np.ndarray, true: float
         "margin_mean": float(np.dot(w, hw) / total),
         "margin_median": _weighted_quantile(hw_s, w_s, 0.5),
         "margin_p90": _weighted_quantile(hw_s, w_s, 0.9),
-        "assurance": None if margin is None else float(w[hw <= margin * MARGIN_RTOL].sum() / total),
+        "assurance": None if margin is None else float(w[(hw <= margin * MARGIN_RTOL) & ~zero].sum() / total),
+        "degenerate_share": float(w[zero].sum() / total),
         "margin_values": hw_s,
         "margin_weights": w_s,
     }
@@ -267,6 +278,139 @@ def binomial_measures(
     return binomial_curve(method_func, [n], p, confidence, margin)[0]
 
 
+def _binomial_block_pmf(x, n, group, x_lo, starts, p: float) -> np.ndarray:
+    """Binomial probabilities of consecutive x per n, from one ``logpmf`` per n.
+
+    Within a block, ``log pmf(x + 1) - log pmf(x) = log((n - x) / (x + 1)) +
+    log(p / (1 - p))``; a running sum of these steps from each block's first
+    x is about eight times cheaper than ``binom.pmf`` per cell and keeps
+    relative errors near 1e-13.
+    """
+    if p <= 0.0 or p >= 1.0:
+        return stats.binom.pmf(x, n, p)
+    with np.errstate(divide="ignore"):
+        # the step out of x = n is -inf; it lands on the next block's start, which is reset
+        step = np.log((n - x) / (x + 1.0)) + (np.log(p) - np.log1p(-p))
+    step = np.concatenate(([0.0], step[:-1]))
+    step[starts] = 0.0
+    run = np.cumsum(step)
+    base = stats.binom.logpmf(x_lo, group, p) - run[starts]
+    return np.exp(run + np.repeat(base, np.diff(np.append(starts, x.size))))
+
+
+def binomial_targets(
+    method_func: Interval | Method,
+    n_values: Iterable[int],
+    p: float,
+    confidence: float,
+    margin: float | None = None,
+) -> tuple[np.ndarray, np.ndarray | None]:
+    """Exact coverage and assurance only, for each n: the cheap form of :func:`binomial_curve`.
+
+    The same enumeration and conventions as :func:`binomial_curve` (same
+    tail trimming, same normalisation, same margin allowance), without the
+    half-width distribution (no sorting), so a search can scan thousands of
+    n. Inputs are trusted (the search validated them).
+
+    Returns
+    -------
+    coverage, assurance : ndarray
+        One value per n in the order given; assurance is None without a margin.
+
+    References
+    ----------
+    Brown, Cai and DasGupta (2001), *Statistical Science* 16, 101-133, section 2.
+    """
+    func = _func(method_func, "count")
+    ns = np.asarray([int(n) for n in n_values], dtype=np.int64)
+    cov = np.empty(ns.size)
+    ass = None if margin is None else np.empty(ns.size)
+    x_lo_all, x_hi_all, _ = _binomial_support(ns, float(p))
+    sizes_all = x_hi_all - x_lo_all + 1
+    start = 0
+    while start < ns.size:
+        # consecutive n values share one vectorised call of at most CHUNK_CELLS cells
+        stop, cells = start, 0
+        while stop < ns.size and (stop == start or cells + sizes_all[stop] <= CHUNK_CELLS):
+            cells += int(sizes_all[stop])
+            stop += 1
+        group = ns[start:stop]
+        x_lo, sizes = x_lo_all[start:stop], sizes_all[start:stop]
+        offsets = np.concatenate(([0], np.cumsum(sizes)))
+        n_cells = np.repeat(group, sizes)
+        x_cells = np.arange(offsets[-1], dtype=np.int64) - np.repeat(offsets[:-1] - x_lo, sizes)
+        lo, hi = func(x_cells, n_cells, confidence)
+        lo = np.broadcast_to(np.asarray(lo, dtype=float), x_cells.shape)
+        hi = np.broadcast_to(np.asarray(hi, dtype=float), x_cells.shape)
+        starts = offsets[:-1]
+        w = _binomial_block_pmf(x_cells, n_cells, group, x_lo, starts, float(p))
+        total = np.add.reduceat(w, starts)
+        cov[start:stop] = np.add.reduceat(((lo <= p) & (p <= hi)) * w, starts) / total
+        if ass is not None:
+            ass[start:stop] = np.add.reduceat((((hi - lo) / 2.0) <= margin * MARGIN_RTOL) * w, starts) / total
+        start = stop
+    return cov, ass
+
+
+def two_binomial_targets(
+    method_func: Interval | Method,
+    na_values: Iterable[int],
+    nb_values: Iterable[int],
+    pa: float,
+    pb: float,
+    confidence: float,
+    margin: float | None = None,
+) -> tuple[np.ndarray, np.ndarray | None]:
+    """Exact coverage and assurance only, for each pair (n_a, n_b): the cheap form of
+    :func:`two_binomial_measures`.
+
+    Same enumeration, trimming and conventions; each group's support and
+    probabilities are computed once per n, the interval is evaluated on
+    their outer product (chunks of at most :data:`CHUNK_CELLS` cells), and
+    the double sums are matrix-vector products ``w_a' C w_b``, without
+    sorting the half-widths. Inputs are trusted (the search validated them).
+
+    Returns
+    -------
+    coverage, assurance : ndarray
+        One value per pair; assurance is None without a margin.
+
+    References
+    ----------
+    Newcombe, R. G. (1998). *Statistics in Medicine* 17, 873-890.
+    """
+    func = _func(method_func, "count2")
+    na_arr = np.asarray([int(n) for n in na_values], dtype=np.int64)
+    nb_arr = np.asarray([int(n) for n in nb_values], dtype=np.int64)
+    a_lo, a_hi, _ = _binomial_support(na_arr, float(pa))
+    b_lo, b_hi, _ = _binomial_support(nb_arr, float(pb))
+    true = float(pa) - float(pb)
+    cov = np.empty(na_arr.size)
+    ass = None if margin is None else np.empty(na_arr.size)
+    for j in range(na_arr.size):
+        na, nb = int(na_arr[j]), int(nb_arr[j])
+        xa = np.arange(a_lo[j], a_hi[j] + 1)
+        xb = np.arange(b_lo[j], b_hi[j] + 1)
+        wa = stats.binom.pmf(xa, na, pa)
+        wb = stats.binom.pmf(xb, nb, pb)
+        rows = max(1, CHUNK_CELLS // xb.size)
+        c_sum = a_sum = 0.0
+        for i in range(0, xa.size, rows):
+            lo, hi = func(xa[i:i + rows, None], na, xb[None, :], nb, confidence)
+            shape = (min(rows, xa.size - i), xb.size)
+            lo = np.broadcast_to(np.asarray(lo, dtype=float), shape)
+            hi = np.broadcast_to(np.asarray(hi, dtype=float), shape)
+            wa_c = wa[i:i + rows]
+            c_sum += float(wa_c @ (((lo <= true) & (true <= hi)) @ wb))
+            if ass is not None:
+                a_sum += float(wa_c @ ((((hi - lo) / 2.0) <= margin * MARGIN_RTOL) @ wb))
+        total = float(wa.sum() * wb.sum())
+        cov[j] = c_sum / total
+        if ass is not None:
+            ass[j] = a_sum / total
+    return cov, ass
+
+
 # ---------------------------------------------------------------- two binomials
 
 
@@ -346,21 +490,25 @@ def two_binomial_measures(
 # ---------------------------------------------------------------- finite population
 
 
-def with_fpc(method_func: Interval, fraction_factor: float) -> Interval:
-    """Wrap a ``count`` interval so its half-widths shrink by a finite population factor.
+def with_fpc(method_func: Interval | Method, N: int) -> Interval:
+    """Wrap a ``count`` interval with the finite population correction for a population of N.
 
     Each limit's distance from the point estimate ``x / n`` is multiplied by
-    ``fraction_factor`` (``sqrt((N - n)/(N - 1))`` for sampling without
-    replacement), then the limits are clipped to [0, 1]. This is the simple
-    correction used with normal-approximation intervals; for score or beta
-    intervals it is an approximation.
+    ``sqrt(1 - n / N)`` (:func:`simcheck.formulas.fpc_variance_factor`, form
+    ``"S2"``: the interval's variance is estimated from the sample), then the
+    limits are clipped to [0, 1] once. Methods that clip by definition (Wald,
+    Agresti--Coull) are corrected before their clipping, through the
+    method's ``centre_half``: Wald becomes ``p ± z sqrt(1 - n/N) sqrt(p q / n)``
+    clipped once. For score or beta intervals the correction is an
+    approximation.
 
     Parameters
     ----------
-    method_func : callable
-        ``func(x, n, confidence) -> (lower, upper)`` (kind ``count``).
-    fraction_factor : float
-        Factor applied to both distances from ``x / n``, in [0, 1].
+    method_func : Method or callable
+        A ``count`` method (preferred: its unclipped form is used when it has
+        one) or ``func(x, n, confidence) -> (lower, upper)``.
+    N : int
+        Population size.
 
     Returns
     -------
@@ -369,14 +517,22 @@ def with_fpc(method_func: Interval, fraction_factor: float) -> Interval:
 
     References
     ----------
-    Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, chapter 3
-    (finite population correction for a proportion).
+    Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, section 3.2
+    (the estimated variance of a proportion carries the factor 1 - n/N).
     """
-    f = float(fraction_factor)
+    from simcheck.formulas import fpc_variance_factor
+
+    unclipped = getattr(method_func, "centre_half", None) if isinstance(method_func, Method) else None
+    func = method_func.func if isinstance(method_func, Method) else method_func
 
     def corrected(x, n, confidence):
-        lo, hi = method_func(x, n, confidence)
+        if unclipped is not None:
+            c, h = unclipped(x, n, confidence)
+            lo, hi = c - h, c + h
+        else:
+            lo, hi = func(x, n, confidence)
         phat = np.asarray(x, dtype=float) / np.asarray(n, dtype=float)
+        f = np.sqrt(fpc_variance_factor(n, N, "S2"))
         return np.clip(phat - (phat - lo) * f, 0.0, 1.0), np.clip(phat + (hi - phat) * f, 0.0, 1.0)
 
     return corrected
@@ -395,8 +551,8 @@ def hypergeometric_measures(
 
     X ~ hypergeometric: n units drawn without replacement from a population of
     N units of which K are successes; the true value is K / N. With
-    ``fpc=True`` the interval is corrected by :func:`with_fpc` with factor
-    ``sqrt((N - n)/(N - 1))``.
+    ``fpc=True`` the interval is corrected by :func:`with_fpc` (factor
+    ``sqrt(1 - n/N)``, clipped once).
 
     Parameters
     ----------
@@ -424,7 +580,7 @@ def hypergeometric_measures(
     ----------
     Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, chapter 3.
     """
-    func = _func(method_func, "count")
+    plain = _func(method_func, "count")
     c = Collector()
     _check_n(c, "N", N, low=2)
     _check_n(c, "n", n)
@@ -440,8 +596,7 @@ def hypergeometric_measures(
         c.add("K", f"must be <= the population size {N}, got {K}")
     c.raise_if_any()
     margin = None if margin is None else float(margin)
-    if fpc:
-        func = with_fpc(func, np.sqrt((N - n) / (N - 1)))
+    func = with_fpc(method_func, N) if fpc else plain
     x = np.arange(max(0, n - (N - K)), min(n, K) + 1)
     w = stats.hypergeom.pmf(x, N, K, n)
     lo, hi = func(x, np.full(x.shape, n), confidence)
@@ -454,6 +609,8 @@ __all__ = [
     "binomial_measures",
     "binomial_curve",
     "two_binomial_measures",
+    "binomial_targets",
+    "two_binomial_targets",
     "hypergeometric_measures",
     "with_fpc",
 ]

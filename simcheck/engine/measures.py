@@ -3,13 +3,47 @@
 The one seam through which every evaluator (simple random samples, clustered
 samples, finite populations) turns interval limits into a :class:`CheckResult`:
 :class:`Accumulator` gathers counts and half-widths chunk by chunk;
-:func:`row_from_measures` builds a row from measures computed exactly.
+:func:`row_from_measures` builds a row from measures computed exactly;
+:func:`pool_checks` joins two evaluations of one n on independent replicates.
+
+Definitions (the exact paths in :mod:`simcheck.engine.exact` use the same):
+
+* coverage: share with lower <= true <= upper; ``miss_low``: upper < true;
+  ``miss_high``: lower > true;
+* half-width (upper - lower) / 2; a *degenerate* interval has zero width and
+  misses the true value (Wald [0, 0] at x = 0, a t interval on equal
+  values): it never counts as meeting the margin, because it does not
+  deliver the precision it promises (a zero-width interval that covers, as
+  a census with the finite population correction, is exact and does count);
+  an interval with a NaN limit could not be computed: it counts as not
+  covering and not within the margin and is left out of the half-width
+  mean and quantiles;
+* assurance: share of intervals with 0 < half-width <= margin (relative
+  allowance 1e-12 for rounding);
+* quantiles (``margin_median``, ``margin_p90``): the inverse of the empirical
+  distribution function, the smallest value v with F(v) >= q (Hyndman & Fan
+  1996, definition 1; numpy ``method="inverted_cdf"``), weighted on exact
+  paths;
+* Monte Carlo standard errors: sqrt(p (1 - p) / R) for shares, SD / sqrt(R)
+  for the mean half-width [1]_ (replicates are independent, so the batch
+  means of MCMC output [3]_ are not needed; the half-width has a finite
+  variance whenever the data do, because it scales with the sample SD and
+  Var(s) <= sigma^2), and for a quantile the half-distance between the order
+  statistics that bound its distribution-free 95% confidence interval,
+  divided by 1.96 [2]_. Exact paths report 0.
 
 References
 ----------
 .. [1] Morris, T. P., White, I. R. & Crowther, M. J. (2019). Using simulation
    studies to evaluate statistical methods. Statistics in Medicine 38,
-   2074-2102 (Monte Carlo standard errors of coverage-type measures, Table 6).
+   2074-2102 (Monte Carlo standard errors, Table 6).
+.. [2] Conover, W. J. (1999). *Practical Nonparametric Statistics*, 3rd ed.
+   Wiley, section 3.2 (confidence interval for a quantile from order
+   statistics; section number from memory).
+.. [3] Flegal, J. M. & Jones, G. L. (2010). Batch means and spectral variance
+   estimators in Markov chain Monte Carlo. Annals of Statistics 38, 1034-1070.
+.. [4] Hyndman, R. J. & Fan, Y. (1996). Sample quantiles in statistical
+   packages. The American Statistician 50, 361-365.
 """
 
 from __future__ import annotations
@@ -24,6 +58,8 @@ from simcheck.results import CheckResult
 
 __all__ = [
     "Accumulator", "row_from_measures", "design_notes", "share_mcse", "with_note", "block_starts",
+    "quantiles_with_mcse", "pool_checks", "plausibility_notes", "MARGIN_RTOL", "QUANTILE_Z",
+    "CV_PLAUSIBLE", "SIZE_CV_PLAUSIBLE",
     "QUANTILE_BYTES", "KEEP_MARGINS", "CURVE_QUANTILE_REPLICATES",
 ]
 
@@ -35,11 +71,21 @@ KEEP_MARGINS = 10_000
 #: replicates per n (partitioning every replicate at every n would cost more
 #: than the simulation itself); mean and assurance always use all replicates
 CURVE_QUANTILE_REPLICATES = 2_000
+#: a half-width equal to the margin up to rounding meets it
+MARGIN_RTOL = 1.0 + 1e-12
+#: normal quantile of the order-statistic 95% interval behind a quantile's MCSE
+QUANTILE_Z = 1.959963984540054
 
 
 def row_from_measures(design, n, m, seed, path) -> CheckResult:
+    """A :class:`CheckResult` from measures computed exactly (all MCSEs 0)."""
     nb = design.n_b(n)
     a = m.get("assurance")
+    notes = list(design_notes(design))
+    deg = float(m.get("degenerate_share", 0.0))
+    if deg > 0:
+        notes.append(f"probability {deg:.4g} of a zero-width (degenerate) interval, which never counts as "
+                     "meeting the margin")
     return CheckResult(
         n=int(n),
         replicates=0,
@@ -62,23 +108,140 @@ def row_from_measures(design, n, m, seed, path) -> CheckResult:
         n_b=nb,
         observations=int(n + (nb or 0)),
         path=path,
-        notes=design_notes(design),
+        notes=tuple(notes),
+        miss_low_mcse=0.0,
+        miss_high_mcse=0.0,
+        margin_mean_mcse=0.0,
+        margin_median_mcse=0.0,
+        margin_p90_mcse=0.0,
+        degenerate_share=deg,
+        degenerate_share_mcse=0.0,
         margin_values=np.asarray(m.get("margin_values")) if m.get("margin_values") is not None else None,
         margin_weights=np.asarray(m.get("margin_weights")) if m.get("margin_weights") is not None else None,
     )
 
 
 def design_notes(design: Design) -> tuple[str, ...]:
+    """Notes every result of ``design`` carries: true-value notes and :func:`plausibility_notes`."""
     out = []
     for m in (design.model, design.model_b):
         if m is not None and m.true_value_note:
             out.append(m.true_value_note)
+    return tuple(out) + plausibility_notes(design)
+
+
+#: coefficient of variation (SD / mean) of positive data above which a scenario is
+#: flagged: skewed costs and durations have CVs of about 0.5-3 (common practice)
+CV_PLAUSIBLE = 10.0
+#: CV of cluster sizes above which a scenario is flagged: cluster trials report
+#: about 0.4-0.9 (Eldridge, Ashby & Kerry 2006, Int. J. Epidemiol. 35:1292; from memory)
+SIZE_CV_PLAUSIBLE = 2.0
+_POSITIVE_MODELS = ("lognormal", "gamma", "weibull")
+
+
+def plausibility_notes(design: Design) -> tuple[str, ...]:
+    """Warnings for values allowed but far outside what data show (``data.cv = 80``).
+
+    A CV is a ratio (0.8 means 80%); values such as 80 or 40 are more likely
+    percentages than intended. The computation goes on; the warning is in
+    every result's notes (and the command line prints it on stderr).
+    """
+    out = []
+    groups = [("data.a", design.model), ("data.b", design.model_b)] if design.two_sample else [("data", design.model)]
+    for key, m in groups:
+        if m is None or m.zero_one or getattr(m, "name", None) not in _POSITIVE_MODELS or not m.mean > 0:
+            continue
+        cv = m.sd / m.mean
+        if math.isfinite(cv) and cv > CV_PLAUSIBLE:
+            given = m.params().get("cv") if hasattr(m, "params") else None
+            what = f"{key}.cv = {given:g}" if isinstance(given, (int, float)) else f"{key}: the model's CV (SD / mean) = {cv:.4g}"
+            out.append(f"warning: {what} is far above the usual range (up to about {CV_PLAUSIBLE:g}); "
+                       "a CV is a ratio (0.8 means 80%)")
+    cs = design.clusters
+    if cs is not None and cs.size_cv is not None and cs.size_cv > SIZE_CV_PLAUSIBLE:
+        out.append(f"warning: clusters.size_cv = {cs.size_cv:g} is far above the usual range (up to about "
+                   f"{SIZE_CV_PLAUSIBLE:g}); a CV is a ratio (0.4 means 40%)")
     return tuple(out)
+
+
+# --------------------------------------------------------------------------
+# quantiles of the half-width
+# --------------------------------------------------------------------------
+def _rank(m: int, q: float) -> int:
+    """1-based rank of the inverse-CDF q-quantile of m values: the smallest j with j/m >= q."""
+    # the allowance keeps m q that is a whole number in exact arithmetic from rounding up
+    return int(min(max(math.ceil(m * q - 1e-9), 1), m))
+
+
+def quantiles_with_mcse(values: np.ndarray, probs=(0.5, 0.9)) -> tuple[np.ndarray, np.ndarray]:
+    """Inverse-CDF quantiles of each column and their Monte Carlo standard errors.
+
+    ``values`` has shape (m, k); NaN entries are left out (per column). The
+    q-quantile is the order statistic of rank ceil(m q) (Hyndman & Fan 1996,
+    definition 1). Its MCSE is (x_(u) - x_(l)) / (2 * 1.96) with l, u = m q
+    -/+ 1.96 sqrt(m q (1 - q)) (rounded outwards, kept in 1..m): the
+    order-statistic 95% confidence interval of the quantile (Conover 1999,
+    section 3.2) read as +/- 1.96 standard errors.
+
+    Returns
+    -------
+    q, se : ndarray, shape (len(probs), k)
+    """
+    values = np.asarray(values)
+    k = values.shape[1]
+    q = np.full((len(probs), k), np.nan)
+    se = np.full((len(probs), k), np.nan)
+    if values.shape[0] == 0:
+        return q, se
+    # a column sum is NaN exactly when the column holds a NaN (half-widths are >= 0)
+    nan_cols = np.isnan(values.sum(axis=0, dtype=np.float64))
+    if not nan_cols.any():
+        groups = [(np.arange(k), values)]  # no copy: the usual case
+    elif nan_cols.all():
+        groups = []
+    else:
+        groups = [(np.flatnonzero(~nan_cols), values[:, ~nan_cols])]
+    groups += [(np.array([j]), values[~np.isnan(values[:, j]), j][:, None]) for j in np.flatnonzero(nan_cols)]
+    for cols, v in groups:
+        m = v.shape[0]
+        if m == 0 or cols.size == 0:
+            continue
+        ranks = []
+        for p in probs:
+            half = QUANTILE_Z * math.sqrt(m * p * (1 - p))
+            lo = int(min(max(math.floor(m * p - half), 1), m))
+            hi = int(min(max(math.ceil(m * p + half), 1), m))
+            ranks.append((_rank(m, p), lo, hi))
+        kth = sorted({r - 1 for trio in ranks for r in trio})
+        part = np.partition(v, kth, axis=0)
+        with np.errstate(invalid="ignore"):  # inf - inf: no finite error
+            for i, (r, lo, hi) in enumerate(ranks):
+                q[i, cols] = part[r - 1]
+                se[i, cols] = (part[hi - 1].astype(np.float64) - part[lo - 1]) / (2 * QUANTILE_Z)
+    return q, se
 
 
 # --------------------------------------------------------------------------
 # measures accumulated over replicates
 # --------------------------------------------------------------------------
+def _segment_sums(a: np.ndarray, starts, squares: bool = False) -> np.ndarray:
+    """Column sums (or sums of squares) of each row segment starting at ``starts``.
+
+    One segment per random block, summed on its own, so totals do not depend on
+    how blocks were grouped into chunks. (A plain sum per segment is several
+    times faster than ``np.add.reduceat`` along axis 0.)
+    """
+    bounds = list(starts) + [a.shape[0]]
+    out = np.empty((len(starts), a.shape[1]))
+    for i in range(len(starts)):
+        seg = a[bounds[i]:bounds[i + 1]]
+        if squares:
+            np.einsum("ij,ij->j", seg, seg, out=out[i])
+        else:
+            seg.sum(axis=0, out=out[i])
+    return out
+
+
 class Accumulator:
     """Counts and half-widths for k sample sizes, accumulated chunk by chunk."""
 
@@ -89,6 +252,7 @@ class Accumulator:
         self.high = np.zeros(k, np.int64)
         self.assured = np.zeros(k, np.int64)
         self.block_sums: list[np.ndarray] = []
+        self.block_squares: list[np.ndarray] = []
         self.degenerate = np.zeros(k, np.int64)
         self.nan = np.zeros(k, np.int64)
         self.unbounded = np.zeros(k, np.int64)
@@ -102,89 +266,123 @@ class Accumulator:
 
         ``starts`` are the row offsets of the random blocks in this chunk: float
         sums are taken per block and added in block order at the end, so they
-        do not depend on how blocks were grouped into chunks.
+        do not depend on how blocks were grouped into chunks. ``degenerate``
+        (optional, bool of shape (b, k)) flags intervals a method declares
+        degenerate besides those of zero width; like those, they count as
+        degenerate when they miss the true value.
         """
         # bool sums along axis 0 are about twice as fast as count_nonzero(axis=0)
-        self.low += (hi < truth).sum(axis=0)
-        self.high += (lo > truth).sum(axis=0)
+        below = (hi < truth).sum(axis=0)
+        above = (lo > truth).sum(axis=0)
         hw = np.subtract(hi, lo)
         hw *= 0.5
-        # always reduceat: the same summation whatever the grouping of blocks
-        sums = np.add.reduceat(hw, starts if starts is not None else [0], axis=0)
+        st = starts if starts is not None else [0]
+        sums = _segment_sums(hw, st)
+        bad = None
         if np.isnan(sums).any():
-            # an interval that could not be computed: counted, never covering
-            bad = np.isnan(lo) | np.isnan(hi)
+            # an interval that could not be computed: counted, never covering,
+            # never within the margin; a limit compared with NaN is False, so
+            # take off the other limit's miss
+            bad = np.isnan(lo) | np.isnan(hi) | np.isnan(hw)
             self.nan += bad.sum(axis=0)
-            hw = np.where(bad, 0.0, hw)
-            sums = np.add.reduceat(hw, starts if starts is not None else [0], axis=0)
+            below -= (bad & (hi < truth)).sum(axis=0)
+            above -= (bad & (lo > truth)).sum(axis=0)
+            hw[bad] = np.nan
+            sums = _segment_sums(np.where(bad, 0.0, hw), st)
+        self.low += below
+        self.high += above
+        self._half_widths(hw, sums, st, bad, None if degenerate is None else np.asarray(degenerate, bool),
+                          lambda: (hi < truth) | (lo > truth))
+
+    def add_symmetric(self, centre: np.ndarray, half: np.ndarray, truth, starts=None) -> None:
+        """As :meth:`add` for intervals centre ± half (fewer passes over the data)."""
+        if np.ndim(centre) == 1:
+            centre, half = centre[:, None], half[:, None]
+        st = starts if starts is not None else [0]
+        sums = _segment_sums(half, st)
+        if np.isnan(sums).any():  # a NaN centre comes with a NaN half here
+            self.add(centre - half, centre + half, truth, starts=starts)
+            return
+        dev = centre - truth if truth != 0 else centre
+        self.low += (dev + half < 0).sum(axis=0)
+        self.high += (dev > half).sum(axis=0)
+        self._half_widths(half, sums, st, None, None, lambda: (dev + half < 0) | (dev > half))
+
+    def _half_widths(self, hw: np.ndarray, sums: np.ndarray, st, bad, flagged, missed) -> None:
+        """Sums, zero-width count, assurance and kept values of one chunk's half-widths.
+
+        ``missed()`` gives the intervals that miss the true value; it is called
+        only when a zero-width interval occurs (rare).
+        """
+        ok = hw if bad is None else np.where(bad, 0.0, hw)
         if np.isinf(sums).any():
-            self.unbounded += np.isinf(hw).sum(axis=0)
+            self.unbounded += np.isinf(ok).sum(axis=0)
         self.block_sums.append(sums)
+        self.block_squares.append(_segment_sums(ok, st, squares=True))
+        if flagged is None and not (hw.size and ok.min() <= 0):
+            zero = None  # no zero-width interval in this chunk (the usual case)
+        else:
+            # zero width and missing the truth; zero width that covers (a census
+            # with the finite population correction) is exact, not degenerate
+            zero = hw <= 0
+            if flagged is not None:
+                zero |= flagged
+            zero &= missed()
+            self.degenerate += zero.sum(axis=0)
         if self.margin is not None:
-            # tolerance for half-widths equal to the margin in exact arithmetic
-            self.assured += (hw <= self.margin * (1 + 1e-12)).sum(axis=0)
-        if degenerate is not None:
-            self.degenerate += np.count_nonzero(degenerate, axis=0)
+            within = hw <= self.margin * MARGIN_RTOL  # NaN compares False
+            if zero is not None:
+                within &= ~zero
+            self.assured += within.sum(axis=0)
         b = hw.shape[0]
         if self.seen < self.keep:
             take = min(b, self.keep - self.seen)
             self.hw[self.seen : self.seen + take] = hw[:take]
         self.seen += b
 
-    def add_symmetric(self, centre: np.ndarray, half: np.ndarray, truth, starts=None) -> None:
-        """As :meth:`add` for intervals centre ± half (fewer passes over the data)."""
-        if np.ndim(centre) == 1:
-            centre, half = centre[:, None], half[:, None]
-        dev = centre - truth if truth != 0 else centre
-        n_low = (dev + half < 0).sum(axis=0)
-        n_high = (dev > half).sum(axis=0)
-        self.low += n_low
-        self.high += n_high
-        sums = np.add.reduceat(half, starts if starts is not None else [0], axis=0)
-        if np.isnan(sums).any():  # a NaN centre comes with a NaN half here
-            lo, hi = centre - half, centre + half
-            self.low -= n_low
-            self.high -= n_high
-            self.add(lo, hi, truth, starts=starts)
-            return
-        self.block_sums.append(sums)
-        if self.margin is not None:
-            self.assured += (half <= self.margin * (1 + 1e-12)).sum(axis=0)
-        b = half.shape[0]
-        if self.seen < self.keep:
-            take = min(b, self.keep - self.seen)
-            self.hw[self.seen : self.seen + take] = half[:take]
-        self.seen += b
-
     def finish(self) -> None:
-        # coverage = not missed on either side; NaN limits are neither and are
-        # taken off the covered count by the caller
-        self.covered = self.total - self.low - self.high
-        self.hw_sum = np.concatenate(self.block_sums).sum(axis=0) if self.block_sums else np.zeros(self.k)
-        kept = self.hw[: min(self.keep, self.seen)]
-        if kept.shape[0]:
-            # one partition pass for all columns (column slices are strided)
-            with np.errstate(invalid="ignore"):  # unbounded intervals (inf) interpolate to NaN
-                q = np.quantile(kept, [0.5, 0.9], axis=0).astype(np.float64)
-            if np.isnan(q).any():
-                q = np.where(np.isnan(q) & np.isinf(kept).any(axis=0), np.inf, q)
-            self.q50, self.q90 = q[0], q[1]
+        # coverage = not missed on either side and computable
+        self.covered = self.total - self.low - self.high - self.nan
+        if self.block_sums:
+            self.hw_sum = np.concatenate(self.block_sums).sum(axis=0)
+            self.hw_squares = np.concatenate(self.block_squares).sum(axis=0)
         else:
-            self.q50 = self.q90 = np.full(self.k, np.nan)
+            self.hw_sum = self.hw_squares = np.zeros(self.k)
+        kept = self.hw[: min(self.keep, self.seen)]
+        q, se = quantiles_with_mcse(kept, (0.5, 0.9))
+        self.q50, self.q90 = q[0], q[1]
+        self.q50_se, self.q90_se = se[0], se[1]
 
-    def row(self, j: int, design: Design, n: int, replicates: int, seed, path: str, nan_count: int = 0) -> CheckResult:
+    def _mean_and_mcse(self, j: int) -> tuple[float, float | None]:
+        m = int(self.total - self.nan[j])
+        if m <= 0:
+            return math.nan, None
+        mean = float(self.hw_sum[j] / m)
+        if m < 2 or not math.isfinite(mean):
+            return mean, None
+        var = max(float(self.hw_squares[j] / m - mean * mean), 0.0) * m / (m - 1)
+        return mean, math.sqrt(var / m)
+
+    def row(self, j: int, design: Design, n: int, replicates: int, seed, path: str) -> CheckResult:
+        """The result at column ``j``."""
         R = replicates
-        cov = (self.covered[j] - nan_count) / R
-        med, p90 = float(self.q50[j]), float(self.q90[j])
+        nan = int(self.nan[j])
+        cov = self.covered[j] / R
         assurance = None if self.margin is None else self.assured[j] / R
+        mean, mean_se = self._mean_and_mcse(j)
         nb = design.n_b(n)
+        deg = int(self.degenerate[j])
         notes = list(design_notes(design))
         if self.keep < R:
             notes.append(f"margin median and 90th percentile from the first {self.keep} replicates")
         if self.unbounded[j]:
             notes.append(f"{int(self.unbounded[j])} intervals were unbounded (infinite half-width), so the margin mean is infinite")
-        if self.degenerate[j]:
-            notes.append(f"{int(self.degenerate[j])} samples had all values equal (degenerate; zero-width interval)")
+        if deg:
+            notes.append(f"{deg} intervals had zero width (degenerate, e.g. all values equal or no events); "
+                         "they never count as meeting the margin")
+        if nan:
+            notes.append(f"{nan} intervals could not be computed (NaN limits): they count as not covering and "
+                         "not meeting the margin, and are left out of the half-width mean and quantiles")
         return CheckResult(
             n=int(n),
             replicates=int(R),
@@ -193,9 +391,9 @@ class Accumulator:
             coverage_mcse=share_mcse(cov, R),
             miss_low=float(self.low[j] / R),
             miss_high=float(self.high[j] / R),
-            margin_mean=float(self.hw_sum[j] / R),
-            margin_median=med,
-            margin_p90=p90,
+            margin_mean=mean,
+            margin_median=float(self.q50[j]),
+            margin_p90=float(self.q90[j]),
             assurance=None if assurance is None else float(assurance),
             assurance_mcse=None if assurance is None else share_mcse(assurance, R),
             method=design.method,
@@ -206,13 +404,26 @@ class Accumulator:
             target_margin=design.margin,
             n_b=nb,
             observations=int(n + (nb or 0)),
-            degenerate=int(self.degenerate[j]),
+            degenerate=deg,
             path=path,
             notes=tuple(notes),
+            miss_low_mcse=share_mcse(self.low[j] / R, R),
+            miss_high_mcse=share_mcse(self.high[j] / R, R),
+            margin_mean_mcse=mean_se,
+            margin_median_mcse=_finite_or_none(self.q50_se[j]),
+            margin_p90_mcse=_finite_or_none(self.q90_se[j]),
+            degenerate_share=deg / R,
+            degenerate_share_mcse=share_mcse(deg / R, R),
+            not_computed=nan,
             # curve rows carry no half-width sample (figures use a check at the chosen n)
             margin_values=self.hw[: min(self.seen, KEEP_MARGINS), j].astype(np.float64) if self.k == 1 else None,
             margin_weights=None,
         )
+
+
+def _finite_or_none(x) -> float | None:
+    x = float(x)
+    return x if math.isfinite(x) else None
 
 
 def share_mcse(p: float, r: int) -> float:
@@ -222,6 +433,70 @@ def share_mcse(p: float, r: int) -> float:
 
 def block_starts(blocks) -> list[int]:
     return [s - blocks[0][0] for s, _ in blocks]
+
+
+def pool_checks(a: CheckResult, b: CheckResult) -> CheckResult:
+    """Two simulated evaluations of the same n on independent replicates, as one.
+
+    Shares and the mean half-width are replicate-weighted (the mean over the
+    intervals that could be computed); their MCSEs are recomputed for the
+    pooled replicates, the mean's from the pooled variance. Quantiles and
+    their MCSEs come from the kept half-width values of both (up to
+    :data:`KEEP_MARGINS` each) when present.
+    """
+    ra, rb = a.replicates, b.replicates
+    R = ra + rb
+
+    def w(x, y):
+        if x is None or y is None:
+            return None
+        return (x * ra + y * rb) / R
+
+    def share(x, y):
+        v = w(x, y)
+        return (None, None) if v is None else (float(v), share_mcse(v, R))
+
+    cov, cov_se = share(a.coverage, b.coverage)
+    ass, ass_se = share(a.assurance, b.assurance)
+    low, low_se = share(a.miss_low, b.miss_low)
+    high, high_se = share(a.miss_high, b.miss_high)
+    deg, deg_se = share(a.degenerate_share, b.degenerate_share)
+    mean, mean_se = _pooled_mean(a, b)
+    med, p90 = w(a.margin_median, b.margin_median), w(a.margin_p90, b.margin_p90)
+    med_se = p90_se = None
+    vals = None
+    if a.margin_values is not None and b.margin_values is not None:
+        vals = np.concatenate([a.margin_values, b.margin_values])
+        if vals.size:
+            q, se = quantiles_with_mcse(vals[:, None], (0.5, 0.9))
+            med, p90 = float(q[0, 0]), float(q[1, 0])
+            med_se, p90_se = _finite_or_none(se[0, 0]), _finite_or_none(se[1, 0])
+    notes = list(a.notes)
+    notes += [t for t in b.notes if t not in notes]
+    return replace(
+        a, replicates=R, coverage=cov, coverage_mcse=cov_se, miss_low=low, miss_low_mcse=low_se,
+        miss_high=high, miss_high_mcse=high_se, margin_mean=mean, margin_mean_mcse=mean_se,
+        margin_median=float(med), margin_median_mcse=med_se, margin_p90=float(p90), margin_p90_mcse=p90_se,
+        assurance=ass, assurance_mcse=ass_se, degenerate=a.degenerate + b.degenerate,
+        degenerate_share=deg if deg is not None else 0.0, degenerate_share_mcse=deg_se,
+        not_computed=a.not_computed + b.not_computed, notes=tuple(notes), margin_values=vals, margin_weights=None,
+    )
+
+
+def _pooled_mean(a: CheckResult, b: CheckResult) -> tuple[float, float | None]:
+    ma, mb = a.replicates - a.not_computed, b.replicates - b.not_computed
+    m = ma + mb
+    if m <= 0:
+        return math.nan, None
+    xa = a.margin_mean if ma else 0.0
+    xb = b.margin_mean if mb else 0.0
+    mean = (ma * xa + mb * xb) / m
+    if a.margin_mean_mcse is None or b.margin_mean_mcse is None or m < 2 or not math.isfinite(mean):
+        return float(mean), None
+    # within-sample variances back from each MCSE, plus the spread between the two means
+    ss = sum(k * (k - 1) * se * se + k * (x - mean) ** 2
+             for k, x, se in ((ma, xa, a.margin_mean_mcse), (mb, xb, b.margin_mean_mcse)) if k)
+    return float(mean), math.sqrt(ss / (m - 1) / m)
 
 
 def with_note(r: CheckResult, note: str) -> CheckResult:

@@ -50,7 +50,7 @@ from simcheck.design import Design
 from simcheck.errors import InputError
 from simcheck.intervals import Summary, get_method
 from simcheck.intervals.base import Method
-from simcheck.engine.measures import Accumulator, block_starts, row_from_measures, with_note
+from simcheck.engine.measures import Accumulator, block_starts, row_from_measures
 from simcheck.results import CheckResult
 
 PATHS = ("auto", "exact", "sufficient", "nested", "full")
@@ -522,10 +522,7 @@ def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes,
     path = "nested" if nested else "simulation"
     rows = []
     for j, n in enumerate(ns):
-        r = acc.row(j, design, n, replicates, seed, path, nan_count=int(acc.nan[j]))
-        if acc.nan[j]:
-            r = with_note(r, f"{int(acc.nan[j])} intervals could not be computed and count as not covering")
-        rows.append(r)
+        rows.append(acc.row(j, design, n, replicates, seed, path))
     return rows
 
 

@@ -72,7 +72,10 @@ class Method:
     summary: str = ""
     references: tuple[str, ...] = ()
     #: optional ``(s, confidence) -> (centre, half)`` for symmetric intervals;
-    #: the engine then skips forming and re-differencing the limits
+    #: the engine then skips forming and re-differencing the limits. For
+    #: ``count`` methods clipped to [0, 1] (wald, agresti-coull):
+    #: ``(x, n, confidence) -> (centre, half)`` before clipping, so that a
+    #: finite population correction scales the half-width and clips once
     centre_half: Callable | None = field(default=None, repr=False)
 
 

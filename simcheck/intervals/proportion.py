@@ -64,10 +64,17 @@ def wald(x, n, confidence: float) -> tuple[np.ndarray, np.ndarray]:
     Brown, L. D., Cai, T. T. and DasGupta, A. (2001). Interval estimation for a
     binomial proportion. *Statistical Science* 16(2), 101-133, section 2.1.
     """
+    p, half = wald_centre_half(x, n, confidence)
+    return _clip01(p - half, p + half)
+
+
+def wald_centre_half(x, n, confidence: float) -> tuple[np.ndarray, np.ndarray]:
+    """Centre ``p = x / n`` and half-width ``z sqrt(p (1 - p) / n)`` of the Wald
+    interval before clipping (a finite population correction scales the
+    half-width first and clips once)."""
     x, n = _counts(x, n)
     p = x / n
-    half = _z(confidence) * np.sqrt(p * (1.0 - p) / n)
-    return _clip01(p - half, p + half)
+    return p, _z(confidence) * np.sqrt(p * (1.0 - p) / n)
 
 
 def wilson(x, n, confidence: float) -> tuple[np.ndarray, np.ndarray]:
@@ -130,13 +137,18 @@ def agresti_coull(x, n, confidence: float) -> tuple[np.ndarray, np.ndarray]:
     52(2), 119-126.
     Brown, Cai and DasGupta (2001), *Statistical Science* 16, 101-133, section 4.1.3.
     """
+    pt, half = agresti_coull_centre_half(x, n, confidence)
+    return _clip01(pt - half, pt + half)
+
+
+def agresti_coull_centre_half(x, n, confidence: float) -> tuple[np.ndarray, np.ndarray]:
+    """Centre ``p~`` and half-width of the Agresti–Coull interval before clipping."""
     x, n = _counts(x, n)
     z = _z(confidence)
     z2 = z * z
     nt = n + z2
     pt = (x + z2 / 2.0) / nt
-    half = z * np.sqrt(pt * (1.0 - pt) / nt)
-    return _clip01(pt - half, pt + half)
+    return pt, z * np.sqrt(pt * (1.0 - pt) / nt)
 
 
 def clopper_pearson(x, n, confidence: float) -> tuple[np.ndarray, np.ndarray]:
@@ -320,7 +332,8 @@ for _name, _func, _text, _refs in (
     ("jeffreys", jeffreys, "Jeffreys interval (Beta(x+1/2, n-x+1/2) quantiles)", (_BROWN,)),
 ):
     register(Method(name=_name, estimand="proportion", kind="count", func=_func,
-                    shift_equivariant=False, summary=_text, references=_refs))
+                    shift_equivariant=False, summary=_text, references=_refs,
+                    centre_half={"wald": wald_centre_half, "agresti-coull": agresti_coull_centre_half}.get(_name)))
 
 _NEWCOMBE = "Newcombe (1998), Statistics in Medicine 17:873-890"
 for _name, _func, _text, _refs in (

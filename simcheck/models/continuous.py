@@ -86,6 +86,15 @@ class ParamTable:
         self.p: dict[str, Any] = dict(params)
         for k in self.p:
             if k not in self.known:
+                if k == "sd" and "cv" in self.known:
+                    # a skewed model takes its spread as cv = sd / mean, not sdlog (issue 12)
+                    m = self.p.get("mean")
+                    v = self.p.get("sd")
+                    eg = ""
+                    if all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in (m, v)) and m:
+                        eg = f" (here cv = {v!r} / {m!r} = {v / m:.4g})"
+                    self.c.add("sd", f"unknown key for model {model!r}; give cv = sd / mean{eg}")
+                    continue
                 self.c.add(str(k), f"unknown key for model {model!r}; {suggest(k, self.known)}")
 
     def has(self, key: str) -> bool:

@@ -161,8 +161,11 @@ def sample_indices(rng: np.random.Generator, N: int, shape: tuple[int, int], *, 
 
 
 def fpc_factor(n, N: int) -> np.ndarray:
-    """sqrt(1 - n/N), the finite population correction of a half-width (Cochran 1977, ch. 2)."""
-    return np.sqrt(np.maximum(1.0 - np.asarray(n, dtype=float) / float(N), 0.0))
+    """sqrt(1 - n/N), the finite population correction of a half-width (Cochran 1977, ch. 2);
+    :func:`simcheck.formulas.fpc_variance_factor` is the one definition."""
+    from simcheck.formulas import fpc_variance_factor
+
+    return np.sqrt(fpc_variance_factor(n, N, "S2"))
 
 
 def block_columns(N: int, n: int) -> int:

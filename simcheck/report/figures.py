@@ -14,7 +14,13 @@ Style choices, and why:
 * Monte Carlo bands are the estimate ± 2 MCSE (about a 95 % band under the
   normal approximation to the binomial share), drawn as light shading;
 * TrueType (Type 42) fonts in PDF so journals' production checks accept
-  the file and the text stays editable;
+  the file and the text stays editable; SVG keeps text as text in the
+  named font (DejaVu Sans, which matplotlib ships);
+* one colour, marker and line style per interval method, the same in every
+  figure (:data:`METHOD_STYLES`), so a method is recognised across figures;
+* the grey accepted-coverage band is hatched and each method's Monte Carlo
+  band has an outline in the method's colour, so the two stay apart in
+  greyscale print;
 * no titles inside the figure (captions belong to the document), no grids
   beyond faint major lines, no decoration.
 
@@ -32,6 +38,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -42,10 +49,11 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
 from simcheck import __version__
+from simcheck.report.text import cell_outcome
 from simcheck.results import CheckResult, CurveResult
 
 __all__ = ["coverage_figure", "margin_figure", "miss_figure", "sweep_figure", "save_figure", "figure_bytes",
-           "series_style", "STYLE", "OKABE_ITO"]
+           "series_style", "method_style", "METHOD_STYLES", "STYLE", "OKABE_ITO", "SCREEN_DPI", "screen_png"]
 
 # Okabe & Ito (2002) palette, in the order series are given out; black and
 # yellow are kept out of the series list (black is for reference lines,
@@ -65,7 +73,49 @@ SERIES_MARKERS = ("o", "s", "^", "D", "v", "P")
 SERIES_LINESTYLES = ("-", "--", "-.", ":", (0, (5, 1, 1, 1, 1, 1)), (0, (1, 1)))
 REFERENCE_COLOUR = "#000000"
 BAND_ALPHA = 0.18
-ACCEPT_GREY = "#D9D9D9"
+ACCEPT_GREY = "#E3E3E3"
+ACCEPT_HATCH = "////"
+ACCEPT_HATCH_COLOUR = "#9A9A9A"
+#: resolution of the PNG embedded in report.html (the files beside it are at savefig.dpi)
+SCREEN_DPI = 110
+
+
+def _style(colour: str, marker: str, linestyle: Any) -> dict[str, Any]:
+    return {"color": colour, "marker": marker, "linestyle": linestyle}
+
+
+_B, _V, _G, _P, _O, _S = SERIES_COLOURS[0], SERIES_COLOURS[1], SERIES_COLOURS[2], SERIES_COLOURS[3], \
+    SERIES_COLOURS[4], SERIES_COLOURS[5]
+
+#: One fixed style per interval method, the same in every figure. Methods
+#: that can appear together (same estimand) never share colour and marker.
+METHOD_STYLES: dict[str, dict[str, Any]] = {
+    # means
+    "t": _style(_V, "s", "--"),
+    "cox": _style(_B, "o", "-"),
+    "johnson-t": _style(_G, "^", "-."),
+    "bootstrap-bca": _style(_P, "D", ":"),
+    "welch": _style(_O, "v", (0, (5, 1, 1, 1, 1, 1))),
+    "z": _style(_S, "P", (0, (1, 1))),
+    "bootstrap-percentile": _style(_O, "X", "-"),
+    "bootstrap-t": _style(_S, "h", "--"),
+    "cluster-t": _style(_G, "p", "-"),
+    # proportions (one and two groups)
+    "wald": _style(_V, "s", "--"),
+    "wilson": _style(_B, "o", "-"),
+    "agresti-coull": _style(_G, "^", "-."),
+    "clopper-pearson": _style(_P, "D", ":"),
+    "jeffreys": _style(_O, "v", (0, (5, 1, 1, 1, 1, 1))),
+    "newcombe": _style(_B, "o", "-"),
+    "agresti-caffo": _style(_G, "^", "-."),
+}
+
+
+def method_style(label: str, i: int = 0) -> dict[str, Any]:
+    """The fixed style of an interval method (``"t"`` or ``"t interval"``); other
+    labels get the ``i``-th series style."""
+    name = str(label).removesuffix(" interval").split(",")[0].strip()
+    return dict(METHOD_STYLES[name]) if name in METHOD_STYLES else series_style(i)
 
 #: Matplotlib settings applied (inside ``rc_context`` only) while figures are
 #: built and saved.
@@ -95,7 +145,8 @@ STYLE: dict[str, Any] = {
     "savefig.bbox": "standard",
     "pdf.fonttype": 42,
     "ps.fonttype": 42,
-    "svg.fonttype": "path",
+    # SVG text stays text (searchable, editable); the font is named in each text element's style
+    "svg.fonttype": "none",
     "svg.hashsalt": "simcheck-figures",
     "path.simplify": True,
     "image.interpolation": "nearest",
@@ -195,8 +246,17 @@ def _vline(ax, x: float | None, *, style: str, colour: str, label: str | None):
 
 
 def _band(ax, x, centre, half, colour) -> None:
+    """Monte Carlo band: light fill plus a thin outline in the series colour (reads in greyscale)."""
     if np.any(np.nan_to_num(half) > 0):
-        ax.fill_between(x, centre - half, centre + half, color=colour, alpha=BAND_ALPHA, linewidth=0, zorder=1)
+        ax.fill_between(x, centre - half, centre + half, facecolor=colour, alpha=BAND_ALPHA, linewidth=0, zorder=1)
+        for edge in (centre - half, centre + half):
+            ax.plot(x, edge, color=colour, linewidth=0.4, alpha=0.8, zorder=1.1, label="_band edge")
+
+
+def _accept_band(ax, low: float, high: float) -> None:
+    """The accepted-coverage band, hatched so it never merges with a method's band in greyscale."""
+    ax.axhspan(low, high, facecolor=ACCEPT_GREY, edgecolor=ACCEPT_HATCH_COLOUR, hatch=ACCEPT_HATCH,
+               linewidth=0, zorder=0.5, label="_accepted band")
 
 
 def _outside_legend(fig: Figure, ax, ncols: int | None = None) -> None:
@@ -233,6 +293,7 @@ def coverage_figure(
     n_label: str = "Sample size n",
     width: float = FULL_WIDTH,
     height: float = 3.3,
+    undecided: Sequence[str] = (),
 ) -> Figure:
     """Coverage against n with its Monte Carlo band.
 
@@ -252,6 +313,8 @@ def coverage_figure(
         method's colour.
     n_label : str
         x-axis label (say what n counts: observations, clusters, group a).
+    undecided : list of str
+        Methods whose search was undecided: their n found is labelled so.
 
     Returns
     -------
@@ -264,7 +327,8 @@ def coverage_figure(
     with rc_context(STYLE):
         fig = _new_figure(width, height)
         ax = fig.add_subplot()
-        ax.axhspan(confidence - tolerance, confidence, color=ACCEPT_GREY, alpha=0.6, linewidth=0, zorder=0.5)
+        if tolerance > 0:
+            _accept_band(ax, confidence - tolerance, confidence)
         ax.axhline(confidence, color=REFERENCE_COLOUR, linewidth=0.9, label=f"nominal {confidence:g}", zorder=1.6)
         if tolerance > 0:
             ax.axhline(
@@ -278,7 +342,7 @@ def coverage_figure(
         all_n = []
         lows, highs = [confidence - tolerance], [confidence]
         for i, (name, curve) in enumerate(curves.items()):
-            st = series_style(i)
+            st = method_style(name, i)
             n = curve.n.astype(float)
             cov = curve.column("coverage")
             se = np.nan_to_num(curve.column("coverage_mcse"))
@@ -294,8 +358,9 @@ def coverage_figure(
             nf = found.get(name)
             if nf is not None:
                 who = f" ({name})" if len(curves) > 1 else ""
-                st = series_style(i)
-                ln = _vline(ax, nf, style=(0, (6, 2)), colour=st["color"], label=f"n found = {nf:,}{who}")
+                st = method_style(name, i)
+                status = ", undecided" if name in undecided else ""
+                ln = _vline(ax, nf, style=(0, (6, 2)), colour=st["color"], label=f"n found = {nf:,}{status}{who}")
                 if len(curves) > 1:
                     # the method's marker on top of its line tells the lines apart in greyscale
                     ln.set_marker(st["marker"])
@@ -384,7 +449,7 @@ def margin_figure(
             ax, ax2 = fig.add_subplot(), None
         for name, chk in checks.items():
             i = labels.index(name)
-            st = series_style(i)
+            st = method_style(name, i)
             if chk.margin_values is None or np.size(chk.margin_values) == 0:
                 continue
             x, y = _thin_ecdf(*_ecdf(chk.margin_values, chk.margin_weights))
@@ -415,7 +480,7 @@ def margin_figure(
             all_n = []
             for name, curve in curve_map.items():
                 i = labels.index(name)
-                st = series_style(i)
+                st = method_style(name, i)
                 n = curve.n.astype(float)
                 a = curve.column("assurance")
                 se = np.nan_to_num(curve.column("assurance_mcse"))
@@ -464,21 +529,27 @@ def miss_figure(
         fig = _new_figure(width, height)
         axes = np.atleast_1d(fig.subplots(nrows, ncols, sharey=True, squeeze=False)).ravel()
         ymax = half
-        sides = (("miss_low", "wholly below the true value", SERIES_COLOURS[0], "o", "-"),
-                 ("miss_high", "wholly above the true value", SERIES_COLOURS[1], "s", "--"))
+        # each panel in its method's colour (one colour per method across figures); the side is
+        # told by line style and marker fill, shown in the legend in neutral grey
+        sides = (("miss_low", "wholly below the true value", "-", None),
+                 ("miss_high", "wholly above the true value", "--", "white"))
         for j, (name, curve) in enumerate(curves.items()):
             ax = axes[j]
+            colour = method_style(name, j)["color"]
             n = curve.n.astype(float)
             R = curve.column("replicates")
             exact = np.array([r.exact for r in curve.rows], dtype=bool)
             ax.axhline(half, color=REFERENCE_COLOUR, linestyle=":", linewidth=0.9,
                        label=f"(1 \u2212 confidence) / 2 = {half:g}")
-            for col, label, colour, marker, ls in sides:
+            for col, label, ls, face in sides:
                 p = curve.column(col)
                 se = _share_mcse(p, R, exact)
                 _band(ax, n, p, 2 * se, colour)
-                ax.plot(n, p, color=colour, marker=marker, linestyle=ls,
-                        markevery=_markevery(len(n), 0 if col == "miss_low" else 1, 2), label=label)
+                ax.plot(n, p, color=colour, marker="o", markerfacecolor=face or colour, linestyle=ls,
+                        markevery=_markevery(len(n), 0 if col == "miss_low" else 1, 2), label="_" + label)
+                if j == 0:
+                    ax.plot([], [], color="#555555", marker="o", markerfacecolor=face or "#555555", linestyle=ls,
+                            label=label)
                 ymax = max(ymax, float(np.nanmax(p + 2 * se)))
             _vline(ax, n_formula, style=":", colour="#777777",
                    label=None if n_formula is None else f"formula n = {n_formula:,}")
@@ -504,11 +575,191 @@ def _is_numeric(series) -> bool:
 
 
 def _level_text(col: str, value: Any) -> str:
+    from simcheck.report.text import key_label
+
     if isinstance(value, float):
         value = f"{value:g}"
     if col in ("method.interval", "method"):
         return f"{value} interval"
-    return f"{col} = {value}"
+    return f"{key_label(col)} = {value}"
+
+
+#: What a sweep cell's search outcome looks like in the figure.
+#: "undecided" keeps the method's own marker, drawn open (the legend shows a circle).
+OUTCOME_STYLE = {
+    "undecided": {"marker": "o", "markersize": 5.0,
+                  "label": "undecided (budget spent); bar: n range"},
+    "undecided-none": {"marker": "$?$", "markersize": 6.0,
+                       "label": "undecided, no n yet (budget spent)"},
+    "not reached": {"marker": "$\u2191$", "markersize": 7.0,
+                    "label": "not reached by the search ceiling"},
+}
+
+
+@dataclass(frozen=True)
+class SweepLayout:
+    """Which varied column goes where in a sweep figure."""
+
+    x_col: str
+    line_col: str | None
+    panel_cols: tuple[str, ...]
+    panels: tuple[tuple, ...]
+    x_levels: tuple
+    line_levels: tuple
+    x_numeric: bool
+    nrows: int
+    ncols: int
+
+
+def sweep_layout(frame, vary: Sequence[str] | None, max_panels: int = 12) -> SweepLayout:
+    """x axis: the numeric varied column with most levels; lines: a categorical one
+    (the interval method); panels: every combination of the rest."""
+    if vary is None:
+        vary = [c for c in frame.columns if "." in c]
+    vary = [c for c in vary if c in frame.columns and frame[c].nunique(dropna=False) > 1] or list(vary[:1])
+    if not vary:
+        raise ValueError("sweep_figure needs at least one varied parameter column")
+    numeric = [c for c in vary if _is_numeric(frame[c])]
+    x_col = max(numeric, key=lambda c: frame[c].nunique()) if numeric else vary[0]
+    rest = [c for c in vary if c != x_col]
+    cats = [c for c in rest if not _is_numeric(frame[c])]
+    line_col = (cats[0] if cats else rest[0]) if rest else None
+    panel_cols = tuple(c for c in rest if c != line_col)
+    if panel_cols:
+        by = panel_cols[0] if len(panel_cols) == 1 else list(panel_cols)
+        keys = list(frame.groupby(by, sort=True, dropna=False).groups)
+        panels = tuple((p if isinstance(p, tuple) else (p,)) for p in keys)[:max_panels]
+    else:
+        panels = ((),)
+    ncols = min(len(panels), 3)
+    x_levels = tuple(sorted(frame[x_col].dropna().unique().tolist(), key=lambda v: (str(type(v)), v)))
+    line_levels = tuple(sorted(frame[line_col].dropna().unique().tolist(), key=str)) if line_col else (None,)
+    return SweepLayout(x_col, line_col, panel_cols, panels, x_levels, line_levels, _is_numeric(frame[x_col]),
+                       math.ceil(len(panels) / ncols), ncols)
+
+
+def _panel_rows(frame, lay: SweepLayout, key: tuple):
+    sub = frame
+    for c, v in zip(lay.panel_cols, key):
+        sub = sub[sub[c].isna()] if (isinstance(v, float) and math.isnan(v)) else sub[sub[c] == v]
+    return sub
+
+
+def _x_of(lay: SweepLayout, values) -> np.ndarray:
+    if lay.x_numeric:
+        return np.asarray(values, dtype=float)
+    return np.array([lay.x_levels.index(v) for v in values], dtype=float)
+
+
+def _dodge_step(frame, lay: SweepLayout) -> float:
+    """x shift between neighbouring lines, so markers of different methods at the same x
+    sit side by side instead of on top of each other (about one marker width)."""
+    if lay.line_col is None or len(lay.line_levels) < 2:
+        return 0.0
+    if lay.x_numeric:
+        xs = np.unique(frame[lay.x_col].dropna().to_numpy(dtype=float))
+        span = float(xs.max() - xs.min()) if xs.size > 1 else 1.0
+        gap = float(np.diff(xs).min()) if xs.size > 1 else 1.0
+        return min(0.035 * (span or 1.0), 0.6 * gap / len(lay.line_levels))
+    return min(0.12, 0.6 / len(lay.line_levels))
+
+
+def _draw_coverage_refs(ax, sub, confidence, tolerance, conf_uniform: bool) -> None:
+    """Nominal level (each panel's own when the sweep varies it) and the hatched accepted band."""
+    conf_p = confidence
+    if "confidence" in sub.columns:
+        levels = sub["confidence"].dropna().unique()
+        conf_p = float(levels[0]) if len(levels) == 1 else None
+    if conf_p is None:
+        return
+    if tolerance:
+        _accept_band(ax, conf_p - tolerance, conf_p)
+    ax.axhline(conf_p, color=REFERENCE_COLOUR, linewidth=0.9,
+               label=f"nominal {conf_p:g}" if conf_uniform else "nominal level (per panel)")
+
+
+def _draw_formula_n(ax, sub, lay: SweepLayout, reference: str, dodge: float) -> None:
+    """The closed-form n: one black dotted line per panel when it is the same for every line
+    at each x, else a small black cross beside each of the lines' points."""
+    vals = sub[[lay.x_col, reference] + ([lay.line_col] if lay.line_col else [])].dropna(subset=[reference])
+    if vals.empty:
+        return  # never drawn, so never in the legend
+    per_x = vals.groupby(lay.x_col, sort=True)[reference]
+    if (per_x.nunique() <= 1).all():
+        ref = per_x.first()
+        ax.plot(_x_of(lay, ref.index), ref.to_numpy(dtype=float), color=REFERENCE_COLOUR, linestyle=":",
+                marker="x", markersize=3.5, linewidth=1.0, label="formula n", zorder=1.8)
+        return
+    for i, lev in enumerate(lay.line_levels):
+        part = vals if lay.line_col is None else vals[vals[lay.line_col] == lev]
+        if part.empty:
+            continue
+        xs = _x_of(lay, part[lay.x_col]) + dodge * (i - (len(lay.line_levels) - 1) / 2)
+        ax.plot(xs, part[reference].to_numpy(dtype=float), linestyle="none", color=REFERENCE_COLOUR, marker="x",
+                markersize=3.5, label="formula n (per cell)", zorder=1.8)
+
+
+def _draw_sweep_series(ax, part, lay: SweepLayout, i: int, value: str, dodge: float, ceiling_y) -> set[str]:
+    """One line level in one panel; returns the outcome kinds drawn (for the legend)."""
+    lev = lay.line_levels[i]
+    st = method_style(str(lev), i) if lay.line_col in ("method.interval", "method") else series_style(i)
+    xs = _x_of(lay, part[lay.x_col]) + dodge * (i - (len(lay.line_levels) - 1) / 2)
+    ys = part[value].to_numpy(dtype=float)
+    label = _level_text(lay.line_col, lev) if lay.line_col is not None else None
+    if value != "n":
+        yerr = 2 * np.nan_to_num(part["coverage_mcse"].to_numpy(dtype=float)) if "coverage_mcse" in part else None
+        ax.errorbar(xs, ys, yerr=yerr, color=st["color"], marker=st["marker"], linestyle=st["linestyle"],
+                    capsize=2, elinewidth=0.8, label=label)
+        return set()
+    kinds = np.array([cell_outcome(r) for r in part.to_dict("records")])
+    ax.plot(xs, ys, color=st["color"], linestyle=st["linestyle"], linewidth=1.1, label="_line", zorder=2)
+    clear = kinds == "clear"
+    ax.plot(xs[clear], ys[clear], linestyle="none", color=st["color"], marker=st["marker"], zorder=3,
+            label=label if clear.any() else "_none")
+    if not clear.any() and label:
+        ax.plot([], [], color=st["color"], marker=st["marker"], linestyle=st["linestyle"], label=label)
+    drawn = set()
+    for kind in ("undecided", "undecided-none", "not reached"):
+        mask = kinds == kind
+        if not mask.any():
+            continue
+        drawn.add(kind)
+        o = OUTCOME_STYLE[kind]
+        y = ys[mask] if kind == "undecided" else np.full(int(mask.sum()), ceiling_y)
+        marker = st["marker"] if kind == "undecided" else o["marker"]
+        face = "white" if kind == "undecided" else st["color"]
+        ax.plot(xs[mask], y, linestyle="none", marker=marker, markerfacecolor=face,
+                markeredgecolor=st["color"], markersize=o["markersize"], zorder=3.5, clip_on=False)
+        if kind == "undecided" and {"n_range_low", "n_range_high"} <= set(part.columns):
+            lo = part["n_range_low"].to_numpy(dtype=float)[mask]
+            hi = part["n_range_high"].to_numpy(dtype=float)[mask]
+            ax.vlines(xs[mask], lo, hi, color=st["color"], linewidth=0.9, zorder=2.5)
+    return drawn
+
+
+def _sweep_axes_finish(fig, axes, frame, lay: SweepLayout, value: str, value_label: str) -> None:
+    from simcheck.report.text import key_label
+
+    k = len(lay.panels)
+    for j, ax in enumerate(axes[:k]):
+        if lay.panel_cols:
+            ax.set_title(", ".join(_level_text(c, v) for c, v in zip(lay.panel_cols, lay.panels[j])), loc="left")
+        if not lay.x_numeric:
+            ax.set_xticks(range(len(lay.x_levels)), [str(v) for v in lay.x_levels])
+        elif len(lay.x_levels) <= 8:
+            ax.set_xticks([float(v) for v in lay.x_levels], [f"{v:g}" for v in lay.x_levels])
+        if j % lay.ncols == 0:
+            ax.set_ylabel(value_label)
+        if j >= k - lay.ncols:
+            ax.set_xlabel(key_label(lay.x_col))
+    for ax in axes[k:]:
+        ax.set_visible(False)
+    if value == "n":
+        vals = frame[value].to_numpy(dtype=float)
+        vals = vals[np.isfinite(vals) & (vals > 0)]
+        if vals.size > 1 and vals.max() / vals.min() > 25:
+            axes[0].set_yscale("log")
+            _plain_log(axes[0].yaxis)
 
 
 def sweep_figure(
@@ -520,161 +771,112 @@ def sweep_figure(
     tolerance: float | None = None,
     reference: str | None = "n_formula",
     value_label: str | None = None,
+    n_label: str | None = None,
     width: float = FULL_WIDTH,
     max_panels: int = 12,
 ) -> Figure:
     """Small multiples of a result across the varied parameters of a sweep.
 
-    The first numeric varied parameter (the one with most levels) goes on
-    the x axis, one further parameter (preferably a categorical one such as
-    the interval method) gives one line per level, and every combination of
-    the remaining parameters gets its own panel.
+    The numeric varied parameter with most levels goes on the x axis (labelled
+    in words, e.g. "CV of the data" for ``data.cv``), one further parameter
+    (preferably the interval method) gives one line per level, in the
+    method's fixed style and shifted a little sideways so markers do not
+    hide each other, and every combination of the rest gets its own panel.
+
+    For search sweeps (``value="n"``) each cell's outcome is drawn apart:
+    a filled marker where the answer is clear; an open marker at the
+    conservative n with a bar over the n range where the search was
+    undecided (replicate budget spent); an open triangle above the data
+    where the targets were not reached by the search ceiling. Legend
+    entries appear only for what is drawn.
 
     Parameters
     ----------
     frame : pandas.DataFrame
-        One row per cell: columns for the varied parameters (dotted keys such
-        as ``data.cv``) and result columns (``n``, ``coverage``, ...).
+        One row per cell: varied parameter columns (dotted keys such as
+        ``data.cv``) and result columns (``n``, ``reached``, ``decision``,
+        ``stop_reason``, ``n_range_low``/``high``, ``coverage``, ...).
     value : str
-        Result column on the y axis: ``n`` (required n, search sweeps) or
-        ``coverage`` (check sweeps; ± 2 MCSE error bars from
-        ``coverage_mcse`` when present).
+        ``n`` (search sweeps) or ``coverage`` (check sweeps; ± 2 MCSE bars).
     vary : list of str, optional
         Varied parameter columns; default: columns containing a dot.
     confidence, tolerance : float, optional
         Reference lines for coverage.
     reference : str, optional
-        Column drawn as a black dotted line per panel (default the formula
-        n, when the value is ``n``).
+        Column drawn in black (default the formula n, for ``value="n"``):
+        one line per panel, or a cross per cell where it differs between lines.
+    n_label : str, optional
+        y label for ``value="n"`` (say what n counts, e.g. clusters).
     """
+    _check_sweep_frame(frame, value)
+    lay = sweep_layout(frame, vary, max_panels)
+    # room for the panels plus a legend of about (lines + 4) entries in two columns
+    legend_rows = math.ceil((len(lay.line_levels) + 4) / 2)
+    height = 2.3 * lay.nrows + 0.55 + 0.17 * legend_rows
+    dodge = _dodge_step(frame, lay)
+    value_label = value_label or _sweep_value_label(value, n_label)
+    top = frame[value].to_numpy(dtype=float)
+    ceiling_y = float(np.nanmax(top)) * 1.4 if np.isfinite(top).any() else 1.0
+    conf_uniform = "confidence" not in frame.columns or frame["confidence"].dropna().nunique() <= 1
+    use_ref = value == "n" and reference is not None and reference in frame.columns
+    drawn: set[str] = set()
+    with rc_context(STYLE):
+        fig = _new_figure(width, height)
+        # panels of different confidence levels get their own coverage scale
+        share_y = value == "n" or conf_uniform
+        axes = np.atleast_1d(fig.subplots(lay.nrows, lay.ncols, sharey=share_y, sharex=True, squeeze=False)).ravel()
+        for j, key in enumerate(lay.panels):
+            ax, sub = axes[j], _panel_rows(frame, lay, key)
+            if value == "coverage":
+                _draw_coverage_refs(ax, sub, confidence, tolerance, conf_uniform)
+            if use_ref:
+                _draw_formula_n(ax, sub, lay, reference, dodge)
+            for i, lev in enumerate(lay.line_levels):
+                part = (sub if lay.line_col is None else sub[sub[lay.line_col] == lev]).sort_values(lay.x_col)
+                if not part.empty:
+                    drawn |= _draw_sweep_series(ax, part, lay, i, value, dodge, ceiling_y)
+        _sweep_axes_finish(fig, axes, frame, lay, value, value_label)
+        _sweep_legend(fig, axes[0], drawn)
+    return fig
+
+
+def _check_sweep_frame(frame, value: str) -> None:
     import pandas as pd
 
     if not isinstance(frame, pd.DataFrame):
         raise TypeError(f"frame must be a pandas DataFrame, got {type(frame).__name__}")
     if value not in frame.columns:
         raise ValueError(f"frame has no column {value!r}")
-    if vary is None:
-        vary = [c for c in frame.columns if "." in c]
-    vary = [c for c in vary if c in frame.columns and frame[c].nunique(dropna=False) > 1] or list(vary[:1])
-    if not vary:
-        raise ValueError("sweep_figure needs at least one varied parameter column")
-    numeric = [c for c in vary if _is_numeric(frame[c])]
-    x_col = max(numeric, key=lambda c: frame[c].nunique()) if numeric else vary[0]
-    rest = [c for c in vary if c != x_col]
-    cats = [c for c in rest if not _is_numeric(frame[c])]
-    line_col = (cats[0] if cats else rest[0]) if rest else None
-    panel_cols = [c for c in rest if c != line_col]
-    if panel_cols:
-        by = panel_cols[0] if len(panel_cols) == 1 else panel_cols
-        panels = list(frame.groupby(by, sort=True, dropna=False).groups)
-        panels = [p if isinstance(p, tuple) else (p,) for p in panels][:max_panels]
-    else:
-        panels = [()]
-    k = len(panels)
-    ncols = min(k, 3)
-    nrows = math.ceil(k / ncols)
-    height = 2.9 if nrows == 1 else 2.2 * nrows + 0.5
-    x_numeric = _is_numeric(frame[x_col])
-    # Error bars of neighbouring lines would overlap at the same x: shift each line a little.
-    dodge = 0.0
-    if value == "coverage" and line_col is not None and frame[line_col].nunique() > 1:
-        span = (float(frame[x_col].max()) - float(frame[x_col].min())) if x_numeric else float(frame[x_col].nunique())
-        dodge = 0.012 * (span or 1.0)
-    x_levels = sorted(frame[x_col].dropna().unique().tolist(), key=lambda v: (str(type(v)), v))
-    line_levels = sorted(frame[line_col].dropna().unique().tolist(), key=str) if line_col else [None]
-    use_ref = value == "n" and reference is not None and reference in frame.columns
-    if value_label is None:
-        value_label = {"n": "Required sample size n", "coverage": "Coverage at the fixed n"}.get(value, value)
-    not_reached_y = None
-    any_missing = False
-    if value == "n" and "reached" in frame.columns and (frame["reached"] == False).any():  # noqa: E712
-        top = frame[value].to_numpy(dtype=float)
-        top = top[np.isfinite(top)]
-        not_reached_y = float(top.max()) * 1.4 if top.size else 1.0
-    conf_uniform = "confidence" not in frame.columns or frame["confidence"].dropna().nunique() <= 1
-    with rc_context(STYLE):
-        fig = _new_figure(width, height)
-        axes = np.atleast_1d(fig.subplots(nrows, ncols, sharey=True, sharex=True, squeeze=False)).ravel()
-        for j, key in enumerate(panels):
-            ax = axes[j]
-            sub = frame
-            for c, v in zip(panel_cols, key):
-                sub = sub[sub[c].isna()] if (isinstance(v, float) and math.isnan(v)) else sub[sub[c] == v]
-            # a sweep may vary the confidence level itself: each panel's own level
-            conf_p = confidence
-            if "confidence" in sub.columns:
-                levels = sub["confidence"].dropna().unique()
-                conf_p = float(levels[0]) if len(levels) == 1 else None
-            if value == "coverage" and conf_p is not None:
-                if tolerance:
-                    ax.axhspan(conf_p - tolerance, conf_p, color=ACCEPT_GREY, alpha=0.6, linewidth=0, zorder=0.5)
-                label = f"nominal {conf_p:g}" if conf_uniform else "nominal level (per panel)"
-                ax.axhline(conf_p, color=REFERENCE_COLOUR, linewidth=0.9, label=label)
-            if use_ref:
-                ref = sub.groupby(x_col, sort=True)[reference].first()
-                xs = ref.index.to_numpy() if x_numeric else [x_levels.index(v) for v in ref.index]
-                ax.plot(xs, ref.to_numpy(dtype=float), color=REFERENCE_COLOUR, linestyle=":", marker="x",
-                        linewidth=1.0, label="formula n")
-            for i, lev in enumerate(line_levels):
-                st = series_style(i)
-                part = sub if line_col is None else sub[sub[line_col] == lev]
-                part = part.sort_values(x_col)
-                if part.empty:
-                    continue
-                xs = part[x_col].to_numpy(dtype=float) if x_numeric else np.array([x_levels.index(v) for v in part[x_col]], dtype=float)
-                if dodge:
-                    xs = xs + dodge * (i - (len(line_levels) - 1) / 2)
-                ys = part[value].to_numpy(dtype=float)
-                label = _level_text(line_col, lev) if line_col is not None else value_label
-                if value == "coverage" and "coverage_mcse" in part.columns:
-                    ax.errorbar(xs, ys, yerr=2 * np.nan_to_num(part["coverage_mcse"].to_numpy(dtype=float)),
-                                color=st["color"], marker=st["marker"], linestyle=st["linestyle"],
-                                capsize=2, elinewidth=0.8, label=label)
-                else:
-                    ax.plot(xs, ys, color=st["color"], marker=st["marker"], linestyle=st["linestyle"], label=label)
-                    if not_reached_y is not None and "reached" in part.columns:
-                        miss = (part["reached"] == False).to_numpy()  # noqa: E712 (a column of bools or None)
-                        if miss.any():
-                            # a search that stopped at its ceiling: a hollow triangle above the data
-                            ax.plot(xs[miss], np.full(int(miss.sum()), not_reached_y), linestyle="none", marker="^",
-                                    markerfacecolor="white", markeredgecolor=st["color"], markersize=5.5, zorder=3)
-                            any_missing = True
-            if panel_cols:
-                ax.set_title(", ".join(_level_text(c, v) for c, v in zip(panel_cols, key)), loc="left")
-            if not x_numeric:
-                ax.set_xticks(range(len(x_levels)), [str(v) for v in x_levels])
-            if j % ncols == 0:
-                ax.set_ylabel(value_label)
-            if j >= k - ncols:
-                ax.set_xlabel(x_col)
-        for ax in axes[k:]:
-            ax.set_visible(False)
-        if value == "n":
-            vals = frame[value].to_numpy(dtype=float)
-            vals = vals[np.isfinite(vals) & (vals > 0)]
-            if vals.size > 1 and vals.max() / vals.min() > 25:
-                axes[0].set_yscale("log")
-                _plain_log(axes[0].yaxis)
-        if any_missing:
-            from matplotlib.lines import Line2D
 
-            axes[0].add_line(Line2D([], [], linestyle="none", marker="^", markerfacecolor="white",
-                                    markeredgecolor=REFERENCE_COLOUR, markersize=5.5,
-                                    label="targets not reached by the search ceiling"))
-        if line_col is not None:
-            fig.legend(*_legend_items(fig), loc="outside lower center", ncols=min(5, len(line_levels) + 2),
-                       handlelength=2.6)
-        else:
-            _outside_legend(fig, axes[0])
-    return fig
+
+def _sweep_value_label(value: str, n_label: str | None) -> str:
+    label = {"n": n_label or "Required sample size n", "coverage": "Coverage at the fixed n"}.get(value, value)
+    # break a long label before its parenthesis so it fits the panel height
+    return label.replace(" (", "\n(") if len(label) > 24 else label
+
+
+def _sweep_legend(fig: Figure, ax, drawn: set[str]) -> None:
+    from matplotlib.lines import Line2D
+
+    for kind in ("undecided", "undecided-none", "not reached"):
+        if kind in drawn:
+            o = OUTCOME_STYLE[kind]
+            face = "white" if kind == "undecided" else REFERENCE_COLOUR
+            ax.add_line(Line2D([], [], linestyle="none", marker=o["marker"], markerfacecolor=face,
+                               markeredgecolor=REFERENCE_COLOUR, markersize=o["markersize"], label=o["label"]))
+    handles, labels = _legend_items(fig)
+    if handles:
+        fits = _legend_columns(fig, labels)
+        fig.legend(handles, labels, loc="outside lower center", ncols=min(fits, 4, len(labels)), handlelength=2.6)
 
 
 def _legend_items(fig: Figure) -> tuple[list, list]:
+    """Legend entries of every axis, once each; labels starting with '_' are left out."""
     handles, labels = [], []
     for a in fig.axes:
         h, lab = a.get_legend_handles_labels()
         for hh, ll in zip(h, lab):
-            if ll and ll not in labels:
+            if ll and not ll.startswith("_") and ll not in labels:
                 handles.append(hh)
                 labels.append(ll)
     return handles, labels
@@ -716,11 +918,29 @@ def save_figure(fig: Figure, stem: str | Path, formats: Sequence[str] = FORMATS)
     return out
 
 
-def figure_bytes(fig: Figure, fmt: str = "png") -> bytes:
-    """The figure as bytes in one format (for embedding in HTML)."""
+def screen_png(fig: Figure, dpi: float = SCREEN_DPI, colours: int = 96) -> bytes:
+    """A small PNG for web pages: screen resolution and an adaptive palette of ``colours``.
+
+    A figure of lines, bands and text uses few colours, so the palette keeps it
+    visually the same at a third of the bytes; the quantisation is
+    deterministic, so equal figures give equal bytes.
+    """
+    import io
+
+    from PIL import Image
+
+    img = Image.open(io.BytesIO(figure_bytes(fig, "png", dpi=dpi))).convert("RGB")
+    out = io.BytesIO()
+    img.quantize(colors=colours, method=Image.Quantize.MEDIANCUT, dither=Image.Dither.NONE).save(
+        out, format="PNG", optimize=True)
+    return out.getvalue()
+
+
+def figure_bytes(fig: Figure, fmt: str = "png", dpi: float | None = None) -> bytes:
+    """The figure as bytes in one format (for embedding in HTML; ``dpi`` default ``savefig.dpi``)."""
     import io
 
     buf = io.BytesIO()
     with rc_context(STYLE):
-        fig.savefig(buf, format=fmt, metadata=_metadata(fmt))
+        fig.savefig(buf, format=fmt, metadata=_metadata(fmt), **({} if dpi is None else {"dpi": dpi}))
     return buf.getvalue()

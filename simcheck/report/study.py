@@ -17,7 +17,7 @@ from typing import Any, Callable, Mapping, Sequence
 
 from simcheck import __version__
 from simcheck.results import CheckResult, CurveResult, SearchResult
-from simcheck.report.text import methods_paragraph, n_axis_label, value_axis_label
+from simcheck.report.text import cell_outcome, decision_status, explain_note, methods_paragraph, n_axis_label, value_axis_label
 
 
 Progress = Callable[[str], None] | None
@@ -54,7 +54,14 @@ class StudyResults:
     curves : dict
         Method -> :class:`CurveResult` around the n found (for figures).
     checks : dict
-        Method -> :class:`CheckResult` at the n found (with ``margin_values``).
+        Method -> the search's own confirmation at the n found (its ``at_n``):
+        the figures the answer rests on, quoted everywhere.
+    rechecks : dict
+        Method -> a fresh :class:`CheckResult` at the n found, run only when the
+        search kept no half-widths for the half-width figure; labelled as a
+        re-check wherever it is shown (it differs by Monte Carlo error).
+    discrete : bool
+        True when a data model is discrete (coverage then oscillates in n).
     n_formula : int, optional
         Closed-form n; ``formula`` holds its details (``FormulaResult.to_dict``).
     formula_checks : dict
@@ -90,6 +97,8 @@ class StudyResults:
     value_label: str = "Achieved half-width (data units)"
     scenario: Mapping[str, Any] | None = None
     versions: Mapping[str, str] = field(default_factory=versions)
+    rechecks: Mapping[str, CheckResult] = field(default_factory=dict)
+    discrete: bool = False
 
     def to_dict(self) -> dict[str, Any]:
         from simcheck.results import clean_json
@@ -106,6 +115,8 @@ class StudyResults:
             "n_formula": self.n_formula,
             "formula": dict(self.formula) if self.formula else None,
             "best": self.best,
+            "fewest_n": self.fewest_n(),
+            "decision": self.decision(),
             "by_method": [self.method_row(m) for m in self.methods],
             "methods_paragraph": methods_paragraph(self),
             "data": dict(self.data),
@@ -116,11 +127,43 @@ class StudyResults:
         return {"estimand": self.estimand, "confidence": self.confidence, "margin": self.margin,
                 "assurance": self.assurance, "coverage_tolerance": self.coverage_tolerance}
 
+    def fewest_n(self) -> list[str]:
+        """Methods that reached the targets with the smallest n (a fact, not a recommendation)."""
+        found = {m: r.n for m, r in self.searches.items() if r.reached and r.n is not None}
+        if not found:
+            return []
+        low = min(found.values())
+        return [m for m in self.methods if found.get(m) == low]
+
+    def decision(self) -> str:
+        """'clear' when every method's answer is clear, else 'undecided' or 'not reached' (the first found)."""
+        states = [decision_status(self.searches[m]) for m in self.methods if m in self.searches]
+        for s in ("undecided", "not reached"):
+            if s in states:
+                return s
+        return "clear" if states else "–"
+
+    def notes_for(self, method: str) -> list[str]:
+        """Notes of the search and of its confirmation, the oscillation wording fitted to the data."""
+        out: list[str] = []
+        for src in (self.searches.get(method), self.checks.get(method)):
+            for t in (src.notes if src is not None else ()):
+                t = explain_note(t, self.discrete)
+                if t not in out:
+                    out.append(t)
+        return out
+
     def method_row(self, method: str) -> dict[str, Any]:
-        """One row of the results table (plain values)."""
+        """One row of the results table (plain values).
+
+        ``coverage``, ``assurance`` and their MCSEs are the search's own
+        confirmation figures; ``recheck_*`` (when present) come from a fresh
+        check run only for the half-width figure.
+        """
         s = self.searches.get(method)
         c = self.checks.get(method)
         f = self.formula_checks.get(method)
+        rc = self.rechecks.get(method)
         return {
             "method": method,
             "n_formula": self.n_formula,
@@ -129,24 +172,38 @@ class StudyResults:
             "assurance_at_formula_n": None if f is None else f.assurance,
             "n_found": None if s is None else s.n,
             "reached": None if s is None else s.reached,
+            "decision": decision_status(s),
+            "criterion": None if s is None else (getattr(s, "criterion", "") or None),
+            "criterion_text": None if s is None else (getattr(s, "criterion_text", "") or None),
+            "stop_reason": None if s is None else s.stop_reason,
+            "replicates_needed": None if s is None else getattr(s, "replicates_needed", None),
+            "n_first": None if s is None else s.n_first,
             "n_range_low": None if s is None or s.n_range is None else s.n_range[0],
             "n_range_high": None if s is None or s.n_range is None else s.n_range[1],
-            "coverage": None if c is None else c.coverage,
-            "coverage_mcse": None if c is None else c.coverage_mcse,
+            "coverage": None if s is None else s.coverage,
+            "coverage_mcse": None if s is None else s.coverage_mcse,
             "miss_low": None if c is None else c.miss_low,
             "miss_high": None if c is None else c.miss_high,
-            "assurance": None if c is None else c.assurance,
-            "assurance_mcse": None if c is None else c.assurance_mcse,
+            "assurance": None if s is None else s.assurance,
+            "assurance_mcse": None if s is None else s.assurance_mcse,
             "margin_median": None if c is None else c.margin_median,
             "margin_p90": None if c is None else c.margin_p90,
-            "exact": None if c is None else c.exact,
+            "exact": None if s is None else s.exact,
+            "confirm_replicates": None if c is None or c.exact else c.replicates,
             "replicates_used": None if s is None else s.replicates_used,
+            "recheck_coverage": None if rc is None else rc.coverage,
+            "recheck_coverage_mcse": None if rc is None else rc.coverage_mcse,
+            "recheck_replicates": None if rc is None else rc.replicates,
+            "notes": self.notes_for(method),
         }
 
     def to_frame(self):
         import pandas as pd
 
-        return pd.DataFrame([self.method_row(m) for m in self.methods])
+        rows = [self.method_row(m) for m in self.methods]
+        for r in rows:
+            r["notes"] = " | ".join(r["notes"])
+        return pd.DataFrame(rows)
 
 
 @dataclass(frozen=True)
@@ -172,9 +229,20 @@ class SweepResults:
             "vary": list(self.vary),
             "cells": int(self.frame["cell_key"].nunique()) if "cell_key" in self.frame else len(self.frame),
             "rows_ok": int(len(ok)),
+            "decisions": self.decisions(),
             "root_seed": self.meta.get("root_seed"),
             "versions": {k: self.meta.get(f"{k}_version") for k in ("simcheck", "numpy", "scipy", "python")},
         })
+
+    def decisions(self) -> dict[str, int] | None:
+        """How many finished rows of a search sweep are clear, undecided or not reached."""
+        ok = self.frame[self.frame["status"] == "ok"] if "status" in self.frame else self.frame
+        if self.task != "search" or "n" not in ok:
+            return None
+        kinds = [cell_outcome(r) for r in ok.to_dict("records")]
+        return {"clear": kinds.count("clear"),
+                "undecided": sum(k.startswith("undecided") for k in kinds),
+                "not reached": kinds.count("not reached")}
 
     def to_frame(self):
         return self.frame
@@ -285,7 +353,7 @@ def run_study(scenario, *, seed: int | None = None, progress: Progress = None, p
     units : str, optional
         The data's units, for the half-width axis.
     """
-    from simcheck import engine, search
+    from simcheck import search
     from simcheck.tasks import resolve_seed
 
     say = progress or (lambda _msg: None)
@@ -301,7 +369,8 @@ def run_study(scenario, *, seed: int | None = None, progress: Progress = None, p
     say(f"formula n: {n_formula if n_formula is not None else 'not available for this design'}")
     say(f"searching n for {', '.join(methods)} ...")
     common = dict(assurance=scenario.assurance, coverage_tolerance=scenario.coverage_tolerance, replicates=R,
-                  rng=seed, n_min=scenario.n_min, n_max=scenario.n_max, budget=getattr(scenario, "budget", None), path=path)
+                  rng=seed, n_min=scenario.n_min, n_max=scenario.n_max, budget=getattr(scenario, "budget", None), path=path,
+                  window=getattr(scenario, "window", 1.25))
     searches: dict[str, SearchResult] = {}
     best = None
     if len(methods) > 1:
@@ -314,26 +383,11 @@ def run_study(scenario, *, seed: int | None = None, progress: Progress = None, p
         best = methods[0] if searches[methods[0]].reached else None
     if n_formula is None:
         n_formula = next((r.n_formula for r in searches.values() if r.n_formula is not None), None)
-    curves: dict[str, CurveResult] = {}
-    checks: dict[str, CheckResult] = {}
-    formula_checks: dict[str, CheckResult] = {}
     # one grid for every method, so their lines can be compared point by point
     marks = [n_formula] + [x for r in searches.values() for x in (r.n, r.best_coverage_n)]
     grid = curve_grid(marks, scenario.n_min, scenario.n_max, points)
-    for m in methods:
-        d = design.with_method(m)
-        r = searches.get(m)
-        say(f"curve for {m}: {len(grid)} sample sizes from {grid[0]:,} to {grid[-1]:,} ...")
-        curves[m] = engine.curve(d, grid, replicates=R, rng=seed, path=path)
-        if n_formula is not None and n_formula in set(grid):
-            formula_checks[m] = curves[m].at(n_formula)
-        n_at = r.n if r is not None and r.n is not None else (r.best_coverage_n if r is not None else None)
-        if r is not None and r.at_n is not None and r.at_n.n == n_at and r.at_n.margin_values is not None:
-            # the search's own confirmation run at n: the numbers the decision rests on
-            checks[m] = r.at_n
-        elif n_at is not None:
-            say(f"check for {m} at n = {n_at:,} ...")
-            checks[m] = engine.check(d, n_at, replicates=R, rng=seed, path=path)
+    curves, checks, rechecks, formula_checks = _study_evaluations(design, methods, searches, grid, n_formula,
+                                                                  R=R, seed=seed, path=path, say=say)
     return StudyResults(
         title=scenario.title,
         estimand=design.estimand,
@@ -349,6 +403,8 @@ def run_study(scenario, *, seed: int | None = None, progress: Progress = None, p
         searches=searches,
         curves=curves,
         checks=checks,
+        rechecks=rechecks,
+        discrete=any(m is not None and m.discrete for m in (design.model, design.model_b)),
         n_formula=n_formula,
         formula=None if formula is None else formula.to_dict(),
         formula_checks=formula_checks,
@@ -358,6 +414,34 @@ def run_study(scenario, *, seed: int | None = None, progress: Progress = None, p
         value_label=value_axis_label(scenario, units),
         scenario=scenario.to_dict() if hasattr(scenario, "to_dict") else None,
     )
+
+
+def _study_evaluations(design, methods, searches, grid, n_formula, *, R, seed, path, say):
+    """Curves for the figures, the search's confirmations, and a re-check only where the
+    search kept no half-widths for the half-width figure."""
+    from simcheck import engine
+
+    curves: dict[str, CurveResult] = {}
+    checks: dict[str, CheckResult] = {}
+    rechecks: dict[str, CheckResult] = {}
+    formula_checks: dict[str, CheckResult] = {}
+    for m in methods:
+        d = design.with_method(m)
+        r = searches.get(m)
+        say(f"curve for {m}: {len(grid)} sample sizes from {grid[0]:,} to {grid[-1]:,} ...")
+        curves[m] = engine.curve(d, grid, replicates=R, rng=seed, path=path)
+        if n_formula is not None and n_formula in set(grid):
+            formula_checks[m] = curves[m].at(n_formula)
+        if r is None:
+            continue
+        if r.at_n is not None:
+            # the search's own confirmation: the numbers the decision rests on, quoted everywhere
+            checks[m] = r.at_n
+        n_at = r.at_n.n if r.at_n is not None else (r.n if r.n is not None else r.best_coverage_n)
+        if n_at is not None and (r.at_n is None or r.at_n.margin_values is None):
+            say(f"re-check for {m} at n = {n_at:,} (half-widths for the figure) ...")
+            rechecks[m] = engine.check(d, n_at, replicates=R, rng=seed, path=path)
+    return curves, checks, rechecks, formula_checks
 
 
 def is_store(path: str | Path) -> bool:

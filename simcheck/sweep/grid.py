@@ -10,7 +10,12 @@ everything that decides its result (the resolved scenario, the task and its
 arguments, and the sweep's root seed). The key names the cell's row in the
 store and, through :func:`simcheck.rng.key_from_text`, its random stream, so
 a cell's result depends on nothing else: not on worker count, backend, order
-or interruptions.
+or interruptions. Numbers are normalised before hashing (:func:`normalise`:
+``1`` and ``1.0`` are one value), so two spellings of one scenario are one cell.
+
+A sweep as a whole is identified by :func:`sweep_binding` (task, task
+arguments, root seed, base scenario, varied keys); a store holds the cells of
+one sweep only.
 """
 
 from __future__ import annotations
@@ -20,14 +25,22 @@ import hashlib
 import itertools
 import json
 import math
+import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, Callable
 
 from simcheck.errors import Collector, InputError, Problem
 from simcheck.files import parse_toml, read_text, resolve_data_path
+from simcheck.scenario import N_LIMIT, SEED_MAX
 
 TASKS = ("search", "check", "curve")
+
+#: the largest grid one sweep may have; a bigger one is refused before anything runs
+MAX_CELLS = 100_000
+
+#: floats with an integral value up to this size hash as the integer they equal
+_EXACT_INT = 2**53
 SWEEP_KEYS = ("title", "base", "task", "n", "n_min", "n_max", "seed", "vary")
 
 
@@ -86,21 +99,60 @@ def cell_label(values: dict[str, Any]) -> str:
     return "{" + ", ".join(f"{k}={v!r}" for k, v in values.items()) + "}"
 
 
+def normalise(value: Any) -> Any:
+    """The value as hashed: integral floats as ints, tuples and sets as lists, numpy scalars as Python ones.
+
+    ``1``, ``1.0`` and ``numpy.float64(1)`` are one value; booleans stay
+    booleans (``true`` is not ``1``).
+    """
+    if hasattr(value, "item") and not isinstance(value, (list, tuple, dict, str)):
+        value = value.item()
+    if isinstance(value, bool) or value is None or isinstance(value, (str, int)):
+        return value
+    if isinstance(value, float):
+        if value.is_integer() and abs(value) <= _EXACT_INT:
+            return int(value)
+        return value
+    if isinstance(value, dict):
+        return {str(k): normalise(v) for k, v in value.items()}
+    if isinstance(value, (set, frozenset)):
+        return sorted(normalise(v) for v in value)
+    if isinstance(value, (list, tuple)):
+        return [normalise(v) for v in value]
+    raise TypeError(f"cannot hash a value of type {type(value).__name__}")
+
+
+def canonical_json(value: Any) -> str:
+    """Sorted keys, no spaces, no NaN, numbers normalised (:func:`normalise`)."""
+    return json.dumps(normalise(value), sort_keys=True, separators=(",", ":"), allow_nan=False)
+
+
 def cell_key(scenario_dict: dict[str, Any], task: str, task_kwargs: dict[str, Any], root_seed: int) -> str:
     """SHA-256 (hex) of the canonical JSON of what decides a cell's result."""
     payload = {"scenario": scenario_dict, "task": task, "seed": int(root_seed)}
     payload.update({k: v for k, v in task_kwargs.items() if v is not None})
-    text = json.dumps(payload, sort_keys=True, separators=(",", ":"), allow_nan=False, default=_json_default)
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+    return hashlib.sha256(canonical_json(payload).encode("utf-8")).hexdigest()
 
 
-def _json_default(value: Any) -> Any:
-    # numpy scalars and tuples in a resolved scenario must hash like the plain values they are
-    if hasattr(value, "item"):
-        return value.item()
-    if isinstance(value, (set, frozenset)):
-        return sorted(value)
-    raise TypeError(f"cannot hash a value of type {type(value).__name__}")
+def sweep_binding(spec: "SweepSpec") -> tuple[str, dict[str, Any]]:
+    """The identity of a sweep: ``(sweep_id, parts)``.
+
+    ``parts`` are the task, its arguments, the root seed, the SHA-256 of the
+    base scenario's canonical JSON (comments and spacing do not count) and
+    the sorted varied keys; ``sweep_id`` is the SHA-256 of their canonical
+    JSON. Adding values to a varied key keeps the sweep (the grid grows);
+    changing anything else makes another sweep, which needs another store.
+    """
+    base = tomllib.loads(spec.base_text)
+    first = spec.combinations()[:1]
+    parts = {
+        "task": spec.task,
+        "task_args": {k: v for k, v in spec.task_kwargs().items() if v is not None},
+        "seed": int(spec.seed),
+        "base": hashlib.sha256(canonical_json(base).encode("utf-8")).hexdigest(),
+        "varied_keys": sorted(first[0]) if first else [],
+    }
+    return hashlib.sha256(canonical_json(parts).encode("utf-8")).hexdigest(), parts
 
 
 def _flatten_vary(table: dict[str, Any], prefix: str, out: dict[str, Any]) -> None:
@@ -114,7 +166,10 @@ def _flatten_vary(table: dict[str, Any], prefix: str, out: dict[str, Any]) -> No
 
 
 def _canonical(value: Any) -> str:
-    return json.dumps(value, sort_keys=True, default=str)
+    try:
+        return canonical_json(value)
+    except (TypeError, ValueError):
+        return json.dumps(value, sort_keys=True, default=str)
 
 
 def read_sweep(path: str | Path, *, allow_outside_files: bool = False) -> SweepSpec:
@@ -162,7 +217,7 @@ def read_sweep(path: str | Path, *, allow_outside_files: bool = False) -> SweepS
         elif not isinstance(raw, list) or not raw:
             c.add("n", f"must be a non-empty list of sample sizes, got {raw!r}")
         else:
-            got = [c.number(f"n[{i}]", v, low=2, integer=True) for i, v in enumerate(raw)]
+            got = [c.number(f"n[{i}]", v, low=2, high=N_LIMIT, integer=True) for i, v in enumerate(raw)]
             if all(v is not None for v in got):
                 if len(set(got)) != len(got):
                     c.add("n", f"each sample size at most once, got {raw!r}")
@@ -176,13 +231,14 @@ def read_sweep(path: str | Path, *, allow_outside_files: bool = False) -> SweepS
             if task is not None and task != "curve":
                 c.add(name, "only for task = 'curve' (for search, set simulation." + name + " in the scenario)")
             else:
-                bounds[name] = c.number(name, table[name], low=2, integer=True)  # type: ignore[assignment]
-    if bounds["n_min"] is not None and bounds["n_max"] is not None and bounds["n_min"] > bounds["n_max"]:
-        c.add("n_max", f"must be >= n_min ({bounds['n_min']}), got {bounds['n_max']}")
+                high = N_LIMIT - 1 if name == "n_min" else N_LIMIT
+                bounds[name] = c.number(name, table[name], low=2, high=high, integer=True)  # type: ignore[assignment]
+    if bounds["n_min"] is not None and bounds["n_max"] is not None and bounds["n_min"] >= bounds["n_max"]:
+        c.add("n_max", f"must be > n_min ({bounds['n_min']}), got {bounds['n_max']}")
 
     seed = None
     if "seed" in table:
-        seed = c.number("seed", table["seed"], low=0, integer=True)
+        seed = c.number("seed", table["seed"], low=0, high=SEED_MAX, integer=True)
 
     vary: list[tuple[str, tuple[Any, ...]]] = []
     raw_vary = table.get("vary", {})
@@ -202,9 +258,14 @@ def read_sweep(path: str | Path, *, allow_outside_files: bool = False) -> SweepS
                 continue
             seen = [_canonical(v) for v in values]
             if len(set(seen)) != len(seen):
-                c.add(f"vary.{k}", f"each value at most once, got {values!r}")
+                dup = sorted({repr(v) for v, t in zip(values, seen) if seen.count(t) > 1})
+                c.add(f"vary.{k}", f"each value at most once ({' and '.join(dup)} are the same value), got {values!r}")
                 continue
             vary.append((k, tuple(values)))
+        size = math.prod(len(v) for _, v in vary)
+        if size > MAX_CELLS:
+            c.add("vary", f"the grid has {size:,} cells; one sweep may have at most {MAX_CELLS:,} "
+                  "(split it into several sweep files, each with its own store)")
 
     base_path = None
     base_text = ""
@@ -260,11 +321,15 @@ def _base_seed(base_path: Path, base_text: str, source: str, allow_outside_files
     return int(seed)
 
 
-def expand(spec: SweepSpec) -> list[Cell]:
+def expand(spec: SweepSpec, progress: Callable[[int, int], None] | None = None) -> list[Cell]:
     """Validate every cell of the grid and return them in grid order.
 
     Each cell is the base scenario with the cell's values set at their dotted
-    keys, validated by :func:`simcheck.scenario.scenario_from_dict`.
+    keys, validated by :func:`simcheck.scenario.scenario_from_dict`, and the
+    sweep's task arguments are checked against it
+    (:func:`simcheck.tasks.run_task` with ``validate_only``), so a cell that
+    would fail on its arguments is refused before anything runs.
+    ``progress(done, total)`` is called after each cell.
 
     Raises
     ------
@@ -273,6 +338,7 @@ def expand(spec: SweepSpec) -> list[Cell]:
         line), and how many other cells are invalid.
     """
     from simcheck.scenario import scenario_from_dict, set_dotted
+    from simcheck.tasks import run_task
 
     source = str(spec.path)
     base_table = parse_toml(spec.base_text, label=str(spec.base_path))
@@ -282,13 +348,17 @@ def expand(spec: SweepSpec) -> list[Cell]:
     bad: list[tuple[dict[str, Any], InputError]] = []
     kwargs = spec.task_kwargs()
     keys: dict[str, int] = {}
-    for i, values in enumerate(spec.combinations()):
+    combos = spec.combinations()
+    for i, values in enumerate(combos):
+        if progress is not None:
+            progress(i, len(combos))
         table = base_table
         try:
             for k, v in values.items():
                 table = set_dotted(table, k, v)  # returns a deep copy; the base stays as read
             scen = scenario_from_dict(table, source=str(spec.base_path), base_dir=base_dir,
                                       allow_outside_files=spec.allow_outside_files)
+            run_task(scen, spec.task, validate_only=True, **kwargs)
         except InputError as exc:
             bad.append((values, exc))
             continue

@@ -12,6 +12,16 @@ skipped, cells stored with status ``'error'`` are run again (an error may have
 been a lack of memory or a since-fixed bug; a result never is), and cells new
 to the grid are added, keeping the rows of cells no longer in it.
 
+A local worker process that dies (killed, out of memory) loses only the
+cells it was running: the driver records it, starts a fresh pool and runs
+the unfinished cells again, up to :data:`MAX_RESTARTS` times per invocation.
+Workers watch their driver and exit within about a second once it is gone
+(e.g. after ``kill -9``), so they never compute on for nobody.
+
+The store is bound to its sweep (:func:`simcheck.sweep.grid.sweep_binding`)
+and has one writer at a time (the ``writer`` row); a stored cell that fails
+its checksum is computed again.
+
 Every cell draws from its own stream,
 ``SeedSequence(root_seed, spawn_key=(key_from_text(cell_key),))``, so its
 result is bitwise the same whatever the worker count, backend, order or number
@@ -22,6 +32,7 @@ from __future__ import annotations
 
 import os
 import socket
+import sqlite3
 import time
 import traceback
 from dataclasses import dataclass
@@ -33,9 +44,18 @@ import numpy as np
 from simcheck.errors import InputError
 from simcheck.rng import key_from_text
 from simcheck.sweep.grid import Cell, SweepSpec, expand, read_sweep
-from simcheck.sweep.store import StoredCell, SweepStore, dumps
+from simcheck.sweep.store import StoredCell, SweepStore, dumps, store_write_error
 
 BACKENDS = ("local", "dask")
+
+#: the most local worker processes one sweep may ask for
+MAX_JOBS = 1024
+
+#: fresh worker pools one invocation starts after a worker died, before it stops
+MAX_RESTARTS = 3
+
+#: seconds between a worker's checks that its driver is still alive
+WATCH_SECONDS = 0.5
 
 #: ``cell_func(scenario, task, seed, **task_kwargs) -> dict`` computes one cell
 CellFunc = Callable[..., dict]
@@ -94,7 +114,8 @@ class SweepAborted(RuntimeError):
     """The execution machinery failed (e.g. a worker process died); finished cells are stored."""
 
     def __init__(self, summary: SweepSummary, cause: BaseException) -> None:
-        super().__init__(f"{type(cause).__name__}: {cause}")
+        first = (str(cause).strip().splitlines() or [""])[0].strip()
+        super().__init__(f"{type(cause).__name__}: {first}" if first else type(cause).__name__)
         self.summary = summary
         self.cause = cause
 
@@ -151,13 +172,28 @@ def _execute(cell_func: CellFunc, cell_key: str, scenario: Any, task: str, kwarg
         )
 
 
-def _worker_init() -> None:
+def _worker_init(driver: int | None = None) -> None:
     # Ctrl-C on a terminal reaches the whole process group; only the driver should
     # react (it stops the workers and keeps what is stored), not every worker with a traceback.
     import signal
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     _one_thread_per_worker()
+    # the driver's pid comes from the driver: a worker that starts after the driver died must notice too
+    _watch_driver(os.getppid() if driver is None else driver)
+
+
+def _watch_driver(driver: int) -> None:
+    # A killed driver (kill -9) cannot stop its workers; without this they would
+    # finish their cells for nobody and hold the terminal's pipes for minutes.
+    import threading
+
+    def watch() -> None:
+        while os.getppid() == driver:
+            time.sleep(WATCH_SECONDS)
+        os._exit(1)
+
+    threading.Thread(target=watch, name="simcheck-driver-watch", daemon=True).start()
 
 
 def _one_thread_per_worker() -> None:
@@ -228,6 +264,8 @@ def run_sweep(
     cell_func: CellFunc | None = None,
     on_start: Callable[[int, int], None] | None = None,
     on_cell: Callable[[CellOutcome, int, int], None] | None = None,
+    on_notice: Callable[[str], None] | None = None,
+    on_validate: Callable[[int, int], None] | None = None,
 ) -> SweepSummary:
     """Run the cells of a sweep that ``store`` lacks, storing each as it finishes.
 
@@ -238,8 +276,9 @@ def run_sweep(
     store : path
         SQLite file; created when missing. Only this process writes to it.
     jobs : int
-        Local worker processes (``backend="local"``); not used with
-        ``backend="dask"``, where every worker thread of the cluster runs cells.
+        Local worker processes (``backend="local"``), at most :data:`MAX_JOBS`;
+        not used with ``backend="dask"``, where every worker thread of the
+        cluster runs cells.
     backend : {"local", "dask"}
     scheduler : str, optional
         Address of the Dask scheduler (``backend="dask"``).
@@ -250,6 +289,11 @@ def run_sweep(
         ``on_start(done_before, total)`` once the store is open.
     on_cell : callable, optional
         ``on_cell(outcome, done, total)`` after each cell is stored.
+    on_notice : callable, optional
+        ``on_notice(line)`` for what the user should know (store upgraded,
+        corrupt cells computed again, a worker died and its cells restart).
+    on_validate : callable, optional
+        ``on_validate(done, total)`` while the grid's cells are checked.
 
     Returns
     -------
@@ -258,116 +302,168 @@ def run_sweep(
     Raises
     ------
     InputError
-        Bad sweep file, grid cell or options; nothing is run or stored.
+        Bad sweep file, grid cell, options or store (another sweep's, one
+        being written by another sweep, not a store, not writable, full);
+        nothing is run, and a store this call created is removed again.
     SweepInterrupted
         Ctrl-C; every finished cell is stored (carries the summary).
     SweepAborted
         The execution machinery failed; every finished cell is stored.
     """
-    if isinstance(jobs, bool) or not isinstance(jobs, int) or jobs < 1:
-        raise InputError("--jobs", f"must be a whole number >= 1, got {jobs!r}")
+    from simcheck.sweep.grid import sweep_binding
+
+    if isinstance(jobs, bool) or not isinstance(jobs, int) or not 1 <= jobs <= MAX_JOBS:
+        raise InputError("--jobs", f"must be a whole number in [1, {MAX_JOBS}], got {jobs!r}")
     if backend not in BACKENDS:
         raise InputError("--backend", f"must be one of {', '.join(BACKENDS)}, got {backend!r}")
     if backend == "local" and scheduler:
         raise InputError("--scheduler", "only with --backend dask")
     spec = sweep if isinstance(sweep, SweepSpec) else read_sweep(sweep)
-    cells = expand(spec)
+    cells = expand(spec, progress=on_validate)
+    sweep_id, binding = sweep_binding(spec)
     func = cell_func or run_cell
+    notice = on_notice or (lambda line: None)
     # Connect before creating the store: a wrong address must leave nothing behind.
     client = connect_dask(scheduler) if backend == "dask" else None
     try:
         with SweepStore(store) as st:
-            return _drive(spec, cells, st, func, jobs, backend, on_start, on_cell)
+            for line in st.notices:
+                notice(line)
+            st.notices.clear()
+            try:
+                st.acquire()
+                for line in st.notices:
+                    notice(line)
+                st.bind(sweep_id, binding)
+                return _drive(spec, cells, st, func, jobs, backend, on_start, on_cell, notice)
+            except sqlite3.DatabaseError as exc:
+                err = store_write_error(st.path, exc)
+                raise type(err)(
+                    "--store", f"{err.problems[0].message}; {st.cells_count()} of {len(cells)} cells are stored; "
+                    "free space (or raise the limit) and run the same command again"
+                ) from None
     finally:
         if client is not None:
             client.close()
 
 
-def _drive(
-    spec: SweepSpec,
-    cells: list[Cell],
-    st: SweepStore,
-    func: CellFunc,
-    jobs: int,
-    backend: str,
-    on_start,
-    on_cell,
-) -> SweepSummary:
-    import joblib
+class _Run:
+    """The bookkeeping of one invocation: what is pending, what is stored."""
 
-    status = st.status_by_key()
-    pending = [c for c in cells if status.get(c.key) != "ok"]
-    total = len(cells)
-    before = total - len(pending)
-    run_id = st.begin_run(spec=spec, cells_total=total, cells_before=before, backend=backend, jobs=jobs)
-    if on_start is not None:
-        on_start(before, total)
-    by_key = {c.key: c for c in pending}
-    kwargs = spec.task_kwargs()
-    run_now = failed = 0
+    def __init__(self, spec: SweepSpec, cells: list[Cell], st: SweepStore, notice) -> None:
+        status = st.status_by_key()
+        corrupt = [c for c in cells if status.get(c.key) == "corrupt"]
+        if corrupt:
+            notice(f"{len(corrupt)} stored cells failed their checksum (changed after they were written); computing them again")
+        self.spec, self.st = spec, st
+        self.pending = [c for c in cells if status.get(c.key) != "ok"]
+        self.total = len(cells)
+        self.before = self.total - len(self.pending)
+        self.by_key = {c.key: c for c in self.pending}
+        self.done: set[str] = set()
+        self.failed = 0
+        self.run_id = 0
 
-    def summary(interrupted: bool = False) -> SweepSummary:
+    def summary(self, interrupted: bool = False) -> SweepSummary:
         return SweepSummary(
-            cells_total=total,
-            done_before=before,
-            run_now=run_now,
-            failed=failed,
-            store=str(st.path),
-            interrupted=interrupted,
-            pending=len(pending) - run_now,
+            cells_total=self.total, done_before=self.before, run_now=len(self.done), failed=self.failed,
+            store=str(self.st.path), interrupted=interrupted, pending=len(self.pending) - len(self.done),
         )
 
-    if not pending:
-        return summary()
+    def store(self, out: CellOutcome) -> None:
+        cell = self.by_key[out.cell_key]
+        stored = StoredCell(
+            cell_key=cell.key, cell_index=cell.index, task=self.spec.task, values=cell.values,
+            scenario=cell.scenario.to_dict(), task_args=self.spec.task_kwargs(), seed=self.spec.seed,
+            status=out.status, result=out.result, error=out.error, traceback=out.traceback,
+            seconds=out.seconds, worker=out.worker,
+        )
+        try:
+            self.st.put(stored, self.run_id)
+        except sqlite3.DatabaseError as exc:
+            s = self.summary(interrupted=True)
+            err = store_write_error(self.st.path, exc)
+            raise type(err)(
+                "--store", f"{err.problems[0].message}; {s.stored_ok} of {s.cells_total} cells are stored; "
+                "free space (or raise the limit) and run the same command again"
+            ) from None
+        self.done.add(out.cell_key)
+        self.failed += out.status != "ok"
+
+
+def _drive(spec, cells, st, func, jobs, backend, on_start, on_cell, notice) -> SweepSummary:
+    run = _Run(spec, cells, st, notice)
+    run.run_id = st.begin_run(spec=spec, cells_total=run.total, cells_before=run.before, backend=backend, jobs=jobs)
+    if on_start is not None:
+        on_start(run.before, run.total)
+    restarts = 0
+    while True:
+        todo = [c for c in run.pending if c.key not in run.done]
+        if not todo:
+            return run.summary()
+        results = None
+        try:
+            results = _launch(spec, todo, func, jobs, backend)
+            for out in results:
+                run.store(out)
+                if on_cell is not None:
+                    on_cell(out, run.before + len(run.done), run.total)
+            return run.summary()
+        except KeyboardInterrupt:
+            _close(results)
+            raise SweepInterrupted(run.summary(interrupted=True)) from None
+        except InputError:
+            _close(results)
+            raise
+        except Exception as exc:
+            _close(results)
+            if backend != "local" or not _worker_died(exc) or restarts >= MAX_RESTARTS:
+                raise SweepAborted(run.summary(interrupted=True), exc) from exc
+            restarts += 1
+            left = len(run.pending) - len(run.done)
+            notice(f"a worker process died ({_first_line(exc)}); running the {left} unfinished cells "
+                   f"on new workers (restart {restarts} of {MAX_RESTARTS})")
+        finally:
+            try:
+                st.checkpoint()  # a copy of the .sqlite alone then holds every stored cell
+            except sqlite3.DatabaseError:
+                pass  # the error that stopped the run is the one to report
+
+
+def _launch(spec: SweepSpec, todo: list[Cell], func: CellFunc, jobs: int, backend: str):
+    """An iterator of :class:`CellOutcome` in completion order (joblib over loky processes or Dask)."""
+    import joblib
+
+    kwargs = spec.task_kwargs()
     tasks = (
         joblib.delayed(_execute)(func, c.key, c.scenario, spec.task, kwargs, cell_seed(spec.seed, c.key), backend == "dask")
-        for c in pending
+        for c in todo
     )
     if backend == "dask":
         config = joblib.parallel_config(backend="dask")
         n_jobs = -1  # every worker thread of the cluster
     else:
-        config = joblib.parallel_config(backend="loky", initializer=_worker_init)
-        n_jobs = min(jobs, len(pending))
-    results = None
+        config = joblib.parallel_config(backend="loky", initializer=_worker_init, initargs=(os.getpid(),))
+        # --jobs > 1 always means worker processes (joblib runs n_jobs=1 in the driver itself),
+        # so a cell that crashes its process cannot take the driver with it, even when it runs last
+        n_jobs = 1 if jobs == 1 else max(2, min(jobs, len(todo)))
+    with config:
+        # batch_size=1: each cell comes back (and is stored) on its own, as soon as it is done
+        parallel = joblib.Parallel(n_jobs=n_jobs, return_as="generator_unordered", batch_size=1, pre_dispatch="2*n_jobs")
+        return parallel(tasks)
+
+
+def _worker_died(exc: BaseException) -> bool:
     try:
-        with config:
-            # batch_size=1: each cell comes back (and is stored) on its own, as soon as it is done
-            parallel = joblib.Parallel(n_jobs=n_jobs, return_as="generator_unordered", batch_size=1, pre_dispatch="2*n_jobs")
-            results = parallel(tasks)
-            for out in results:
-                cell = by_key[out.cell_key]
-                st.put(
-                    StoredCell(
-                        cell_key=cell.key,
-                        cell_index=cell.index,
-                        task=spec.task,
-                        values=cell.values,
-                        scenario=cell.scenario.to_dict(),
-                        task_args=kwargs,
-                        seed=spec.seed,
-                        status=out.status,
-                        result=out.result,
-                        error=out.error,
-                        traceback=out.traceback,
-                        seconds=out.seconds,
-                        worker=out.worker,
-                    ),
-                    run_id,
-                )
-                run_now += 1
-                failed += out.status != "ok"
-                if on_cell is not None:
-                    on_cell(out, before + run_now, total)
-    except KeyboardInterrupt:
-        _close(results)
-        raise SweepInterrupted(summary(interrupted=True)) from None
-    except InputError:
-        raise
-    except Exception as exc:
-        _close(results)
-        raise SweepAborted(summary(interrupted=True), exc) from exc
-    return summary()
+        from joblib.externals.loky.process_executor import BrokenProcessPool, TerminatedWorkerError
+    except ImportError:  # pragma: no cover - joblib always vendors loky
+        return False
+    return isinstance(exc, (TerminatedWorkerError, BrokenProcessPool))
+
+
+def _first_line(exc: BaseException) -> str:
+    text = (str(exc).strip().splitlines() or [""])[0].strip()
+    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
 
 
 def _close(results: Any) -> None:

@@ -1,0 +1,196 @@
+"""Settings shown but not used, and values allowed but implausible (issue 12, "Measures").
+
+Each case goes through the scenario file and the command line: bad input is one
+line on stderr with exit code 2; a warning is a notice on stderr and a result note.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import pytest
+from scipy import stats
+
+from simcheck.cli import main
+from simcheck.errors import InputError
+from simcheck.scenario import load_scenario, scenario_from_dict
+from simcheck.search import formula_n
+
+
+def cli(capsys, *argv):
+    rc = main([str(a) for a in argv])
+    out, err = capsys.readouterr()
+    return rc, out, err
+
+
+def _write(tmp_path, name, text):
+    f = tmp_path / name
+    f.write_text(text)
+    return f
+
+
+BASE = """
+title = "invented"
+[method]
+interval = "{method}"
+[simulation]
+replicates = 500
+seed = 1
+"""
+
+
+# --- clusters.effect on 0/1 data ---------------------------------------------
+def test_gamma_cluster_effect_on_0_1_data_is_refused(capsys, tmp_path):
+    f = _write(tmp_path, "s.toml", BASE.format(method="wilson") + """
+[target]
+estimand = "proportion"
+margin = 0.05
+[data]
+model = "bernoulli"
+p = 0.2
+[clusters]
+icc = 0.05
+size = 10
+effect = "gamma"
+""")
+    rc, out, err = cli(capsys, "check", f, "--n", 20)
+    assert rc == 2 and out == "" and err.count("\n") == 1
+    assert err.startswith("simcheck: error: ") and "clusters.effect" in err and "beta-binomial" in err
+    # continuous data keep the gamma effect
+    g = _write(tmp_path, "g.toml", BASE.format(method="cluster-t") + """
+[target]
+estimand = "mean"
+margin = 1.0
+[data]
+model = "lognormal"
+mean = 5
+cv = 1
+[clusters]
+icc = 0.05
+size = 10
+effect = "gamma"
+""")
+    assert load_scenario(g).design.clusters.effect == "gamma"
+
+
+# --- a proportion margin of 10 -------------------------------------------------
+@pytest.mark.parametrize("estimand,data,margin", [
+    ("proportion", '[data]\nmodel = "bernoulli"\np = 0.3\n', 10),
+    ("proportion", '[data]\nmodel = "bernoulli"\np = 0.3\n', 1),
+    ("proportion-diff", '[data.a]\nmodel = "bernoulli"\np = 0.3\n[data.b]\nmodel = "bernoulli"\np = 0.2\n', 1.5),
+])
+def test_proportion_margin_of_one_or_more_is_refused_as_formula_does(capsys, tmp_path, estimand, data, margin):
+    method = "wilson" if estimand == "proportion" else "newcombe"
+    f = _write(tmp_path, "s.toml", BASE.format(method=method) + f"""
+[target]
+estimand = "{estimand}"
+margin = {margin}
+""" + data)
+    rc, out, err = cli(capsys, "search", f)
+    assert rc == 2 and out == "" and err.count("\n") == 1 and "target.margin: must be < 1" in err
+    # the closed form refuses it too (the same rule)
+    rc, _, err2 = cli(capsys, "formula", "--estimand", estimand, "--margin", margin, "--p", 0.3,
+                      *(("--p-b", 0.2) if estimand == "proportion-diff" else ()))
+    assert rc == 2 and "--margin: must be < 1" in err2
+
+
+# --- implausible CVs warn --------------------------------------------------------
+def test_cv_80_and_size_cv_40_warn_on_stderr_and_in_notes(capsys, tmp_path):
+    f = _write(tmp_path, "s.toml", BASE.format(method="t") + """
+[target]
+estimand = "mean"
+margin = 50
+[data]
+model = "lognormal"
+mean = 100
+cv = 80
+[clusters]
+icc = 0.05
+size_mean = 10
+size_cv = 40
+""")
+    rc, out, err = cli(capsys, "check", f, "--n", 30, "--json")
+    assert rc == 0
+    notes = json.loads(out)["notes"]
+    for key in ("data.cv = 80", "clusters.size_cv = 40"):
+        assert any(key in t for t in notes), key
+        assert any(key in line for line in err.splitlines()), key
+    ok = _write(tmp_path, "ok.toml", BASE.format(method="t") + """
+[target]
+estimand = "mean"
+margin = 50
+[data]
+model = "lognormal"
+mean = 100
+cv = 0.8
+""")
+    rc, out, err = cli(capsys, "check", ok, "--n", 30, "--json")
+    assert rc == 0 and "warning" not in err and not any("warning" in t for t in json.loads(out)["notes"])
+
+
+def test_lognormal_given_sd_suggests_cv():
+    with pytest.raises(InputError) as e:
+        scenario_from_dict({"target": {"estimand": "mean", "margin": 1.0}, "method": {"interval": "t"},
+                            "data": {"model": "lognormal", "mean": 5.0, "sd": 2.0}})
+    msg = {p.field: p.message for p in e.value.problems}["data.sd"]
+    assert "cv" in msg and "sdlog" not in msg and "0.4" in msg
+
+
+# --- population.file supplies the values -----------------------------------------
+def _ledger(tmp_path):
+    values = [round(2.0 + (i * 37 % 101) / 7.0, 2) for i in range(600)]
+    (tmp_path / "ledger.csv").write_text("id,amount\n" + "\n".join(f"{i},{v}" for i, v in enumerate(values)) + "\n")
+    return values
+
+
+def test_population_file_without_data_table(capsys, tmp_path):
+    values = _ledger(tmp_path)
+    f = _write(tmp_path, "s.toml", BASE.format(method="t") + """
+[target]
+estimand = "mean"
+margin = 0.5
+[population]
+file = "ledger.csv"
+column = "amount"
+""")
+    s = load_scenario(f)
+    assert "ledger.csv" in s.describe_data()
+    # the closed form from the file's values: Cochran (1977), section 4.6,
+    # n0 = (z S / B)^2 with S on divisor N - 1, n = n0 / (1 + n0 / N), rounded up
+    N = len(values)
+    mean = sum(values) / N
+    S2 = sum((v - mean) ** 2 for v in values) / (N - 1)
+    n0 = stats.norm.ppf(0.975) ** 2 * S2 / 0.5**2
+    assert formula_n(s.design) == math.ceil(n0 / (1 + n0 / N))
+    rc, out, err = cli(capsys, "search", f, "--json", "--budget", 5000)
+    assert rc == 0 and json.loads(out)["n_formula"] == math.ceil(n0 / (1 + n0 / N))
+    # round trip of the resolved scenario (sweeps hash it)
+    again = scenario_from_dict(s.to_dict(), base_dir=tmp_path)
+    assert again.design.model.mean == pytest.approx(mean)
+
+
+def test_population_file_ignores_data_table_and_says_so(capsys, tmp_path):
+    values = _ledger(tmp_path)
+    f = _write(tmp_path, "s.toml", BASE.format(method="t") + """
+[target]
+estimand = "mean"
+margin = 0.5
+[data]
+model = "normal"
+mean = 1000
+sd = 400
+[population]
+file = "ledger.csv"
+column = "amount"
+""")
+    s = load_scenario(f)
+    assert s.design.model.mean == pytest.approx(sum(values) / len(values))
+    assert "1000" not in s.describe_data()
+    # the planning SD is the file's S, not the table's 400 (which gives n = 585 of 600)
+    N = len(values)
+    mean = sum(values) / N
+    n0 = stats.norm.ppf(0.975) ** 2 * sum((v - mean) ** 2 for v in values) / (N - 1) / 0.5**2
+    assert formula_n(s.design) == math.ceil(n0 / (1 + n0 / N))
+    rc, out, err = cli(capsys, "check", f, "--n", 40, "--json")
+    assert rc == 0 and "[data] is not used" in err
