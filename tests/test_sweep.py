@@ -26,12 +26,15 @@ from simcheck.sweep.runner import SweepInterrupted, cell_seed, run_cell, run_swe
 from simcheck.sweep.grid import load_sweep, read_sweep
 from simcheck.sweep.store import cells_frame
 
-from fixtures import repair_times, write_toml
+from fixtures import repair_times, toml_text, write_toml
 
 REPO = Path(__file__).resolve().parents[1]
 
 # Invented example: skewed repair times, the t interval, small but not tiny cells
 # (each about 0.1-0.3 s) so that a subprocess can be killed half-way.
+# the base scenario as TOML text with a {replicates} slot (other test files build on it)
+BASE = toml_text(repair_times(simulation__replicates=0)).replace("replicates = 0", "replicates = {replicates}")
+
 # the sweep below spells [vary] keys without quotes (nested tables), as users may
 SWEEP = """\
 base = "base.toml"
