@@ -8,6 +8,7 @@ constructor is the one place where the combination is validated.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -16,6 +17,7 @@ from simcheck.models.base import Model
 
 ESTIMANDS = ("mean", "proportion", "mean-diff", "proportion-diff", "total")
 TWO_SAMPLE = ("mean-diff", "proportion-diff")
+BOUNDS = ("two-sided", "upper", "lower")
 #: interval methods of stratified designs (computed by the stratified evaluator)
 STRATIFIED_METHODS = {"mean": ("t", "z"), "total": ("t", "z"), "proportion": ("t", "wald")}
 
@@ -115,6 +117,23 @@ class Design:
         Bootstrap resamples.
     clusters, population : optional
         Clustered sampling or a finite population.
+    bound : {"two-sided", "upper", "lower"}
+        A two-sided interval or a one-sided confidence limit. For a one-sided
+        limit coverage is the share of limits on the right side of the true
+        value and the achieved margin is the distance from the point
+        estimate to the limit.
+    relative_margin : float, optional
+        Target half-width as a share of the true value (instead of
+        ``margin``); the absolute margin ``relative_margin * |true value|``
+        is then filled in ``margin``.
+    units : str, optional
+        Units of the data (text for tables, figures and the methods paragraph).
+    limit, events_allowed : optional
+        Demonstration plan for a proportion with an upper bound: at most
+        ``events_allowed`` events must still bound p below ``limit``.
+    assurance : float
+        Required share of samples whose half-width stays within the margin;
+        gives ``margin_at_assurance``.
     strata : StrataSpec, optional
         A stratified design; ``model`` is then the mixture of the strata
         models weighted by stratum size (the population as a whole).
@@ -132,9 +151,16 @@ class Design:
     population: PopulationSpec | None = None
     strata: StrataSpec | None = None
     extra: dict[str, Any] = field(default_factory=dict, compare=False)
+    bound: str = "two-sided"
+    relative_margin: float | None = None
+    units: str | None = None
+    limit: float | None = None
+    events_allowed: int | None = None
+    assurance: float = 0.5
 
     def __post_init__(self) -> None:
         c = Collector()
+        self._check_bounds(c)
         if not isinstance(self.model, Model):
             c.add("data", f"must be a simcheck model, got {type(self.model).__name__}")
         if self.estimand not in ESTIMANDS:
@@ -157,11 +183,50 @@ class Design:
         elif self.estimand == "total":
             c.add("target.estimand", "'total' needs a stratified design ([[strata]] tables with their sizes)")
         elif self.estimand in ESTIMANDS:
-            from simcheck.intervals import REGISTRY, methods_for
+            from simcheck.intervals import methods_for
+            from simcheck.intervals.base import lookup
 
-            if (self.estimand, self.method) not in REGISTRY:
+            m = lookup(self.estimand, self.method)
+            if m is None:
                 c.add("method.interval", f"unknown interval {self.method!r} for estimand {self.estimand!r}; choose one of {', '.join(methods_for(self.estimand))}")
+            elif self.bound in BOUNDS and self.bound not in m.bounds:
+                c.add("method.interval", f"{self.method!r} is a one-sided {'/'.join(m.bounds)} limit; set target.bound = \"{m.bounds[0]}\"")
         c.raise_if_any()
+
+    def _check_bounds(self, c: Collector) -> None:
+        """Bound, relative margin, units and demonstration plan (new target keys)."""
+        if self.bound not in BOUNDS:
+            c.add("target.bound", f"must be one of {', '.join(BOUNDS)}, got {self.bound!r}")
+        if self.units is not None and (not isinstance(self.units, str) or not self.units.strip()):
+            c.add("target.units", f"must be a non-empty text such as \"mg/L\", got {self.units!r}")
+        c.number("target.assurance", self.assurance, low=0, high=1, low_open=True, high_open=True)
+        if self.relative_margin is not None:
+            r = c.number("target.relative_margin", self.relative_margin, low=0, low_open=True)
+            if r is not None and isinstance(self.model, Model) and (self.model_b is not None or self.estimand not in TWO_SAMPLE):
+                truth = self.true_value
+                if truth == 0 or not math.isfinite(truth):
+                    c.add("target.relative_margin", f"the true value is {truth:g}, so a share of it gives no margin; give target.margin instead")
+                else:
+                    want = r * abs(truth)
+                    if self.margin is None:
+                        object.__setattr__(self, "margin", want)
+                    elif not math.isclose(self.margin, want, rel_tol=1e-9):
+                        c.add("target.relative_margin", "give target.margin or target.relative_margin, not both")
+        if self.limit is not None or self.events_allowed is not None:
+            if self.limit is None:
+                c.add("target.events_allowed", "needs target.limit (the proportion the plan must bound)")
+            else:
+                c.number("target.limit", self.limit, low=0, high=1, low_open=True, high_open=True)
+            if self.events_allowed is not None:
+                c.number("target.events_allowed", self.events_allowed, low=0, high=10**6, integer=True)
+            if self.estimand != "proportion":
+                c.add("target.limit", f"a demonstration plan bounds a proportion; estimand is {self.estimand!r}")
+            if self.bound != "upper":
+                c.add("target.bound", f"a demonstration plan (target.limit) needs bound = \"upper\", got {self.bound!r}")
+
+    @property
+    def one_sided(self) -> bool:
+        return self.bound != "two-sided"
 
     def _check_strata(self, c: Collector) -> None:
         st = self.strata
@@ -220,6 +285,15 @@ class Design:
             "margin": self.margin,
             "true_value": self.true_value,
         }
+        if self.bound != "two-sided":
+            d["bound"] = self.bound
+        if self.relative_margin is not None:
+            d["relative_margin"] = self.relative_margin
+        if self.units is not None:
+            d["units"] = self.units
+        if self.limit is not None:
+            d["limit"] = self.limit
+            d["events_allowed"] = self.events_allowed or 0
         if self.two_sample:
             d["data_a"] = self.model.to_dict()
             d["data_b"] = self.model_b.to_dict()

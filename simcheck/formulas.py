@@ -45,6 +45,12 @@ __all__ = [
     "fpc_variance_factor",
     "FPC_UNIT_VARIANCE",
     "welch_df",
+    "BOUNDS",
+    "multiplier_confidence",
+    "relative_sample_size",
+    "PlanResult",
+    "demonstration_plan",
+    "pass_probability",
 ]
 
 ESTIMANDS = ("mean", "proportion", "mean-diff", "proportion-diff")
@@ -288,6 +294,9 @@ class FormulaResult:
     p_b: float | None
     assumptions: tuple[str, ...]
     formula: str
+    bound: str = "two-sided"
+    relative_margin: float | None = None
+    cv: float | None = None
 
     @property
     def n_total(self) -> int:
@@ -321,7 +330,11 @@ class FormulaResult:
             "p_b": self.p_b,
             "assumptions": list(self.assumptions),
             "formula": self.formula,
+            "bound": self.bound,
         }
+        if self.relative_margin is not None:
+            d["relative_margin"] = self.relative_margin
+            d["cv"] = self.cv
         # JSON-safe without importing simcheck.results: non-finite floats become None
         return {k: (None if isinstance(x, float) and not math.isfinite(x) else x) for k, x in d.items()}
 
@@ -525,6 +538,7 @@ def sample_size(
     cluster_size: float | None = None,
     cluster_size_cv: float | None = None,
     ratio: float | None = 1.0,
+    bound: str = "two-sided",
 ) -> FormulaResult:
     """Closed-form n for a confidence interval of half-width at most ``margin``.
 
@@ -558,6 +572,10 @@ def sample_size(
         ``ceil(n / cluster_size)``, also with a direct ``design_effect``.
     ratio : float
         Allocation ratio n_b / n_a for two-sample estimands, > 0.
+    bound : {"two-sided", "upper", "lower"}
+        A one-sided limit uses the one-sided multiple z_{1-alpha} (t_{1-alpha})
+        instead of z_{1-alpha/2}: the margin is then the distance from the
+        estimate to the limit (:func:`multiplier_confidence`).
 
     Returns
     -------
@@ -593,6 +611,8 @@ def sample_size(
         design_effect, icc, cluster_size, cluster_size_cv, ratio,
     )
     estimand, B, conf = v["estimand"], v["margin"], v["confidence"]
+    # the multiples' level: a one-sided limit at 1 - alpha is the two-sided multiple at 1 - 2 alpha
+    mconf = multiplier_confidence(conf, bound)
     two = estimand in TWO_SAMPLE
     kind = v["multiplier"]
     N = v["population_size"]
@@ -643,7 +663,7 @@ def sample_size(
             )
 
     K = 1.0 if not two else (v["ratio"] if v["ratio"] is not None else 1.0)
-    z = z_value(conf)
+    z = z_value(mconf)
     vname = "sd^2" if estimand in ("mean", "mean-diff") else "p (1 - p)"
 
     df = None
@@ -671,12 +691,12 @@ def sample_size(
             n = max(1, ceil_robust(n_un))  # a margin far above the SD gives n0 near 0 (or 0 after underflow)
         else:
             def needed(n_: int) -> float:
-                return final(t_value(conf, n_ - 1))
+                return final(t_value(mconf, n_ - 1))
 
             nz = ceil_robust(nz_un)
             n, n_un, iterations = _iterate(needed, nz, lo=max(1, nz - 1), n_min=2, n_max=N)
             df = float(n - 1)
-            mult = t_value(conf, df)
+            mult = t_value(mconf, df)
         x0 = base(mult) / deff
         mname = "z" if kind == "z" else f"t({n - 1})"
         steps.insert(0, f"n0 = {mname}^2 {vname} / B^2 = {_g(mult)}^2 * {_g(var_a)} / {_g(B)}^2 = {_g(x0)}")
@@ -709,12 +729,12 @@ def sample_size(
                 if nb_ < 2:
                     # group b needs two observations for an SD: not yet enough
                     return float(n_ + 1)
-                return base_a(t_value(conf, welch_df(ra * ra, n_, rb * rb, nb_)))
+                return base_a(t_value(mconf, welch_df(ra * ra, n_, rb * rb, nb_)))
 
             nz = ceil_robust(nz_un)
             n, n_un, iterations = _iterate(needed, nz, lo=max(1, nz - 1), n_min=2)
             df = welch_df(ra * ra, n, rb * rb, ceil_robust(K * n))
-            mult = t_value(conf, df)
+            mult = t_value(mconf, df)
         n_b = max(1, ceil_robust(K * n))
         mname = "z" if kind == "z" else f"t({_g(df)})"
         vb = "sd_b^2" if estimand == "mean-diff" else "p_b (1 - p_b)"
@@ -742,6 +762,8 @@ def sample_size(
     if v["design_effect"] is None and v["icc"] is None:
         assumptions.append("independent observations (simple random sampling, design effect 1)")
 
+    if bound != "two-sided":
+        assumptions.append(f"one-sided {bound} limit: multiple at {_g(mconf)} two-sided, i.e. the {_g(conf)} quantile")
     if not two:
         steps.append(f"n = ceil({_g(n_un)}) = {n}" + (" (at least 1)" if n == 1 and n_un <= 0.5 else ""))
     else:
@@ -781,7 +803,210 @@ def sample_size(
         p_b=pb if two else None,
         assumptions=tuple(assumptions),
         formula="; ".join(steps),
+        bound=bound,
     )
+
+
+# ---------------------------------------------------------------------------
+# one-sided limits, relative precision, demonstration plans
+
+BOUNDS = ("two-sided", "upper", "lower")
+
+
+def multiplier_confidence(confidence: float, bound: str, field: str = "--bound") -> float:
+    """Two-sided level whose multiple is the one-sided multiple at ``confidence``.
+
+    A one-sided limit at 1 - alpha uses z_{1-alpha} (or t_{1-alpha}), the
+    two-sided multiple at level 1 - 2 alpha; two-sided targets keep the level.
+    """
+    c = Collector()
+    if bound not in BOUNDS:
+        c.add(field, f"must be one of {', '.join(BOUNDS)}, got {bound!r}")
+    conf = c.number("--confidence", confidence, low=0, high=1, low_open=True, high_open=True)
+    if bound in ("upper", "lower") and conf is not None and conf <= 0.5:
+        c.add("--confidence", f"a one-sided limit needs confidence > 0.5, got {conf!r}")
+    c.raise_if_any()
+    return float(conf) if bound == "two-sided" else 2.0 * float(conf) - 1.0
+
+
+def relative_sample_size(
+    relative_margin: float,
+    cv: float,
+    *,
+    confidence: float = 0.95,
+    multiplier: str = "z",
+    bound: str = "two-sided",
+    population_size: int | None = None,
+    design_effect: float | None = None,
+) -> FormulaResult:
+    """Closed-form n for a half-width of at most ``relative_margin`` times the mean.
+
+    ``n = (m CV / r)^2`` with m the z (or iterated t) multiple: the margin
+    formula in units of the mean (SD = CV, margin = r), so the FPC, design
+    effect and t iteration of :func:`sample_size` apply unchanged.
+
+    Parameters
+    ----------
+    relative_margin : float
+        Target half-width as a share of the true mean, r > 0 (0.2 = ±20%).
+    cv : float
+        Planning coefficient of variation SD / mean, > 0.
+
+    References
+    ----------
+    .. [1] Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, sec. 4.6
+       (sample size for a relative error).
+    """
+    c = Collector()
+    r = c.number("--relative-margin", relative_margin, low=0, low_open=True)
+    v = c.number("--cv", cv, low=0, low_open=True)
+    c.raise_if_any()
+    res = sample_size("mean", r, confidence=confidence, sd=v, multiplier=multiplier, bound=bound,
+                      population_size=population_size, design_effect=design_effect)
+    from dataclasses import replace
+
+    text = res.formula.replace("sd^2", "CV^2").replace("B^2", "r^2")
+    assumptions = tuple(a for a in res.assumptions if "SD known" not in a) + (
+        f"relative margin r = {_g(r)} of the mean; CV = {_g(v)} taken as known (z multiple)" if multiplier == "z"
+        else f"relative margin r = {_g(r)} of the mean; CV = {_g(v)}",)
+    return replace(res, formula=text, relative_margin=float(r), cv=float(v), assumptions=assumptions, sd=None)
+
+
+def pass_probability(n: int, events_allowed: int, p: float) -> float:
+    """Probability that n trials with event probability p show at most ``events_allowed`` events.
+
+    The binomial CDF, exact: the chance that a demonstration plan passes when
+    the true proportion is p.
+    """
+    from scipy import stats
+
+    return float(stats.binom.cdf(int(events_allowed), int(n), float(p)))
+
+
+@dataclass(frozen=True)
+class PlanResult:
+    """A demonstration (acceptance) plan: n trials, at most c events, bound p below ``limit``.
+
+    ``n`` is the smallest n for which c events still give a one-sided
+    Clopper-Pearson upper limit <= ``limit`` at ``confidence``, i.e.
+    ``P(X <= c | n, limit) <= 1 - confidence``.
+    """
+
+    n: int
+    n_unrounded: float | None
+    limit: float
+    events_allowed: int
+    confidence: float
+    p: float | None
+    pass_probability: float | None
+    formula: str
+    assumptions: tuple[str, ...]
+
+    def to_dict(self) -> dict[str, Any]:
+        d = {
+            "n": self.n,
+            "n_unrounded": self.n_unrounded,
+            "estimand": "proportion",
+            "bound": "upper",
+            "limit": self.limit,
+            "events_allowed": self.events_allowed,
+            "confidence": self.confidence,
+            "p": self.p,
+            "pass_probability": self.pass_probability,
+            "method": "clopper-pearson",
+            "assumptions": list(self.assumptions),
+            "formula": self.formula,
+        }
+        return {k: (None if isinstance(x, float) and not math.isfinite(x) else x) for k, x in d.items()}
+
+    def to_frame(self):
+        import pandas as pd
+
+        d = self.to_dict()
+        d["assumptions"] = " | ".join(d["assumptions"])
+        return pd.DataFrame([d])
+
+
+def demonstration_plan(limit: float, events_allowed: int = 0, *, confidence: float = 0.95,
+                       p: float | None = None) -> PlanResult:
+    """Smallest n such that at most ``events_allowed`` events bound p below ``limit``.
+
+    With c = 0 this is the success-run rule ``n = ceil(ln(alpha) / ln(1 - p0))``;
+    with c > 0 the smallest n with ``P(X <= c | n, p0) <= alpha`` (the one-sided
+    exact binomial limit), found by doubling and bisection on the exact CDF.
+
+    Parameters
+    ----------
+    limit : float
+        The proportion p0 in (0, 1) the plan must bound.
+    events_allowed : int
+        c >= 0, events that may be observed while the plan still passes.
+    confidence : float
+        1 - alpha, in (0, 1).
+    p : float, optional
+        Planning proportion; gives the probability of passing, P(X <= c | n, p).
+
+    References
+    ----------
+    .. [1] Clopper, C. J. & Pearson, E. S. (1934). The use of confidence or
+       fiducial limits illustrated in the case of the binomial. Biometrika 26, 404-413.
+    .. [2] Hahn, G. J. & Meeker, W. Q. (1991). *Statistical Intervals*. Wiley,
+       ch. 6 (one-sided binomial limits and demonstration tests).
+    """
+    from scipy import stats
+
+    c = Collector()
+    p0 = c.number("--limit", limit, low=0, high=1, low_open=True, high_open=True)
+    k = c.number("--events-allowed", events_allowed, low=0, high=10**6, integer=True)
+    conf = c.number("--confidence", confidence, low=0, high=1, low_open=True, high_open=True)
+    if p is not None:
+        p = c.number("--p", p, low=0, high=1, low_open=True, high_open=True)
+    c.raise_if_any()
+    k = int(k)
+    alpha = 1.0 - conf
+    steps = []
+    if k == 0:
+        n_un = math.log(alpha) / math.log1p(-p0)
+        _too_large_plan(n_un)
+        n = ceil_robust(n_un)
+        steps.append(f"success run: n = ln(alpha) / ln(1 - p0) = ln({_g(alpha)}) / ln(1 - {_g(p0)}) = {_g(n_un)}")
+        steps.append(f"n = ceil({_g(n_un)}) = {n}")
+    else:
+        n_un = None
+
+        def ok(n_: int) -> bool:
+            return stats.binom.cdf(k, n_, p0) <= alpha * (1 + 1e-12)
+
+        lo = k  # n = k trials always pass with k events allowed: no bound
+        hi = max(k + 1, int(math.log(alpha) / math.log1p(-p0)))
+        while not ok(hi):
+            lo, hi = hi, hi * 2
+            _too_large_plan(hi)
+        while hi - lo > 1:
+            mid = (lo + hi) // 2
+            if ok(mid):
+                hi = mid
+            else:
+                lo = mid
+        n = hi
+        steps.append(f"smallest n with P(X <= {k} | n, p0 = {_g(p0)}) <= alpha = {_g(alpha)}: "
+                     f"P(X <= {k} | {n}) = {_g(stats.binom.cdf(k, n, p0))}, P(X <= {k} | {n - 1}) = {_g(stats.binom.cdf(k, n - 1, p0))}")
+    pp = None if p is None else pass_probability(n, k, p)
+    if pp is not None:
+        steps.append(f"probability of passing at p = {_g(p)}: P(X <= {k} | {n}, {_g(p)}) = {_g(pp)}")
+    assumptions = (
+        "independent trials with a common event probability (binomial)",
+        f"passes when at most {k} event{'s' if k != 1 else ''} occur in n trials; the one-sided exact "
+        f"(Clopper-Pearson) upper limit is then <= {_g(p0)} at {_g(conf)} confidence",
+    )
+    return PlanResult(n=int(n), n_unrounded=None if n_un is None else float(n_un), limit=float(p0),
+                      events_allowed=k, confidence=float(conf), p=p, pass_probability=pp,
+                      formula="; ".join(steps), assumptions=assumptions)
+
+
+def _too_large_plan(value: float) -> None:
+    if not math.isfinite(value) or value > N_LIMIT:
+        raise InputError("--limit", f"gives n = {value:.3g}, too large to be a sample size")
 
 
 @dataclass(frozen=True)

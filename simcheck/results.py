@@ -85,6 +85,38 @@ class CheckResult:
     # simulated values (weights None) or exact support points with weights.
     margin_values: np.ndarray | None = field(default=None, repr=False, compare=False)
     margin_weights: np.ndarray | None = field(default=None, repr=False, compare=False)
+    # target bound, margin at assurance, relative margin, demonstration plan
+    # (filled by simcheck.engine.onesided.finish_rows; see bound_dict)
+    bound: str = "two-sided"
+    units: str | None = None
+    margin_at_assurance: float | None = None
+    assurance_level: float | None = None
+    target_relative_margin: float | None = None
+    relative_margin_mean: float | None = None
+    relative_margin_median: float | None = None
+    relative_margin_p90: float | None = None
+    relative_margin_at_assurance: float | None = None
+    limit: float | None = None
+    events_allowed: int | None = None
+    pass_probability: float | None = None
+    plan_n: int | None = None
+
+    def bound_dict(self) -> dict[str, Any]:
+        """The keys of one-sided limits, relative margins and plans (issue 20)."""
+        d: dict[str, Any] = {"bound": self.bound, "margin_at_assurance": self.margin_at_assurance,
+                             "assurance_level": self.assurance_level}
+        if self.units is not None:
+            d["units"] = self.units
+        if self.target_relative_margin is not None:
+            d.update(target_relative_margin=self.target_relative_margin,
+                     relative_margin_mean=self.relative_margin_mean,
+                     relative_margin_median=self.relative_margin_median,
+                     relative_margin_p90=self.relative_margin_p90,
+                     relative_margin_at_assurance=self.relative_margin_at_assurance)
+        if self.limit is not None:
+            d.update(limit=self.limit, events_allowed=self.events_allowed, pass_probability=self.pass_probability,
+                     plan_n=self.plan_n)
+        return d
 
     def to_dict(self) -> dict[str, Any]:
         d = {
@@ -120,6 +152,7 @@ class CheckResult:
             "path": self.path,
             "notes": list(self.notes),
         }
+        d.update(self.bound_dict())
         return clean_json(d)
 
     def to_frame(self):

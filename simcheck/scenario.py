@@ -101,6 +101,11 @@ KNOWN_KEYS: dict[str, str] = {
     "target.window": "exact searches: the targets must hold at every n from n to ceil(window x n), in [1, 4]; default 1.25 (1: the first n that meets them)",
     "target.event_values": "proportion estimand on a discrete non-0/1 model: the values that count (list of numbers)",
     "target.event_above": "proportion estimand on a non-0/1 model: values strictly above this number count",
+    "target.bound": "two-sided (default) | upper | lower: an interval or a one-sided confidence limit",
+    "target.relative_margin": "target half-width as a share of the true value, > 0 (instead of target.margin)",
+    "target.units": "units of the data, text (used in tables, figures and the methods paragraph)",
+    "target.limit": "demonstration plan: the proportion in (0, 1) the upper limit must stay below (bound = upper)",
+    "target.events_allowed": "demonstration plan: events allowed while the plan still passes, whole number >= 0; default 0",
     "data": "one-sample model table: model = \"...\" and its parameters",
     "data.a": "two-sample: model table of group a (the difference is a - b)",
     "data.b": "two-sample: model table of group b",
@@ -220,10 +225,22 @@ class Scenario:
         target: dict[str, Any] = {
             "estimand": d.estimand,
             "confidence": float(d.confidence),
-            "margin": float(d.margin),
+            "margin": None if d.margin is None else float(d.margin),
             "assurance": float(self.assurance),
             "coverage_tolerance": float(self.coverage_tolerance),
         }
+        if d.relative_margin is not None:
+            del target["margin"]
+            target["relative_margin"] = float(d.relative_margin)
+        elif d.margin is None:
+            del target["margin"]
+        if d.bound != "two-sided":
+            target["bound"] = d.bound
+        if d.units is not None:
+            target["units"] = d.units
+        if d.limit is not None:
+            target["limit"] = float(d.limit)
+            target["events_allowed"] = int(d.events_allowed or 0)
         if self.window != 1.25:
             target["window"] = float(self.window)  # only when set: default scenarios keep their hash
         if self.event_values is not None:
@@ -401,6 +418,7 @@ class _Target:
     event_values: list[float] | None = None
     event_above: float | None = None
     window: float | None = None
+    bounds: dict[str, Any] = field(default_factory=dict)
 
 
 @dataclass
@@ -539,8 +557,9 @@ def _target(c: Collector, target: dict[str, Any]) -> _Target:
     t = _Target()
     t.estimand = _choice(c, target, "target", "estimand", ESTIMANDS, required=True)
     t.confidence = _num(c, target, "target", "confidence", DEFAULT_CONFIDENCE, low=0, high=1, low_open=True, high_open=True)
-    t.margin = _num(c, target, "target", "margin", None, required=True, low=0, low_open=True,
-                    what="the target half-width in the data's units, > 0")
+    t.bounds = _bound_keys(c, target, t.estimand)
+    t.margin = _num(c, target, "target", "margin", None, required=not t.bounds["optional_margin"], low=0, low_open=True,
+                    what="the target half-width in the data's units, > 0 (or target.relative_margin)")
     if t.margin is not None and t.estimand in ("proportion", "proportion-diff") and t.margin >= 1:
         # as `formula` refuses it: every interval of a proportion has half-width <= 1/2 (a difference 1)
         c.add("target.margin", f"must be < 1 for a {t.estimand} (0.05 means 5 percentage points), got {t.margin!r}")
@@ -646,6 +665,7 @@ def _designs(c: Collector, tgt: _Target, model, model_b, methods: list[str], sim
             clusters=clusters,
             population=population,
             strata=strata,
+            **_design_bound_args(tgt.bounds, tgt.assurance),
         )
     except InputError as e:
         _extend_design(c, e, tgt.estimand)
@@ -802,6 +822,41 @@ def _choice(
         c.add(name, f"unknown value {v!r}; {hint}choose one of {', '.join(choices)}")
         return None
     return v
+
+
+def _bound_keys(c: Collector, target: dict[str, Any], estimand: str | None) -> dict[str, Any]:
+    """target.bound, relative_margin, units, limit and events_allowed (one-sided
+    limits, relative precision, demonstration plans)."""
+    from simcheck.design import BOUNDS
+
+    out: dict[str, Any] = {}
+    out["bound"] = _choice(c, target, "target", "bound", BOUNDS, default="two-sided")
+    out["relative_margin"] = _num(c, target, "target", "relative_margin", None, low=0, low_open=True)
+    if "relative_margin" in target and "margin" in target:
+        c.add("target.relative_margin", "give target.margin or target.relative_margin, not both")
+        out["relative_margin"] = None
+    units = target.get("units")
+    if units is not None and (not isinstance(units, str) or not units.strip()):
+        c.add("target.units", f"must be a non-empty text such as \"mg/L\", got {units!r}")
+        units = None
+    out["units"] = units
+    out["limit"] = _num(c, target, "target", "limit", None, low=0, high=1, low_open=True, high_open=True)
+    out["events_allowed"] = _num(c, target, "target", "events_allowed", None, low=0, high=10**6, integer=True)
+    if "limit" in target and "bound" not in target:
+        out["bound"] = "upper"  # a demonstration plan is an upper limit
+    out["optional_margin"] = "relative_margin" in target or "limit" in target
+    return out
+
+
+def _design_bound_args(b: dict[str, Any], assurance: float | None) -> dict[str, Any]:
+    args: dict[str, Any] = {k: b[k] for k in ("relative_margin", "units", "limit", "events_allowed") if b.get(k) is not None}
+    if b.get("bound"):
+        args["bound"] = b["bound"]
+    if b.get("limit") is not None and b.get("events_allowed") is None:
+        args["events_allowed"] = 0
+    if assurance is not None:
+        args["assurance"] = assurance
+    return args
 
 
 def _event(c: Collector, target: dict[str, Any], estimand: str | None):
@@ -1039,6 +1094,14 @@ def _check_engine(c: Collector, designs: list[Design], path: str) -> None:
     from simcheck.intervals import get_method
 
     for d in designs:
+        if d.one_sided:
+            from simcheck.engine import kind_for, onesided
+
+            try:
+                onesided.evaluation_design(d, simple_kind=kind_for(d).name == "simple")
+            except InputError as e:
+                c.extend(e)
+                continue
         if d.clusters is not None or d.population is not None:
             from simcheck.engine import clustered as engine_clustered
 

@@ -165,7 +165,7 @@ def _formula(design: Design):
         return None
     if design.strata is not None:
         return _stratified_formula(design)
-    kw: dict[str, Any] = {"confidence": design.confidence, "multiplier": "z"}
+    kw: dict[str, Any] = {"confidence": design.confidence, "multiplier": "z", "bound": design.bound}
     try:
         if design.estimand in ("mean", "mean-diff"):
             kw["sd"] = float(design.model.sd)
@@ -429,8 +429,11 @@ def find_n(
         "coverage_target": targets.coverage,
         "margin": design.margin,
         "assurance": targets.assurance,
+        "bound": design.bound,
         "window": float(window),
     }
+    if design.relative_margin is not None:
+        targets_d["relative_margin"] = design.relative_margin
     nf = formula_n(design)
     start = nf if nf is not None else DEFAULT_START
     start = min(max(start, lo_n), hi_n)

@@ -377,7 +377,9 @@ def test_two_sample_same_result_for_any_thread_count(f):
 
 def test_thread_count_from_environment(monkeypatch):
     monkeypatch.delenv("SIMCHECK_THREADS", raising=False)
-    assert bs.bootstrap_threads() == min(4, os.cpu_count() or 1)
+    from simcheck.threads import available_cores
+
+    assert bs.bootstrap_threads() == available_cores()
     monkeypatch.setenv("SIMCHECK_THREADS", " 3 ")
     assert bs.bootstrap_threads() == 3
     x = np.random.default_rng(97).exponential(size=(20, 8))

@@ -90,9 +90,9 @@ def test_search_progress_shows_stage_and_overall_progress():
         prog(done, 300)
     prog(200, 400, stage="confirm")  # stage 3, named by the search
     lines = out.getvalue().splitlines()
-    assert lines[0].startswith("simcheck: search stage 1 50%; 50 replicates simulated so far (5% of the budget 1,000)")
-    assert "search stage 2 100%; 400 replicates simulated so far (40% of the budget 1,000)" in lines[3]
-    assert "search stage 3 (confirm) 50%; 600 replicates simulated so far" in lines[4]
+    assert lines[0].startswith("simcheck: search stage 1, 50% of this evaluation; 50 replicates simulated so far (5% of the budget 1,000)")
+    assert "search stage 2, 100% of this evaluation; 400 replicates simulated so far (40% of the budget 1,000)" in lines[3]
+    assert "search stage 3 (confirm), 50% of this evaluation; 600 replicates simulated so far" in lines[4]
 
 
 class _Tty(io.StringIO):

@@ -76,8 +76,17 @@ def test_paragraph_says_undecided_before_the_number(study):
     i = text.index("With the Student t interval")
     assert text.index("undecided", i) < text.index("713", i)
     assert "About 400,000 replicates per n would likely settle it." in text
-    # the criterion in words
-    assert "N is the smallest n from which the targets hold at every larger n checked." in text
+    # the criterion in words, as a sentence
+    assert "The answer n is the smallest n from which the targets hold at every larger n checked." in text
+
+
+def test_criterion_noun_phrase_becomes_a_sentence():
+    from simcheck.report.text import criterion_sentence
+
+    got = criterion_sentence("the smallest n at which coverage meets the target at every larger n checked; "
+                             "n_range holds the n the Monte Carlo error cannot tell from the boundary")
+    assert got == ("The answer n is the smallest n at which coverage meets the target at every larger n checked; "
+                   "the n range holds the n the Monte Carlo error cannot tell from the boundary.")
 
 
 def test_paragraph_quotes_the_search_confirmation_with_its_replicates(study):
@@ -101,7 +110,7 @@ def test_paragraph_wiggle_is_noise_for_continuous_and_oscillation_for_discrete(s
     text = methods_paragraph(study)
     assert "Monte Carlo noise" in text and "oscillates" not in text
     disc = methods_paragraph(replace(study, discrete=True))
-    assert "Because the data are discrete, coverage oscillates in n" in disc
+    assert "With the Student t interval, because the data are discrete, coverage oscillates in n" in disc
     note = study.searches["t"].notes[0]
     assert "oscillates" not in explain_note(note, discrete=False) and "Monte Carlo noise" in explain_note(note, False)
     assert explain_note(note, discrete=True) == note
@@ -156,12 +165,13 @@ def test_summary_and_csv_carry_decision_criterion_and_notes(study, tmp_path):
     assert summary["decision"] == "undecided" and summary["fewest_n"] == ["cox"]
     table = pd.read_csv(files.table)
     assert {"decision", "criterion", "criterion_text", "stop_reason", "notes", "replicates_used",
-            "recheck_coverage"} <= set(table.columns)
+            "recheck_coverage", "miss_low_mcse", "miss_high_mcse", "degenerate_share"} <= set(table.columns)
     assert list(table["decision"]) == ["undecided", "clear"]
     assert "Monte Carlo noise" in table.loc[0, "notes"]
     md = files.markdown.read_text(encoding="utf-8")
     assert "undecided (budget spent): 713" in md and "161 (clear)" in md
     assert "Re-check for the half-width figure (not the figures above)" in md
+    assert "t: undecided, n found 713; cox: n found 161" in md  # the coverage figure's alt text
     assert "differs from the search's confirmation by Monte Carlo error" in md
 
 
@@ -182,3 +192,14 @@ def test_exact_two_group_paragraph_reads_plainly(study):
     # the oscillation is explained once for both methods, naming each first n
     assert text.count("oscillates in n") == 1 and "(Newcombe 200 and Wald 210)" in text
     assert "No random numbers were needed" in text and "seed" not in text
+
+
+def test_strata_paragraph_names_the_allocation_and_rounds_the_design_effect(study):
+    data = {"strata": [{"name": "harbour", "size": 4200, "data": {"model": "lognormal", "mean": 120.0, "cv": 0.9}},
+                       {"name": "farms", "size": 2200, "data": {"model": "normal", "mean": 80.0, "sd": 20.0}}],
+            "allocation": {"rule": "neyman"}}
+    s = replace(study, data=data, formula={"multiplier_kind": "z", "design_effect": 0.709872})
+    text = methods_paragraph(s)
+    assert ("The population was assumed to consist of 2 strata, each sampled without replacement and the total n "
+            "allocated by Neyman allocation: harbour (N = 4,200), a lognormal distribution") in text
+    assert "design effect 0.71)" in text and "0.709872" not in text

@@ -145,6 +145,9 @@ def test_export_from_a_read_only_folder(tmp_path):
             assert pd.read_csv(out)["cell_key"].nunique() == 4
         r = unprivileged(["store", "check", str(archive / "w.sqlite")])
         assert r.returncode == 0, r.stderr
+        r = unprivileged(["report", str(archive / "w.sqlite"), "--out", str(tmp_path / "rep")])
+        assert r.returncode == 0, r.stderr
+        assert any((tmp_path / "rep").iterdir())
     finally:
         archive.chmod(0o755)
 
@@ -430,3 +433,28 @@ def test_a_schema_1_store_is_upgraded_and_keeps_its_cells(tmp_path):
     assert any("upgraded" in n and "schema 1 to 2: 4 cells kept" in n for n in notices)
     assert stored(store) == clean
     assert dict(sqlite3.connect(store).execute("SELECT key, value FROM meta"))["migrated_from"] == "1"
+
+
+@pytest.mark.slow
+def test_two_sweeps_at_once_on_one_store_the_second_is_refused(tmp_path):
+    sweep = write_sweep(tmp_path, SWEEP, replicates=400000)  # cells of a second or more: the first is still running
+    store = tmp_path / "s.sqlite"
+    env = {**os.environ, "PYTHONPATH": str(REPO)}
+    first = subprocess.Popen([sys.executable, "-m", "simcheck", "sweep", str(sweep), "--store", str(store)],
+                             cwd=REPO, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        t0 = time.monotonic()
+        while count(store) < 1:
+            assert first.poll() is None and time.monotonic() - t0 < 60
+            time.sleep(0.05)
+        second = cli("sweep", str(sweep), "--store", str(store))
+        assert second.returncode == 2
+        assert f"is being written by another sweep (process {first.pid}" in one_line_error(second.stderr)
+    finally:
+        first.send_signal(signal.SIGTERM)
+        first.communicate(timeout=60)
+    assert first.returncode == 130
+    # the first one's mark went with it: the store is free again
+    conn = sqlite3.connect(store)
+    assert conn.execute("SELECT COUNT(*) FROM writer").fetchone()[0] == 0
+    conn.close()

@@ -13,6 +13,7 @@ from typing import Any, Sequence
 
 from simcheck import CAUTION
 from simcheck.cli.common import add_json, add_sim_overrides, emit_json, note, table
+from simcheck.bound_text import bound_words, coverage_words, result_lines, units_text
 from simcheck.cli.options import add_allow_outside
 
 #: how run_task's arguments are called on the command line
@@ -43,10 +44,23 @@ def add_parser(subparsers) -> None:
     p.add_argument("--n", type=int, required=True, metavar="N",
                    help="sample size to check (group a for two-sample estimands; clusters when clustered)")
     add_method_option(p)
+    add_bound_option(p)
     add_sim_overrides(p)
     add_json(p)
     add_allow_outside(p)
     p.set_defaults(run=run)
+
+
+def add_bound_option(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--bound", choices=("two-sided", "upper", "lower"), metavar="B",
+                   help="two-sided, upper or lower: an interval or a one-sided confidence limit "
+                        "(overrides target.bound)")
+
+
+def bound_overrides(args: argparse.Namespace) -> dict[str, Any]:
+    """Scenario overrides from --bound (empty when not given)."""
+    b = getattr(args, "bound", None)
+    return {} if b is None else {"target.bound": b}
 
 
 def add_method_option(p: argparse.ArgumentParser) -> None:
@@ -58,7 +72,7 @@ def run(args: argparse.Namespace) -> int:
     from simcheck.scenario import load_scenario
     from simcheck.tasks import run_task
 
-    scenario = load_scenario(args.scenario, allow_outside_files=args.allow_outside_files)
+    scenario = load_scenario(args.scenario, bound_overrides(args) or None, allow_outside_files=args.allow_outside_files)
     seed = run_seed(scenario, args.seed)
     with Progress() as prog:
         res = run_task(scenario, "check", n=args.n, method=args.method, replicates=args.replicates,
@@ -128,7 +142,9 @@ def report(scenario, rows: Sequence[Any]) -> str:
     for m in (d.model, d.model_b):
         if m is not None and m.true_value_note:
             lines.append(f"             note: {m.true_value_note}")
-    lines.append(f"method:      {d.method} interval, {d.confidence:.4g} confidence, target margin {_g(d.margin, 6)}")
+    lines.append(f"method:      {d.method} {bound_words(d.bound)}, {d.confidence:.4g} confidence, target margin {_g(d.margin, 6)}"
+                 + (f" {d.units}" if d.units and d.margin is not None else "")
+                 + (f" ({d.relative_margin:g} of the true value)" if d.relative_margin is not None else ""))
     if len(scenario.methods) > 1:
         lines.append(f"             (the scenario lists {', '.join(scenario.methods)}; choose one with --method)")
     if rows:
@@ -157,9 +173,11 @@ def report(scenario, rows: Sequence[Any]) -> str:
         lines.append("exact: computed by enumeration or exact law, not simulation (MCSE 0).")
     elif any(r.exact for r in rows):
         lines.append("* exact: computed by enumeration or exact law, not simulation (MCSE 0).")
-    lines.append(f"coverage = share of intervals that contain the true value (nominal {d.confidence:.4g}); "
-                 f"assurance = share with half-width <= {_g(d.margin, 6)} "
-                 "(zero-width intervals that miss the true value do not count).")
+    half = "half-width" if d.bound == "two-sided" else "margin (distance from estimate to limit)"
+    lines.append(f"coverage = {coverage_words(d.bound)} (nominal {d.confidence:.4g}); "
+                 f"assurance = share with {half} <= {_g(d.margin, 6)} "
+                 f"(zero-width intervals that miss the true value do not count); margins {units_text(d.units)}.")
+    lines += result_lines(rows, d.units)
     notes: list[str] = []
     for r in rows:
         for t in r.notes:  # zero-width (degenerate) intervals are named in the notes
@@ -258,7 +276,7 @@ class SearchProgress(Progress):
 
     def describe(self, done: int, total: int) -> str:
         what = f"stage {self.stage}" + (f" ({self.stage_name})" if self.stage_name else "")
-        share = f" {100.0 * done / total:.0f}%" if total else ""
+        share = f", {100.0 * done / total:.0f}% of this evaluation" if total else ""
         return f"search {what}{share}"
 
     def __call__(self, done: int, total: int, stage: str | None = None) -> None:

@@ -6,7 +6,8 @@ import argparse
 import sys
 
 from simcheck.cli.common import add_json, emit_json, fmt, table
-from simcheck.formulas import ESTIMANDS, sample_size
+from simcheck.errors import Collector
+from simcheck.formulas import BOUNDS, ESTIMANDS, demonstration_plan, relative_sample_size, sample_size
 
 
 def add_parser(subparsers) -> None:
@@ -53,6 +54,19 @@ def add_parser(subparsers) -> None:
                         "design effect 1 + ((V^2 + 1) M - 1) ICC")
     p.add_argument("--ratio", type=float, metavar="K",
                    help="allocation ratio for two-sample estimands: n_b = K * n_a, > 0 (default 1)")
+    p.add_argument("--bound", choices=BOUNDS, default="two-sided", metavar="B",
+                   help="two-sided (default), upper or lower: a one-sided limit uses the one-sided multiple "
+                        "z_{1-alpha} (t_{1-alpha}); the margin is then the distance from the estimate to the limit")
+    p.add_argument("--relative-margin", dest="relative_margin", type=float, metavar="R",
+                   help="target half-width as a share of the mean, > 0 (0.2 = ±20%%), with --cv: n = (z CV / R)^2; "
+                        "instead of --margin and --sd")
+    p.add_argument("--cv", type=float, metavar="V",
+                   help="planning coefficient of variation SD / mean, > 0 (with --relative-margin)")
+    p.add_argument("--limit", type=float, metavar="P0",
+                   help="demonstration plan: the smallest n whose upper limit stays below P0 in (0, 1) when at most "
+                        "--events-allowed events occur (c = 0: n = ln(alpha) / ln(1 - P0)); --p gives the chance of passing")
+    p.add_argument("--events-allowed", dest="events_allowed", type=int, metavar="C",
+                   help="demonstration plan: events allowed, whole number >= 0 (default 0)")
     p.add_argument("--stratum", action="append", metavar="NAME:SIZE:VALUE[:EXTRA]",
                    help="a stratum of a stratified sample (repeat for each): its name, size N_h, planning SD "
                         "(mean, total) or proportion (proportion), and with --allocation optimum its per-unit "
@@ -63,6 +77,36 @@ def add_parser(subparsers) -> None:
                    help="least n per stratum, >= 2 (default 2)")
     add_json(p)
     p.set_defaults(run=run)
+
+
+def _plan_problems(args: argparse.Namespace) -> None:
+    """Refuse option combinations of relative-margin and demonstration plans (all at once)."""
+    c = Collector()
+    plan, rel = args.limit is not None, args.relative_margin is not None
+    if args.events_allowed is not None and not plan:
+        c.add("--events-allowed", "needs --limit (the proportion the demonstration plan must bound)")
+    if args.cv is not None and not rel:
+        c.add("--cv", "needs --relative-margin (the margin as a share of the mean)")
+    if plan:
+        if rel:
+            c.add("--relative-margin", "not with --limit: a demonstration plan has no margin")
+        if args.margin is not None:
+            c.add("--margin", "not with --limit: a demonstration plan has no margin")
+        if args.estimand not in (None, "proportion"):
+            c.add("--estimand", f"a demonstration plan bounds a proportion, got {args.estimand!r}")
+        if args.bound not in ("two-sided", "upper"):
+            c.add("--bound", f"a demonstration plan is an upper limit, got {args.bound!r}")
+    elif rel:
+        if args.margin is not None:
+            c.add("--relative-margin", "give --margin or --relative-margin, not both")
+        if args.cv is None:
+            c.add("--cv", "is required with --relative-margin: the planning coefficient of variation SD / mean")
+        if args.estimand not in (None, "mean"):
+            c.add("--estimand", f"--relative-margin applies to a mean (n = (z CV / R)^2), got {args.estimand!r}")
+        for opt, v in (("--sd", args.sd), ("--p", args.p), ("--sd-b", args.sd_b), ("--p-b", args.p_b)):
+            if v is not None:
+                c.add(opt, "not with --relative-margin (the CV gives the spread in units of the mean)")
+    c.raise_if_any()
 
 
 def _strata(args: argparse.Namespace):
@@ -101,6 +145,11 @@ def _strata(args: argparse.Namespace):
 
 
 def run(args: argparse.Namespace) -> int:
+    if args.stratum and (args.bound != "two-sided" or args.relative_margin is not None or args.limit is not None):
+        from simcheck.errors import InputError
+
+        opt = "--bound" if args.bound != "two-sided" else ("--relative-margin" if args.relative_margin is not None else "--limit")
+        raise InputError(opt, "not available with --stratum (stratified closed forms are two-sided, absolute margins)")
     if args.stratum:
         res = _strata(args)
         if args.json:
@@ -112,6 +161,23 @@ def run(args: argparse.Namespace) -> int:
         from simcheck.errors import InputError
 
         raise InputError("--stratum", "missing: --allocation, --minimum and estimand total describe a stratified sample; give its strata with --stratum")
+    _plan_problems(args)
+    if args.limit is not None:
+        plan = demonstration_plan(args.limit, args.events_allowed or 0, confidence=args.confidence, p=args.p)
+        if args.json:
+            emit_json(plan.to_dict())
+        else:
+            sys.stdout.write(render_plan(plan) + "\n")
+        return 0
+    if args.relative_margin is not None:
+        res = relative_sample_size(args.relative_margin, args.cv, confidence=args.confidence,
+                                   multiplier=args.multiplier, bound=args.bound,
+                                   population_size=args.population_size, design_effect=args.design_effect)
+        if args.json:
+            emit_json(res.to_dict())
+        else:
+            sys.stdout.write(render(res) + "\n")
+        return 0
     res = sample_size(
         args.estimand,
         args.margin,
@@ -127,6 +193,7 @@ def run(args: argparse.Namespace) -> int:
         cluster_size=args.cluster_size,
         cluster_size_cv=args.cluster_size_cv,
         ratio=args.ratio,
+        bound=args.bound,
     )
     if args.json:
         emit_json(res.to_dict())
@@ -138,7 +205,10 @@ def run(args: argparse.Namespace) -> int:
 def render(res) -> str:
     """Human-readable text: what was assumed, the formula, and n."""
     conf = f"{res.confidence * 100:g}%"
-    lines = [f"Closed-form sample size: {res.estimand}, {conf} confidence, margin {res.margin:g}", ""]
+    rel, bound = getattr(res, "relative_margin", None), getattr(res, "bound", "two-sided")
+    what = f"margin {res.margin:g}" if rel is None else f"relative margin {rel:g} of the mean"
+    side = "" if bound == "two-sided" else f", one-sided {bound} limit"
+    lines = [f"Closed-form sample size: {res.estimand}, {conf} confidence{side}, {what}", ""]
     lines.append("Assumed:")
     lines += [f"  - {a}" for a in res.assumptions]
     lines.append("")
@@ -164,4 +234,25 @@ def render(res) -> str:
         "n is the formula's answer under a normal sampling distribution; "
         "`simcheck search` checks it by simulation under your data model."
     )
+    return "\n".join(lines)
+
+
+def render_plan(plan) -> str:
+    """Human-readable text of a demonstration plan."""
+    c = plan.events_allowed
+    lines = [f"Demonstration plan: bound a proportion below {plan.limit:g} at {plan.confidence * 100:g}% confidence "
+             f"with at most {c} event{'s' if c != 1 else ''}", ""]
+    lines.append("Assumed:")
+    lines += [f"  - {a}" for a in plan.assumptions]
+    lines.append("")
+    lines.append("Formula:")
+    lines += [f"  {s}" for s in plan.formula.split("; ")]
+    lines.append("")
+    rows = [["n (trials)", plan.n], ["events allowed", c]]
+    if plan.pass_probability is not None:
+        rows.append([f"chance of passing at p = {plan.p:g}", f"{plan.pass_probability:.4f}"])
+    lines.append(table(["quantity", "value"], rows))
+    lines.append("")
+    lines.append("The plan passes when the n trials show at most the allowed events; "
+                 "`simcheck check` with target.limit reports the chance of passing at any n.")
     return "\n".join(lines)

@@ -8,7 +8,8 @@ from typing import Any
 
 from simcheck import CAUTION
 from simcheck.cli.common import add_json, add_sim_overrides, emit_json, table
-from simcheck.cli.check import CLI_FIELDS, SearchProgress, add_method_option, run_seed
+from simcheck.bound_text import bound_words, coverage_words
+from simcheck.cli.check import CLI_FIELDS, SearchProgress, add_bound_option, add_method_option, bound_overrides, run_seed
 from simcheck.cli.options import add_allow_outside
 from simcheck.errors import Collector
 
@@ -37,6 +38,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("--n-max", dest="n_max", type=int, metavar="B",
                    help="search ceiling (default: simulation.n_max)")
     add_method_option(p)
+    add_bound_option(p)
     add_sim_overrides(p)
     add_json(p)
     add_allow_outside(p)
@@ -54,6 +56,7 @@ def run(args: argparse.Namespace) -> int:
         if b is not None:
             overrides["simulation.budget"] = int(b)
     c.raise_if_any()
+    overrides.update(bound_overrides(args))
     scenario = load_scenario(args.scenario, overrides or None, allow_outside_files=args.allow_outside_files)
     seed = run_seed(scenario, args.seed)
     with SearchProgress(budget=overrides.get("simulation.budget", getattr(scenario, "budget", None))) as prog:
@@ -117,7 +120,8 @@ def _targets_line(t: dict) -> str:
     text = (f"targets:     coverage >= {t['coverage_target']:.4f} "
             f"({t['confidence']:.4g} confidence - {t['coverage_tolerance']:g} tolerance)")
     if t.get("margin") is not None and t.get("assurance") is not None:
-        text += f", assurance >= {t['assurance']:g} (share of samples with half-width <= {t['margin']:g})"
+        what = "half-width" if t.get("bound", "two-sided") == "two-sided" else "margin"
+        text += f", assurance >= {t['assurance']:g} (share of samples with {what} <= {t['margin']:g})"
     return text
 
 
@@ -176,7 +180,12 @@ def report(scenario, res) -> str:
     lines = _header(scenario, design)
     if isinstance(res, MethodComparison):
         first = res.by_method[0]
-        lines.append(f"confidence:  {design.confidence:.4g}, target margin {_m(design.margin)}")
+        lines.append(f"confidence:  {design.confidence:.4g}, target margin {_m(design.margin)}"
+                     + (f" {design.units}" if design.units else "")
+                     + (f" ({design.relative_margin:g} of the true value)" if design.relative_margin is not None else ""))
+        if design.bound != "two-sided":
+            lines.append(f"bound:       one-sided {bound_words(design.bound)}: coverage = {coverage_words(design.bound)}; "
+                         "margin = distance from estimate to limit")
         lines.append(_targets_line(first.targets))
         lines.append("")
         headers = ["method", "n", "n range", "formula n", "n/formula", "coverage", "+/- mcse",
@@ -214,7 +223,11 @@ def report(scenario, res) -> str:
                 lines.append(f"note ({r.method}): {t}")
     else:
         d = design.with_method(res.method)
-        lines.append(f"method:      {d.method} interval, {d.confidence:.4g} confidence, target margin {_m(d.margin)}")
+        lines.append(f"method:      {d.method} {bound_words(d.bound)}, {d.confidence:.4g} confidence, target margin {_m(d.margin)}"
+                     + (f" {d.units}" if d.units else "")
+                     + (f" ({d.relative_margin:g} of the true value)" if d.relative_margin is not None else ""))
+        if d.bound != "two-sided":
+            lines.append(f"             one-sided: coverage = {coverage_words(d.bound)}; margin = distance from estimate to limit")
         lines.append(_targets_line(res.targets))
         lines.append("")
         lines.extend(_one(res, d))

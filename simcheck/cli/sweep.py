@@ -28,7 +28,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("sweep", metavar="SWEEP", help="sweep file (TOML): base, task, [vary]")
     p.add_argument("--store", required=True, metavar="FILE.sqlite", help="SQLite store (created when missing)")
     p.add_argument("--jobs", type=int, default=1, metavar="J",
-                   help="local worker processes (default 1); not used with --backend dask (every cluster worker runs cells)")
+                   help="local worker processes (default 1, at most 1024); not used with --backend dask (every cluster worker runs cells)")
     p.add_argument("--backend", choices=("local", "dask"), default=None,
                    help="local processes (default) or an existing Dask cluster (needs --scheduler)")
     p.add_argument("--scheduler", metavar="ADDR",

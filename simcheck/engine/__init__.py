@@ -29,13 +29,14 @@ import numpy as np
 
 from simcheck import rng as rngmod
 from simcheck.design import Design
-from simcheck.engine import clustered, simple, stratified
+from simcheck.engine import clustered, onesided, simple, stratified
 from simcheck.engine.kinds import KINDS, DesignKind, kind_for, register_kind
 from simcheck.engine.measures import share_mcse
 from simcheck.engine.simple import CHUNK_BYTES, PATHS, block_size, piece_rows, unit_rows
 from simcheck.errors import InputError
 from simcheck.intervals import get_method
 from simcheck.results import CheckResult, CurveResult
+from simcheck.threads import thread_count
 
 Progress = Callable[[int, int], None] | None
 
@@ -65,6 +66,7 @@ def check(
     path: str = "auto",
     progress: Progress = None,
     chunk_bytes: int = CHUNK_BYTES,
+    threads: int | None = None,
 ) -> CheckResult:
     """Coverage, misses, achieved margin and assurance of ``design`` at ``n``.
 
@@ -84,6 +86,9 @@ def check(
         ``progress(done, total)`` called after each chunk of replicates.
     chunk_bytes : int
         Memory budget of one chunk's draw buffer; does not change results.
+    threads : int, optional
+        Threads for this computation; default ``SIMCHECK_THREADS``, else the
+        cores available to the process. Does not change results.
 
     Returns
     -------
@@ -93,7 +98,7 @@ def check(
     ----------
     .. [1] Morris, White & Crowther (2019), Statistics in Medicine 38:2074-2102.
     """
-    rows = _evaluate(design, [n], replicates, rng, path, progress, chunk_bytes, curve=False)
+    rows = _evaluate(design, [n], replicates, rng, path, progress, chunk_bytes, curve=False, threads=threads)
     return rows[0]
 
 
@@ -106,6 +111,7 @@ def curve(
     path: str = "auto",
     progress: Progress = None,
     chunk_bytes: int = CHUNK_BYTES,
+    threads: int | None = None,
 ) -> CurveResult:
     """:func:`check` for every n in ``n_values`` (sorted, duplicates dropped).
 
@@ -116,7 +122,7 @@ def curve(
     ns = sorted({_as_n(v) for v in n_values})
     if not ns:
         raise InputError("n", "no sample sizes to evaluate")
-    rows = _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve=True)
+    rows = _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve=True, threads=threads)
     return CurveResult(rows=tuple(rows))
 
 
@@ -176,15 +182,22 @@ def _exact_pairs_cap(design: Design, ns, path: str) -> None:
         )
 
 
-def _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve):
+def _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve, threads=None):
     if path not in PATHS:
         raise InputError("simulation.path", f"must be one of {', '.join(PATHS)}, got {path!r}")
     if isinstance(replicates, bool) or not isinstance(replicates, (int, np.integer)) or replicates < 1:
         raise InputError("simulation.replicates", f"must be a whole number >= 1, got {replicates!r}")
+    if design.one_sided:
+        kind = kind_for(design)
+        work = onesided.evaluation_design(design, simple_kind=kind.name == "simple")
+        rows = _evaluate(work, ns, replicates, rng, path, progress, chunk_bytes, curve, threads)
+        return onesided.finish_rows(design, onesided.one_sided_rows(design, rows))
     if design.strata is None:
         _check_simple_n(design, ns)
         _exact_pairs_cap(design, ns, path)
-    return kind_for(design).evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve)
+    n_threads = thread_count(threads)
+    rows = kind_for(design).evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve, n_threads)
+    return onesided.finish_rows(design, rows)
 
 
 def _check_simple_n(design: Design, ns) -> None:

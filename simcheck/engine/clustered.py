@@ -124,7 +124,7 @@ def _pieces(root: np.random.SeedSequence, replicates: int, columns: int):
 # entry point
 # --------------------------------------------------------------------------
 def evaluate(design: Design, ns: Sequence[int], replicates: int, rng, path: str, progress, chunk_bytes: int,
-             curve: bool = True) -> list[CheckResult]:
+             curve: bool = True, threads: int = 1) -> list[CheckResult]:
     """One :class:`CheckResult` per n in ``ns`` (n = clusters, or units from the population).
 
     ``path``: "auto", "exact", "sufficient" (clusters only), "nested" or "full".
@@ -347,7 +347,7 @@ def _cluster_exact(design, method, ns, seed, cm: ClusteredModel, law: SizeLaw, k
         if design.method == "cluster-t":
             # cluster-t with equal sizes is Student's t on k iid normal cluster means
             proxy = Design(model=make_model({"model": "normal", "mean": mu, "sd": tau}), estimand="mean",
-                           method="t", confidence=design.confidence, margin=design.margin)
+                           method="t", confidence=design.confidence, margin=design.margin, assurance=design.assurance)
             rows = eng.exact_rows(proxy, get_method("mean", "t"), ns, seed)
             return [replace(r, method=design.method, notes=msr.design_notes(design)) for r in rows]
         rows = []

@@ -7,7 +7,7 @@ population, and later stratified or paired designs) supplies three functions:
     whether the kind evaluates ``design``;
 ``available_paths(design) -> list[str]``
     the computation paths valid for ``design``, cheapest first;
-``evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve)``
+``evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve, threads)``
     one :class:`~simcheck.results.CheckResult` per n.
 
 Kinds are tried in registration order, most specific first; the simple

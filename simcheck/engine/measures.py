@@ -421,6 +421,11 @@ class Accumulator:
         )
 
 
+    def quantiles(self, q: float) -> np.ndarray:
+        """The q quantile (same definition as the median) of the kept half-widths at every n."""
+        return quantiles_with_mcse(self.hw[: min(self.keep, self.seen)], (q,))[0][0].astype(np.float64)
+
+
 def _finite_or_none(x) -> float | None:
     x = float(x)
     return x if math.isfinite(x) else None

@@ -40,6 +40,7 @@ References
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass, replace
 from typing import Sequence
 
 import numpy as np
@@ -52,6 +53,7 @@ from simcheck.intervals import Summary, get_method
 from simcheck.intervals.base import Method
 from simcheck.engine.measures import Accumulator, block_starts, row_from_measures
 from simcheck.results import CheckResult
+from simcheck.threads import ordered_map
 
 PATHS = ("auto", "exact", "sufficient", "nested", "full")
 
@@ -83,7 +85,7 @@ def available_paths(design: Design) -> list[str]:
 
 
 def evaluate(design: Design, ns: Sequence[int], replicates: int, rng, path: str, progress, chunk_bytes: int,
-             curve: bool) -> list[CheckResult]:
+             curve: bool, threads: int = 1) -> list[CheckResult]:
     """One :class:`CheckResult` per n in ``ns`` for a simple random sample.
 
     ``curve`` is False for a single check: the nested path then gives way to
@@ -105,12 +107,12 @@ def evaluate(design: Design, ns: Sequence[int], replicates: int, rng, path: str,
     if chosen == "exact":
         return exact_rows(design, method, ns, seed)
     if chosen == "sufficient":
-        return [_sufficient(design, method, n, replicates, root, seed, progress, chunk_bytes) for n in ns]
+        return [_sufficient(design, method, n, replicates, root, seed, progress, chunk_bytes, threads) for n in ns]
     if chosen == "nested":
-        return _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes, nested=True)
+        return _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes, nested=True, threads=threads)
     rows = []
     for n in ns:
-        rows.extend(_simulate(design, method, [n], replicates, root, seed, progress, chunk_bytes, nested=False))
+        rows.extend(_simulate(design, method, [n], replicates, root, seed, progress, chunk_bytes, nested=False, threads=threads))
     return rows
 
 
@@ -178,6 +180,7 @@ def exact_rows(design: Design, method: Method, ns: Sequence[int], seed) -> list[
             values, weights = np.array([hw]), np.array([1.0])
             mean_hw = med = p90 = hw
             assurance = None if margin is None else float(hw <= margin * (1 + 1e-12))
+            at_assurance = hw
         else:
             if df is None:
                 df = n - 1
@@ -188,6 +191,7 @@ def exact_rows(design: Design, method: Method, ns: Sequence[int], seed) -> list[
             med = c * math.sqrt(stats.chi2.ppf(0.5, df) / df)
             p90 = c * math.sqrt(stats.chi2.ppf(0.9, df) / df)
             assurance = None if margin is None else float(stats.chi2.cdf(df * (margin / c) ** 2, df))
+            at_assurance = c * math.sqrt(stats.chi2.ppf(design.assurance, df) / df)
             probs = (np.arange(400) + 0.5) / 400
             values = c * np.sqrt(stats.chi2.ppf(probs, df) / df)
             weights = np.full(400, 1 / 400)
@@ -202,7 +206,7 @@ def exact_rows(design: Design, method: Method, ns: Sequence[int], seed) -> list[
             "margin_values": values,
             "margin_weights": weights,
         }
-        rows.append(row_from_measures(design, n, m, seed, "exact-normal"))
+        rows.append(replace(row_from_measures(design, n, m, seed, "exact-normal"), margin_at_assurance=at_assurance))
     return rows
 
 
@@ -213,7 +217,7 @@ def exact_rows(design: Design, method: Method, ns: Sequence[int], seed) -> list[
 #: per-core L2 cache, which keeps a check close to the cost of the draws
 PIECE_VALUES = 1 << 15
 #: pieces per random block (one generator per block amortises its creation)
-PIECES_PER_BLOCK = 16
+PIECES_PER_BLOCK = 4
 #: values per work unit on buffered paths
 UNIT_VALUES = 1 << 17
 
@@ -242,14 +246,6 @@ def unit_rows(columns: int) -> int:
     the draw work on cache-resident data. Fixed by ``columns`` alone.
     """
     return int(max(1, min(block_size(columns), UNIT_VALUES // max(columns, 1))))
-
-
-def _units(blocks, rows: int):
-    """Yield (block index, [(start, stop)], is_last_unit_of_block)."""
-    for bi, (s, e) in enumerate(blocks):
-        for us in range(s, e, rows):
-            ue = min(us + rows, e)
-            yield bi, [(us, ue)], ue == e
 
 
 def _plan(total: int, columns: int, chunk_bytes: int, arrays: int) -> tuple[list[tuple[int, int]], int, int]:
@@ -299,7 +295,7 @@ def _piece_sums(model, root, stage: int, first: int, blocks, columns: int, trans
 # sufficient statistics for normal data
 # --------------------------------------------------------------------------
 def sufficient_ok(design: Design, method: Method) -> bool:
-    if method.kind == "summary" and not method.needs_m3:
+    if method.kind == "summary" and not method.needs_m3 and method.shift_equivariant:
         return normal_params_of(design.model) is not None
     if method.kind == "summary2":
         return normal_params_of(design.model) is not None and normal_params_of(design.model_b) is not None
@@ -321,31 +317,36 @@ def _suff_draw(model, n, root, stage, first, blocks):
     return Summary(n=n, mean=mean, var=var, sd_true=sd)
 
 
-def _sufficient(design, method, n, replicates, root, seed, progress, chunk_bytes) -> CheckResult:
+def _sufficient(design, method, n, replicates, root, seed, progress, chunk_bytes, threads=1) -> CheckResult:
+    """Normal data: a normal mean and a chi-square variance per replicate, in groups of blocks."""
     acc = Accumulator(1, replicates, design.margin)
-    bs = block_size(2)
-    blocks = rngmod.blocks(replicates, bs)
-    per = max(1, (1 << 17) // bs)
-    nb = design.n_b(n)
-    for i in range(0, len(blocks), per):
-        grp = blocks[i : i + per]
+    blocks = rngmod.blocks(replicates, block_size(2))
+    per = max(1, (1 << 17) // block_size(2))
+    items = [(i, blocks[i : i + per]) for i in range(0, len(blocks), per)]
+
+    def work(item) -> _Limits:
+        i, grp = item
+        starts, stop = [s - grp[0][0] for s, _ in grp], grp[-1][1]
         a = _suff_draw(design.model, n, root, rngmod.STAGE_MAIN, i, grp)
         if method.kind == "summary" and method.centre_half is not None:
             c, h = method.centre_half(a, design.confidence)
-            acc.add_symmetric(np.broadcast_to(c, a.mean.shape), np.broadcast_to(h, a.mean.shape), 0.0, starts=[s - grp[0][0] for s, _ in grp])
-            if progress:
-                progress(grp[-1][1], replicates)
-            continue
+            return _Limits(np.broadcast_to(c, a.mean.shape), np.broadcast_to(h, a.mean.shape), None, starts, stop, symmetric=True)
         if method.kind == "summary":
             lo, hi = method.func(a, design.confidence)
         else:
-            b = _suff_draw(design.model_b, nb, root, rngmod.STAGE_GROUP_B, i, grp)
+            b = _suff_draw(design.model_b, design.n_b(n), root, rngmod.STAGE_GROUP_B, i, grp)
             lo, hi = method.func(a, b, design.confidence)
-        acc.add(np.asarray(lo).reshape(-1, 1), np.asarray(hi).reshape(-1, 1), 0.0, starts=[s - grp[0][0] for s, _ in grp])
+        return _Limits(np.asarray(lo).reshape(-1, 1), np.asarray(hi).reshape(-1, 1), None, starts, stop)
+
+    for lim in ordered_map(work, items, threads):
+        lim.feed(acc, 0.0)
         if progress:
-            progress(grp[-1][1], replicates)
+            progress(lim.stop, replicates)
     acc.finish()
-    return acc.row(0, design, n, replicates, seed, "sufficient")
+    r = acc.row(0, design, n, replicates, seed, "sufficient")
+    if design.assurance in (0.5, 0.9):  # the median / 90th percentile already computed
+        return r
+    return replace(r, margin_at_assurance=float(acc.quantiles(design.assurance)[0]))
 
 
 # --------------------------------------------------------------------------
@@ -397,133 +398,197 @@ def summary_from_sums(s1, s2, s3, n, sd_true) -> Summary:
     return Summary(n=n, mean=mean, var=var, m3=m3, sd_true=sd_true)
 
 
-def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes, nested) -> list[CheckResult]:
-    kind = method.kind
+@dataclass(frozen=True)
+class _SimPlan:
+    """What every work item of one simulation shares (read-only across threads)."""
+
+    design: Design
+    method: Method
+    ns: list
+    nbs: list | None
+    ncol_a: int
+    ncol_b: int
+    nested: bool
+    fused: bool
+    root: np.random.SeedSequence
+    log_shift: float
+    threads: int = 1
+
+    @property
+    def two(self) -> bool:
+        return self.nbs is not None
+
+
+@dataclass(frozen=True)
+class _Limits:
+    """Interval limits of one piece of work, in the order the accumulator takes them.
+
+    ``symmetric``: ``lo`` holds the centres and ``hi`` the half-widths.
+    """
+
+    lo: np.ndarray
+    hi: np.ndarray
+    degenerate: np.ndarray | None
+    starts: list
+    stop: int
+    symmetric: bool = False
+
+    def feed(self, acc: Accumulator, truth: float) -> None:
+        if self.symmetric:
+            acc.add_symmetric(self.lo, self.hi, truth, starts=self.starts)
+        else:
+            acc.add(self.lo, self.hi, truth, self.degenerate, starts=self.starts)
+
+
+_FUSED_KINDS = ("summary", "summary2", "log", "count", "count2")
+
+
+def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes, nested, threads=1) -> list[CheckResult]:
+    """Simulated measures at every n in ``ns``: work items on ``threads`` threads, accumulated in order."""
     two = design.two_sample
-    ns_arr = np.asarray(ns, dtype=np.int64)
     nbs = [design.n_b(n) for n in ns] if two else None
-    ncol_a = int(ns_arr.max())
+    ncol_a = int(max(ns))
     ncol_b = int(max(nbs)) if two else 0
     columns = ncol_a + ncol_b
-    k = len(ns)
-    acc = Accumulator(k, replicates, design.margin)
-    arrays = 4 if nested else 1
-
+    fused = not nested and method.kind in _FUSED_KINDS
     mu_a = design.model.mean
-    mu_b = design.model_b.mean if two else 0.0
-    truth_raw = design.true_value
-    # shift-equivariant methods work on values centred on the true mean
-    centred = method.shift_equivariant
-    all_blocks, per_chunk, rows = _plan(replicates, columns, chunk_bytes, arrays)
-    fused_kinds = ("summary", "summary2", "log", "count", "count2")
-    if not nested and kind in fused_kinds:
-        buf_a = buf_b = None  # pieces are reduced as drawn
-    else:
-        ur = min(replicates, unit_rows(columns))
-        buf_a = np.empty((ur, ncol_a))
-        buf_b = np.empty((ur, ncol_b)) if two else None
-    n_eval = ns_arr  # broadcasts over the columns of the prefix sums
-
-    fused = not nested and kind in ("summary", "summary2", "log", "count", "count2")
-
-    def centre(mu):
-        def f(x):
-            x -= mu
-        return f
-
-    def logs(x):
-        if np.any(x <= 0):
-            raise InputError("method.interval", f"{design.method} needs strictly positive data; model {design.model.describe()} gave values <= 0")
-        np.log(x, out=x)
-        x -= log_shift
-
-    log_shift = math.log(mu_a) if kind == "log" and mu_a > 0 else 0.0
-
+    plan = _SimPlan(design, method, list(ns), nbs, ncol_a, ncol_b, nested, fused, root,
+                    math.log(mu_a) if method.kind == "log" and mu_a > 0 else 0.0, threads)
+    all_blocks, per_chunk, _ = _plan(replicates, columns, chunk_bytes, 4 if nested else 1)
     if fused:
-        work = list(_chunks(all_blocks, per_chunk))
+        items = [(first, blocks) for first, blocks in _chunks(all_blocks, per_chunk)]
+        work = lambda item: [_fused_item(plan, *item)]  # noqa: E731
     else:
-        work = _units(all_blocks, unit_rows(columns))
-    gens: dict[tuple[int, int], np.random.Generator] = {}
-
-    def stream(stage: int, bi: int, last: bool) -> np.random.Generator:
-        # one generator per (stage, block), consumed unit after unit
-        g = gens.get((stage, bi))
-        if g is None:
-            g = gens[(stage, bi)] = rngmod.generator(root, stage, bi)
-        if last:
-            del gens[(stage, bi)]
-        return g
-
-    for first, blocks, *unit in work:
-        xa = xb = None
-        if fused:
-            tr_a = {"summary": centre(mu_a), "summary2": centre(mu_a), "log": logs}.get(kind)
-            ma = _piece_sums(design.model, root, rngmod.STAGE_MAIN, first, blocks, ncol_a, tr_a, method.needs_m3)
-            mb = _piece_sums(design.model_b, root, rngmod.STAGE_GROUP_B, first, blocks, ncol_b, centre(mu_b) if kind == "summary2" else None, False) if two else None
-        else:
-            (s, e), last = blocks[0], unit[0]
-            xa = design.model.draw(stream(rngmod.STAGE_MAIN, first, last), (e - s, ncol_a), out=buf_a[: e - s])
-            if two:
-                xb = design.model_b.draw(stream(rngmod.STAGE_GROUP_B, first, last), (e - s, ncol_b), out=buf_b[: e - s])
-        degenerate = None
-        truth = 0.0 if centred else truth_raw
-        if kind in ("summary", "summary2"):
-            if not fused:
-                xa -= mu_a
-                ma = prefix_moments(xa, ns, nested, method.needs_m3)
-            sa = summary_from_sums(*ma, n_eval, design.model.sd)
-            if kind == "summary" and method.centre_half is not None:
-                c, h = method.centre_half(sa, design.confidence)
-                acc.add_symmetric(np.broadcast_to(c, np.shape(sa.mean)), np.broadcast_to(h, np.shape(sa.mean)), truth, starts=block_starts(blocks))
-                if progress:
-                    progress(blocks[-1][1], replicates)
-                continue
-            if kind == "summary":
-                lo, hi = method.func(sa, design.confidence)
-            else:
-                if not fused:
-                    xb -= mu_b
-                    mb = prefix_moments(xb, nbs, nested, False)
-                sb = summary_from_sums(*mb, np.asarray(nbs), design.model_b.sd)
-                lo, hi = method.func(sa, sb, design.confidence)
-        elif kind == "log":
-            if not fused:
-                logs(xa)
-                ma = prefix_moments(xa, ns, nested, False)
-            s = summary_from_sums(*ma, n_eval, None)
-            s = Summary(n=s.n, mean=s.mean + log_shift, var=s.var)
-            lo, hi = method.func(s, design.confidence)
-        elif kind in ("count", "count2"):
-            ca = ma[0] if fused else prefix_counts(xa, ns, nested)
-            if kind == "count":
-                lo, hi = method.func(ca, n_eval, design.confidence)
-            else:
-                cb = mb[0] if fused else prefix_counts(xb, nbs, nested)
-                lo, hi = method.func(ca, n_eval, cb, np.asarray(nbs), design.confidence)
-        elif kind in ("sample", "sample2"):
-            xa -= mu_a
-            if two:
-                xb -= mu_b
-            g = stream(rngmod.STAGE_BOOTSTRAP, first, unit[0])
-            if two:
-                lo, hi, degenerate = method.func(xa, xb, design.confidence, rng=g, resamples=design.resamples)
-            else:
-                lo, hi, degenerate = method.func(xa, design.confidence, rng=g, resamples=design.resamples)
-        else:  # pragma: no cover - registry kinds are fixed
-            raise InputError("method.interval", f"method kind {kind!r} cannot be simulated here")
-        lo = np.asarray(lo, dtype=np.float64)
-        hi = np.asarray(hi, dtype=np.float64)
-        if lo.ndim == 1:
-            lo, hi = lo[:, None], hi[:, None]
-        acc.add(lo, hi, truth, None if degenerate is None else np.asarray(degenerate).reshape(-1, 1), starts=block_starts(blocks))
+        items = list(enumerate(all_blocks))
+        work = lambda item: _block_item(plan, *item, unit_rows(columns))  # noqa: E731
+    # bootstrap methods run their own thread pool inside each call
+    n_threads = 1 if method.kind in ("sample", "sample2") else threads
+    acc = Accumulator(len(ns), replicates, design.margin)
+    truth = 0.0 if method.shift_equivariant else design.true_value
+    for limits in ordered_map(work, items, n_threads):
+        for lim in limits:
+            lim.feed(acc, truth)
         if progress:
-            progress(blocks[-1][1], replicates)
+            progress(limits[-1].stop, replicates)
     acc.finish()
     path = "nested" if nested else "simulation"
     rows = []
+    # the median and 90th percentile are computed already; other levels in one pass
+    at_assurance = None if design.assurance in (0.5, 0.9) else acc.quantiles(design.assurance)
     for j, n in enumerate(ns):
-        rows.append(acc.row(j, design, n, replicates, seed, path))
+        r = acc.row(j, design, n, replicates, seed, path)
+        if at_assurance is not None:
+            r = replace(r, margin_at_assurance=float(at_assurance[j]))
+        rows.append(r)
     return rows
+
+
+def _centre_by(mu: float):
+    def f(x):
+        x -= mu
+    return f
+
+
+def _log_transform(plan: _SimPlan):
+    def f(x):
+        if np.any(x <= 0):
+            d = plan.design
+            raise InputError("method.interval", f"{d.method} needs strictly positive data; model {d.model.describe()} gave values <= 0")
+        np.log(x, out=x)
+        x -= plan.log_shift
+    return f
+
+
+def summary_shift(design: Design, method: Method) -> float:
+    """The value subtracted from one-sample summary data: the true mean for
+    shift-equivariant methods (precision), 0 for the others (e.g. grice-bain
+    needs the raw values)."""
+    return design.model.mean if method.shift_equivariant else 0.0
+
+
+def _fused_item(plan: _SimPlan, first: int, blocks) -> _Limits:
+    """A chunk of whole blocks, each piece reduced to power sums as it is drawn."""
+    d, kind = plan.design, plan.method.kind
+    tr_a = {"summary": _centre_by(summary_shift(d, plan.method)), "summary2": _centre_by(d.model.mean),
+            "log": _log_transform(plan)}.get(kind)
+    ma = _piece_sums(d.model, plan.root, rngmod.STAGE_MAIN, first, blocks, plan.ncol_a, tr_a, plan.method.needs_m3)
+    mb = None
+    if plan.two:
+        tr_b = _centre_by(d.model_b.mean) if kind == "summary2" else None
+        mb = _piece_sums(d.model_b, plan.root, rngmod.STAGE_GROUP_B, first, blocks, plan.ncol_b, tr_b, False)
+    return _limits(plan, ma, mb, None, None, None, block_starts(blocks), blocks[-1][1])
+
+
+def _block_item(plan: _SimPlan, bi: int, block: tuple[int, int], rows: int) -> list[_Limits]:
+    """One random block drawn unit by unit from its own generators (nested curves, bootstrap)."""
+    d = plan.design
+    g_a = rngmod.generator(plan.root, rngmod.STAGE_MAIN, bi)
+    g_b = rngmod.generator(plan.root, rngmod.STAGE_GROUP_B, bi) if plan.two else None
+    g_boot = rngmod.generator(plan.root, rngmod.STAGE_BOOTSTRAP, bi) if plan.method.kind in ("sample", "sample2") else None
+    s, e = block
+    ur = min(rows, e - s)
+    buf_a = np.empty((ur, plan.ncol_a))
+    buf_b = np.empty((ur, plan.ncol_b)) if plan.two else None
+    out = []
+    for us in range(s, e, rows):
+        ue = min(us + rows, e)
+        xa = d.model.draw(g_a, (ue - us, plan.ncol_a), out=buf_a[: ue - us])
+        xb = d.model_b.draw(g_b, (ue - us, plan.ncol_b), out=buf_b[: ue - us]) if plan.two else None
+        out.append(_limits(plan, None, None, xa, xb, g_boot, [0], ue))
+    return out
+
+
+def _limits(plan: _SimPlan, ma, mb, xa, xb, g_boot, starts, stop) -> _Limits:
+    """Interval limits from power sums (``ma``/``mb``, fused) or raw draws (``xa``/``xb``)."""
+    d, method, kind = plan.design, plan.method, plan.method.kind
+    conf, nested = d.confidence, plan.nested
+    n_eval = np.asarray(plan.ns, dtype=np.int64)
+    degenerate = None
+    if kind in ("summary", "summary2"):
+        if ma is None:
+            xa -= summary_shift(d, method) if kind == "summary" else d.model.mean
+            ma = prefix_moments(xa, plan.ns, nested, method.needs_m3)
+        sa = summary_from_sums(*ma, n_eval, d.model.sd)
+        if kind == "summary" and method.centre_half is not None:
+            c, h = method.centre_half(sa, conf)
+            shape = np.shape(sa.mean)
+            return _Limits(np.broadcast_to(c, shape), np.broadcast_to(h, shape), None, starts, stop, symmetric=True)
+        if kind == "summary":
+            lo, hi = method.func(sa, conf)
+        else:
+            if mb is None:
+                xb -= d.model_b.mean
+                mb = prefix_moments(xb, plan.nbs, nested, False)
+            sb = summary_from_sums(*mb, np.asarray(plan.nbs), d.model_b.sd)
+            lo, hi = method.func(sa, sb, conf)
+    elif kind == "log":
+        if ma is None:
+            _log_transform(plan)(xa)
+            ma = prefix_moments(xa, plan.ns, nested, False)
+        s = summary_from_sums(*ma, n_eval, None)
+        lo, hi = method.func(Summary(n=s.n, mean=s.mean + plan.log_shift, var=s.var), conf)
+    elif kind in ("count", "count2"):
+        ca = ma[0] if ma is not None else prefix_counts(xa, plan.ns, nested)
+        if kind == "count":
+            lo, hi = method.func(ca, n_eval, conf)
+        else:
+            cb = mb[0] if mb is not None else prefix_counts(xb, plan.nbs, nested)
+            lo, hi = method.func(ca, n_eval, cb, np.asarray(plan.nbs), conf)
+    elif kind in ("sample", "sample2"):
+        xa -= d.model.mean
+        if plan.two:
+            xb -= d.model_b.mean
+            lo, hi, degenerate = method.func(xa, xb, conf, rng=g_boot, resamples=d.resamples, threads=plan.threads)
+        else:
+            lo, hi, degenerate = method.func(xa, conf, rng=g_boot, resamples=d.resamples, threads=plan.threads)
+    else:  # pragma: no cover - registry kinds are fixed
+        raise InputError("method.interval", f"method kind {kind!r} cannot be simulated here")
+    lo = np.asarray(lo, dtype=np.float64)
+    hi = np.asarray(hi, dtype=np.float64)
+    if lo.ndim == 1:
+        lo, hi = lo[:, None], hi[:, None]
+    deg = None if degenerate is None else np.asarray(degenerate).reshape(-1, 1)
+    return _Limits(lo, hi, deg, starts, stop)
 
 
 def prefix_counts(x: np.ndarray, ns, nested: bool) -> np.ndarray:

@@ -7,5 +7,6 @@ from simcheck.intervals import mean as _mean  # noqa: F401
 from simcheck.intervals import proportion as _proportion  # noqa: F401
 from simcheck.intervals import bootstrap as _bootstrap  # noqa: F401
 from simcheck.intervals import cluster as _cluster  # noqa: F401
+from simcheck.intervals import upper as _upper  # noqa: F401
 
 __all__ = ["ESTIMANDS", "REGISTRY", "Method", "Summary", "get_method", "methods_for", "register"]

@@ -27,6 +27,14 @@ import numpy as np
 from simcheck.errors import InputError
 
 ESTIMANDS = ("mean", "proportion", "mean-diff", "proportion-diff")
+#: the kinds of target bound: a two-sided interval or a one-sided limit
+BOUNDS = ("two-sided", "upper", "lower")
+
+#: how an equal-tailed method's one-sided limit is defined (the default)
+EQUAL_TAILED = (
+    "equal-tailed: the one-sided limit at level 1 - alpha is the matching limit of the "
+    "two-sided interval at level 1 - 2 alpha"
+)
 
 
 @dataclass(frozen=True)
@@ -77,24 +85,96 @@ class Method:
     #: ``(x, n, confidence) -> (centre, half)`` before clipping, so that a
     #: finite population correction scales the half-width and clips once
     centre_half: Callable | None = field(default=None, repr=False)
+    #: how the method's one-sided limit is defined (see :data:`ONE_SIDED`);
+    #: empty means :data:`EQUAL_TAILED`
+    one_sided: str = ""
+    one_sided_references: tuple[str, ...] = ()
+    #: the target bounds the method serves; one-sided-only methods (upper
+    #: limits for skewed data) list only ``("upper",)`` and are called at
+    #: the one-sided level itself, returning ``lower = -inf``
+    bounds: tuple[str, ...] = BOUNDS
+    #: the interval is always point estimate ± half-width (no clipping), so
+    #: the achieved one-sided margin equals the two-sided half-width
+    symmetric: bool = False
+
+    @property
+    def one_sided_only(self) -> bool:
+        return "two-sided" not in self.bounds
+
+    def one_sided_text(self) -> str:
+        """How this method's one-sided limit is defined, in one sentence."""
+        return self.one_sided or EQUAL_TAILED
 
 
 REGISTRY: dict[tuple[str, str], Method] = {}
+#: methods the engine derives from registered ones (one-sided limits seen as
+#: intervals, see :mod:`simcheck.engine.onesided`); never listed to users
+DERIVED: dict[tuple[str, str], Method] = {}
+
+_STUDENT = "Student (1908), Biometrika 6:1-25"
+_BCD = "Brown, Cai & DasGupta (2001), Statistical Science 16:101-133, sec. 4.1 (one-sided intervals)"
+_ET = "Efron & Tibshirani (1993), An Introduction to the Bootstrap, Chapman & Hall"
+#: per method: (how its one-sided limit is defined, references, symmetric)
+ONE_SIDED: dict[tuple[str, str], tuple[str, tuple[str, ...], bool]] = {
+    ("mean", "z"): ("x̄ ± z_{1-alpha} sigma / sqrt(n), the one-sided normal limit with the known SD", ("common practice",), True),
+    ("mean", "t"): ("x̄ ± t_{1-alpha, n-1} s / sqrt(n), the one-sided t limit", (_STUDENT,), True),
+    ("mean", "johnson-t"): ("the t limit after Johnson's skewness shift m3 / (6 s^2 n): x̄ + m3 / (6 s^2 n) ± t_{1-alpha} s / sqrt(n)",
+                            ("Johnson (1978), JASA 73:536-544 (the one-sided modified t)",), False),
+    ("mean", "cox"): ("exp(ȳ + s^2/2 ± z_{1-alpha} sqrt(s^2/n + s^4/(2(n-1)))) on the logs ȳ, s^2",
+                      ("Zhou & Gao (1997), Statistics in Medicine 16:783-790",), False),
+    ("mean-diff", "z"): ("d ± z_{1-alpha} sqrt(sigma_a^2/n_a + sigma_b^2/n_b)", ("common practice",), True),
+    ("mean-diff", "t"): ("d ± t_{1-alpha, n_a+n_b-2} s_p sqrt(1/n_a + 1/n_b)", (_STUDENT,), True),
+    ("mean-diff", "welch"): ("d ± t_{1-alpha, nu} sqrt(s_a^2/n_a + s_b^2/n_b), Welch-Satterthwaite nu",
+                             ("Welch (1947), Biometrika 34:28-35",), True),
+    ("proportion", "wald"): ("p̂ ± z_{1-alpha} sqrt(p̂ (1 - p̂) / n), clipped to [0, 1]", (_BCD,), False),
+    ("proportion", "wilson"): ("the Wilson score limit with z_{1-alpha} (one-sided score limit)", (_BCD,), False),
+    ("proportion", "agresti-coull"): ("p̃ ± z_{1-alpha} sqrt(p̃ (1 - p̃) / ñ) with ñ = n + z_{1-alpha}^2, clipped", (_BCD,), False),
+    ("proportion", "clopper-pearson"): ("one-sided exact: upper Beta_{1-alpha}(x + 1, n - x) (1 when x = n), "
+                                        "lower Beta_{alpha}(x, n - x + 1) (0 when x = 0)",
+                                        ("Clopper & Pearson (1934), Biometrika 26:404-413", _BCD), False),
+    ("proportion", "jeffreys"): ("Beta(x + 1/2, n - x + 1/2) quantile 1 - alpha (upper) or alpha (lower)", (_BCD,), False),
+    ("proportion-diff", "wald"): ("d ± z_{1-alpha} SE, clipped to [-1, 1]", ("Newcombe (1998), Statistics in Medicine 17:873-890",), False),
+    ("proportion-diff", "newcombe"): ("the hybrid score limit from the Wilson limits at level 1 - 2 alpha",
+                                      ("Newcombe (1998), Statistics in Medicine 17:873-890",), False),
+    ("proportion-diff", "agresti-caffo"): ("the adjusted Wald limit with z_{1-alpha}", ("Agresti & Caffo (2000), The American Statistician 54:280-288",), False),
+    ("mean", "bootstrap-percentile"): ("the 1 - alpha (upper) or alpha (lower) percentile of the bootstrap means", (_ET + ", ch. 13",), False),
+    ("mean-diff", "bootstrap-percentile"): ("the 1 - alpha (upper) or alpha (lower) percentile of the bootstrap differences", (_ET + ", ch. 13",), False),
+    ("mean", "bootstrap-bca"): ("the BCa limit at 1 - alpha", (_ET + ", ch. 14", "Efron (1987), JASA 82:171-185"), False),
+    ("mean-diff", "bootstrap-bca"): ("the BCa limit at 1 - alpha", (_ET + ", ch. 14", "Efron (1987), JASA 82:171-185"), False),
+    ("mean", "bootstrap-t"): ("x̄ - t*_{alpha} s / sqrt(n) (upper): the studentised (percentile-t) bootstrap limit, "
+                              "Hall's bootstrap-t", (_ET + ", ch. 12", "Hall (1988), Annals of Statistics 16:927-953"), False),
+    ("mean-diff", "bootstrap-t"): ("the studentised (percentile-t) bootstrap limit of the difference", (_ET + ", ch. 12",
+                                   "Hall (1988), Annals of Statistics 16:927-953"), False),
+    ("mean", "cluster-t"): ("ratio mean ± t_{1-alpha, k-1} SE (cluster level)", ("Cochran (1977), Sampling Techniques, ch. 6",), True),
+    ("proportion", "cluster-t"): ("ratio proportion ± t_{1-alpha, k-1} SE, clipped to [0, 1]",
+                                  ("Cochran (1977), Sampling Techniques, ch. 6",), False),
+}
 
 
 def register(method: Method) -> Method:
     key = (method.estimand, method.name)
     if key in REGISTRY:
         raise ValueError(f"interval method {key} registered twice")
+    if not method.one_sided and key in ONE_SIDED:
+        text, refs, sym = ONE_SIDED[key]
+        from dataclasses import replace
+
+        method = replace(method, one_sided=text, one_sided_references=refs, symmetric=sym)
     REGISTRY[key] = method
     return method
 
 
+def lookup(estimand: str, name: str) -> Method | None:
+    """The registered (or engine-derived) method, or None."""
+    return REGISTRY.get((estimand, name)) or DERIVED.get((estimand, name))
+
+
 def get_method(estimand: str, name: str, field_name: str = "method.interval") -> Method:
     """Look up a method for an estimand, with a helpful error."""
-    try:
-        return REGISTRY[(estimand, name)]
-    except KeyError:
+    m = lookup(estimand, name)
+    if m is not None:
+        return m
+    else:
         names = methods_for(estimand)
         raise InputError(
             field_name,

@@ -89,7 +89,6 @@ sec. 14.3: acceleration from the jackknife), ch. 11 (jackknife).
 
 from __future__ import annotations
 
-import os
 import threading
 from concurrent.futures import ThreadPoolExecutor
 
@@ -98,6 +97,7 @@ from scipy.special import ndtr, ndtri
 
 from simcheck.errors import Collector, InputError
 from simcheck.intervals.base import Method, register
+from simcheck.threads import thread_count
 
 #: Upper bound on the extra memory (bytes) one call allocates, whatever R, n, B
 #: and the number of threads.
@@ -132,8 +132,8 @@ def _positive_threads(value, name: str) -> int:
 
 
 def bootstrap_threads() -> int:
-    """Threads for bootstrap calls: ``SIMCHECK_THREADS`` if set, else
-    ``min(4, os.cpu_count())``.
+    """Threads for bootstrap calls: ``SIMCHECK_THREADS`` if set, else the cores
+    available to the process (:func:`simcheck.threads.thread_count`).
 
     Raises
     ------
@@ -141,16 +141,7 @@ def bootstrap_threads() -> int:
         (a ValueError) ``SIMCHECK_THREADS`` is set but is not a positive
         whole number; the message names the variable.
     """
-    raw = os.environ.get("SIMCHECK_THREADS")
-    if raw is None or not raw.strip():
-        return min(4, os.cpu_count() or 1)
-    try:
-        value = int(raw.strip())
-    except ValueError:
-        value = None
-    if value is None or value < 1:
-        raise InputError("SIMCHECK_THREADS", f"expected a positive whole number of threads, got {raw!r}")
-    return value
+    return thread_count()
 
 
 def _resolve_threads(threads) -> int:

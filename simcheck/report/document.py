@@ -33,6 +33,7 @@ from simcheck.report.study import Progress, StudyResults, SweepResults, is_store
 from simcheck.report.text import (
     ESTIMAND_TEXT,
     STATUS_TEXT,
+    criterion_sentence,
     decision_status,
     key_label,
     fmt_estimate,
@@ -159,7 +160,7 @@ class _Doc:
             elif kind == "table":
                 headers, rows = b
                 head = "".join(f"<th>{e(h)}</th>" for h in headers)
-                trs = "".join("<tr>" + "".join(f"<td>{e(str(c), quote=False)}</td>" for c in r) + "</tr>" for r in rows)
+                trs = "".join("<tr>" + "".join(f"<td>{_inline(str(c))}</td>" for c in r) + "</tr>" for r in rows)
                 # a wide table scrolls inside its box instead of being cut at narrow widths
                 body.append(f'<div class="table-scroll"><table><thead><tr>{head}</tr></thead>'
                             f"<tbody>{trs}</tbody></table></div>")
@@ -222,7 +223,8 @@ def study_figures(study: StudyResults) -> dict[str, Any]:
     """The study's figures, by name: ``coverage``, ``margin``, ``misses``."""
     from simcheck.report import figures as F
 
-    label = {m: f"{m} interval" for m in study.methods}
+    what = "interval" if study.data.get("bound", "two-sided") == "two-sided" else f"{study.data['bound']} limit"
+    label = {m: f"{m} {what}" for m in study.methods}
     found = {label[m]: s.n for m, s in study.searches.items() if m in label}
     curves = {label[m]: study.curves[m] for m in study.methods if m in study.curves and study.curves[m].rows}
     out: dict[str, Any] = {}
@@ -230,7 +232,8 @@ def study_figures(study: StudyResults) -> dict[str, Any]:
         out["coverage"] = F.coverage_figure(curves, confidence=study.confidence, tolerance=study.coverage_tolerance,
                                             n_formula=study.n_formula, n_found=found, n_label=study.n_label,
                                             undecided=[label[m] for m, s in study.searches.items()
-                                                       if m in label and decision_status(s) == "undecided"])
+                                                       if m in label and decision_status(s) == "undecided"],
+                                            bound=study.data.get("bound", "two-sided"))
     checks = {label[m]: c for m in study.methods if (c := _half_width_check(study, m)) is not None}
     if checks:
         has_assurance = any(r.assurance is not None for c in curves.values() for r in c.rows)
@@ -253,7 +256,7 @@ def _half_width_check(study: StudyResults, m: str):
 
 
 def _captions_study(study: StudyResults, names: Sequence[str]) -> dict[str, str]:
-    band = "Shading with thin outlines: estimate ± 2 MCSE (about a 95% Monte Carlo band)."
+    band = "Shading: estimate ± 2 MCSE (about a 95% Monte Carlo band)."
     low = study.confidence - study.coverage_tolerance
     re = [m for m in study.methods if _half_width_check(study, m) is study.rechecks.get(m) and m in study.rechecks]
     recheck = ""
@@ -279,7 +282,8 @@ def _captions_study(study: StudyResults, names: Sequence[str]) -> dict[str, str]
 def _alt_study(study: StudyResults, name: str) -> str:
     """Alt text: what the figure shows, in numbers, for a reader who cannot see it."""
     names = join_words([f"the {m} interval" for m in study.methods if m in study.curves])
-    found = "; ".join(f"{m}: n found {s.n:,}" if s.n is not None else f"{m}: {decision_status(s)}"
+    found = "; ".join((f"{m}: {'undecided, ' if decision_status(s) == 'undecided' else ''}n found {s.n:,}"
+                       if s.n is not None else f"{m}: {STATUS_TEXT.get(decision_status(s), '')}")
                       for m, s in study.searches.items())
     if name == "coverage":
         lo = [float(np.nanmin(c.column("coverage"))) for c in study.curves.values() if c.rows]
@@ -333,7 +337,7 @@ def _results_table(doc: _Doc, s: StudyResults) -> None:
     doc.table(headers, rows)
     crit = [t for t in dict.fromkeys(s.method_row(m)["criterion_text"] for m in s.methods) if t]
     if crit:
-        doc.para("Criterion: " + " ".join(crit))
+        doc.para("Criterion: " + " ".join(criterion_sentence(t) for t in crit))
     doc.para("Coverage and assurance at the n found are the search's own confirmation figures (fresh samples, "
              "independent of the exploration). An undecided answer is the n the search gives when its "
              "replicate budget ran out before the Monte Carlo error settled it; the n range shows how far the Monte Carlo error leaves it open.")
@@ -414,7 +418,11 @@ def _data_rows(data: Mapping[str, Any]) -> list[list[str]]:
             model_rows(label, data[key])
     for key in ("true_value", "ratio", "resamples"):
         if key in data:
-            rows.append([key.replace("_", " "), fmt_g(data[key])])
+            label = key.replace("_", " ")
+            if key == "true_value" and "strata" in data:
+                # each evaluation reports its own finite populations' value (see the notes)
+                label = "planning value (the strata models' mean)"
+            rows.append([label, fmt_g(data[key])])
     for key in ("clusters", "population"):
         if key in data:
             for k, v in data[key].items():
@@ -485,9 +493,9 @@ SWEEP_COLUMNS = {
     "n": "n found",
     "n_range": "n consistent with MC error",
     "n_formula": "Formula n",
-    "coverage": "Coverage",
+    "coverage": "Coverage at n found (n_max if not reached)",
     "coverage_mcse": "Coverage MCSE",
-    "assurance": "Assurance",
+    "assurance": "Assurance at the same n",
     "assurance_mcse": "Assurance MCSE",
     "miss_low": "Wholly below",
     "miss_high": "Wholly above",
@@ -503,8 +511,8 @@ def _sweep_table(fr, vary: Sequence[str], value: str) -> tuple[list[str], list[l
     search = value == "n"
     result = (["decision", "n", "n_range", "n_formula", "coverage", "assurance", "replicates_used"] if search
               else ["coverage", "assurance", "miss_low", "miss_high"])
-    headers = [key_label(c) for c in cols] + [SWEEP_COLUMNS[c] for c in result
-                                              if c in ("decision", "n_range") or c in fr.columns]
+    names = SWEEP_COLUMNS if search else {**SWEEP_COLUMNS, "coverage": "Coverage", "assurance": "Assurance"}
+    headers = [key_label(c) for c in cols] + [names[c] for c in result if c in ("decision", "n_range") or c in fr.columns]
     rows = []
     for rec in fr.to_dict("records"):
         row = [_cell(rec.get(c)) for c in cols]
@@ -515,6 +523,8 @@ def _sweep_table(fr, vary: Sequence[str], value: str) -> tuple[list[str], list[l
                 row.append(_range_cell(rec.get("n_range_low"), rec.get("n_range_high")))
             elif c in ("coverage", "assurance") and c in fr.columns:
                 row.append(_estimate_cell(rec.get(c), rec.get(f"{c}_mcse"), rec.get("exact")))
+            elif c in ("miss_low", "miss_high") and c in fr.columns:
+                row.append(f"{float(rec[c]):.4f}" if _finite(rec.get(c)) else "–")
             elif c in fr.columns:
                 row.append(_cell(rec.get(c)))
         rows.append(row)
@@ -602,10 +612,11 @@ def _sweep_caption(value: str) -> str:
         return ("Coverage at the fixed n across the varied parameters (± 2 MCSE error bars); hatched grey band: "
                 "accepted coverage; one panel per combination of the remaining parameters.")
     return ("Required n across the varied parameters; one panel per combination of the remaining parameters. "
-            "Filled markers: clear answers; open circles with a bar: undecided (replicate budget spent), at the "
-            "conservative n with the n range; open triangles above the data: not reached by the search ceiling. "
-            "Black crosses on a dotted line: formula n. Markers of different methods are shifted sideways a little "
-            "so they do not hide each other.")
+            "Filled markers: clear answers. Open markers with a vertical bar: undecided (the replicate budget was "
+            "spent first), drawn at the n the search gives, the bar spanning the n range still open. A question "
+            "mark at the top: undecided with no n confirmed yet. An arrow at the top: not reached by the search "
+            "ceiling n_max. Black crosses on a dotted line: formula n. Markers of different methods are shifted "
+            "sideways a little so they do not hide each other.")
 
 
 def sweep_alt(sw: SweepResults) -> str:

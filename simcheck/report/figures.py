@@ -18,9 +18,8 @@ Style choices, and why:
   named font (DejaVu Sans, which matplotlib ships);
 * one colour, marker and line style per interval method, the same in every
   figure (:data:`METHOD_STYLES`), so a method is recognised across figures;
-* the grey accepted-coverage band is hatched and each method's Monte Carlo
-  band has an outline in the method's colour, so the two stay apart in
-  greyscale print;
+* the grey accepted-coverage band is hatched while each method's Monte Carlo
+  band is a plain light fill, so the two stay apart in greyscale print;
 * no titles inside the figure (captions belong to the document), no grids
   beyond faint major lines, no decoration.
 
@@ -246,11 +245,10 @@ def _vline(ax, x: float | None, *, style: str, colour: str, label: str | None):
 
 
 def _band(ax, x, centre, half, colour) -> None:
-    """Monte Carlo band: light fill plus a thin outline in the series colour (reads in greyscale)."""
+    """Monte Carlo band: a light plain fill in the series colour. (No outline: on a narrow
+    band the outline would fill the gaps of a dashed line and hide the method's line style.)"""
     if np.any(np.nan_to_num(half) > 0):
         ax.fill_between(x, centre - half, centre + half, facecolor=colour, alpha=BAND_ALPHA, linewidth=0, zorder=1)
-        for edge in (centre - half, centre + half):
-            ax.plot(x, edge, color=colour, linewidth=0.4, alpha=0.8, zorder=1.1, label="_band edge")
 
 
 def _accept_band(ax, low: float, high: float) -> None:
@@ -294,8 +292,9 @@ def coverage_figure(
     width: float = FULL_WIDTH,
     height: float = 3.3,
     undecided: Sequence[str] = (),
+    bound: str = "two-sided",
 ) -> Figure:
-    """Coverage against n with its Monte Carlo band.
+    """Coverage against n with its Monte Carlo band (``bound``: one-sided limits say so on the axis).
 
     Parameters
     ----------
@@ -327,18 +326,7 @@ def coverage_figure(
     with rc_context(STYLE):
         fig = _new_figure(width, height)
         ax = fig.add_subplot()
-        if tolerance > 0:
-            _accept_band(ax, confidence - tolerance, confidence)
-        ax.axhline(confidence, color=REFERENCE_COLOUR, linewidth=0.9, label=f"nominal {confidence:g}", zorder=1.6)
-        if tolerance > 0:
-            ax.axhline(
-                confidence - tolerance,
-                color=REFERENCE_COLOUR,
-                linewidth=0.8,
-                linestyle=(0, (4, 2)),
-                label=f"lowest accepted {confidence - tolerance:g}",
-                zorder=1.6,
-            )
+        _coverage_refs(ax, confidence, tolerance)
         all_n = []
         lows, highs = [confidence - tolerance], [confidence]
         for i, (name, curve) in enumerate(curves.items()):
@@ -354,26 +342,43 @@ def coverage_figure(
             highs.append(np.nanmax(cov + 2 * se))
         _vline(ax, n_formula, style=":", colour=REFERENCE_COLOUR,
                label=None if n_formula is None else f"formula n = {n_formula:,}")
-        for i, name in enumerate(curves):
-            nf = found.get(name)
-            if nf is not None:
-                who = f" ({name})" if len(curves) > 1 else ""
-                st = method_style(name, i)
-                status = ", undecided" if name in undecided else ""
-                ln = _vline(ax, nf, style=(0, (6, 2)), colour=st["color"], label=f"n found = {nf:,}{status}{who}")
-                if len(curves) > 1:
-                    # the method's marker on top of its line tells the lines apart in greyscale
-                    ln.set_marker(st["marker"])
-                    ln.set_markevery([1])
-                    ln.set_clip_on(False)
+        _found_lines(ax, list(curves), found, undecided)
         n_all = np.concatenate(all_n) if all_n else np.array([1.0])
         _set_n_axis(ax, n_all, n_label)
         lo, hi = float(np.nanmin(lows)), float(np.nanmax(highs))
         pad = max(0.002, 0.06 * (hi - lo))
         ax.set_ylim(max(0.0, lo - pad), min(1.0, hi + pad) if hi + pad <= 1.0 else 1.0 + 0.001)
-        ax.set_ylabel("Coverage (share of intervals\ncontaining the true value)")
+        ax.set_ylabel("Coverage (share of intervals\ncontaining the true value)" if bound == "two-sided" else
+                      f"Coverage (share of {bound} limits\n{'at or above' if bound == 'upper' else 'at or below'} the true value)")
         _outside_legend(fig, ax)
     return fig
+
+
+def _coverage_refs(ax, confidence: float, tolerance: float) -> None:
+    """Nominal level, and with a tolerance the hatched accepted band and its dashed lower edge."""
+    if tolerance > 0:
+        _accept_band(ax, confidence - tolerance, confidence)
+    ax.axhline(confidence, color=REFERENCE_COLOUR, linewidth=0.9, label=f"nominal {confidence:g}", zorder=1.6)
+    if tolerance > 0:
+        ax.axhline(confidence - tolerance, color=REFERENCE_COLOUR, linewidth=0.8, linestyle=(0, (4, 2)),
+                   label=f"lowest accepted {confidence - tolerance:g}", zorder=1.6)
+
+
+def _found_lines(ax, names: Sequence[str], found: Mapping[str, Any], undecided: Sequence[str]) -> None:
+    """A dashed line at each method's n found, in its colour; 'undecided' said in the label."""
+    for i, name in enumerate(names):
+        nf = found.get(name)
+        if nf is None:
+            continue
+        who = f" ({name})" if len(names) > 1 else ""
+        st = method_style(name, i)
+        status = ", undecided" if name in undecided else ""
+        ln = _vline(ax, nf, style=(0, (6, 2)), colour=st["color"], label=f"n found = {nf:,}{status}{who}")
+        if len(names) > 1:
+            # the method's marker on top of its line tells the lines apart in greyscale
+            ln.set_marker(st["marker"])
+            ln.set_markevery([1])
+            ln.set_clip_on(False)
 
 
 def _ecdf(values: np.ndarray, weights: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
@@ -441,6 +446,8 @@ def margin_figure(
         target_margin = next((c.target_margin for c in checks.values() if c.target_margin is not None), None)
     labels = list(dict.fromkeys(list(checks) + list(curve_map)))
     found = _per_method(n_found, labels)
+    # a one-sided limit's margin is the distance from the estimate to the limit
+    hw = "half-width" if all(getattr(c, "bound", "two-sided") == "two-sided" for c in checks.values()) else "margin"
     with rc_context(STYLE):
         fig = _new_figure(width, height)
         if curve_map:
@@ -471,33 +478,39 @@ def margin_figure(
             ax.axvline(target_margin, color=REFERENCE_COLOUR, linestyle=(0, (4, 2)), linewidth=0.9,
                        label=f"target margin {target_margin:g}")
         ax.set_xlabel(value_label)
-        ax.set_ylabel("Share of samples with\nhalf-width at most x")
+        ax.set_ylabel(f"Share of samples with\n{hw} at most x")
         ax.set_ylim(-0.02, 1.02)
         ax.text(0.02, 0.98, "A", transform=ax.transAxes, va="top", ha="left", fontweight="bold")
         if ax2 is not None:
-            if assurance is not None:
-                ax2.axhline(assurance, color=REFERENCE_COLOUR, linewidth=0.9, label=f"required assurance {assurance:g}")
-            all_n = []
-            for name, curve in curve_map.items():
-                i = labels.index(name)
-                st = method_style(name, i)
-                n = curve.n.astype(float)
-                a = curve.column("assurance")
-                se = np.nan_to_num(curve.column("assurance_mcse"))
-                all_n.append(n)
-                _band(ax2, n, a, 2 * se, st["color"])
-                ax2.plot(n, a, color=st["color"], marker=st["marker"], linestyle=st["linestyle"],
-                         markevery=_markevery(len(n), i, len(curve_map)),
-                         label=name if len(checks) <= 1 and len(curve_map) > 1 else None)
-                nf = found.get(name)
-                if nf is not None:
-                    ax2.axvline(nf, color=st["color"], linestyle=(0, (6, 2)), linewidth=1.0)
-            _set_n_axis(ax2, np.concatenate(all_n) if all_n else np.array([1.0]), n_label)
-            ax2.set_ylabel("Assurance (share with\nhalf-width at most target)")
-            ax2.set_ylim(-0.02, 1.02)
-            ax2.text(0.02, 0.98, "B", transform=ax2.transAxes, va="top", ha="left", fontweight="bold")
+            _assurance_panel(ax2, curve_map, labels, found, assurance, n_label, single=len(checks) <= 1, hw=hw)
         _outside_legend(fig, ax)
     return fig
+
+
+def _assurance_panel(ax2, curve_map: Mapping[str, CurveResult], labels: Sequence[str], found: Mapping[str, Any],
+                     assurance: float | None, n_label: str, single: bool, hw: str = "half-width") -> None:
+    """Panel B of the margin figure: assurance against n, ± 2 MCSE, the required level and the n found."""
+    if assurance is not None:
+        ax2.axhline(assurance, color=REFERENCE_COLOUR, linewidth=0.9, label=f"required assurance {assurance:g}")
+    all_n = []
+    for name, curve in curve_map.items():
+        i = labels.index(name)
+        st = method_style(name, i)
+        n = curve.n.astype(float)
+        a = curve.column("assurance")
+        se = np.nan_to_num(curve.column("assurance_mcse"))
+        all_n.append(n)
+        _band(ax2, n, a, 2 * se, st["color"])
+        ax2.plot(n, a, color=st["color"], marker=st["marker"], linestyle=st["linestyle"],
+                 markevery=_markevery(len(n), i, len(curve_map)),
+                 label=name if single and len(curve_map) > 1 else None)
+        nf = found.get(name)
+        if nf is not None:
+            ax2.axvline(nf, color=st["color"], linestyle=(0, (6, 2)), linewidth=1.0)
+    _set_n_axis(ax2, np.concatenate(all_n) if all_n else np.array([1.0]), n_label)
+    ax2.set_ylabel(f"Assurance (share with\n{hw} at most target)")
+    ax2.set_ylim(-0.02, 1.02)
+    ax2.text(0.02, 0.98, "B", transform=ax2.transAxes, va="top", ha="left", fontweight="bold")
 
 
 def miss_figure(

@@ -9,6 +9,7 @@ import math
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, Mapping, Sequence
 
+from simcheck.bound_text import coverage_words, target_sentences
 from simcheck import __version__
 
 if TYPE_CHECKING:  # the study module imports this one
@@ -42,6 +43,10 @@ METHOD_TEXT = {
     "newcombe": "Newcombe",
     "agresti-caffo": "Agresti–Caffo",
     "cluster-t": "cluster-level t",
+    "land": "Land's exact (H-based)",
+    "chen-modified-t": "Chen's modified-t",
+    "chebyshev": "Chebyshev (Cantelli)",
+    "grice-bain": "gamma-based (Grice–Bain)",
 }
 
 
@@ -223,8 +228,9 @@ def strata_text(data: Mapping[str, Any]) -> str:
     """'3 strata sampled without replacement: north (N = 4,000), a lognormal ...; ...' from Design.to_dict()."""
     parts = [f"{s['name']} (N = {s['size']:,}), {describe_model(s['data'])}" for s in data["strata"]]
     rule = data.get("allocation", {}).get("rule", "proportional")
-    return (f"{len(parts)} strata, each sampled without replacement and the total n allocated by the "
-            f"{rule} rule: " + "; ".join(parts))
+    rule = {"neyman": "Neyman", "optimum": "optimum (cost-weighted)"}.get(rule, rule)
+    return (f"{len(parts)} {'stratum' if len(parts) == 1 else 'strata'}, each sampled without replacement and the total n allocated by "
+            f"{rule} allocation: " + "; ".join(parts))
 
 
 def model_text(data: Mapping[str, Any]) -> str:
@@ -236,10 +242,24 @@ def model_text(data: Mapping[str, Any]) -> str:
     return describe_model(data.get("data", {}))
 
 
-def interval_text(methods: Sequence[str], confidence: float) -> str:
-    names = join_words([method_text(m) for m in methods])
-    kind = "interval" if len(methods) == 1 else "intervals"
-    return f"the two-sided {fmt_pct(confidence)} {names} {kind}"
+#: how the stratified evaluator computes each method (simcheck.engine.stratified)
+STRATIFIED_METHOD_TEXT = {
+    "t": "stratified t interval (Satterthwaite degrees of freedom)",
+    "z": "stratified normal (z) interval",
+    "wald": "stratified Wald interval",
+}
+
+
+def interval_text(methods: Sequence[str], confidence: float, stratified: bool = False,
+                  bound: str = "two-sided") -> str:
+    texts = STRATIFIED_METHOD_TEXT if stratified else {}
+    names = join_words([texts.get(m) or method_text(m) for m in methods])
+    if bound != "two-sided":
+        # "the one-sided 95% Land's exact (H-based) upper limit"
+        kind = f"{bound} limit" if len(methods) == 1 else f"{bound} limits"
+        return f"the one-sided {fmt_pct(confidence)} {names} {kind}"
+    kind = "interval" if len(methods) == 1 and not stratified else ("intervals" if len(methods) > 1 else "")
+    return f"the two-sided {fmt_pct(confidence)} {names}{' ' + kind if kind else ''}"
 
 
 # ---------------------------------------------------------------------------
@@ -311,8 +331,18 @@ def _n_unit(s: StudyResults) -> str:
     return "clusters" if "clusters" in s.data else "observations"
 
 
+def _bound(s: StudyResults) -> str:
+    return s.data.get("bound", "two-sided")
+
+
+def _lim(s: StudyResults) -> str:
+    return "interval" if _bound(s) == "two-sided" else "limit"
+
+
 def _design_sentences(s: StudyResults) -> list[str]:
-    parts = [f"Data were assumed to follow {model_text(s.data)}."]
+    lead = "The population was assumed to consist of" if "strata" in s.data else "Data were assumed to follow"
+    parts = [f"{lead} {model_text(s.data)}."]
+    parts += target_sentences(s.data, s.confidence, s.margin)
     if "clusters" in s.data:
         cl = s.data["clusters"]
         size = cl.get("size", cl.get("size_mean"))
@@ -332,7 +362,7 @@ def _simulation_sentences(s: StudyResults) -> list[str]:
         how = ("by enumerating the binomial distribution of the event count"
                if s.estimand in ("proportion", "proportion-diff")
                else "from the sampling law of the sample mean and variance")
-        return [f"For each candidate sample size n, coverage of {interval_text(s.methods, s.confidence)} for {est} "
+        return [f"For each candidate sample size n, coverage of {interval_text(s.methods, s.confidence, 'strata' in s.data, _bound(s))} for {est} "
                 f"was computed exactly {how} instead of by simulation, so it carries no Monte Carlo error."]
     if "data_a" in s.data:
         ratio = float(s.data.get("ratio", 1.0) or 1.0)
@@ -341,8 +371,10 @@ def _simulation_sentences(s: StudyResults) -> list[str]:
     else:
         what = f"n {_n_unit(s)}"
     return [f"For each candidate sample size n the search drew independent samples of {what} (at least "
-            f"{s.replicates:,} per n) and computed {interval_text(s.methods, s.confidence)} for {est} in each.",
-            "Coverage is the share of intervals that contained the true value; its Monte Carlo standard "
+            f"{s.replicates:,} per n) and computed {interval_text(s.methods, s.confidence, 'strata' in s.data, _bound(s))} "
+            f"for {est} in each.",
+            ("Coverage is the share of intervals that contained the true value" if _bound(s) == "two-sided"
+             else f"Coverage is the {coverage_words(_bound(s))}") + "; its Monte Carlo standard "
             "error (MCSE) is sqrt(c(1 − c)/R) for coverage c estimated from R samples"
             + (" (methods with an exact path were enumerated instead)." if any_exact else ".")]
 
@@ -351,17 +383,17 @@ def _formula_sentence(s: StudyResults) -> str:
     f = s.formula or {}
     kind = f.get("multiplier_kind", "z")
     deff = f.get("design_effect")
-    extra = f", design effect {fmt_g(deff)}" if deff not in (None, 1, 1.0) else ""
+    extra = f", design effect {float(deff):.3g}" if deff not in (None, 1, 1.0) else ""
     fc = [(m, s.formula_checks[m]) for m in s.methods if m in s.formula_checks]
     nf_unit = " clusters" if _n_unit(s) == "clusters" else ""
     text = (f"The closed-form formula ({kind} multiple{extra}) gives n = {s.n_formula:,}{nf_unit} for a "
-            f"half-width of {fmt_g(s.margin)}")
+            f"{'half-width' if _bound(s) == 'two-sided' else 'margin'} of {fmt_g(s.margin)}")
     if not fc:
         return text + "."
     said = []
     for m, c in fc:
         a = f" and assurance {c.assurance:.3f}" if c.assurance is not None else ""
-        who = f" with the {method_text(m)} interval" if len(s.methods) > 1 else ""
+        who = f" with the {method_text(m)} {_lim(s)}" if len(s.methods) > 1 else ""
         said.append(f"coverage {fmt_estimate(c.coverage, c.coverage_mcse, c.exact)}{a}{who}")
     reps = {c.replicates for _, c in fc if not c.exact}
     gave = ("the exact computation gave" if not reps
@@ -380,9 +412,21 @@ def _criterion_sentences(s: StudyResults) -> list[str]:
         t = (getattr(r, "criterion_text", "") or "").strip()
         if t and t not in texts:
             texts.append(t)
-    for t in texts:
-        parts.append(t[0].upper() + t[1:] + ("" if t.endswith(".") else "."))
+    parts += [criterion_sentence(t) for t in texts]
     return parts
+
+
+def criterion_sentence(text: str) -> str:
+    """The search's criterion as a sentence: 'The answer n is the smallest n at which ...'."""
+    t = " ".join(str(text).split()).rstrip(".").replace("n_range", "the n range")
+    if not t:
+        return ""
+    if t.lower().startswith("n is "):
+        t = t[5:]
+    if t.lower().startswith(("the smallest", "the largest", "smallest", "the first")):
+        t = "the " + t if t.lower().startswith("smallest") else t
+        return f"The answer n is {t[0].lower() + t[1:]}."
+    return t[0].upper() + t[1:] + "."
 
 
 def _figures_text(s: StudyResults, m: str, r) -> str:
@@ -407,7 +451,7 @@ def _result_sentences(s: StudyResults, m: str) -> list[str]:
     if r is None:
         return []
     status = decision_status(r)
-    who = f"With the {method_text(m)} interval the" if len(s.methods) > 1 else "The"
+    who = f"With the {method_text(m)} {_lim(s)} the" if len(s.methods) > 1 else "The"
     if r.n is None:
         txt = f"{who} targets were not met by any n up to {s.n_max:,}"
         if status == "undecided":
@@ -415,7 +459,7 @@ def _result_sentences(s: StudyResults, m: str) -> list[str]:
         if r.best_coverage is not None and r.best_coverage_n is not None:
             txt += f" (highest coverage {r.best_coverage:.3f} at n = {r.best_coverage_n:,})"
         return [txt + "."]
-    group = ("" if r.n_b is None else f" in each group" if r.n_b == r.n
+    group = ("" if r.n_b is None else " in each group" if r.n_b == r.n
              else f" in group a and {r.n_b:,} in group b")
     if status == "undecided":
         txt = (f"{who} search was undecided: its replicate budget was spent before the Monte Carlo error settled "
@@ -438,8 +482,11 @@ def _wiggle_sentences(s: StudyResults) -> list[str]:
     if not late:
         return []
     if len(late) == 1 or len(s.methods) == 1:
-        _m, r = late[0]
-        return [wiggle_sentence(r.n_first, r.n, s.discrete, r.exact)]
+        m, r = late[0]
+        text = wiggle_sentence(r.n_first, r.n, s.discrete, r.exact)
+        if len(s.methods) > 1:
+            text = f"With the {method_text(m)} interval, {text[0].lower() + text[1:]}"
+        return [text]
     firsts = join_words([f"{method_text(m)} {r.n_first:,}" for m, r in late])
     if s.discrete:
         how = "exactly" if all(r.exact for _, r in late) else "by simulation"
@@ -457,7 +504,7 @@ def _fewest_sentence(s: StudyResults) -> str | None:
         return None
     n_min = min(n for n, _ in found)
     fewest = [m for n, m in found if n == n_min]
-    names = join_words([f"the {method_text(m)} interval" for m in fewest])
+    names = join_words([f"the {method_text(m)} {_lim(s)}" for m in fewest])
     per = ""
     if "data_a" in s.data:
         per = " per group" if ratio_text(s.data.get("ratio", 1.0)) == "groups of equal size" else " in group a"
@@ -476,7 +523,7 @@ def methods_paragraph(study: StudyResults) -> str:
              f"NumPy {s.versions.get('numpy', '?')}, SciPy {s.versions.get('scipy', '?')})."]
     parts += _design_sentences(s)
     parts += _simulation_sentences(s)
-    if s.margin is not None:
+    if s.margin is not None and _bound(s) == "two-sided":
         parts.append(f"The achieved margin of error is half the width of each interval; assurance is the share of "
                      f"samples whose half-width was at most the target of {fmt_g(s.margin)}.")
     if s.n_formula is not None:
@@ -558,6 +605,9 @@ def n_axis_label(design) -> str:
 
 
 def value_axis_label(scenario, units: str | None = None) -> str:
+    units = units or scenario.design.units
+    if scenario.design.bound != "two-sided":
+        return f"Achieved margin, limit to estimate ({units or 'data units'})"
     if units:
         return f"Achieved half-width ({units})"
     if scenario.design.estimand in ("proportion", "proportion-diff"):

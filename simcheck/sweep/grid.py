@@ -144,12 +144,16 @@ def sweep_binding(spec: "SweepSpec") -> tuple[str, dict[str, Any]]:
     changing anything else makes another sweep, which needs another store.
     """
     base = tomllib.loads(spec.base_text)
+    try:
+        base_text = canonical_json(base)
+    except (TypeError, ValueError):  # a TOML date or an inf in the base: still one fixed text
+        base_text = json.dumps(base, sort_keys=True, default=str)
     first = spec.combinations()[:1]
     parts = {
         "task": spec.task,
         "task_args": {k: v for k, v in spec.task_kwargs().items() if v is not None},
         "seed": int(spec.seed),
-        "base": hashlib.sha256(canonical_json(base).encode("utf-8")).hexdigest(),
+        "base": hashlib.sha256(base_text.encode("utf-8")).hexdigest(),
         "varied_keys": sorted(first[0]) if first else [],
     }
     return hashlib.sha256(canonical_json(parts).encode("utf-8")).hexdigest(), parts

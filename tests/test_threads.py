@@ -1,0 +1,115 @@
+"""Threads inside one computation: same numbers for any thread count; the setting."""
+
+from __future__ import annotations
+
+import os
+
+import numpy as np
+import pytest
+
+from simcheck import engine
+from simcheck.design import Design
+from simcheck.errors import InputError
+from simcheck.models import make_model
+from simcheck.threads import available_cores, ordered_map, thread_count
+
+LOGNORMAL = {"model": "lognormal", "mean": 6.0, "cv": 1.2}
+NORMAL = {"model": "normal", "mean": 10.0, "sd": 3.0}
+
+
+def _same(a, b):
+    da, db = a.to_dict(), b.to_dict()
+    assert da == db
+    if a.margin_values is not None:
+        np.testing.assert_array_equal(a.margin_values, b.margin_values)
+
+
+CASES = [
+    # (label, design keywords, n, path): fused full path, summary methods, counts, two samples
+    ("t lognormal full", dict(model=LOGNORMAL, method="t"), 50, "full"),
+    ("johnson-t", dict(model=LOGNORMAL, method="johnson-t"), 23, "full"),
+    ("welch sufficient", dict(model=NORMAL, model_b={"model": "normal", "mean": 9.0, "sd": 5.0},
+                              estimand="mean-diff", method="welch"), 40, "sufficient"),
+    ("wilson event", dict(model={"model": "poisson", "mean": 1.5}, estimand="proportion", method="wilson",
+                          event_above=2.0), 60, "full"),
+    ("cox log", dict(model=LOGNORMAL, method="cox"), 30, "full"),
+    ("bootstrap", dict(model=LOGNORMAL, method="bootstrap-percentile", resamples=199), 15, "full"),
+]
+
+
+def _design(kw):
+    kw = dict(kw)
+    model = make_model(kw.pop("model"))
+    if "event_above" in kw:
+        from simcheck.models.composite import EventModel
+
+        model = EventModel(model, above=kw.pop("event_above"))
+    mb = kw.pop("model_b", None)
+    if mb is not None:
+        kw["model_b"] = make_model(mb)
+    return Design(model=model, margin=1.0, **kw)
+
+
+@pytest.mark.parametrize("label,kw,n,path", CASES, ids=[c[0] for c in CASES])
+def test_check_identical_for_1_2_3_threads(label, kw, n, path):
+    # Blocks of replicates are independent streams with fixed boundaries and
+    # are accumulated in block order, so the thread count cannot change a bit.
+    d = _design(kw)
+    R = 3_000 if "bootstrap" in label else 40_000
+    runs = [engine.check(d, n, replicates=R, rng=11, path=path, threads=t) for t in (1, 2, 3)]
+    for other in runs[1:]:
+        _same(runs[0], other)
+
+
+def test_curve_identical_for_1_2_3_threads():
+    d = _design(dict(model=LOGNORMAL, method="t"))
+    runs = [engine.curve(d, range(5, 120, 3), replicates=20_000, rng=12, threads=t) for t in (1, 2, 3)]
+    for other in runs[1:]:
+        for a, b in zip(runs[0].rows, other.rows):
+            _same(a, b)
+
+
+def test_environment_governs_the_engine(monkeypatch):
+    d = _design(dict(model=LOGNORMAL, method="t"))
+    monkeypatch.setenv("SIMCHECK_THREADS", "1")
+    one = engine.check(d, 30, replicates=30_000, rng=13)
+    monkeypatch.setenv("SIMCHECK_THREADS", "3")
+    three = engine.check(d, 30, replicates=30_000, rng=13)
+    _same(one, three)
+    monkeypatch.setenv("SIMCHECK_THREADS", "lots")
+    with pytest.raises(InputError, match="SIMCHECK_THREADS"):
+        engine.check(d, 30, replicates=1_000, rng=13)
+
+
+def test_thread_count_rules(monkeypatch):
+    monkeypatch.delenv("SIMCHECK_THREADS", raising=False)
+    assert thread_count() == available_cores()
+    assert 1 <= available_cores() <= (os.cpu_count() or 1)
+    if hasattr(os, "sched_getaffinity"):
+        assert available_cores() <= len(os.sched_getaffinity(0))
+    monkeypatch.setenv("SIMCHECK_THREADS", " 2 ")
+    assert thread_count() == 2
+    assert thread_count(5) == 5  # the argument wins over the environment
+    for bad in (0, -1, True, 2.0, 10**6):
+        with pytest.raises(InputError, match="threads"):
+            thread_count(bad)
+
+
+def test_ordered_map_keeps_order_and_bounds_work():
+    import threading
+    import time
+
+    live, peak, lock = [0], [0], threading.Lock()
+
+    def work(i):
+        with lock:
+            live[0] += 1
+            peak[0] = max(peak[0], live[0])
+        time.sleep(0.001 * (i % 3))
+        with lock:
+            live[0] -= 1
+        return i * i
+
+    assert list(ordered_map(work, range(50), 3)) == [i * i for i in range(50)]
+    assert peak[0] <= 3
+    assert list(ordered_map(work, range(7), 1)) == [i * i for i in range(7)]
