@@ -44,7 +44,7 @@ HANG_SECONDS = 60
 SETTINGS = dict(derandomize=True, deadline=None, database=None,
                 suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large,
                                        HealthCheck.filter_too_much])
-NOTICE_PREFIXES = ("simcheck: no seed given",)
+NOTICE_PREFIXES = ("simcheck: no seed given", "simcheck: notice", "simcheck: warning", "notice:", "warning:")
 ERROR_LINE = re.compile(r"^simcheck(: error: | (formula|check|curve|search): )")
 
 # --- values ---------------------------------------------------------------------------
