@@ -39,7 +39,9 @@ Decision rules (Monte Carlo error, MCSE = sqrt(p (1 - p) / R), Morris et al.
 
 * the *score* of an n is the smaller of ``(coverage - target) / MCSE`` and
   ``(assurance - target) / MCSE``; an n *clearly fails* when its score is
-  below -2 and *clearly passes* when above +2;
+  below -bar and *clearly passes* when above +bar, with bar = 2 or the
+  two-sided 5 % Bonferroni bar over the confirmed n if larger, and
+  :data:`EXPLORE_Z` = 3.5 for rows of the exploration stages;
 * ``n_range = [low, high]`` is read off every simulated evaluation of the
   search (each n at its row with the most replicates; confirmation rounds
   pooled): ``low`` is one above the largest n that clearly fails, ``high``
@@ -83,6 +85,7 @@ from dataclasses import replace
 from typing import Any, Callable, Sequence
 
 import numpy as np
+from scipy import stats
 
 from simcheck import engine
 from simcheck import rng as rngmod
@@ -390,34 +393,13 @@ def find_n(
     .. [1] Morris, White & Crowther (2019), Statistics in Medicine 38:2074-2102.
     .. [2] Brown, Cai & DasGupta (2001), Statistical Science 16:101-133.
     """
-    c = Collector()
-    a_t = c.number("assurance", assurance, low=0, high=1, low_open=True, high_open=True)
-    tol = c.number("coverage_tolerance", coverage_tolerance, low=0, high=0.5, high_open=True)
-    if tol is not None and tol >= design.confidence:
-        c.add("coverage_tolerance", f"must be below the confidence ({design.confidence:g}), got {coverage_tolerance!r}")
-    R = c.number("replicates", replicates, low=10, integer=True)
-    lo_n = c.number("n_min", n_min, low=1, integer=True)
-    hi_n = c.number("n_max", n_max, low=2, integer=True)
-    if lo_n is not None and hi_n is not None and hi_n <= lo_n:
-        c.add("n_max", f"must be > n_min ({lo_n}), got {n_max!r}")
-    if budget is not None:
-        c.number("budget", budget, low=1, integer=True)
-    c.number("precision", precision, low=0, high=1, low_open=True)
-    c.number("window", window, low=1, high=WINDOW_MAX)
-    c.raise_if_any()
+    a_t, tol, R, lo_n, hi_n = _validate(design, assurance, coverage_tolerance, replicates, n_min, n_max,
+                                        budget, precision, window)
     exact, dense = _dense_paths(design, path)
     if budget is None:
         # n-by-n searches confirm about four n per round
         budget = RESAMPLING_BUDGET * R if _resampling(design) else 20 * R * (1 if dense else 4)
     budget = int(budget)
-
-    method = get_method(design.estimand, design.method)
-    floor = 1 if method.kind in ("count", "count2") else 2
-    lo_n = max(lo_n, floor)
-    while design.two_sample and design.n_b(lo_n) < floor:
-        lo_n += 1
-    if hi_n <= lo_n:
-        raise InputError("n_max", f"must be > {lo_n} (the smallest n the {design.method} interval accepts here), got {n_max}")
 
     root, seed = rngmod.root_sequence(rng)
     if seed is None and not root.spawn_key and isinstance(root.entropy, int):
@@ -448,12 +430,40 @@ def find_n(
     return _simulated_search(run, start, budget, precision, **ctx)
 
 
+def _validate(design, assurance, coverage_tolerance, replicates, n_min, n_max, budget, precision, window):
+    """All problems with find_n's arguments at once; (assurance, tolerance, R, n_min, n_max) with the
+    n range raised to the smallest n the interval accepts."""
+    c = Collector()
+    a_t = c.number("assurance", assurance, low=0, high=1, low_open=True, high_open=True)
+    tol = c.number("coverage_tolerance", coverage_tolerance, low=0, high=0.5, high_open=True)
+    if tol is not None and tol >= design.confidence:
+        c.add("coverage_tolerance", f"must be below the confidence ({design.confidence:g}), got {coverage_tolerance!r}")
+    R = c.number("replicates", replicates, low=10, integer=True)
+    lo_n = c.number("n_min", n_min, low=1, integer=True)
+    hi_n = c.number("n_max", n_max, low=2, integer=True)
+    if lo_n is not None and hi_n is not None and hi_n <= lo_n:
+        c.add("n_max", f"must be > n_min ({lo_n}), got {n_max!r}")
+    if budget is not None:
+        c.number("budget", budget, low=1, integer=True)
+    c.number("precision", precision, low=0, high=1, low_open=True)
+    c.number("window", window, low=1, high=WINDOW_MAX)
+    c.raise_if_any()
+    method = get_method(design.estimand, design.method)
+    floor = 1 if method.kind in ("count", "count2") else 2
+    lo_n = max(lo_n, floor)
+    while design.two_sample and design.n_b(lo_n) < floor:
+        lo_n += 1
+    if hi_n <= lo_n:
+        raise InputError("n_max", f"must be > {lo_n} (the smallest n the {design.method} interval accepts here), got {n_max}")
+    return a_t, tol, int(R), int(lo_n), int(hi_n)
+
+
 def criterion_for(exact: bool, window: float) -> tuple[str, str]:
     """(criterion, criterion_text): the named rule that defines a search's n."""
     if not exact:
-        return ("crossing", "the smallest n at which coverage and assurance meet the targets by more than "
-                f"{CLEAR_Z:g} Monte Carlo SE there and at every larger n checked; n_range holds the n the "
-                "Monte Carlo error cannot tell from the boundary")
+        return ("crossing", "the smallest n above every n that clearly fails at which coverage and assurance "
+                f"clearly meet the targets (by at least {CLEAR_Z:g} Monte Carlo SE, more when many n are "
+                "compared); n_range holds the n the Monte Carlo error cannot tell from the boundary")
     if window <= 1.0:
         return ("first", "the smallest n at which the targets hold (exact computation)")
     return ("window", f"the smallest n at which the targets hold at every n from n to ceil({window:g} n) "
@@ -589,12 +599,16 @@ def _count_passes(run: _Runner, design: Design, targets: _Targets) -> Callable[[
 
 def _exact_scan(run: _Runner, **ctx) -> SearchResult:
     design, targets, lo_n, hi_n, window = ctx["design"], ctx["targets"], ctx["lo_n"], ctx["hi_n"], ctx["window"]
-    out = WindowScan(_count_passes(run, design, targets), lo_n, hi_n, window).run()
+    # without replacement n cannot pass the population size: windows end there
+    cap = design.population.size if design.population is not None and design.clusters is None else None
+    cap = int(cap) if cap else None
+    scan = WindowScan(_count_passes(run, design, targets), lo_n, hi_n, window, cap=cap)
+    out = scan.run()
     if out.status == "none":
         return _not_reached(run, ctx, run.curve([hi_n], 1, 0)[0], out.n_first)
     if out.status == "window beyond n_max":
         return _window_beyond(run, ctx, out)
-    n, top = out.n, window_top(out.n, window)
+    n, top = out.n, scan.top(out.n)
     # full rows (half-width distribution) only where the answer is shown: n, n_first, the window
     pick = {n, top} | ({out.n_first} if out.n_first is not None else set())
     shown = SHOWN_ROWS if not design.two_sample else SHOWN_ROWS // 4  # a full two-binomial row is costly
@@ -795,11 +809,19 @@ def _sim_confirm(run: _Runner, win: list[int], budget: int, precision: float, **
             pooled[r.n] = r if r.n not in pooled else _pool(pooled[r.n], r)
         rnd += 1
         ana = _analyse([pooled[k] for k in win], targets, lo_n, hi_n, precision)
-        if ana["clear"] and _evidence(run, pooled, targets, lo_n, hi_n, precision)["clear"]:
+        ev = _evidence(run, pooled, targets, lo_n, hi_n, precision)
+        if ana["clear"] and ev["clear"]:
             return pooled, win, "decision clear"
-        # widening only pays while n_range could still come out narrow enough
+        if ana["clear"]:
+            # the window looks settled, but n below it are not yet told from the boundary
+            # (a flat curve): extend the window towards them
+            ana["extend"] = (ev["low"] < win[0], False)
+        # widening pays while n_range could still come out narrow enough, or (before any doubling)
+        # when nothing below the window fails clearly yet: a flat curve, look lower first
+        below_open = ana["extend"][0] and ev["low"] < win[0]
         widen = any(ana["extend"]) and ana["n_range"] is not None and (
-            ana["n_range"][1] - ana["n_range"][0] <= max(1, round(precision * ana["n"])))
+            ana["clear"] or below_open
+            or ana["n_range"][1] - ana["n_range"][0] <= max(1, round(precision * ana["n"])))
         new = None
         if moves < MAX_SHIFTS and (ana["shift"] or widen):
             new = _move(win, ana["shift"], ana["extend"], lo_n, hi_n, run.dense, precision)
@@ -831,8 +853,10 @@ def _evidence(run: _Runner, pooled: dict, targets: _Targets, lo_n: int, hi_n: in
     best.update(pooled)
     ns = sorted(best)
     z = {k: targets.score(best[k]) for k in ns}
-    # many exploration n on few replicates: a stricter bar against chance extremes
-    bar = {k: CLEAR_Z if k in pooled else EXPLORE_Z for k in ns}
+    # many n scored at once: a bar against chance extremes among them (Bonferroni, two-sided 5 %,
+    # over the confirmed n; the exploration's up to LOCATE_MAX n on few replicates: EXPLORE_Z)
+    z_conf = max(CLEAR_Z, float(stats.norm.isf(0.025 / max(1, len(pooled)))))
+    bar = {k: z_conf if k in pooled else EXPLORE_Z for k in ns}
     fails = [k for k in ns if z[k] < -bar[k]]
     low = max(fails) + 1 if fails else lo_n
     high = next((k for k in ns if k >= low and z[k] > bar[k]), None)
@@ -859,7 +883,7 @@ def _sim_undecided(run: _Runner, ev: dict, cur: list, stop: str, budget: int, pr
                    **ctx) -> SearchResult:
     """No evaluated n meets the targets clearly: no n is claimed, the range and the budget are said."""
     low, hi_n = ev["low"], ctx["hi_n"]
-    notes = [f"undecided: no evaluated n meets the targets by more than {CLEAR_Z:g} MCSE before the replicate "
+    notes = [f"undecided: no evaluated n meets the targets clearly (by {CLEAR_Z:g} MCSE or more) before the replicate "
              f"budget ({budget}) was spent; the boundary may lie anywhere from n = {low} to n_max = {hi_n}; "
              "raise the replicates or the budget (see replicates_needed)"]
     if ev["n_first"] is not None:
@@ -888,8 +912,8 @@ def _sim_conclude(run: _Runner, pooled: dict, win: list[int], stop: str, budget:
     if decision == "undecided":
         notes.insert(0, f"undecided: the Monte Carlo error cannot tell n = {low}..{n} from the boundary; "
                         f"n = {n} is the conservative end (every evaluated n from it on meets the targets clearly)")
-    notes.append(f"confirmed on {at.replicates} replicates at n; n_range {low}-{n}: n whose coverage/assurance "
-                 f"are within {CLEAR_Z:g} MCSE of the targets, over every n the search evaluated")
+    notes.append(f"{at.replicates} replicates at n; n_range {low}-{n}: the n the Monte Carlo error cannot tell "
+                 "from the boundary, over every n the search evaluated")
     if stop == "replicate budget spent":
         notes.append(f"replicate budget ({budget}) spent before the decision was clear "
                      f"(n_range wider than {max(1, round(precision * n))}); raise the budget or the replicates")

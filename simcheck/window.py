@@ -43,6 +43,8 @@ WINDOW_MAX = 4.0
 PROBE_BATCH = 6
 #: first chunk of the dense pass (doubles after each chunk that passes)
 FIRST_CHUNK = 16
+#: with no answer at all, n_first is looked for densely only over ranges shorter than this
+FIRST_SCAN_NONE = 2000
 
 Passes = Callable[[Sequence[int]], np.ndarray]
 
@@ -60,7 +62,8 @@ class ScanOutcome:
     ``"window beyond n_max"`` (the targets hold at every n from ``candidate``
     to ``n_max``, but ``top(candidate)`` lies above ``n_max``) or ``"none"``
     (no n in ``[n_min, n_max]`` can be the answer). ``n_first`` is the first
-    n meeting the targets (None if none in range). ``evaluated`` counts the n
+    n meeting the targets (None if none in range, or, with status "none", if
+    the range spans :data:`FIRST_SCAN_NONE` n or more). ``evaluated`` counts the n
     evaluated.
     """
 
@@ -74,8 +77,10 @@ class ScanOutcome:
 class WindowScan:
     """Exact scan for the window criterion over ``[lo_n, hi_n]``; ``passes`` is cached."""
 
-    def __init__(self, passes: Passes, lo_n: int, hi_n: int, window: float) -> None:
+    def __init__(self, passes: Passes, lo_n: int, hi_n: int, window: float, cap: int | None = None) -> None:
         self.passes, self.lo_n, self.hi_n, self.window = passes, int(lo_n), int(hi_n), float(window)
+        #: largest n that exists (a finite population's size): windows stop there
+        self.cap = cap
         self.cache: dict[int, bool] = {}
 
     def ok(self, ns: Sequence[int]) -> list[bool]:
@@ -86,7 +91,8 @@ class WindowScan:
         return [self.cache[int(n)] for n in ns]
 
     def top(self, n: int) -> int:
-        return window_top(n, self.window)
+        t = window_top(n, self.window)
+        return t if self.cap is None else min(t, int(self.cap))
 
     def lower_bound(self, start: int) -> int | None:
         """Smallest n >= start not excluded by failing probes; None if all of [start, hi_n] is excluded."""
@@ -136,6 +142,11 @@ class WindowScan:
             if restart is None:
                 break
             cand = self.lower_bound(restart) if restart <= self.hi_n else None
-        limit = n_found if n_found is not None else (cand if cand is not None else self.hi_n)
-        n_first = self.first_pass(limit)
+        if n_found is not None or cand is not None:
+            n_first = self.first_pass(n_found if n_found is not None else cand)
+        elif self.hi_n - self.lo_n < FIRST_SCAN_NONE:
+            n_first = self.first_pass(self.hi_n)
+        else:
+            # nothing qualifies: a dense pass over a long range only to name a first n is not worth it
+            n_first = None
         return ScanOutcome(n=n_found, status=status, candidate=cand, n_first=n_first, evaluated=len(self.cache))

@@ -280,3 +280,25 @@ def test_bad_input_names_the_field(call, field):
     with pytest.raises(InputError) as err:
         call()
     assert any(p.field == field for p in err.value.problems)
+
+
+def test_cheap_targets_equal_the_full_measures():
+    # the search's coverage/assurance-only enumerations against the full ones, including Wald's
+    # zero-width intervals at x = 0 (counted as never within the margin) and two binomials
+    from simcheck.engine.exact import binomial_targets, two_binomial_targets
+
+    for name, p, margin in (("wald", 0.03, 0.05), ("wilson", 0.3, 0.1), ("jeffreys", 0.9, 0.08)):
+        f = get_method("proportion", name)
+        ns = list(range(2, 160, 7))
+        cov, ass = binomial_targets(f, ns, p, 0.95, margin)
+        full = binomial_curve(f, ns, p, 0.95, margin)
+        assert np.allclose(cov, [m["coverage"] for m in full], atol=1e-12, rtol=0)
+        assert np.allclose(ass, [m["assurance"] for m in full], atol=1e-12, rtol=0)
+    for name in ("wald", "newcombe", "agresti-caffo"):
+        f = get_method("proportion-diff", name)
+        na, nb = [3, 20, 75], [5, 20, 150]
+        cov, ass = two_binomial_targets(f, na, nb, 0.04, 0.2, 0.95, 0.15)
+        for k in range(3):
+            m = two_binomial_measures(f, na[k], 0.04, nb[k], 0.2, 0.95, 0.15)
+            assert cov[k] == pytest.approx(m["coverage"], abs=1e-12)
+            assert ass[k] == pytest.approx(m["assurance"], abs=1e-12)

@@ -141,14 +141,19 @@ def test_lognormal_t_needs_more_than_the_formula():
     target = CONF - tol
     at_formula = engine.check(d, nf, replicates=20_000, rng=99)
     assert at_formula.coverage < target - 4 * at_formula.coverage_mcse
-    res = find_n(d, coverage_tolerance=tol, replicates=2000, rng=5, n_max=3000, budget=16_000)
-    assert res.reached and res.n_formula == nf
-    assert res.n > nf
-    assert res.ratio_to_formula > 1
-    # independent replicates at the n found: coverage within 4 MCSE of the target or above
-    again = engine.check(d, res.n, replicates=10_000, rng=12345)
-    assert again.coverage >= target - 4 * again.coverage_mcse
-    assert res.replicates_used <= 16_000
+    res = find_n(d, coverage_tolerance=tol, replicates=2000, rng=5, n_max=3000, budget=40_000)
+    assert res.n_formula == nf
+    # every n the Monte Carlo error allows lies above the formula's n (the curve is flat here, so
+    # the decision may well be undecided; then n, if given, is the conservative end)
+    assert res.n_range[0] > nf
+    if res.reached:
+        assert res.n > nf and res.ratio_to_formula > 1 and res.n == res.n_range[1]
+        # independent replicates at the n found: coverage within 4 MCSE of the target or above
+        again = engine.check(d, res.n, replicates=10_000, rng=12345)
+        assert again.coverage >= target - 4 * again.coverage_mcse
+    else:
+        assert res.decision == "undecided" and res.replicates_needed
+    assert res.replicates_used <= 40_000
 
 
 # ------------------------------------------------------------------ not reached
@@ -230,13 +235,15 @@ def test_compare_simulated_methods_share_streams():
 # ------------------------------------------------------------------ reproducibility and input
 def test_same_seed_same_search():
     d = Design(model=make_model({"model": "gamma", "mean": 5.0, "cv": 0.8}), method="t", margin=0.6)
-    a = find_n(d, replicates=1000, rng=77)
-    b = find_n(d, replicates=1000, rng=77)
+    # tolerance 0.02: at the default 0.005 the t interval's coverage (about 0.945 here) cannot be
+    # told from the target with 1,000 replicates, and the search rightly ends undecided
+    a = find_n(d, replicates=1000, rng=77, coverage_tolerance=0.02)
+    b = find_n(d, replicates=1000, rng=77, coverage_tolerance=0.02)
     assert a.to_dict() == b.to_dict()
     assert a.seed == 77 and a.replicates_used > 0
     assert a.at_n is not None and a.at_n.n == a.n
     assert a.curve is not None and a.n in set(a.curve.n.tolist())
-    c = find_n(d, replicates=1000, rng=np.random.default_rng(5))
+    c = find_n(d, replicates=1000, rng=np.random.default_rng(5), coverage_tolerance=0.02)
     assert c.reached
 
 

@@ -49,6 +49,7 @@ def test_skewed_t_flat_coverage_agrees_across_seeds():
     check_agreement(res, (76, 88))
 
 
+@pytest.mark.slow
 def test_two_sample_welch_agrees_across_seeds():
     # a: lognormal (mean 2, CV 0.8), b: gamma (mean 1.5, CV 0.6), n_b = 1.5 n, Welch, margin 0.5,
     # assurance 0.8, tolerance 0.01. Reference: engine.curve(n = 30..80, 200,000 replicates, nested,

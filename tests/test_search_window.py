@@ -81,8 +81,16 @@ def passes_one(method, p, margin, n, tol=TOL):
     x = np.arange(max(0, lo_x - 1), min(n, hi_x + 1) + 1, dtype=float)
     w = stats.binom.pmf(x, n, p)
     lo, hi = ci_one(method, x, n)
-    cov = w[(lo <= p) & (p <= hi)].sum()
-    ass = w[(hi - lo) / 2 <= margin * (1 + 1e-12)].sum()
+    return meets(lo, hi, w, p, margin, tol)
+
+
+def meets(lo, hi, w, true, margin, tol=TOL):
+    """Coverage and assurance targets; a zero-width interval that misses is never within the
+    margin (the project's definition: it does not deliver the promised precision)."""
+    covered = (lo <= true) & (true <= hi)
+    hw = (hi - lo) / 2
+    cov = w[covered].sum()
+    ass = w[(hw <= margin * (1 + 1e-12)) & ~((hw <= 0) & ~covered)].sum()
     return cov >= CONF - tol - 1e-12 and ass >= ASSURANCE - 1e-12
 
 
@@ -97,10 +105,7 @@ def passes_two(method, pa, pb, ratio, margin, n, tol=TOL):
     xb = np.arange(nb + 1, dtype=float)[None, :]
     w = stats.binom.pmf(xa, n, pa) * stats.binom.pmf(xb, nb, pb)
     lo, hi = ci_two(method, xa, n, xb, nb)
-    true = pa - pb
-    cov = w[(lo <= true) & (true <= hi)].sum()
-    ass = w[(hi - lo) / 2 <= margin * (1 + 1e-12)].sum()
-    return cov >= CONF - tol - 1e-12 and ass >= ASSURANCE - 1e-12
+    return meets(lo, hi, w, pa - pb, margin, tol)
 
 
 def top(n, window=WINDOW):
@@ -168,7 +173,7 @@ def test_one_proportion_window_answer_equals_brute_force_and_ignores_n_max(metho
             assert res.n_range == (ref, ref)
 
 
-# ------------------------------------------------------------------ two proportions: 54 cases
+# ------------------------------------------------------------------ two proportions: 22 cases x 3 methods
 TWO_CASES = [
     (pa, pb, ratio, method, margin)
     for (pa, pb, ratio, margin) in [
@@ -176,7 +181,8 @@ TWO_CASES = [
         (0.5, 0.5, 1.0, 0.22), (0.81, 0.64, 1.0, 0.18), (0.07, 0.02, 3.0, 0.15), (0.44, 0.27, 0.75, 0.23),
         (0.9, 0.72, 1.25, 0.17), (0.33, 0.61, 1.0, 0.25), (0.18, 0.11, 2.5, 0.16), (0.55, 0.2, 1.0, 0.3),
         (0.7, 0.85, 0.8, 0.2), (0.25, 0.25, 1.7, 0.2), (0.42, 0.09, 1.3, 0.21), (0.65, 0.38, 1.1, 0.26),
-        (0.14, 0.05, 1.0, 0.12), (0.95, 0.8, 1.0, 0.14),
+        (0.14, 0.05, 1.0, 0.12), (0.95, 0.8, 1.0, 0.14), (0.3, 0.2, 1.0, 0.22), (0.6, 0.3, 2.0, 0.2),
+        (0.85, 0.55, 1.0, 0.24), (0.4, 0.4, 0.6, 0.25),
     ]
     for method in ("wald", "newcombe", "agresti-caffo")
 ]
@@ -184,7 +190,8 @@ TWO_CASES = [
 
 @pytest.mark.slow
 def test_two_proportion_exact_search_equals_brute_force():
-    assert len(TWO_CASES) >= 50
+    assert len(TWO_CASES) >= 50 and all(sum(c[3] == m for c in TWO_CASES) >= 20
+                                         for m in ("wald", "newcombe", "agresti-caffo"))
     for pa, pb, ratio, method, margin in TWO_CASES:
         ref, first = window_answer(lambda n: passes_two(method, pa, pb, ratio, margin, n), 1, 600)
         res = find_n(design_two(pa, pb, ratio, margin, method), rng=1, n_min=1, n_max=max(10, 3 * ref))
@@ -298,3 +305,73 @@ def test_scenario_window_key_and_json(tmp_path):
     assert len(obj["by_method"]) == 1 and obj["best"] == "wilson"
     code, out, err = run(WINDOW_TOML.format(window="window = 0.5"))
     assert code == 2 and out == "" and "target.window" in err and err.count("\n") == 1
+    code, out, _ = run(WINDOW_TOML.format(window=""), "--method", "wilson", "--window", "1")
+    assert code == 0 and json.loads(out)["n"] == first and json.loads(out)["criterion"] == "first"
+    code, out, err = run(WINDOW_TOML.format(window=""), "--window", "9")
+    assert code == 2 and out == "" and "--window" in err and err.count("\n") == 1
+
+
+# ------------------------------------------------------------------ clustered and finite-population exact paths
+def test_clustered_proportion_exact_search_equals_brute_force():
+    # pooled count of k clusters of m, each Beta-binomial(m, a, b) with a = p (1 - icc) / icc,
+    # b = (1 - p)(1 - icc) / icc (ICC = 1 / (a + b + 1); common practice), the Wilson interval on the
+    # pooled count; the pmf of the sum by repeated convolution, written here
+    from simcheck.design import ClusterSpec
+
+    # the pooled Wilson interval ignores the clustering (design effect 1.1): coverage tends to
+    # P(|Z| < 1.96 / sqrt(1.1)) = 0.938, so the tolerance is 0.02 (target 0.93)
+    p, icc, m, margin, tol = 0.3, 0.02, 6, 0.1, 0.02
+    a, b = p * (1 - icc) / icc, (1 - p) * (1 - icc) / icc
+    one = stats.betabinom.pmf(np.arange(m + 1), m, a, b)
+
+    def passes(k):
+        pmf = np.array([1.0])
+        for _ in range(k):
+            pmf = np.convolve(pmf, one)
+        x = np.arange(k * m + 1, dtype=float)
+        lo, hi = ci_one("wilson", x, k * m)
+        return meets(lo, hi, pmf, p, margin, tol)
+
+    ref, first = window_answer(passes, 2, 300)
+    d = Design(model=make_model({"model": "bernoulli", "p": p}), estimand="proportion", method="wilson",
+               margin=margin, clusters=ClusterSpec(icc=icc, size=m))
+    for factor in (3, 10):
+        res = find_n(d, coverage_tolerance=tol, rng=1, n_min=2, n_max=factor * ref)
+        assert res.exact and res.reached and (res.n, res.n_first) == (ref, first), (factor, res.notes)
+
+
+def test_population_proportion_exact_search_equals_brute_force(tmp_path):
+    # sampling without replacement from N units with K events: hypergeometric law; Wilson limits
+    # pulled towards x / n by sqrt(1 - n / N) and clipped (finite population correction, Cochran 1977, ch. 2)
+    from simcheck.design import PopulationSpec
+
+    N, K, margin = 500, 140, 0.06
+    path = tmp_path / "pop.csv"
+    path.write_text("x\n" + "\n".join(["1"] * K + ["0"] * (N - K)) + "\n")
+    p = K / N
+
+    def passes(n):
+        x = np.arange(max(0, n - (N - K)), min(n, K) + 1, dtype=float)
+        w = stats.hypergeom.pmf(x, N, K, n)
+        lo, hi = ci_one("wilson", x, n)
+        f, ph = math.sqrt(max(1 - n / N, 0.0)), x / n
+        lo, hi = np.clip(ph - (ph - lo) * f, 0, 1), np.clip(ph + (hi - ph) * f, 0, 1)
+        return meets(lo, hi, w, p, margin)
+
+    ok = {n: passes(n) for n in range(2, N + 1)}
+    # the window stops at N: no n above the population exists
+    ref = next(n for n in range(2, N + 1) if all(ok[k] for k in range(n, min(top(n), N) + 1)))
+    first = next(n for n in range(2, N + 1) if ok[n])
+    d = Design(model=make_model({"model": "bernoulli", "p": p}), estimand="proportion", method="wilson", margin=margin,
+               population=PopulationSpec(size=N, file=str(path), column="x"))
+    res = find_n(d, rng=1, n_min=2, n_max=N)
+    assert res.exact and res.reached and (res.n, res.n_first) == (ref, first), res.notes
+
+
+def test_issue_completion_rate_answer_no_longer_follows_n_max():
+    # p = 0.8, Wilson, margin 0.15, assurance 0.5: the "every larger n up to n_max" rule gave
+    # 56 / not reached / 293 / 716 for n_max 60 / 100 / 300 / 1000; the window answer is one n
+    ref, first = window_answer(lambda n: passes_one("wilson", 0.8, 0.15, n), 2, 300)
+    got = {m: find_n(design_one(0.8, 0.15, "wilson"), rng=1, n_max=m) for m in (60, 100, 300, 1000)}
+    assert {(r.n, r.n_first) for r in got.values()} == {(ref, first)}
+    assert all(r.reached and r.criterion == "window" for r in got.values())

@@ -27,13 +27,19 @@ def add_parser(subparsers) -> None:
             "the crossing cheaply, then confirms it on fresh replicates, doubling them until the "
             "decision is clear against the Monte Carlo error or the replicate budget is spent. "
             "With several methods in method.interval, every method is searched on the same draws "
-            "and the one needing the least n is named."
+            "and the one needing the least n is named. Exact computations (proportions, normal data "
+            "with z or t) answer the smallest n at which the targets hold at every n up to "
+            "target.window x n (default 1.25): coverage of count data oscillates in n. Every answer "
+            "names its criterion and its decision (clear or undecided)."
         ),
     )
     p.add_argument("scenario", metavar="SCENARIO", help="scenario file (TOML)")
     p.add_argument("--budget", type=int, metavar="B",
                    help="cap on the replicates the search may simulate (overrides simulation.budget; "
                         "default 20 x replicates; 6 x for bootstrap methods)")
+    p.add_argument("--window", type=float, metavar="W",
+                   help="exact searches: the targets must hold at every n up to W x n (overrides "
+                        "target.window; default 1.25; 1 = the first n that meets them)")
     p.add_argument("--n-min", dest="n_min", type=int, metavar="A", help="smallest n considered (default: simulation.n_min)")
     p.add_argument("--n-max", dest="n_max", type=int, metavar="B",
                    help="search ceiling (default: simulation.n_max)")
@@ -55,6 +61,10 @@ def run(args: argparse.Namespace) -> int:
         b = c.number("--budget", args.budget, low=BUDGET_MIN, high=BUDGET_MAX, integer=True)
         if b is not None:
             overrides["simulation.budget"] = int(b)
+    if args.window is not None:
+        w = c.number("--window", args.window, low=1, high=4)
+        if w is not None:
+            overrides["target.window"] = float(w)
     c.raise_if_any()
     overrides.update(bound_overrides(args))
     scenario = load_scenario(args.scenario, overrides or None, allow_outside_files=args.allow_outside_files)
@@ -139,6 +149,8 @@ def _one(r, design) -> list[str]:
         lines.append("n found:     UNDECIDED within n_max: the window of the candidate n reaches past n_max")
     elif _undecided(r):
         lines.append("n found:     UNDECIDED: the replicate budget was spent before any n was confirmed")
+        if r.n_range is not None:
+            lines.append(f"n range:     {_range(r)}   (the boundary may lie anywhere here)")
     else:
         lines.append("n found:     NOT REACHED by the search ceiling n_max")
     if r.n_formula is not None:
@@ -146,7 +158,7 @@ def _one(r, design) -> list[str]:
         lines.append(f"formula n:   {r.n_formula}{ratio}")
     else:
         lines.append("formula n:   - (no closed form applies)")
-    at = "at n" if r.reached else "at n_max"
+    at = "at n" if r.reached else (f"at n = {r.at_n.n}" if r.at_n is not None else "at n_max")
     if r.coverage is not None:
         mc = "" if r.exact else f" +/- {_p(r.coverage_mcse)} (MCSE)"
         lines.append(f"coverage:    {_p(r.coverage)}{mc}  {at}")

@@ -278,6 +278,13 @@ def binomial_measures(
     return binomial_curve(method_func, [n], p, confidence, margin)[0]
 
 
+def _assured(lo, hi, covered, margin: float) -> np.ndarray:
+    """Half-width within the margin, as :func:`weighted_measures` counts it (a zero-width
+    interval that misses never is; NaN limits never are)."""
+    hw = (hi - lo) / 2.0
+    return (hw <= margin * MARGIN_RTOL) & ~((hw <= 0) & ~covered)
+
+
 def _binomial_block_pmf(x, n, group, x_lo, starts, p: float) -> np.ndarray:
     """Binomial probabilities of consecutive x per n, from one ``logpmf`` per n.
 
@@ -345,9 +352,10 @@ def binomial_targets(
         starts = offsets[:-1]
         w = _binomial_block_pmf(x_cells, n_cells, group, x_lo, starts, float(p))
         total = np.add.reduceat(w, starts)
-        cov[start:stop] = np.add.reduceat(((lo <= p) & (p <= hi)) * w, starts) / total
+        covered = (lo <= p) & (p <= hi)
+        cov[start:stop] = np.add.reduceat(covered * w, starts) / total
         if ass is not None:
-            ass[start:stop] = np.add.reduceat((((hi - lo) / 2.0) <= margin * MARGIN_RTOL) * w, starts) / total
+            ass[start:stop] = np.add.reduceat(_assured(lo, hi, covered, margin) * w, starts) / total
         start = stop
     return cov, ass
 
@@ -401,9 +409,10 @@ def two_binomial_targets(
             lo = np.broadcast_to(np.asarray(lo, dtype=float), shape)
             hi = np.broadcast_to(np.asarray(hi, dtype=float), shape)
             wa_c = wa[i:i + rows]
-            c_sum += float(wa_c @ (((lo <= true) & (true <= hi)) @ wb))
+            covered = (lo <= true) & (true <= hi)
+            c_sum += float(wa_c @ (covered @ wb))
             if ass is not None:
-                a_sum += float(wa_c @ ((((hi - lo) / 2.0) <= margin * MARGIN_RTOL) @ wb))
+                a_sum += float(wa_c @ (_assured(lo, hi, covered, margin) @ wb))
         total = float(wa.sum() * wb.sum())
         cov[j] = c_sum / total
         if ass is not None:
