@@ -61,7 +61,11 @@ class InputError(ValueError):
         text = "; ".join(str(p) for p in self.problems)
         if self.source:
             text = f"{self.source}: {text}"
-        return text.replace("\n", " ")
+        # keys and values may hold any character: the line must stay one line
+        text = text.replace("\n", " ")
+        if not text.isprintable():
+            text = "".join(ch if ch.isprintable() else repr(ch)[1:-1] for ch in text)
+        return text
 
     def with_source(self, source: str) -> "InputError":
         return InputError(self.problems, source=source)
@@ -118,14 +122,18 @@ class Collector:
         problem. Booleans are refused as numbers.
         """
         if isinstance(value, bool) or not isinstance(value, Real):
-            self.add(field, f"must be a number, got {value!r}")
+            self.add(field, f"must be a number, got {shown(value)}")
             return None
-        v = float(value)
+        try:
+            v = float(value)
+        except OverflowError:  # an integer beyond the float range (about 1.8e308)
+            self.add(field, f"must be a finite number, got {shown(value)}, beyond the range of floating-point numbers")
+            return None
         if not math.isfinite(v):
-            self.add(field, f"must be a finite number, got {value!r}")
+            self.add(field, f"must be a finite number, got {shown(value)}")
             return None
         if integer and v != math.floor(v):
-            self.add(field, f"must be a whole number, got {value!r}")
+            self.add(field, f"must be a whole number, got {shown(value)}")
             return None
         ok = True
         if low is not None and (v <= low if low_open else v < low):
@@ -133,13 +141,44 @@ class Collector:
         if high is not None and (v >= high if high_open else v > high):
             ok = False
         if not ok:
-            self.add(field, f"must be {_range_text(low, high, low_open, high_open)}, got {value!r}")
+            self.add(field, f"must be {_range_text(low, high, low_open, high_open)}, got {shown(value)}")
             return None
         return int(v) if integer else v
 
     def raise_if_any(self, source: str | None = None) -> None:
         if self.problems:
             raise InputError(self.problems, source=source)
+
+
+#: longest shown value in a message (longer ones are cut, so a line stays readable)
+SHOWN_MAX = 60
+
+
+def shown(value: object) -> str:
+    """A value as a message shows it: repr, cut to :data:`SHOWN_MAX` characters.
+
+    Integers too long for ``repr`` (Python refuses to convert integers of
+    more than 4,300 digits to text) and too long to read are named by their
+    number of digits instead.
+
+    Examples
+    --------
+    >>> shown(10**400)
+    'a whole number of 401 digits'
+    >>> shown("x" * 100)
+    "'xxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxx... (102 characters)"
+    """
+    if isinstance(value, int) and not isinstance(value, bool) and value.bit_length() > 200:
+        if value.bit_length() > 14_000:  # beyond 4,300 digits str() refuses; count from the bits
+            return f"a whole number of about {int(value.bit_length() * 0.30103) + 1} digits"
+        return f"a whole number of {len(str(abs(value)))} digits"
+    try:
+        text = repr(value)
+    except (ValueError, RecursionError):
+        return f"a {type(value).__name__}"
+    if len(text) > SHOWN_MAX:
+        return f"{text[:SHOWN_MAX - 20]}... ({len(text)} characters)"
+    return text
 
 
 def _range_text(low, high, low_open, high_open) -> str:

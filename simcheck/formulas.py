@@ -715,7 +715,7 @@ def sample_size(
         if kind == "z":
             mult = z
             n_un = nz_un
-            n = ceil_robust(n_un)
+            n = max(1, ceil_robust(n_un))  # a margin far above the SD gives n0 near 0 (or 0 after underflow)
         else:
             def needed(n_: int) -> float:
                 return final(t_value(mconf, n_ - 1))
@@ -749,7 +749,7 @@ def sample_size(
         if kind == "z":
             mult = z
             n_un = nz_un
-            n = ceil_robust(n_un)
+            n = max(1, ceil_robust(n_un))  # a margin far above the SD gives n0 near 0 (or 0 after underflow)
         else:
             def needed(n_: int) -> float:
                 nb_ = ceil_robust(K * n_)
@@ -762,7 +762,7 @@ def sample_size(
             n, n_un, iterations = _iterate(needed, nz, lo=max(1, nz - 1), n_min=2)
             df = welch_df(ra * ra, n, rb * rb, ceil_robust(K * n))
             mult = t_value(mconf, df)
-        n_b = ceil_robust(K * n)
+        n_b = max(1, ceil_robust(K * n))
         mname = "z" if kind == "z" else f"t({_g(df)})"
         vb = "sd_b^2" if estimand == "mean-diff" else "p_b (1 - p_b)"
         va = "sd_a^2" if estimand == "mean-diff" else "p_a (1 - p_a)"
@@ -792,14 +792,15 @@ def sample_size(
     if bound != "two-sided":
         assumptions.append(f"one-sided {bound} limit: multiple at {_g(mconf)} two-sided, i.e. the {_g(conf)} quantile")
     if not two:
-        steps.append(f"n = ceil({_g(n_un)}) = {n}")
+        steps.append(f"n = ceil({_g(n_un)}) = {n}" + (" (at least 1)" if n == 1 and n_un <= 0.5 else ""))
     else:
-        steps.append(f"n_a = ceil({_g(n_un)}) = {n}; n_b = ceil(K n_a) = ceil({_g(K)} * {n}) = {n_b}")
+        steps.append(f"n_a = ceil({_g(n_un)}) = {n}; n_b = ceil(K n_a) = ceil({_g(K)} * {n}) = {n_b}"
+                     + (" (at least 1 each)" if min(n_un, K * n) <= 0.5 else ""))
     clusters = clusters_b = None
     if m is not None:
-        clusters = ceil_robust(n / m)
+        clusters = max(1, ceil_robust(n / m))
         if n_b is not None:
-            clusters_b = ceil_robust(n_b / m)
+            clusters_b = max(1, ceil_robust(n_b / m))
         steps.append(f"clusters = ceil(n / m) = ceil({n} / {_g(m)}) = {clusters}"
                      + (f", group b ceil({n_b} / {_g(m)}) = {clusters_b}" if clusters_b is not None else ""))
     if iterations is not None:

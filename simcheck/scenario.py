@@ -42,18 +42,18 @@ seed is drawn when a task runs.
 from __future__ import annotations
 
 import copy
-import csv
 import datetime as _dt
 import difflib
 import math
-import tomllib
+import sys
 from dataclasses import dataclass, field
 from numbers import Integral
 from pathlib import Path
 from typing import Any, Mapping
 
 from simcheck.design import ESTIMANDS, STRATIFIED_METHODS, TWO_SAMPLE, ClusterSpec, Design, PopulationSpec
-from simcheck.errors import Collector, InputError, Problem
+from simcheck.errors import Collector, InputError, Problem, shown
+from simcheck.files import read_csv_column, read_toml, regular_file, resolve_data_path
 from simcheck.scenario_strata import KNOWN_KEYS as STRATA_KEYS
 from simcheck.scenario_strata import read_strata, strata_tables
 
@@ -80,13 +80,15 @@ REPLICATES_MIN, REPLICATES_MAX = 100, 10**8
 RESAMPLES_MIN, RESAMPLES_MAX = 99, 10**6
 N_LIMIT = 10**6
 SEED_MAX = 2**63 - 1  # fits an SQLite INTEGER (sweep stores)
+CLUSTER_COUNT_MAX = 10**7
 BUDGET_MIN, BUDGET_MAX = 100, 10**12
 RATIO_MAX = 100.0
 CLUSTER_SIZE_MAX = 10**5
-CLUSTER_COUNT_MAX = 10**7
 POPULATION_MAX = 10**9
 PATHS = ("auto", "exact", "sufficient", "nested", "full")
 CLUSTER_EFFECTS = ("normal", "gamma")
+NESTING_MAX = 32  # tables and lists inside each other; real scenarios use fewer than 6
+INT_LIMIT = int(sys.float_info.max)  # larger integers cannot become floats
 
 #: Every key of a scenario file (dotted) with what it holds. ``data`` (and
 #: ``data.a`` / ``data.b``) are model tables whose keys the models validate.
@@ -98,9 +100,9 @@ KNOWN_KEYS: dict[str, str] = {
     "target.assurance": f"required share of samples with half-width <= margin, in (0, 1); default {DEFAULT_ASSURANCE}",
     "target.coverage_tolerance": f"accepted coverage shortfall below the confidence, in [0, 0.5); default {DEFAULT_COVERAGE_TOLERANCE}",
     "target.window": "exact searches: the targets must hold at every n from n to ceil(window x n), in [1, 4]; default 1.25 (1: the first n that meets them)",
+    "target.dropout": "share of enrolled units lost before analysis, in [0, 1); default 0: search also reports n_enrolled = ceil(n / (1 - dropout))",
     "target.event_values": "proportion estimand on a discrete non-0/1 model: the values that count (list of numbers)",
     "target.event_above": "proportion estimand on a non-0/1 model: values strictly above this number count",
-    "target.dropout": "share of enrolled units lost before analysis, in [0, 1); default 0: search also reports n_enrolled = ceil(n / (1 - dropout))",
     "target.bound": "two-sided (default) | upper | lower: an interval or a one-sided confidence limit",
     "target.relative_margin": "target half-width as a share of the true value, > 0 (instead of target.margin)",
     "target.units": "units of the data, text (used in tables, figures and the methods paragraph)",
@@ -127,7 +129,7 @@ KNOWN_KEYS: dict[str, str] = {
     "clusters.count": f"clusters in the population (M), whole number in [2, {CLUSTER_COUNT_MAX}]: n clusters drawn without replacement, cluster-t with sqrt(1 - n/M)",
     "population.size": f"finite population size, whole number in [2, {POPULATION_MAX}] (default: the rows of file)",
     "population.fpc": "apply the finite population correction: true | false; default true",
-    "population.file": "CSV file of the population's values (relative to the scenario file)",
+    "population.file": "CSV file of the population's values, relative to the scenario file's folder and inside it (unless --allow-outside-files)",
     "population.column": "column of population.file holding the values",
     "population.values": "the population's unit values as a list (instead of file; from Python an array or Series)",
     "population.events": "a 0/1 population with exactly this many events (units of value 1), whole number in [0, size]; no [data] needed",
@@ -190,13 +192,13 @@ class Scenario:
     table: dict[str, Any] = field(default_factory=dict, compare=False, hash=False, repr=False)
     event_values: tuple[float, ...] | None = None
     event_above: float | None = None
+    window: float = 1.25
+    #: warnings about values allowed but implausible, and settings not used;
+    #: the command line prints them on stderr
     dropout: float = 0.0
     random_dropout: bool = False
     #: planning values given as distributions (simcheck.uncertain); the design uses their point values
     uncertain: tuple[Any, ...] = ()
-    window: float = 1.25
-    #: warnings about values allowed but implausible, and settings not used;
-    #: the command line prints them on stderr
     notices: tuple[str, ...] = ()
 
     @property
@@ -345,7 +347,12 @@ def set_dotted(table: Mapping[str, Any], key: str, value: Any) -> dict[str, Any]
 
 
 # --- reading ------------------------------------------------------------------
-def load_scenario(path: str | Path, overrides: Mapping[str, object] | None = None) -> Scenario:
+def load_scenario(
+    path: str | Path,
+    overrides: Mapping[str, object] | None = None,
+    *,
+    allow_outside_files: bool = False,
+) -> Scenario:
     """Read and validate a scenario file.
 
     Parameters
@@ -355,12 +362,17 @@ def load_scenario(path: str | Path, overrides: Mapping[str, object] | None = Non
     overrides : dict, optional
         Dotted keys and values set before validation, e.g.
         ``{"simulation.replicates": 1000, "data.cv": 2.0}``.
+    allow_outside_files : bool, default False
+        Let ``population.file`` and an empirical model's ``file`` name a file
+        outside the scenario's folder (an absolute path, ``..``, a symbolic
+        link pointing out). The command line's ``--allow-outside-files``.
 
     Raises
     ------
     InputError
-        One error listing every problem: missing file, a folder, unreadable
-        or non-UTF-8 text, TOML syntax (with line and column), bad values.
+        One error listing every problem: missing file, a folder or other
+        non-regular file, a file over 1 MiB, non-UTF-8 text or a byte-order
+        mark, TOML syntax (with line and column), bad values.
     """
     label = str(path)
     table = read_table(path)
@@ -370,35 +382,18 @@ def load_scenario(path: str | Path, overrides: Mapping[str, object] | None = Non
         except InputError as e:
             raise e.with_source(label) from None
     p = Path(path)
-    return scenario_from_dict(table, source=label, base_dir=str(p.resolve().parent))
+    return scenario_from_dict(table, source=label, base_dir=str(p.resolve().parent),
+                              allow_outside_files=allow_outside_files)
 
 
 def read_table(path: str | Path) -> dict[str, Any]:
-    """The TOML table of a file, or one InputError saying why it cannot be read."""
-    label = str(path)
-    p = Path(path)
+    """The TOML table of a file, or one InputError saying why it cannot be read.
 
-    def fail(msg: str) -> InputError:
-        return InputError([Problem("", msg)], source=label)
-
-    if not p.exists():
-        raise fail("no such file")
-    if p.is_dir():
-        raise fail("is a folder, not a scenario file")
-    try:
-        raw = p.read_bytes()
-    except OSError as e:
-        raise fail(f"cannot read the file: {e.strerror or e}") from None
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError as e:
-        line = raw[: e.start].count(b"\n") + 1
-        raise fail(f"not UTF-8 text (line {line}, byte {e.start}); a TOML file must be UTF-8") from None
-    try:
-        return tomllib.loads(text)
-    except tomllib.TOMLDecodeError as e:
-        # tomllib's message ends with "(at line L, column C)"
-        raise fail(f"TOML syntax error: {str(e).splitlines()[0]}") from None
+    Only regular files of at most :data:`simcheck.files.TEXT_MAX` bytes are
+    read (a FIFO or ``/dev/zero`` is refused, not waited on); errors give a
+    line and column, never the file's text.
+    """
+    return read_toml(path, label=str(path))
 
 
 def scenario_from_dict(
@@ -406,213 +401,110 @@ def scenario_from_dict(
     *,
     source: str | None = None,
     base_dir: str | Path | None = None,
+    allow_outside_files: bool = False,
 ) -> Scenario:
     """Validate a scenario table (as read from TOML) into a :class:`Scenario`.
 
     ``source`` names the file in error messages; ``base_dir`` resolves
-    relative file paths (empirical models, population files).
+    relative file paths (empirical models, population files; the current
+    folder when None), which must stay inside it unless
+    ``allow_outside_files``.
     """
-    return validate(table, source=source, base_dir=base_dir)
+    return validate(table, source=source, base_dir=base_dir, allow_outside_files=allow_outside_files)
 
 
 # --- validation: the one place ------------------------------------------------
+@dataclass(frozen=True)
+class _Files:
+    """Where a scenario's data files are looked up, and whether they may lie outside."""
+
+    base_dir: str | None
+    allow_outside: bool
+
+
+@dataclass
+class _Target:
+    estimand: str | None = None
+    confidence: float | None = None
+    margin: float | None = None
+    assurance: float | None = None
+    tolerance: float | None = None
+    event_values: list[float] | None = None
+    event_above: float | None = None
+    window: float | None = None
+    dropout: float = 0.0
+    bounds: dict[str, Any] = field(default_factory=dict)
+
+
+@dataclass
+class _Simulation:
+    replicates: int | None
+    seed: int | None
+    n_min: int | None
+    n_max: int | None
+    n_max_given: bool
+    ratio: float | None
+    budget: int | None
+    path: str | None
+    random_dropout: bool = False
+
+
 def validate(
     table: Mapping[str, Any],
     *,
     source: str | None = None,
     base_dir: str | Path | None = None,
+    allow_outside_files: bool = False,
 ) -> Scenario:
-    """Check every key of a scenario table; raise one InputError with all problems."""
-    if not isinstance(table, Mapping):
-        raise InputError([Problem("", f"a scenario must be a table, got {table!r}")], source=source)
-    table = copy.deepcopy(dict(table))
-    bdir = str(base_dir) if base_dir is not None else None
-    if "base" in table and ("vary" in table or "task" in table) and "target" not in table:
-        raise InputError([Problem("", "this is a sweep file (it has base and vary/task), not a scenario; run it with `simcheck sweep`")], source=source)
+    """Check every key of a scenario table; raise one InputError with all problems.
+
+    The sections are checked in file order ([target], [data], [method],
+    [simulation], [clusters], [population]), then the combination through
+    :class:`~simcheck.design.Design` and what the engine would refuse.
+    """
+    table = _prepared(table, source)
     # planning values given as distributions: validated and run at their point values (the
     # conditional answer); the table keeps them, so to_dict and sweep keys still see them
     from simcheck import uncertain
 
     given_table = table
     table, planning = uncertain.split(table, source)
+    files = _Files(str(base_dir) if base_dir is not None else None, bool(allow_outside_files))
     c = Collector()
-
     _unknown_keys(c, table)
     _no_nan(c, table, "")
-
-    # title
-    title = table.get("title")
-    if title is None:
-        title = Path(source).stem if source else "untitled scenario"
-    elif not isinstance(title, str) or not title.strip():
-        c.add("title", f"must be a non-empty text, got {title!r}")
-        title = None
-
-    target = _table(c, table, "target", required=True)
-    method = _table(c, table, "method", required=True)
-    sim = _table(c, table, "simulation", required=False)
+    title = _title(c, table, source)
+    target_t = _table(c, table, "target", required=True)
+    method_t = _table(c, table, "method", required=True)
+    sim_t = _table(c, table, "simulation", required=False)
     clusters_t = _table(c, table, "clusters", required=False) if "clusters" in table else None
     pop_t = _table(c, table, "population", required=False) if "population" in table else None
 
-    # [target]
-    estimand = None
-    if target is not None:
-        estimand = _choice(c, target, "target", "estimand", ESTIMANDS, required=True)
-        confidence = _num(c, target, "target", "confidence", DEFAULT_CONFIDENCE, low=0, high=1, low_open=True, high_open=True)
-        bounds_t = _bound_keys(c, target, estimand)
-        margin = _num(c, target, "target", "margin", None, required=not bounds_t["optional_margin"], low=0, low_open=True,
-                      what="the target half-width in the data's units, > 0 (or target.relative_margin)")
-        if margin is not None and estimand in ("proportion", "proportion-diff") and margin >= 1:
-            # as `formula` refuses it: every interval of a proportion has half-width <= 1/2 (a difference 1)
-            c.add("target.margin", f"must be < 1 for a {estimand} (0.05 means 5 percentage points), got {margin!r}")
-            margin = None
-        assurance = _num(c, target, "target", "assurance", DEFAULT_ASSURANCE, low=0, high=1, low_open=True, high_open=True)
-        tol = _num(c, target, "target", "coverage_tolerance", DEFAULT_COVERAGE_TOLERANCE, low=0, high=0.5, high_open=True)
-        if tol is not None and confidence is not None and tol >= confidence:
-            c.add("target.coverage_tolerance", f"must be below target.confidence ({confidence:g}), got {tol!r}")
-            tol = None
-        event_values, event_above = _event(c, target, estimand)
-        dropout = _num(c, target, "target", "dropout", 0.0, low=0, high=1, high_open=True)
-        window = _num(c, target, "target", "window", 1.25, low=1, high=4)
-    else:
-        confidence = margin = assurance = tol = window = None
-        event_values = event_above = None
-        dropout = 0.0
-        bounds_t = {}
-
-    # [data]
-    model = model_b = None
-    data = table.get("data")
-    strata = None
+    tgt = _target(c, target_t) if target_t is not None else _Target()
     # population.file supplies the values: [data] is then neither needed nor used
-    from_file = (isinstance(pop_t, dict) and ("file" in pop_t or "events" in pop_t) and estimand not in TWO_SAMPLE
+    from_file = (isinstance(pop_t, dict) and ("file" in pop_t or "events" in pop_t) and tgt.estimand not in TWO_SAMPLE
                  and "strata" not in table)
     notices: list[str] = []
-    if "allocation" in table and "strata" not in table:
-        c.add("allocation", "only with [[strata]] tables")
-    if "strata" in table:
-        model, strata = _strata_model(c, table, bdir, event_values, event_above)
-        if data is not None:
-            c.add("data", "not used with [[strata]]: give each stratum its model in [strata.data]")
-    elif from_file:
-        if data and "events" in pop_t:
-            c.add("data", "not used with population.events (the population is 0/1 with that many events); remove [data]")
-        elif data:
-            notices.append("notice: [data] is not used: population.file supplies the values")
-        data = None  # the model comes from the file (or the fixed count) below
-    elif data is None:
-        c.add("data", "missing: a [data] table with model = \"...\" (two-sample: [data.a] and [data.b])")
-    elif _is_model(data) and estimand not in TWO_SAMPLE:  # a model object, from Python
-        model = _model(c, data, "data", bdir)
-    elif not isinstance(data, dict):
-        c.add("data", f"must be a table, got {data!r}")
-    elif estimand in TWO_SAMPLE or (estimand is None and data and set(data) <= {"a", "b"}):
-        # (an invalid estimand is already reported; still check both groups' models)
-        if "model" in data:
-            c.add("data", f"estimand {estimand!r} compares two groups: put their models in [data.a] and [data.b]")
-        else:
-            for k in data:
-                if k not in ("a", "b"):
-                    near = difflib.get_close_matches(str(k), ["a", "b"], n=1, cutoff=0.5)
-                    hint = f"did you mean 'data.{near[0]}'?" if near else "two-sample data has only [data.a] and [data.b]"
-                    c.add(f"data.{k}", f"unknown key; {hint}")
-        model = _group(c, data, "a", bdir) if "model" not in data else None
-        model_b = _group(c, data, "b", bdir) if "model" not in data else None
-    else:
-        if data and "model" not in data and set(data) <= {"a", "b"}:
-            what = f"estimand {estimand!r} is one-sample" if estimand else "a one-sample estimand"
-            c.add("data", f"{what}: give one model in [data]; [data.a] and [data.b] are for mean-diff or proportion-diff")
-        else:
-            model = _model(c, data, "data", bdir)
-
-    if strata is None and model is not None and (event_values is not None or event_above is not None):
-        model = _wrap_event(c, model, event_values, event_above)
+    model, model_b, strata = _data(c, table, tgt, files, from_file, notices)
+    if strata is None and model is not None and (tgt.event_values is not None or tgt.event_above is not None):
+        model = _wrap_event(c, model, tgt.event_values, tgt.event_above)
         if model_b is not None:
-            model_b = _wrap_event(c, model_b, event_values, event_above)
-
-    # [method]
+            model_b = _wrap_event(c, model_b, tgt.event_values, tgt.event_above)
     methods: list[str] = []
     resamples = DEFAULT_RESAMPLES
-    if method is not None:
-        methods = _methods(c, method, estimand, stratified="strata" in table)
-        resamples = _num(c, method, "method", "resamples", DEFAULT_RESAMPLES, low=RESAMPLES_MIN, high=RESAMPLES_MAX, integer=True)
-
-    # [simulation]
-    sim = sim if sim is not None else {}
-    replicates = _num(c, sim, "simulation", "replicates", DEFAULT_REPLICATES, low=REPLICATES_MIN, high=REPLICATES_MAX, integer=True)
-    seed = _seed(c, sim)
-    n_min = _num(c, sim, "simulation", "n_min", DEFAULT_N_MIN, low=2, high=N_LIMIT - 1, integer=True)
-    n_max = _num(c, sim, "simulation", "n_max", None, low=3, high=N_LIMIT, integer=True)
-    ratio = _num(c, sim, "simulation", "ratio", DEFAULT_RATIO, low=0, high=RATIO_MAX, low_open=True)
-    if ratio is not None and ratio != 1.0 and estimand is not None and estimand not in TWO_SAMPLE:
-        c.add("simulation.ratio", f"only for two-sample estimands ({', '.join(TWO_SAMPLE)}); estimand is {estimand!r}, got {ratio!r}")
-    budget = _num(c, sim, "simulation", "budget", None, low=BUDGET_MIN, high=BUDGET_MAX, integer=True)
-    path = _choice(c, sim, "simulation", "path", PATHS, default=DEFAULT_PATH)
-    random_dropout = sim.get("random_dropout", False)
-    if not isinstance(random_dropout, bool):
-        c.add("simulation.random_dropout", f"must be true or false, got {random_dropout!r}")
-        random_dropout = False
-    elif random_dropout and not dropout:
-        c.add("simulation.random_dropout", "needs target.dropout > 0 (the share lost after enrolment)")
-    elif random_dropout and estimand in TWO_SAMPLE:
-        c.add("simulation.random_dropout", "is for one-sample estimands only")
-
+    if method_t is not None:
+        methods = _methods(c, method_t, tgt.estimand, stratified="strata" in table)
+        resamples = _num(c, method_t, "method", "resamples", DEFAULT_RESAMPLES, low=RESAMPLES_MIN, high=RESAMPLES_MAX, integer=True)
+    sim = _simulation(c, sim_t if sim_t is not None else {}, tgt.estimand, tgt.dropout)
     clusters = _clusters(c, clusters_t) if clusters_t is not None else None
-    population = _population(c, pop_t, bdir) if pop_t is not None else None
+    population = _population(c, pop_t, files) if pop_t is not None else None
     if from_file and population is not None and (population.file or population.events is not None) and not c.problems:
-        model = _population_model(c, population, estimand)
+        model = _population_model(c, population, tgt.estimand)
+    n_max = _n_range(c, sim, population, clusters)
 
-    # n range (the population bounds n when units are sampled without replacement)
-    n_max_given = "n_max" in sim
-    if n_max is None and not n_max_given:
-        n_max = DEFAULT_N_MAX
-        if population is not None and clusters is None:
-            n_max = min(n_max, population.size)
-    if population is not None and clusters is None and n_max is not None and n_max_given and n_max > population.size:
-        c.add("simulation.n_max", f"must be <= population.size ({population.size}) when sampling without replacement, got {n_max}")
-        n_max = None
-    if clusters is not None and clusters.count is not None and n_max is not None:
-        # n counts clusters drawn without replacement from clusters.count
-        if n_max_given and n_max > clusters.count:
-            c.add("simulation.n_max", f"must be <= clusters.count ({clusters.count}) when clusters are drawn without replacement, got {n_max}")
-            n_max = None
-        elif not n_max_given:
-            n_max = min(n_max, clusters.count)
-    if n_min is not None and n_max is not None and n_max <= n_min:
-        default = "" if n_max_given else " (the default)"
-        c.add("simulation.n_max", f"must be > simulation.n_min ({n_min}), got {n_max}{default}")
-
-    # the combination: Design's constructor is the one check of model / estimand / method
-    design = None
-    designs: list[Design] = []
+    design, designs = None, []
     if not c.problems and model is not None and methods:
-        try:
-            design = Design(
-                model=model,
-                estimand=estimand,
-                method=methods[0],
-                confidence=confidence,
-                margin=margin,
-                model_b=model_b,
-                ratio=ratio,
-                resamples=resamples,
-                clusters=clusters,
-                population=population,
-                strata=strata,
-                **_design_bound_args(bounds_t, assurance),
-            )
-        except InputError as e:
-            _extend_design(c, e, estimand)
-        if design is not None:
-            designs.append(design)
-            for m in methods[1:]:
-                try:
-                    designs.append(design.with_method(m))
-                except InputError as e:
-                    _extend_design(c, e, estimand)
-        if designs:
-            _check_engine(c, designs, path)
-
+        design, designs = _designs(c, tgt, model, model_b, methods, sim, resamples, clusters, population, strata)
     _dedupe(c)
     c.raise_if_any(source=source)
     assert design is not None  # every path without a design recorded a problem
@@ -620,25 +512,222 @@ def validate(
         title=title,
         design=design,
         methods=tuple(methods),
-        assurance=assurance,
-        coverage_tolerance=tol,
-        replicates=replicates,
-        seed=seed,
-        n_min=n_min,
+        assurance=tgt.assurance,
+        coverage_tolerance=tgt.tolerance,
+        replicates=sim.replicates,
+        seed=sim.seed,
+        n_min=sim.n_min,
         n_max=n_max,
-        budget=budget,
-        path=path,
+        budget=sim.budget,
+        path=sim.path,
         source=source,
-        base_dir=bdir,
+        base_dir=files.base_dir,
         table=given_table,
-        uncertain=planning,
-        event_values=None if event_values is None else tuple(event_values),
-        event_above=event_above,
-        dropout=float(dropout or 0.0),
-        random_dropout=bool(random_dropout),
-        window=window,
+        event_values=None if tgt.event_values is None else tuple(tgt.event_values),
+        event_above=tgt.event_above,
+        window=tgt.window,
         notices=_notices(notices, designs),
+        uncertain=planning,
+        dropout=float(tgt.dropout or 0.0),
+        random_dropout=bool(sim.random_dropout),
     )
+
+
+# --- validation: the sections -------------------------------------------------
+def _prepared(table: Any, source: str | None) -> dict[str, Any]:
+    """A private copy of the table, after the checks that must come before any other."""
+    if not isinstance(table, Mapping):
+        raise InputError([Problem("", f"a scenario must be a table, got {shown(table)}")], source=source)
+    # Too deep a nesting or an integer beyond the float range would break the
+    # checks below (recursion, float conversion): refuse them first.
+    shape = _shape_problems(table)
+    if shape:
+        raise InputError(shape, source=source)
+    table = copy.deepcopy(dict(table))
+    if "base" in table and ("vary" in table or "task" in table) and "target" not in table:
+        raise InputError([Problem("", "this is a sweep file (it has base and vary/task), not a scenario; run it with `simcheck sweep`")], source=source)
+    return table
+
+
+def _shape_problems(table: Mapping[str, Any]) -> list[Problem]:
+    # Iterative, so a deeply nested table cannot exhaust the interpreter's stack here.
+    problems: list[Problem] = []
+    stack: list[tuple[str, Any, int]] = [("", table, 0)]
+    while stack and len(problems) < 20:
+        name, v, depth = stack.pop()
+        if isinstance(v, (Mapping, list, tuple)):
+            if depth >= NESTING_MAX:
+                problems.append(Problem(name, f"nested more than {NESTING_MAX} levels deep; no scenario key needs that"))
+                continue
+            items = v.items() if isinstance(v, Mapping) else ((f"[{i}]", x) for i, x in enumerate(v))
+            for k, x in items:
+                sub = f"{name}{k}" if str(k).startswith("[") else _join(name, str(k))
+                stack.append((sub, x, depth + 1))
+        elif isinstance(v, int) and not isinstance(v, bool) and abs(v) > INT_LIMIT:
+            problems.append(Problem(name, f"must be a finite number, got {shown(v)}, beyond the range of floating-point numbers (about 1.8e308)"))
+    return problems
+
+
+def _title(c: Collector, table: dict[str, Any], source: str | None) -> str | None:
+    title = table.get("title")
+    if title is None:
+        return Path(source).stem if source else "untitled scenario"
+    if not isinstance(title, str) or not title.strip():
+        c.add("title", f"must be a non-empty text, got {shown(title)}")
+        return None
+    return title
+
+
+def _target(c: Collector, target: dict[str, Any]) -> _Target:
+    t = _Target()
+    t.estimand = _choice(c, target, "target", "estimand", ESTIMANDS, required=True)
+    t.confidence = _num(c, target, "target", "confidence", DEFAULT_CONFIDENCE, low=0, high=1, low_open=True, high_open=True)
+    t.bounds = _bound_keys(c, target, t.estimand)
+    t.margin = _num(c, target, "target", "margin", None, required=not t.bounds["optional_margin"], low=0, low_open=True,
+                    what="the target half-width in the data's units, > 0 (or target.relative_margin)")
+    if t.margin is not None and t.estimand in ("proportion", "proportion-diff") and t.margin >= 1:
+        # as `formula` refuses it: every interval of a proportion has half-width <= 1/2 (a difference 1)
+        c.add("target.margin", f"must be < 1 for a {t.estimand} (0.05 means 5 percentage points), got {t.margin!r}")
+        t.margin = None
+    t.assurance = _num(c, target, "target", "assurance", DEFAULT_ASSURANCE, low=0, high=1, low_open=True, high_open=True)
+    t.tolerance = _num(c, target, "target", "coverage_tolerance", DEFAULT_COVERAGE_TOLERANCE, low=0, high=0.5, high_open=True)
+    if t.tolerance is not None and t.confidence is not None and t.tolerance >= t.confidence:
+        c.add("target.coverage_tolerance", f"must be below target.confidence ({t.confidence:g}), got {t.tolerance!r}")
+        t.tolerance = None
+    t.event_values, t.event_above = _event(c, target, t.estimand)
+    t.window = _num(c, target, "target", "window", 1.25, low=1, high=4)
+    t.dropout = _num(c, target, "target", "dropout", 0.0, low=0, high=1, high_open=True)
+    return t
+
+
+def _data(c: Collector, table: dict[str, Any], tgt: _Target, files: _Files, from_file: bool, notices: list[str]):
+    """The model, group b's model and the strata of the [data] (or [[strata]]) tables.
+
+    With ``from_file`` (population.file supplies the values) there is no model
+    yet: it comes from the file once [population] is read.
+    """
+    data, estimand = table.get("data"), tgt.estimand
+    if "allocation" in table and "strata" not in table:
+        c.add("allocation", "only with [[strata]] tables")
+    if "strata" in table:
+        model, strata = _strata_model(c, table, files, tgt.event_values, tgt.event_above)
+        if data is not None:
+            c.add("data", "not used with [[strata]]: give each stratum its model in [strata.data]")
+        return model, None, strata
+    if from_file:
+        if data and "events" in table.get("population", {}):
+            c.add("data", "not used with population.events (the population is 0/1 with that many events); remove [data]")
+        elif data:
+            notices.append("notice: [data] is not used: population.file supplies the values")
+        return None, None, None
+    if data is None:
+        c.add("data", "missing: a [data] table with model = \"...\" (two-sample: [data.a] and [data.b])")
+        return None, None, None
+    if _is_model(data) and estimand not in TWO_SAMPLE:  # a model object, from Python
+        return _model(c, data, "data", files), None, None
+    if not isinstance(data, dict):
+        c.add("data", f"must be a table, got {shown(data)}")
+        return None, None, None
+    if estimand in TWO_SAMPLE or (estimand is None and data and set(data) <= {"a", "b"}):
+        # (an invalid estimand is already reported; still check both groups' models)
+        if "model" in data:
+            c.add("data", f"estimand {estimand!r} compares two groups: put their models in [data.a] and [data.b]")
+            return None, None, None
+        for k in data:
+            if k not in ("a", "b"):
+                near = difflib.get_close_matches(str(k), ["a", "b"], n=1, cutoff=0.5)
+                hint = f"did you mean 'data.{near[0]}'?" if near else "two-sample data has only [data.a] and [data.b]"
+                c.add(f"data.{k}", f"unknown key; {hint}")
+        return _group(c, data, "a", files), _group(c, data, "b", files), None
+    if data and "model" not in data and set(data) <= {"a", "b"}:
+        what = f"estimand {estimand!r} is one-sample" if estimand else "a one-sample estimand"
+        c.add("data", f"{what}: give one model in [data]; [data.a] and [data.b] are for mean-diff or proportion-diff")
+        return None, None, None
+    return _model(c, data, "data", files), None, None
+
+
+def _simulation(c: Collector, sim: dict[str, Any], estimand: str | None, dropout: float | None = 0.0) -> _Simulation:
+    ratio = _num(c, sim, "simulation", "ratio", DEFAULT_RATIO, low=0, high=RATIO_MAX, low_open=True)
+    out = _Simulation(
+        replicates=_num(c, sim, "simulation", "replicates", DEFAULT_REPLICATES, low=REPLICATES_MIN, high=REPLICATES_MAX, integer=True),
+        seed=_seed(c, sim),
+        n_min=_num(c, sim, "simulation", "n_min", DEFAULT_N_MIN, low=2, high=N_LIMIT - 1, integer=True),
+        n_max=_num(c, sim, "simulation", "n_max", None, low=3, high=N_LIMIT, integer=True),
+        n_max_given="n_max" in sim,
+        ratio=ratio,
+        budget=_num(c, sim, "simulation", "budget", None, low=BUDGET_MIN, high=BUDGET_MAX, integer=True),
+        path=_choice(c, sim, "simulation", "path", PATHS, default=DEFAULT_PATH),
+    )
+    if ratio is not None and ratio != 1.0 and estimand is not None and estimand not in TWO_SAMPLE:
+        c.add("simulation.ratio", f"only for two-sample estimands ({', '.join(TWO_SAMPLE)}); estimand is {estimand!r}, got {shown(ratio)}")
+    out.random_dropout = _random_dropout(c, sim, estimand, dropout)
+    return out
+
+
+def _random_dropout(c: Collector, sim: dict[str, Any], estimand: str | None, dropout: float | None) -> bool:
+    random_dropout = sim.get("random_dropout", False)
+    if not isinstance(random_dropout, bool):
+        c.add("simulation.random_dropout", f"must be true or false, got {shown(random_dropout)}")
+        return False
+    if random_dropout and not dropout:
+        c.add("simulation.random_dropout", "needs target.dropout > 0 (the share lost after enrolment)")
+    elif random_dropout and estimand in TWO_SAMPLE:
+        c.add("simulation.random_dropout", "is for one-sample estimands only")
+    return random_dropout
+
+
+def _n_range(c: Collector, sim: _Simulation, population, clusters) -> int | None:
+    """simulation.n_max after its default (the population bounds n when units are sampled without replacement)."""
+    n_min, n_max = sim.n_min, sim.n_max
+    if n_max is None and not sim.n_max_given:
+        n_max = DEFAULT_N_MAX
+        if population is not None and clusters is None:
+            n_max = min(n_max, population.size)
+    if population is not None and clusters is None and n_max is not None and sim.n_max_given and n_max > population.size:
+        c.add("simulation.n_max", f"must be <= population.size ({population.size}) when sampling without replacement, got {n_max}")
+        n_max = None
+    if clusters is not None and clusters.count is not None and n_max is not None:
+        # n counts clusters drawn without replacement from clusters.count
+        if sim.n_max_given and n_max > clusters.count:
+            c.add("simulation.n_max", f"must be <= clusters.count ({clusters.count}) when clusters are drawn without replacement, got {n_max}")
+            n_max = None
+        elif not sim.n_max_given:
+            n_max = min(n_max, clusters.count)
+    if n_min is not None and n_max is not None and n_max <= n_min:
+        default = "" if sim.n_max_given else " (the default)"
+        c.add("simulation.n_max", f"must be > simulation.n_min ({n_min}), got {n_max}{default}")
+    return n_max
+
+
+def _designs(c: Collector, tgt: _Target, model, model_b, methods: list[str], sim: _Simulation,
+             resamples, clusters, population, strata) -> tuple[Design | None, list[Design]]:
+    """The combination: Design's constructor is the one check of model / estimand / method."""
+    try:
+        design = Design(
+            model=model,
+            estimand=tgt.estimand,
+            method=methods[0],
+            confidence=tgt.confidence,
+            margin=tgt.margin,
+            model_b=model_b,
+            ratio=sim.ratio,
+            resamples=resamples,
+            clusters=clusters,
+            population=population,
+            strata=strata,
+            **_design_bound_args(tgt.bounds, tgt.assurance),
+        )
+    except InputError as e:
+        _extend_design(c, e, tgt.estimand)
+        return None, []
+    designs = [design]
+    for m in methods[1:]:
+        try:
+            designs.append(design.with_method(m))
+        except InputError as e:
+            _extend_design(c, e, tgt.estimand)
+    _check_engine(c, designs, sim.path)
+    return design, designs
 
 
 def _population_model(c: Collector, population: PopulationSpec, estimand: str | None):
@@ -677,8 +766,6 @@ def _notices(extra: list[str], designs: list[Design]) -> tuple[str, ...]:
     for d in designs:
         out += [t for t in plausibility_notes(d) if t not in out]
     return tuple(out)
-
-
 # --- validation helpers -------------------------------------------------------
 def _unknown_keys(c: Collector, table: dict[str, Any]) -> None:
     for k in table:
@@ -733,7 +820,7 @@ def _table(c: Collector, table: dict[str, Any], name: str, *, required: bool) ->
             c.add(name, f"missing: a [{name}] table is required ({keys})")
         return None
     if not isinstance(v, dict):
-        c.add(name, f"must be a table ([{name}]), got {v!r}")
+        c.add(name, f"must be a table ([{name}]), got {shown(v)}")
         return None
     return v
 
@@ -781,7 +868,7 @@ def _choice(
         return default
     v = tbl[key]
     if not isinstance(v, str):
-        c.add(name, f"must be one of {', '.join(choices)} (text), got {v!r}")
+        c.add(name, f"must be one of {', '.join(choices)} (text), got {shown(v)}")
         return None
     if v not in choices:
         near = difflib.get_close_matches(v, list(choices), n=1, cutoff=0.5)
@@ -844,7 +931,7 @@ def _event(c: Collector, target: dict[str, Any], estimand: str | None):
         return None, c.number("target.event_above", a)
     vals = target["event_values"]
     if isinstance(vals, bool) or not isinstance(vals, list):
-        c.add("target.event_values", f"must be a list of numbers such as [6, 7], got {vals!r}")
+        c.add("target.event_values", f"must be a list of numbers such as [6, 7], got {shown(vals)}")
         return None, None
     if not vals:
         c.add("target.event_values", "must list at least one value, got []")
@@ -866,27 +953,27 @@ def _is_model(v: Any) -> bool:
     return isinstance(v, Model)
 
 
-def _model(c: Collector, tbl: Any, prefix: str, base_dir: str | None):
+def _model(c: Collector, tbl: Any, prefix: str, files: _Files):
     from simcheck.models import make_model
 
     if not isinstance(tbl, dict) and not _is_model(tbl):
-        c.add(prefix, f"must be a model table (model = \"...\" and its parameters), got {tbl!r}")
+        c.add(prefix, f"must be a model table (model = \"...\" and its parameters), got {shown(tbl)}")
         return None
     try:
-        return make_model(tbl, base_dir=base_dir)
+        return make_model(tbl, base_dir=files.base_dir, allow_outside_files=files.allow_outside)
     except InputError as e:
         c.extend(e.prefixed(prefix))
         return None
 
 
-def _strata_model(c: Collector, table: dict[str, Any], base_dir: str | None, values, above):
+def _strata_model(c: Collector, table: dict[str, Any], files: _Files, values, above):
     """The strata and the population's model (their mixture, weighted by stratum size)."""
     from simcheck.models import make_model
 
     def wrap(m):
         return _wrap_event(c, m, values, above) if (values is not None or above is not None) else m
 
-    strata = read_strata(c, table, base_dir, wrap)
+    strata = read_strata(c, table, files.base_dir, wrap, allow_outside_files=files.allow_outside)
     if strata is None:
         return None, None
     sizes = strata.sizes
@@ -895,18 +982,19 @@ def _strata_model(c: Collector, table: dict[str, Any], base_dir: str | None, val
     total = float(sum(sizes))
     try:
         mix = make_model({"model": "mixture", "weights": [v / total for v in sizes],
-                          "components": [t["data"] for t in table["strata"]]}, base_dir=base_dir)
+                          "components": [t["data"] for t in table["strata"]]},
+                         base_dir=files.base_dir, allow_outside_files=files.allow_outside)
     except InputError as e:
         c.extend(e.prefixed("strata"))
         return None, strata
     return wrap(mix), strata
 
 
-def _group(c: Collector, data: dict[str, Any], g: str, base_dir: str | None):
+def _group(c: Collector, data: dict[str, Any], g: str, files: _Files):
     if g not in data:
         c.add(f"data.{g}", f"missing: a two-sample estimand needs [data.a] and [data.b]; [data.{g}] is not given")
         return None
-    return _model(c, data[g], f"data.{g}", base_dir)
+    return _model(c, data[g], f"data.{g}", files)
 
 
 def _wrap_event(c: Collector, model, values, above):
@@ -930,13 +1018,13 @@ def _methods(c: Collector, method: dict[str, Any], estimand: str | None, stratif
     v = method["interval"]
     names = [v] if isinstance(v, str) else v
     if not isinstance(names, list) or not names:
-        c.add("method.interval", f"must be a method name or a non-empty list of names, got {v!r}")
+        c.add("method.interval", f"must be a method name or a non-empty list of names, got {shown(v)}")
         return []
     out: list[str] = []
     for i, m in enumerate(names):
         name = "method.interval" if isinstance(v, str) else f"method.interval[{i}]"
         if not isinstance(m, str):
-            c.add(name, f"must be a method name (text), got {m!r}")
+            c.add(name, f"must be a method name (text), got {shown(m)}")
             continue
         if m in out:
             c.add(name, f"{m!r} is listed twice")
@@ -963,10 +1051,10 @@ def _seed(c: Collector, sim: dict[str, Any]) -> int | None:
     v = sim["seed"]
     # a float seed would silently lose digits above 2**53
     if isinstance(v, bool) or not isinstance(v, Integral):
-        c.add("simulation.seed", f"must be a whole number (integer) in [0, {SEED_MAX}], got {v!r}")
+        c.add("simulation.seed", f"must be a whole number (integer) in [0, {SEED_MAX}], got {shown(v)}")
         return None
     if not 0 <= int(v) <= SEED_MAX:
-        c.add("simulation.seed", f"must be in [0, {SEED_MAX}], got {v!r}")
+        c.add("simulation.seed", f"must be in [0, {SEED_MAX}], got {shown(v)}")
         return None
     return int(v)
 
@@ -995,26 +1083,26 @@ def _clusters(c: Collector, t: dict[str, Any]) -> ClusterSpec | None:
     return ClusterSpec(icc=icc, size=size, size_mean=size_mean, size_cv=size_cv, effect=effect, count=count)
 
 
-def _population(c: Collector, t: dict[str, Any], base_dir: str | None) -> PopulationSpec | None:
+def _population(c: Collector, t: dict[str, Any], files: _Files) -> PopulationSpec | None:
     n0 = len(c.problems)
     size = _num(c, t, "population", "size", None, low=2, high=POPULATION_MAX, integer=True)
     fpc = t.get("fpc", True)
     if not isinstance(fpc, bool):
-        c.add("population.fpc", f"must be true or false, got {fpc!r}")
+        c.add("population.fpc", f"must be true or false, got {shown(fpc)}")
     file = column = resolved = None
     if "file" in t:
         file = t["file"]
         if not isinstance(file, str) or not file.strip():
-            c.add("population.file", f"must be a file name (text), got {file!r}")
+            c.add("population.file", f"must be a file name (text), got {shown(file)}")
             file = None
         column = t.get("column")
         if column is None:
             c.add("population.column", "missing (required with population.file: the column holding the values)")
         elif not isinstance(column, str) or not column.strip():
-            c.add("population.column", f"must be a column name (text), got {column!r}")
+            c.add("population.column", f"must be a column name (text), got {shown(column)}")
             column = None
         if file is not None and column is not None:
-            resolved, rows = _population_file(c, file, column, base_dir)
+            resolved, rows = _population_file(c, file, column, files)
             if rows is not None:
                 if "size" not in t:
                     size = rows
@@ -1027,17 +1115,23 @@ def _population(c: Collector, t: dict[str, Any], base_dir: str | None) -> Popula
         values, size = _population_values(c, t, size)
     if "size" not in t and "file" not in t and "values" not in t:
         c.add("population.size", "missing (required: the number of units in the population)")
-    events = None
-    if "events" in t:
-        if "file" in t or "values" in t:
-            c.add("population.events", "give population.events (a 0/1 population with that many events) or population.file / values, not both")
-        else:
-            events = _num(c, t, "population", "events", None, low=0, integer=True)
-            if events is not None and size is not None and events > size:
-                c.add("population.events", f"must be <= population.size ({size}), got {events}")
+    events = _population_events(c, t, size)
     if len(c.problems) > n0 or size is None:
         return None
     return PopulationSpec(size=size, fpc=fpc, file=resolved, column=column, values=values, events=events)
+
+
+def _population_events(c: Collector, t: dict[str, Any], size: int | None) -> int | None:
+    if "events" not in t:
+        return None
+    if "file" in t or "values" in t:
+        c.add("population.events", "give population.events (a 0/1 population with that many events) or population.file / values, not both")
+        return None
+    events = _num(c, t, "population", "events", None, low=0, integer=True)
+    if events is not None and size is not None and events > size:
+        c.add("population.events", f"must be <= population.size ({size}), got {events}")
+        return None
+    return events
 
 
 def _population_values(c: Collector, t: dict[str, Any], size: int | None) -> tuple[tuple[float, ...] | None, int | None]:
@@ -1058,42 +1152,26 @@ def _population_values(c: Collector, t: dict[str, Any], size: int | None) -> tup
     return tuple(arr.tolist()), int(arr.size)
 
 
-def _population_file(c: Collector, file: str, column: str, base_dir: str | None):
-    p = Path(file)
-    if not p.is_absolute() and base_dir is not None:
-        p = Path(base_dir) / p
-    if not p.is_file():
-        c.add("population.file", f"no such file: {file}" + (" (is a folder)" if p.is_dir() else ""))
-        return None, None
+def _population_file(c: Collector, file: str, column: str, files: _Files):
+    """The resolved path and the number of values of population.file, or (None, None) after a problem."""
     try:
-        with open(p, newline="", encoding="utf-8-sig") as fh:
-            reader = csv.DictReader(fh)
-            header = reader.fieldnames or []
-            if column not in header:
-                near = difflib.get_close_matches(column, header, n=1, cutoff=0.5)
-                hint = f"did you mean {near[0]!r}? " if near else ""
-                c.add("population.column", f"no column {column!r} in {file}; {hint}columns: {', '.join(header) or 'none'}")
-                return None, None
-            count = 0
-            for line, row in enumerate(reader, start=2):
-                cell = (row.get(column) or "").strip()
-                if not cell:
-                    continue
-                try:
-                    x = float(cell)
-                except ValueError:
-                    x = math.nan
-                if not math.isfinite(x):
-                    c.add("population.file", f"{file} line {line}: column {column!r} must hold finite numbers, got {cell!r}")
-                    return None, None
-                count += 1
-    except (OSError, UnicodeDecodeError, csv.Error) as e:
-        c.add("population.file", f"cannot read {file}: {e}")
+        p = resolve_data_path(file, files.base_dir, field="population.file", allow_outside=files.allow_outside)
+        regular_file(p, field="population.file", what="data file")
+        values, _ = read_csv_column(p, column, file_field="population.file", column_field="population.column", name=file)
+    except InputError as e:
+        for prob in e.problems:
+            # regular_file's problems do not name the file: say which one
+            msg = prob.message if file in prob.message else f"{_shown_name(file)}: {prob.message}"
+            c.add(prob.field, msg)
         return None, None
-    if count < 2:
-        c.add("population.file", f"{file} column {column!r} needs at least 2 values, got {count}")
+    if values.size < 2:
+        c.add("population.file", f"{file} column {column!r} needs at least 2 values, got {values.size}")
         return None, None
-    return str(p.resolve()), count
+    return str(p.resolve()), int(values.size)
+
+
+def _shown_name(file: str) -> str:
+    return file if len(file) <= 80 else file[:60] + "..."
 
 
 def _extend_design(c: Collector, e: InputError, estimand: str | None) -> None:

@@ -41,7 +41,7 @@ KNOWN_KEYS = {
 }
 
 
-def _stratum(c: Collector, i: int, t: Any, base_dir: str | None, wrap) -> tuple | None:
+def _stratum(c: Collector, i: int, t: Any, base_dir: str | None, wrap, allow_outside_files: bool = False) -> tuple | None:
     from simcheck.models import make_model
 
     where = f"strata[{i}]"
@@ -63,14 +63,18 @@ def _stratum(c: Collector, i: int, t: Any, base_dir: str | None, wrap) -> tuple 
         c.add(f"{where}.data", f"missing or not a table: give [strata.data] with model = \"...\" (got {data!r})")
     else:
         try:
-            model = wrap(make_model(data, base_dir=base_dir))
+            model = wrap(make_model(data, base_dir=base_dir, allow_outside_files=allow_outside_files))
         except InputError as e:
             c.extend(e.prefixed(f"{where}.data"))
     return name, size, t.get("cost"), t.get("n"), model
 
 
-def read_strata(c: Collector, table: dict[str, Any], base_dir: str | None, wrap=lambda m: m) -> StrataSpec | None:
+def read_strata(c: Collector, table: dict[str, Any], base_dir: str | None, wrap=lambda m: m,
+                allow_outside_files: bool = False) -> StrataSpec | None:
     """The :class:`StrataSpec` of ``table`` (None after recording problems in ``c``).
+
+    ``base_dir`` and ``allow_outside_files`` locate data files of the strata's
+    models (see :func:`simcheck.files.resolve_data_path`).
 
     ``wrap`` turns each stratum's model into the model of the estimand (for
     example an event indicator for a proportion).
@@ -92,7 +96,7 @@ def read_strata(c: Collector, table: dict[str, Any], base_dir: str | None, wrap=
     rule = alloc.get("rule", "proportional")
     minimum = alloc.get("minimum", MINIMUM)
     before = len(c.problems)
-    parts = [_stratum(c, i, t, base_dir, wrap) for i, t in enumerate(raw)]
+    parts = [_stratum(c, i, t, base_dir, wrap, allow_outside_files) for i, t in enumerate(raw)]
     if len(c.problems) > before or any(p is None for p in parts):
         return None
     names, sizes, costs, given, models = zip(*parts)

@@ -387,8 +387,10 @@ def test_empirical_reads_csv_and_resamples(tmp_path):
     assert m.event_probability(above=3.0) == 0.5
     assert m.event_probability(values=[1.5, 7.0]) == 0.5
     assert not m.discrete
-    # absolute path without base_dir works as well
-    assert make_model({"model": "empirical", "file": str(f), "column": "hours"}).mean == m.mean
+    # an absolute path leaves the scenario's folder: refused unless allowed explicitly
+    with pytest.raises(InputError, match="absolute path is refused.*--allow-outside-files"):
+        make_model({"model": "empirical", "file": str(f), "column": "hours"})
+    assert make_model({"model": "empirical", "file": str(f), "column": "hours"}, allow_outside_files=True).mean == m.mean
 
 
 def test_empirical_errors(tmp_path):
@@ -397,7 +399,7 @@ def test_empirical_errors(tmp_path):
     cases = [
         ({"file": "missing.csv", "column": "hours"}, "file", "no such file"),
         ({"file": "pilot.csv", "column": "hour"}, "column", "did you mean 'hours'"),
-        ({"file": "pilot.csv", "column": "site"}, "column", "non-numeric"),
+        ({"file": "pilot.csv", "column": "site"}, "column", "line 2, column 'site': not a number"),
         ({"file": "pilot.csv"}, "column", "missing"),
         ({"file": "pilot.csv", "column": "hours", "sep": ";"}, "sep", "unknown key"),
     ]

@@ -33,6 +33,8 @@ from simcheck.report import (
 )
 from simcheck.results import CheckResult, CurveResult, SearchResult
 
+from fixtures import repair_times, sweep_table, write_sweep_folder
+
 SEED = 20261201
 R = 2000
 
@@ -251,38 +253,15 @@ def test_sweep_coverage_panels_draw_their_own_nominal_level(tmp_path):
 
 
 # --- command line ------------------------------------------------------------------
-BASE = """title = "Sweep base (invented example)"
-[target]
-estimand = "mean"
-confidence = 0.95
-margin = 1.0
-[data]
-model = "lognormal"
-mean = 6.0
-cv = 1.0
-[method]
-interval = "t"
-[simulation]
-replicates = 400
-seed = 7
-n_min = 10
-n_max = 400
-"""
-
-SWEEP = """base = "base.toml"
-task = "check"
-n = [40, 160]
-[vary]
-"data.cv" = [0.5, 1.5]
-"method.interval" = ["t", "johnson-t"]
-"""
+BASE = repair_times(title="Sweep base (invented example)", simulation__replicates=400, simulation__seed=7,
+                    simulation__n_min=10)
+SWEEP = sweep_table(n=[40, 160])
 
 
 @pytest.fixture(scope="module")
 def store(tmp_path_factory) -> Path:
     d = tmp_path_factory.mktemp("sweep")
-    (d / "base.toml").write_text(BASE, encoding="utf-8")
-    (d / "sweep.toml").write_text(SWEEP, encoding="utf-8")
+    write_sweep_folder(d, BASE, SWEEP)
     assert main(["sweep", str(d / "sweep.toml"), "--store", str(d / "s.sqlite"), "--json"]) == 0
     return d / "s.sqlite"
 

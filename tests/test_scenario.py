@@ -25,6 +25,8 @@ from simcheck.scenario import (
     set_dotted,
 )
 
+from fixtures import minimal
+
 ROOT = Path(__file__).resolve().parents[1]
 
 def _is_sweep(path: Path) -> bool:
@@ -48,17 +50,6 @@ def expectations(path: Path) -> tuple[str, list[str], list[str]]:
     assert why.startswith("# ") and fields, f"{path.name}: header comments missing"
     keys = [] if fields[0] == "-" else [k.strip() for k in fields[0].split(",")]
     return why, keys, says
-
-
-def minimal(**changes) -> dict:
-    table = {
-        "target": {"estimand": "mean", "margin": 1.0},
-        "data": {"model": "normal", "mean": 10.0, "sd": 3.0},
-        "method": {"interval": "t"},
-    }
-    for k, v in changes.items():
-        table = set_dotted(table, k.replace("__", "."), v)
-    return table
 
 
 # --- example files -------------------------------------------------------------

@@ -2,21 +2,20 @@
 
 from __future__ import annotations
 
-import io
 import json
 import math
-from contextlib import redirect_stderr, redirect_stdout
 
 import numpy as np
 import pytest
 from scipy import stats
 
 from simcheck import engine
-from simcheck.cli import main as cli_main
 from simcheck.design import ClusterSpec, Design, PopulationSpec
 from simcheck.errors import InputError
 from simcheck.models import make_model
 from simcheck.search import compare, find_n, formula_n
+
+from fixtures import run_cli
 
 CONF = 0.95
 
@@ -312,13 +311,6 @@ def write_scenario(tmp_path, name, text):
     p = tmp_path / name
     p.write_text(text)
     return p
-
-
-def run_cli(argv):
-    out, err = io.StringIO(), io.StringIO()
-    with redirect_stdout(out), redirect_stderr(err):
-        code = cli_main(argv)
-    return code, out.getvalue(), err.getvalue()
 
 
 def test_cli_json_contract(tmp_path):

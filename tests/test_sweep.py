@@ -26,32 +26,16 @@ from simcheck.sweep.runner import SweepInterrupted, cell_seed, run_cell, run_swe
 from simcheck.sweep.grid import load_sweep, read_sweep
 from simcheck.sweep.store import cells_frame
 
+from fixtures import repair_times, toml_text, write_toml
+
 REPO = Path(__file__).resolve().parents[1]
 
 # Invented example: skewed repair times, the t interval, small but not tiny cells
 # (each about 0.1-0.3 s) so that a subprocess can be killed half-way.
-BASE = """\
-title = "Repair times at a depot (invented example)"
+# the base scenario as TOML text with a {replicates} slot (other test files build on it)
+BASE = toml_text(repair_times(simulation__replicates=0)).replace("replicates = 0", "replicates = {replicates}")
 
-[target]
-estimand = "mean"
-confidence = 0.95
-margin = 1.0
-
-[data]
-model = "lognormal"
-mean = 6.0
-cv = 1.0
-
-[method]
-interval = "t"
-
-[simulation]
-replicates = {replicates}
-seed = 20261201
-n_max = 400
-"""
-
+# the sweep below spells [vary] keys without quotes (nested tables), as users may
 SWEEP = """\
 base = "base.toml"
 task = "check"
@@ -65,7 +49,7 @@ data.cv = [0.5, 1.0, 1.5, 2.0]
 
 def write_sweep(folder: Path, sweep: str = SWEEP, replicates: int = 60000) -> Path:
     folder.mkdir(parents=True, exist_ok=True)
-    (folder / "base.toml").write_text(BASE.format(replicates=replicates))
+    write_toml(folder / "base.toml", repair_times(simulation__replicates=replicates))
     path = folder / "sweep.toml"
     path.write_text(sweep)
     return path

@@ -14,6 +14,7 @@ from typing import Any, Sequence
 from simcheck import CAUTION
 from simcheck.cli.common import add_json, add_sim_overrides, emit_json, note, table
 from simcheck.bound_text import bound_words, coverage_words, result_lines, units_text
+from simcheck.cli.options import add_allow_outside
 
 #: how run_task's arguments are called on the command line
 CLI_FIELDS = {
@@ -46,6 +47,7 @@ def add_parser(subparsers) -> None:
     add_bound_option(p)
     add_sim_overrides(p)
     add_json(p)
+    add_allow_outside(p)
     p.set_defaults(run=run)
 
 
@@ -70,7 +72,7 @@ def run(args: argparse.Namespace) -> int:
     from simcheck.scenario import load_scenario
     from simcheck.tasks import run_task
 
-    scenario = load_scenario(args.scenario, bound_overrides(args) or None)
+    scenario = load_scenario(args.scenario, bound_overrides(args) or None, allow_outside_files=args.allow_outside_files)
     seed = run_seed(scenario, args.seed)
     with Progress() as prog:
         res = run_task(scenario, "check", n=args.n, method=args.method, replicates=args.replicates,

@@ -7,6 +7,7 @@ import sys
 
 from simcheck.cli.common import UsageError, add_json, add_sim_overrides, emit_json
 from simcheck.cli.check import CLI_FIELDS, Progress, add_bound_option, add_method_option, bound_overrides, report, run_seed
+from simcheck.cli.options import add_allow_outside
 
 
 def add_parser(subparsers) -> None:
@@ -31,6 +32,7 @@ def add_parser(subparsers) -> None:
     add_bound_option(p)
     add_sim_overrides(p)
     add_json(p)
+    add_allow_outside(p)
     p.set_defaults(run=run)
 
 
@@ -52,7 +54,7 @@ def run(args: argparse.Namespace) -> int:
     n_values = parse_n_values(args.n_values) if args.n_values is not None else None
     if n_values is not None and (args.n_min is not None or args.n_max is not None or args.step is not None):
         raise UsageError("simcheck curve: argument --n-values: not with --n-min, --n-max or --step")
-    scenario = load_scenario(args.scenario, bound_overrides(args) or None)
+    scenario = load_scenario(args.scenario, bound_overrides(args) or None, allow_outside_files=args.allow_outside_files)
     seed = run_seed(scenario, args.seed)
     fields = dict(CLI_FIELDS, n="--n-values")
     with Progress() as prog:

@@ -8,6 +8,7 @@ from pathlib import Path
 
 from simcheck import CAUTION
 from simcheck.cli.common import add_json, add_sim_overrides, emit_json, note
+from simcheck.cli.options import add_allow_outside
 
 
 #: file kinds people hand to `report` by mistake (pilot data, exported tables)
@@ -30,6 +31,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("--out", required=True, metavar="DIR", help="output folder (created when missing)")
     add_sim_overrides(p)
     add_json(p)
+    add_allow_outside(p)
     p.set_defaults(run=run)
 
 
@@ -48,19 +50,23 @@ def run(args: argparse.Namespace) -> int:
     # the subpackage: the package attribute `simcheck.report` is the API function
     rep = importlib.import_module("simcheck.report")
     from simcheck.errors import InputError
+    from simcheck.files import regular_file
 
     src = Path(args.source)
-    if not src.exists():
-        raise InputError("SCENARIO|STORE", f"file not found: {src}")
-    if src.is_dir():
-        raise InputError("SCENARIO|STORE", f"{src} is a folder, not a scenario file or sweep store")
+    # a regular file only: a FIFO or device would hang the store sniffing below
+    try:
+        regular_file(src, label=str(src), what="scenario file or sweep store")
+    except InputError as exc:
+        if exc.problems[0].message == "no such file":
+            raise InputError("SCENARIO|STORE", f"file not found: {src}") from None
+        raise
     if not rep.is_store(src) and src.suffix.lower() in DATA_SUFFIXES:
         raise InputError("SCENARIO|STORE", f"{src.name} is a {src.suffix.lower()[1:].upper()} data file; report expects "
                                            "a scenario file (.toml) or a sweep store (.sqlite)")
     rep.check_out_dir_usable(args.out)
     if rep.is_store(src) and overrides(args):
         raise InputError("--replicates/--seed", "apply to a scenario file, not to a sweep store")
-    files, results = rep.report(src, args.out, overrides=overrides(args), progress=lambda m: note(f"simcheck: {m}"))
+    files, results = rep.report(src, args.out, overrides=overrides(args), allow_outside_files=args.allow_outside_files, progress=lambda m: note(f"simcheck: {m}"))
     if args.json:
         emit_json({"report": files.to_dict(), "summary": results.to_dict()})
         return 0

@@ -10,6 +10,7 @@ from simcheck import CAUTION
 from simcheck.cli.common import add_json, add_sim_overrides, emit_json, table
 from simcheck.bound_text import bound_words, coverage_words
 from simcheck.cli.check import CLI_FIELDS, SearchProgress, add_bound_option, add_method_option, bound_overrides, run_seed
+from simcheck.cli.options import add_allow_outside
 from simcheck.errors import Collector
 
 BUDGET_MIN, BUDGET_MAX = 100, 10**12
@@ -46,6 +47,7 @@ def add_parser(subparsers) -> None:
     add_bound_option(p)
     add_sim_overrides(p)
     add_json(p)
+    add_allow_outside(p)
     p.set_defaults(run=run)
 
 
@@ -65,7 +67,7 @@ def run(args: argparse.Namespace) -> int:
             overrides["target.window"] = float(w)
     c.raise_if_any()
     overrides.update(bound_overrides(args))
-    scenario = load_scenario(args.scenario, overrides or None)
+    scenario = load_scenario(args.scenario, overrides or None, allow_outside_files=args.allow_outside_files)
     seed = run_seed(scenario, args.seed)
     with SearchProgress(budget=overrides.get("simulation.budget", getattr(scenario, "budget", None))) as prog:
         res = run_task(scenario, "search", n_min=args.n_min, n_max=args.n_max, method=args.method,

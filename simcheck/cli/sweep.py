@@ -8,6 +8,7 @@ import sys
 import time
 
 from simcheck.cli.common import add_json, emit_json, error_line, note
+from simcheck.cli.options import add_allow_outside
 
 # Plain progress lines (stderr not a terminal) at most this often, in seconds.
 PLAIN_EVERY = 30.0
@@ -33,6 +34,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("--scheduler", metavar="ADDR",
                    help="Dask scheduler address, e.g. tcp://10.0.0.5:8786 (implies --backend dask)")
     add_json(p)
+    add_allow_outside(p)
     p.set_defaults(run=run)
 
 
@@ -165,8 +167,13 @@ def run(args: argparse.Namespace) -> int:
     old = signal.signal(signal.SIGTERM, _sigterm)
     resume = f"run the same command again to resume: {resume_command(args)}"
     try:
+        sweep = args.sweep
+        if args.allow_outside_files:
+            from simcheck.sweep.grid import read_sweep
+
+            sweep = read_sweep(args.sweep, allow_outside_files=True)
         summary = run_sweep(
-            args.sweep, args.store, jobs=args.jobs, backend=backend, scheduler=args.scheduler,
+            sweep, args.store, jobs=args.jobs, backend=backend, scheduler=args.scheduler,
             on_start=progress.start, on_cell=on_cell,
             on_notice=lambda line: note(f"sweep: note: {line}"), on_validate=_Checking(),
         )

@@ -11,25 +11,25 @@ a non-bernoulli model) and :class:`ScipyModel` (Python API,
 from __future__ import annotations
 
 import math
-import os
 from typing import Any
 
 import numpy as np
 from scipy import stats
 
 from simcheck.errors import Collector, InputError
+from simcheck.files import read_csv_column, regular_file, resolve_data_path
 from simcheck.models.base import Model, StoredMoments, ZeroOneMoments, register
-from simcheck.models.continuous import ParamTable, event_args, suggest
+from simcheck.models.continuous import ParamTable, event_args, prob_ok
 from simcheck.models.discrete import SUM_TOL
 
 __all__ = ["ZeroInflated", "Mixture", "Empirical", "EventModel", "ScipyModel"]
 
 
-def _build(spec: Any, base_dir: str | None) -> Model:
+def _build(spec: Any, base_dir: str | None, allow_outside_files: bool = False) -> Model:
     # Imported here: simcheck.models imports this module while it initialises.
     from simcheck.models import make_model
 
-    return make_model(spec, base_dir=base_dir)
+    return make_model(spec, base_dir=base_dir, allow_outside_files=allow_outside_files)
 
 
 def _raw_moments(m: Model) -> tuple[float, float, float | None]:
@@ -67,15 +67,17 @@ class ZeroInflated(StoredMoments):
     name = "zero-inflated"
     wants_base_dir = True
 
-    def __init__(self, params: dict[str, Any], *, base_dir: str | None = None) -> None:
+    def __init__(self, params: dict[str, Any], *, base_dir: str | None = None,
+                 allow_outside_files: bool = False) -> None:
         t = ParamTable(self.name, params, ["zero_prob", "inner"])
         pi = t.number("zero_prob", low=0, high=1, low_open=True, high_open=True)
+        prob_ok(t.c, "zero_prob", pi, upper=True)
         inner = None
         if not t.has("inner"):
             t.c.add("inner", 'missing; give the non-zero part as a table, e.g. inner = {model = "lognormal", mean = 50, cv = 1}')
         else:
             try:
-                inner = _build(t.p["inner"], base_dir)
+                inner = _build(t.p["inner"], base_dir, allow_outside_files)
             except InputError as e:
                 t.c.extend(e.prefixed("inner"))
         t.done()
@@ -127,9 +129,12 @@ class Mixture(StoredMoments):
     name = "mixture"
     wants_base_dir = True
 
-    def __init__(self, params: dict[str, Any], *, base_dir: str | None = None) -> None:
+    def __init__(self, params: dict[str, Any], *, base_dir: str | None = None,
+                 allow_outside_files: bool = False) -> None:
         t = ParamTable(self.name, params, ["weights", "components"])
         w = t.numbers("weights", low=0, high=1, low_open=True)
+        for i, wi in enumerate(w or []):
+            prob_ok(t.c, f"weights[{i}]", wi)
         comps: list[Model] | None = None
         if not t.has("components"):
             t.c.add("components", 'missing; give a list of model tables, e.g. components = [{model = "normal", mean = 10, sd = 2}, ...]')
@@ -139,7 +144,7 @@ class Mixture(StoredMoments):
             comps, ok = [], True
             for i, spec in enumerate(t.p["components"]):
                 try:
-                    comps.append(_build(spec, base_dir))
+                    comps.append(_build(spec, base_dir, allow_outside_files))
                 except InputError as e:
                     t.c.extend(e.prefixed(f"components[{i}]"))
                     ok = False
@@ -198,6 +203,13 @@ class Mixture(StoredMoments):
 
 
 @register("empirical")
+def pd_series(values: np.ndarray):
+    """A pandas Series of already-checked numbers (for the shared checks of pilot values)."""
+    import pandas as pd
+
+    return pd.Series(values)
+
+
 class Empirical(StoredMoments):
     """Resampling with replacement from pilot values: a CSV column or values given directly.
 
@@ -220,7 +232,8 @@ class Empirical(StoredMoments):
     wants_base_dir = True
     sd_divisor = "n"
 
-    def __init__(self, params: dict[str, Any], *, base_dir: str | None = None) -> None:
+    def __init__(self, params: dict[str, Any], *, base_dir: str | None = None,
+                 allow_outside_files: bool = False) -> None:
         t = ParamTable(self.name, params, ["file", "column", "values"])
         self.notes: tuple[str, ...] = ()
         which = t.choose(("file", "column"), ("values",))
@@ -228,7 +241,7 @@ class Empirical(StoredMoments):
         values = None
         if which == 0:
             file, column = t.text("file"), t.text("column")
-            path, values = self._from_file(t.c, file, column, base_dir)
+            path, values = self._from_file(t.c, file, column, base_dir, allow_outside_files)
         elif which == 1:
             values = self._from_values(t.c, t.p["values"])
         t.done()
@@ -257,27 +270,24 @@ class Empirical(StoredMoments):
         """The empirical model of values given from Python (list, numpy array or pandas Series)."""
         return cls({"values": values})
 
-    def _from_file(self, c: Collector, file, column, base_dir):
-        import pandas as pd
-
+    def _from_file(self, c: Collector, file, column, base_dir, allow_outside_files: bool = False):
+        # Errors name the line and column, never a cell's text (see simcheck.files).
         if file is None:
             return None, None
-        path = file if os.path.isabs(file) or base_dir is None else os.path.join(base_dir, file)
-        if not os.path.isfile(path):
-            c.add("file", f"no such file: {path}")
-            return path, None
-        if column is None:
-            return path, None
         try:
-            frame = pd.read_csv(path)
-        except Exception as e:  # pandas raises many kinds for unreadable files
-            c.add("file", f"cannot read {path} as CSV: {str(e).splitlines()[0] if str(e) else type(e).__name__}")
-            return path, None
-        cols = [str(k) for k in frame.columns]
-        if column not in cols:
-            c.add("column", f"no column {column!r} in {file}; {suggest(column, cols)}")
-            return path, None
-        return path, self._numeric(c, "column", frame[frame.columns[cols.index(column)]], f"column {column!r} of {file}")
+            path = str(resolve_data_path(file, base_dir, field="file", allow_outside=allow_outside_files))
+            if column is None:
+                regular_file(path, field="file", what="data file")
+                return path, None
+            v, k = read_csv_column(path, column, file_field="file", column_field="column",
+                                   value_field="column", name=file)
+        except InputError as e:
+            for pr in e.problems:
+                c.add(pr.field, pr.message if file in pr.message else f"{file}: {pr.message}")
+            return None, None
+        if k:
+            self.notes = (f"{k} empty value{'s' if k != 1 else ''} dropped from column {column!r}",)
+        return path, self._numeric(c, "column", pd_series(v), f"column {column!r} of {file}")
 
     def _from_values(self, c: Collector, raw: Any) -> np.ndarray | None:
         import pandas as pd
@@ -375,6 +385,10 @@ class EventModel(ZeroOneMoments):
             raise InputError(field, f"the event never happens (P = 0): {what}")
         if p >= 1.0:
             raise InputError(field, f"the event always happens (P = 1): {what}")
+        c = Collector()
+        if not prob_ok(c, field, p, upper=True):
+            raise InputError(field, f"the event's probability {p:.3g} is too close to {'1' if p > 0.5 else '0'} "
+                                    f"for simulated draws to follow it (the generator's resolution is 2^-53): {what}")
         self.inner, self.values, self.above, self.p = inner, vals, a, p
         self.iid = inner.iid
         self.true_value_note = inner.true_value_note

@@ -23,11 +23,17 @@ import numpy as np
 from scipy import special, stats
 
 from simcheck.errors import Collector, InputError
+from simcheck.files import VALUE_LIMIT as FILE_VALUE_LIMIT
 from simcheck.models.base import Model, StoredMoments, register
 
 __all__ = [
     "ParamTable",
     "event_args",
+    "moments_ok",
+    "bound_ok",
+    "prob_ok",
+    "VALUE_LIMIT",
+    "PROB_MIN",
     "Normal",
     "Lognormal",
     "Gamma",
@@ -208,10 +214,63 @@ def event_args(values: Any = None, above: Any = None) -> tuple[np.ndarray | None
     return np.unique(np.asarray(vals, dtype=np.float64)), None
 
 
+#: Largest |mean| and SD of a model: larger values make the engine's sums of
+#: squares over up to 10**6 values overflow (same bound as data files).
+VALUE_LIMIT = FILE_VALUE_LIMIT
+#: Smallest SD of a model: smaller spreads underflow when squared.
+SPREAD_MIN = 1e-150
+#: Smallest SD relative to |mean|: below it the spread is lost in the rounding of
+#: the values themselves (float64 keeps about 16 digits).
+RESOLUTION = 1e-12
+#: Smallest positive probability or weight: numpy draws uniforms on a 2**-53 grid,
+#: so a smaller chance could never (or only by rounding) be drawn.
+PROB_MIN = 2.0**-53
+LOG_VALUE_LIMIT = math.log(FILE_VALUE_LIMIT)
+
+
 def moments_ok(c: Collector, field: str, mean: float, sd: float, what: str) -> bool:
-    """Record a problem when the implied moments are not finite numbers."""
+    """Record a problem when the implied moments cannot be simulated in floating point.
+
+    Refused: a mean or SD that is not finite; |mean| or SD above
+    :data:`VALUE_LIMIT` (the simulation's sums of squares would overflow); an
+    SD below :data:`SPREAD_MIN` (its square underflows) or below
+    :data:`RESOLUTION` times |mean| (the spread is lost in rounding).
+    """
     if not (math.isfinite(mean) and math.isfinite(sd)):
         c.add(field, f"these parameters give a {what} with no finite mean or SD (mean={mean:g}, sd={sd:g})")
+        return False
+    if abs(mean) > VALUE_LIMIT or sd > VALUE_LIMIT:
+        c.add(field, f"these parameters give a {what} with mean {mean:g} and SD {sd:g}: values this large overflow "
+                     f"floating point in the simulation's sums of squares (|mean| and SD must be <= {VALUE_LIMIT:g})")
+        return False
+    if sd < SPREAD_MIN:
+        c.add(field, f"these parameters give a {what} with SD {sd:g}: a spread this small underflows floating point "
+                     f"when squared (SD must be >= {SPREAD_MIN:g}); rescale the data's units")
+        return False
+    if sd < RESOLUTION * abs(mean):
+        c.add(field, f"these parameters give a {what} with SD {sd:g} at mean {mean:g}: the spread is below "
+                     f"floating-point resolution (SD must be >= {RESOLUTION:g} x |mean|); shift or rescale the data's units")
+        return False
+    return True
+
+
+def bound_ok(c: Collector, field: str, value: float | None) -> bool:
+    """Record a problem when a bound of the values lies beyond +/- :data:`VALUE_LIMIT`."""
+    if value is not None and math.isfinite(value) and abs(value) > VALUE_LIMIT:
+        c.add(field, f"must lie within +/-{VALUE_LIMIT:g}: larger values overflow floating point in the "
+                     f"simulation's sums of squares, got {value:g}")
+        return False
+    return True
+
+
+def prob_ok(c: Collector, field: str, p: float | None, *, upper: bool = False) -> bool:
+    """Record a problem when a positive probability is below :data:`PROB_MIN` (or, with ``upper``, within it of 1)."""
+    if p is None:
+        return True
+    if 0 < p < PROB_MIN or (upper and 1 - PROB_MIN < p < 1):
+        side = f"at most 1 - {PROB_MIN:.2g}" if p > 0.5 else f"at least {PROB_MIN:.2g} (2^-53)"
+        c.add(field, f"must be 0 or {side}: a chance this close to {'1' if p > 0.5 else '0'} is below the resolution "
+                     f"of the random number generator, so the draws would not follow it; got {p:g}")
         return False
     return True
 
@@ -256,6 +315,8 @@ class Normal(_Continuous):
         t = ParamTable(self.name, params, ["mean", "sd"])
         mu = t.number("mean")
         sd = t.number("sd", low=0, low_open=True)
+        if mu is not None and sd is not None:
+            moments_ok(t.c, "sd", mu, sd, "normal")
         t.done()
         self._given = t.given()
         self._mean, self._sd = float(mu), float(sd)
@@ -330,7 +391,11 @@ class Lognormal(_Continuous):
                 self._mean = float(np.exp(self.meanlog + s2 / 2))
                 self.cv = float(np.sqrt(np.expm1(s2)))
                 self._sd = self._mean * self.cv
-            moments_ok(t.c, "sdlog" if which == 1 else "cv", self._mean, self._sd, "lognormal")
+            field = "sdlog" if which == 1 else "cv"
+            if moments_ok(t.c, field, self._mean, self._sd, "lognormal") and self.meanlog + 9 * self.sdlog > LOG_VALUE_LIMIT:
+                # exp(meanlog + 9 sdlog) is passed once in about 10**19 draws
+                t.c.add(field, f"gives a lognormal whose upper tail (meanlog + 9 sdlog = {self.meanlog + 9 * self.sdlog:.4g}) "
+                               f"reaches values beyond {VALUE_LIMIT:g}, which overflow the simulation's sums of squares")
         t.done()
         self._given = t.given()
 
@@ -429,6 +494,8 @@ class Exponential(_Continuous):
     def __init__(self, params: dict[str, Any]) -> None:
         t = ParamTable(self.name, params, ["mean"])
         m = t.number("mean", low=0, low_open=True)
+        if m is not None:
+            moments_ok(t.c, "mean", m, m, "exponential")
         t.done()
         self._given = t.given()
         self._mean = float(m)
@@ -524,7 +591,7 @@ class Beta(_Continuous):
         t = ParamTable(self.name, params, ["mean", "sd", "a", "b", "lower", "upper"])
         lo = t.number("lower", required=False, default=0.0)
         hi = t.number("upper", required=False, default=1.0)
-        bounds = lo is not None and hi is not None
+        bounds = bound_ok(t.c, "lower", lo) & bound_ok(t.c, "upper", hi) and lo is not None and hi is not None
         if bounds and not lo < hi:
             t.c.add("upper", f"must be > lower ({lo:g}), got {hi:g}")
             bounds = False
@@ -553,6 +620,9 @@ class Beta(_Continuous):
             b = t.number("b", low=0, low_open=True)
             if a is not None and b is not None:
                 self.a, self.b = float(a), float(b)
+        if not t.c.problems:
+            self.lower, self.upper = float(lo), float(hi)
+            moments_ok(t.c, "sd" if which == 0 else "b", self.mean, self.sd, "beta")
         t.done()
         self._given = t.given()
         self.lower, self.upper = float(lo), float(hi)
@@ -567,13 +637,15 @@ class Beta(_Continuous):
 
     @property
     def sd(self) -> float:
+        # written as mu (1 - mu) / (a + b + 1), which neither underflows nor divides 0 by 0 for tiny a, b
         a, b = self.a, self.b
-        return self._w * math.sqrt(a * b / ((a + b) ** 2 * (a + b + 1)))
+        mu = a / (a + b)
+        return self._w * math.sqrt(mu * (b / (a + b)) / (a + b + 1))
 
     @property
     def skewness(self) -> float:
         a, b = self.a, self.b
-        return 2 * (b - a) * math.sqrt(a + b + 1) / ((a + b + 2) * math.sqrt(a * b))
+        return 2 * (b - a) * math.sqrt(a + b + 1) / ((a + b + 2) * math.sqrt(a) * math.sqrt(b))
 
     def _sf(self, x: float) -> float:
         return stats.beta.sf(x, self.a, self.b, loc=self.lower, scale=self._w)
@@ -602,8 +674,11 @@ class Uniform(_Continuous):
         t = ParamTable(self.name, params, ["lower", "upper"])
         lo = t.number("lower")
         hi = t.number("upper")
-        if lo is not None and hi is not None and not lo < hi:
-            t.c.add("upper", f"must be > lower ({lo:g}), got {hi:g}")
+        if bound_ok(t.c, "lower", lo) & bound_ok(t.c, "upper", hi) and lo is not None and hi is not None:
+            if not lo < hi:
+                t.c.add("upper", f"must be > lower ({lo:g}), got {hi:g}")
+            else:
+                moments_ok(t.c, "upper", 0.5 * (lo + hi), (hi - lo) / math.sqrt(12.0), "uniform")
         t.done()
         self._given = t.given()
         self.lower, self.upper = float(lo), float(hi)
@@ -661,7 +736,8 @@ class TruncatedNormal(StoredMoments, _Continuous):
             t.c.add("lower", "missing; a truncated normal needs lower, upper or both")
         elif lo is not None and hi is not None and not lo < hi:
             t.c.add("upper", f"must be > lower ({lo:g}), got {hi:g}")
-        elif mu is not None and sd is not None and lo is not None and hi is not None and not t.c.problems:
+        elif (mu is not None and sd is not None and lo is not None and hi is not None and not t.c.problems
+              and moments_ok(t.c, "sd", mu, sd, "parent normal")):
             alpha, beta = (lo - mu) / sd, (hi - mu) / sd
             # Mirror an upper-tail interval so the CDF values are small, not near 1.
             self._flip = alpha > 0
@@ -721,6 +797,8 @@ class StudentT(_Continuous):
                           f"for its mean can be judged; got {df:g}")
         mu = t.number("mean")
         sc = t.number("scale", low=0, low_open=True)
+        if df is not None and df > 2 and mu is not None and sc is not None:
+            moments_ok(t.c, "scale", mu, sc * math.sqrt(df / (df - 2.0)), "Student t")
         t.done()
         self._given = t.given()
         self.df, self._mean, self.scale = float(df), float(mu), float(sc)

@@ -15,13 +15,16 @@ import numpy as np
 from scipy import stats
 
 from simcheck.models.base import Model, ZeroOneMoments, register
-from simcheck.models.continuous import ParamTable, event_args, moments_ok
+from simcheck.models.continuous import ParamTable, bound_ok, event_args, moments_ok, prob_ok
 
 __all__ = ["Categorical", "Bernoulli", "Poisson", "NegativeBinomial"]
 
 #: Allowed |sum - 1| of a list of probabilities or weights (float rounding of
 #: entries such as 0.1 + 0.2 + 0.7).
 SUM_TOL = 1e-9
+#: numpy's largest Poisson rate inside its negative-binomial sampler
+#: (``POISSON_LAM_MAX`` in numpy's generator: int64 max minus 10 of its square roots)
+NB_LAM_MAX = float(np.iinfo(np.int64).max) - 10 * math.sqrt(float(np.iinfo(np.int64).max))
 
 
 class _Discrete(Model):
@@ -53,6 +56,10 @@ class Categorical(_Discrete):
                 if v in seen:
                     t.c.add(f"values[{i}]", f"repeats the value {v:g}; list each value once")
                 seen.add(v)
+                bound_ok(t.c, f"values[{i}]", v)
+        if probs is not None:
+            for i, q in enumerate(probs):
+                prob_ok(t.c, f"probs[{i}]", q)
         if vals is not None and probs is not None:
             if len(vals) != len(probs):
                 t.c.add("probs", f"has {len(probs)} entries but values has {len(vals)}; give one probability per value")
@@ -62,6 +69,9 @@ class Categorical(_Discrete):
                     t.c.add("probs", f"must sum to 1, got {s:.12g}")
                 elif sum(1 for p in probs if p > 0) < 2:
                     t.c.add("probs", "puts all probability on one value; the data would not vary")
+        if not t.c.problems:
+            m, sd, _ = self._moments(np.asarray(vals, dtype=np.float64), np.asarray(probs, dtype=np.float64))
+            moments_ok(t.c, "probs", m, sd, "categorical law")
         t.done()
         self._given = t.given()
         v = np.asarray(vals, dtype=np.float64)
@@ -71,11 +81,18 @@ class Categorical(_Discrete):
         cum = np.cumsum(p)
         cum[-1] = 1.0  # u < 1 always finds an index
         self._cum = cum
-        m = float(np.dot(p, v))
-        var = float(np.dot(p, (v - m) ** 2))
-        self._mean, self._sd = m, math.sqrt(var)
-        self._skew = float(np.dot(p, (v - m) ** 3)) / var**1.5
+        self._mean, self._sd, self._skew = self._moments(v, p)
         self.zero_one = bool(np.all((v == 0.0) | (v == 1.0)))
+
+    @staticmethod
+    def _moments(v: np.ndarray, p: np.ndarray) -> tuple[float, float, float]:
+        p = p / p.sum()
+        m = float(np.dot(p, v))
+        with np.errstate(all="ignore"):
+            sd = math.sqrt(float(np.dot(p, (v - m) ** 2)))
+            # scaled before cubing, so a tiny SD does not underflow to 0
+            skew = float(np.dot(p, ((v - m) / sd) ** 3)) if sd > 0 else math.nan
+        return m, sd, skew
 
     @property
     def mean(self) -> float:
@@ -119,6 +136,7 @@ class Bernoulli(ZeroOneMoments, _Discrete):
     def __init__(self, params: dict[str, Any]) -> None:
         t = ParamTable(self.name, params, ["p"])
         p = t.number("p", low=0, high=1, low_open=True, high_open=True)
+        prob_ok(t.c, "p", p, upper=True)
         t.done()
         self._given = t.given()
         self.p = float(p)
@@ -213,8 +231,12 @@ class NegativeBinomial(_Discrete):
             if not 0 < self.p < 1:
                 t.c.add("dispersion", f"with mean {m:g} gives a success probability of {self.p:g}, "
                                       f"outside (0, 1) in floating point")
-            else:
-                moments_ok(t.c, "dispersion", m, math.sqrt(m + m * m / k), "negative binomial")
+            elif moments_ok(t.c, "dispersion", m, math.sqrt(m + m * m / k), "negative binomial"):
+                # numpy draws Poisson(Gamma) counts and refuses a Gamma scale whose
+                # tail may pass its Poisson limit: mean + 10 mean / sqrt(dispersion)
+                if m + 10 * m / math.sqrt(k) > NB_LAM_MAX:
+                    t.c.add("dispersion", f"{k:g} with mean {m:g} is too small for numpy's negative-binomial sampler "
+                                          f"(it needs mean + 10 mean / sqrt(dispersion) <= {NB_LAM_MAX:.3g})")
         t.done()
         self._given = t.given()
         self._mean, self.dispersion = float(m), float(k)

@@ -26,6 +26,7 @@ from typing import Any
 import numpy as np
 
 from simcheck.errors import Collector, InputError
+from simcheck.files import read_csv_column
 from simcheck.models.base import Model
 
 #: largest population drawn from a model (8 bytes per unit held in memory)
@@ -120,33 +121,19 @@ def fixed_count_population(size: int, events: int) -> FinitePopulation:
 
 
 def read_population(file: str, column: str, size: int | None = None) -> FinitePopulation:
-    """The population from a CSV column (empty cells skipped), read with pandas.
+    """The population from a CSV column (empty cells skipped).
+
+    Read with :func:`simcheck.files.read_csv_column`: ragged rows and cells
+    that are not finite numbers (also the text ``nan``) are refused, naming
+    the line and column, never the cell's text.
 
     Raises
     ------
     InputError
         ``population.file`` / ``population.column`` / ``population.size`` problems.
     """
-    import pandas as pd
-
     p = Path(file)
-    if not p.is_file():
-        raise InputError("population.file", f"no such file: {file}")
-    try:
-        frame = pd.read_csv(p, usecols=[column], encoding="utf-8-sig")
-    except ValueError as e:
-        raise InputError("population.column", f"no column {column!r} in {file}") from e
-    except Exception as e:  # pandas parser errors: report as a file problem
-        raise InputError("population.file", f"cannot read {file}: {e}".replace("\n", " ")) from e
-    col = pd.to_numeric(frame[column], errors="coerce")
-    raw = frame[column]
-    bad = col.isna() & raw.notna() & (raw.astype(str).str.strip() != "")
-    if bad.any():
-        i = int(np.flatnonzero(bad.to_numpy())[0])
-        raise InputError("population.file", f"{file} line {i + 2}: column {column!r} must hold finite numbers, got {raw.iloc[i]!r}")
-    v = col.dropna().to_numpy(dtype=np.float64)
-    if not np.all(np.isfinite(v)):
-        raise InputError("population.file", f"{file}: column {column!r} must hold finite numbers")
+    v, _ = read_csv_column(p, column, file_field="population.file", column_field="population.column", name=file)
     if v.size < 2:
         raise InputError("population.file", f"{file}: column {column!r} needs at least 2 values, got {v.size}")
     if size is not None and int(size) != v.size:

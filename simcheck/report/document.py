@@ -724,8 +724,12 @@ def write_report(out_dir: str | Path, results: StudyResults | SweepResults) -> R
 
 
 def report(source: str | Path, out_dir: str | Path, *, overrides: Mapping[str, Any] | None = None,
-           progress: Progress = None) -> tuple[ReportFiles, StudyResults | SweepResults]:
-    """Report on a scenario file (runs it) or a sweep store (reads it)."""
+           progress: Progress = None, allow_outside_files: bool = False) -> tuple[ReportFiles, StudyResults | SweepResults]:
+    """Report on a scenario file (runs it) or a sweep store (reads it).
+
+    ``allow_outside_files`` lets the scenario's data files lie outside its
+    folder (see :func:`simcheck.scenario.load_scenario`).
+    """
     if is_store(source):
         results: StudyResults | SweepResults = read_sweep(source)
         if len(results.frame) == 0:
@@ -735,7 +739,8 @@ def report(source: str | Path, out_dir: str | Path, *, overrides: Mapping[str, A
     else:
         from simcheck.scenario import load_scenario
 
-        scenario = load_scenario(source, overrides=dict(overrides) if overrides else None)
+        scenario = load_scenario(source, overrides=dict(overrides) if overrides else None,
+                                 allow_outside_files=allow_outside_files)
         check_out_dir(out_dir)
         results = run_study(scenario, progress=progress)
     return write_report(out_dir, results), results

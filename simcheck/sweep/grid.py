@@ -33,6 +33,7 @@ from pathlib import Path
 from typing import Any, Callable
 
 from simcheck.errors import Collector, InputError, Problem
+from simcheck.files import parse_toml, read_text, resolve_data_path
 from simcheck.scenario import N_LIMIT, SEED_MAX
 
 TASKS = ("search", "check", "curve")
@@ -75,6 +76,8 @@ class SweepSpec:
     n_max: int | None = None
     title: str | None = None
     zipped: tuple[tuple[str, tuple[Any, ...]], ...] = ()
+    #: data files and the base may lie outside the sweep's folder (``--allow-outside-files``)
+    allow_outside_files: bool = field(default=False, compare=False)
 
     @property
     def size(self) -> int:
@@ -183,8 +186,12 @@ def _canonical(value: Any) -> str:
         return json.dumps(value, sort_keys=True, default=str)
 
 
-def read_sweep(path: str | Path) -> SweepSpec:
+def read_sweep(path: str | Path, *, allow_outside_files: bool = False) -> SweepSpec:
     """Read and validate a sweep file (the sweep-level keys only).
+
+    ``base`` is resolved relative to the sweep file's folder and must stay
+    inside it unless ``allow_outside_files`` (which also reaches the
+    scenarios' data files).
 
     Raises
     ------
@@ -193,16 +200,9 @@ def read_sweep(path: str | Path) -> SweepSpec:
     """
     path = Path(path)
     source = str(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError("SWEEP", f"file not found: {source}") from None
-    except OSError as exc:
-        raise InputError("SWEEP", f"cannot read {source}: {exc.strerror or exc}") from None
-    try:
-        table = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError("", f"not valid TOML: {exc}", source=source) from None
+    # regular files of at most 1 MiB, UTF-8 without BOM; TOML errors by line and column only
+    text = read_text(path, label=source, what="sweep file")
+    table = parse_toml(text, label=source)
 
     c = Collector()
     for k in table:
@@ -294,17 +294,17 @@ def read_sweep(path: str | Path) -> SweepSpec:
     elif not isinstance(base, str) or not base:
         c.add("base", f"must be a file name, got {base!r}")
     else:
-        base_path = (path.parent / base) if not Path(base).is_absolute() else Path(base)
         try:
-            base_text = base_path.read_text(encoding="utf-8")
-        except FileNotFoundError:
-            c.add("base", f"file not found: {base_path}")
-        except OSError as exc:
-            c.add("base", f"cannot read {base_path}: {exc.strerror or exc}")
+            base_path = resolve_data_path(base, path.parent, field="base", allow_outside=allow_outside_files,
+                                          folder="the sweep file's folder")
+            base_text = read_text(base_path, field="base", what="base scenario")
+        except InputError as exc:
+            for p in exc.problems:
+                c.add("base", p.message if base in p.message else f"{base}: {p.message}")
     c.raise_if_any(source)
 
     if seed is None:
-        seed = _base_seed(base_path, base_text, source)
+        seed = _base_seed(base_path, base_text, source, allow_outside_files)
     return SweepSpec(
         path=path,
         text=text,
@@ -318,6 +318,7 @@ def read_sweep(path: str | Path) -> SweepSpec:
         n_min=bounds["n_min"],
         n_max=bounds["n_max"],
         title=title,
+        allow_outside_files=allow_outside_files,
     )
 
 
@@ -349,17 +350,15 @@ def _read_zip(c: Collector, raw: Any, varied: set[str]) -> tuple[tuple[str, tupl
     return tuple(out)
 
 
-def _base_seed(base_path: Path, base_text: str, source: str) -> int:
+def _base_seed(base_path: Path, base_text: str, source: str, allow_outside_files: bool = False) -> int:
     # The root seed defaults to the base scenario's simulation.seed; without one a
     # re-run could not reproduce, so resuming would mix two different experiments.
     from simcheck.scenario import scenario_from_dict
 
-    try:
-        scen = scenario_from_dict(
-            tomllib.loads(base_text), source=str(base_path), base_dir=str(base_path.resolve().parent)
-        )
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError("", f"not valid TOML: {exc}", source=str(base_path)) from None
+    scen = scenario_from_dict(
+        parse_toml(base_text, label=str(base_path)), source=str(base_path),
+        base_dir=str(base_path.resolve().parent), allow_outside_files=allow_outside_files,
+    )
     seed = getattr(scen, "seed", None)
     if seed is None:
         raise InputError(
@@ -390,10 +389,7 @@ def expand(spec: SweepSpec, progress: Callable[[int, int], None] | None = None) 
     from simcheck.tasks import run_task
 
     source = str(spec.path)
-    try:
-        base_table = tomllib.loads(spec.base_text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError("", f"not valid TOML: {exc}", source=str(spec.base_path)) from None
+    base_table = parse_toml(spec.base_text, label=str(spec.base_path))
 
     base_dir = str(spec.base_path.resolve().parent)
     cells: list[Cell] = []
@@ -408,7 +404,8 @@ def expand(spec: SweepSpec, progress: Callable[[int, int], None] | None = None) 
         try:
             for k, v in values.items():
                 table = set_dotted(table, k, v)  # returns a deep copy; the base stays as read
-            scen = scenario_from_dict(table, source=str(spec.base_path), base_dir=base_dir)
+            scen = scenario_from_dict(table, source=str(spec.base_path), base_dir=base_dir,
+                                      allow_outside_files=spec.allow_outside_files)
             run_task(scen, spec.task, validate_only=True, **kwargs)
         except InputError as exc:
             bad.append((values, exc))
