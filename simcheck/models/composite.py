@@ -202,7 +202,6 @@ class Mixture(StoredMoments):
                 out[mask] = comp.draw(rng, (1, cnt)).ravel()
 
 
-@register("empirical")
 def pd_series(values: np.ndarray):
     """A pandas Series of already-checked numbers (for the shared checks of pilot values)."""
     import pandas as pd
@@ -210,6 +209,7 @@ def pd_series(values: np.ndarray):
     return pd.Series(values)
 
 
+@register("empirical")
 class Empirical(StoredMoments):
     """Resampling with replacement from pilot values: a CSV column or values given directly.
 
