@@ -280,6 +280,8 @@ class SearchResult:
     #: n to enrol, ceil(n / (1 - dropout)) (set with ``dropout``; None when n is None)
     n_enrolled: int | None = None
     n_b_enrolled: int | None = None
+    #: stratified designs: the n of each stratum at ``n`` (JSON ``allocation``; only when stratified)
+    allocation: dict[str, int] | None = None
     # Evaluations made during the search, for figures (not in to_dict).
     curve: CurveResult | None = field(default=None, repr=False, compare=False)
     at_n: CheckResult | None = field(default=None, repr=False, compare=False)
@@ -321,12 +323,16 @@ class SearchResult:
             "n_enrolled": self.n_enrolled if self.dropout else self.n,
             "n_b_enrolled": self.n_b_enrolled if self.dropout else self.n_b,
         }
+        if self.allocation is not None:
+            d["allocation"] = dict(self.allocation)
         return clean_json(d)
 
     def to_frame(self):
         import pandas as pd
 
         d = self.to_dict()
+        if "allocation" in d:
+            d["allocation"] = ", ".join(f"{k} {v}" for k, v in d["allocation"].items())
         d["n_range"] = None if d["n_range"] is None else f"{d['n_range'][0]}-{d['n_range'][1]}"
         d["targets"] = str(d["targets"])
         d["methods_that_reach"] = ", ".join(d["methods_that_reach"])

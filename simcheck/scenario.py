@@ -462,13 +462,8 @@ def validate(
     [simulation], [clusters], [population]), then the combination through
     :class:`~simcheck.design.Design` and what the engine would refuse.
     """
-    table = _prepared(table, source)
-    # planning values given as distributions: validated and run at their point values (the
-    # conditional answer); the table keeps them, so to_dict and sweep keys still see them
-    from simcheck import uncertain
-
-    given_table = table
-    table, planning = uncertain.split(table, source)
+    given_table = _prepared(table, source)
+    table, planning = _point_values(given_table, source)
     files = _Files(str(base_dir) if base_dir is not None else None, bool(allow_outside_files))
     c = Collector()
     _unknown_keys(c, table)
@@ -486,10 +481,8 @@ def validate(
                  and "strata" not in table)
     notices: list[str] = []
     model, model_b, strata = _data(c, table, tgt, files, from_file, notices)
-    if strata is None and model is not None and (tgt.event_values is not None or tgt.event_above is not None):
-        model = _wrap_event(c, model, tgt.event_values, tgt.event_above)
-        if model_b is not None:
-            model_b = _wrap_event(c, model_b, tgt.event_values, tgt.event_above)
+    if strata is None:
+        model, model_b = _events(c, tgt, model, model_b)
     methods: list[str] = []
     resamples = DEFAULT_RESAMPLES
     if method_t is not None:
@@ -501,6 +494,7 @@ def validate(
     if from_file and population is not None and (population.file or population.events is not None) and not c.problems:
         model = _population_model(c, population, tgt.estimand)
     n_max = _n_range(c, sim, population, clusters)
+    _strata_n_min(c, sim, strata, sim_t or {})
 
     design, designs = None, []
     if not c.problems and model is not None and methods:
@@ -534,6 +528,27 @@ def validate(
 
 
 # --- validation: the sections -------------------------------------------------
+def _point_values(table: dict[str, Any], source: str | None):
+    """The table with planning values given as distributions set to their point values, and those values.
+
+    They are validated and run at their point values (the conditional answer);
+    the scenario keeps the table as given, so to_dict and sweep keys still see them.
+    """
+    from simcheck import uncertain
+
+    return uncertain.split(table, source)
+
+
+def _events(c: Collector, tgt: "_Target", model, model_b):
+    """The models of a proportion whose event is named in [target] (event_values / event_above)."""
+    if model is None or (tgt.event_values is None and tgt.event_above is None):
+        return model, model_b
+    model = _wrap_event(c, model, tgt.event_values, tgt.event_above)
+    if model_b is not None:
+        model_b = _wrap_event(c, model_b, tgt.event_values, tgt.event_above)
+    return model, model_b
+
+
 def _prepared(table: Any, source: str | None) -> dict[str, Any]:
     """A private copy of the table, after the checks that must come before any other."""
     if not isinstance(table, Mapping):
@@ -697,6 +712,23 @@ def _n_range(c: Collector, sim: _Simulation, population, clusters) -> int | None
         default = "" if sim.n_max_given else " (the default)"
         c.add("simulation.n_max", f"must be > simulation.n_min ({n_min}), got {n_max}{default}")
     return n_max
+
+
+def _strata_n_min(c: Collector, sim: _Simulation, strata, sim_t: dict[str, Any]) -> None:
+    """A stratified sample has at least allocation.minimum units in every stratum: n_min follows."""
+    if strata is None or sim.n_min is None:
+        return
+    try:
+        low = int(sum(min(int(strata.minimum), int(N)) for N in strata.sizes))
+    except (TypeError, ValueError):
+        return  # the sizes or the minimum are reported elsewhere
+    if sim.n_min >= low:
+        return
+    if "n_min" in sim_t:
+        c.add("simulation.n_min", f"must be >= {low} for {len(strata.sizes)} strata of at least "
+              f"{strata.minimum} units each, got {sim.n_min}")
+    else:
+        sim.n_min = low
 
 
 def _designs(c: Collector, tgt: _Target, model, model_b, methods: list[str], sim: _Simulation,

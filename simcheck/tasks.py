@@ -215,7 +215,7 @@ def run_task(
     # compare() forwards its keywords to find_n()
     if scenario.path != "auto" and "path" in inspect.signature(search.find_n).parameters:
         kwargs["path"] = scenario.path
-    result = with_dropout(fn(*args, **kwargs), scenario.dropout)
+    result = with_allocation(with_dropout(fn(*args, **kwargs), scenario.dropout), design)
     if scenario.random_dropout:
         text = ("simulation.random_dropout applies to check only: this search uses the analysed n as fixed "
                 "and reports n_enrolled = ceil(n / (1 - dropout))")
@@ -241,6 +241,24 @@ def conditional_note(result: Any, scenario: Scenario) -> Any:
         return [one(r) for r in result]
     if isinstance(result, CurveResult):
         return dataclasses.replace(result, rows=tuple(one(r) for r in result.rows))
+    if isinstance(result, MethodComparison):
+        return dataclasses.replace(result, by_method=tuple(one(r) for r in result.by_method))
+    return one(result)
+
+
+def with_allocation(result: Any, design: Design) -> Any:
+    """Stratified designs: the search result(s) with the n of each stratum at the n found."""
+    import dataclasses
+
+    from simcheck.results import MethodComparison
+
+    if design.strata is None:
+        return result
+    from simcheck.engine.stratified import allocation_for
+
+    def one(r):
+        return dataclasses.replace(r, allocation=None if r.n is None else allocation_for(design, r.n))
+
     if isinstance(result, MethodComparison):
         return dataclasses.replace(result, by_method=tuple(one(r) for r in result.by_method))
     return one(result)

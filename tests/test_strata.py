@@ -251,3 +251,19 @@ def test_formula_cli_strata(capsys):
     code = main(["formula", "--estimand", "mean", "--margin", "8", "--stratum", "a:4200", "--json"])
     err = capsys.readouterr().err.strip().splitlines()
     assert code == 2 and len(err) == 1 and "--stratum 1" in err[0]
+
+
+def test_search_json_gives_the_allocation_at_the_n_found():
+    # INTERFACE.md (second round): a stratified search's JSON adds `allocation`, the n per stratum
+    from simcheck.tasks import run_task
+
+    t = _table(rule="proportional", margin=15.0)
+    t["target"]["coverage_tolerance"] = 0.03
+    t["simulation"].update({"replicates": 1000, "n_max": 1500})
+    row = run_task(scenario_from_dict(t), "search").to_dict()
+    assert row["n"] is not None, row["notes"]
+    assert list(row["allocation"]) == ["harbour", "hills", "old town", "farms"]
+    assert sum(row["allocation"].values()) == row["n"]
+    # proportional shares, by largest remainders (Cochran 1977, section 5.3): within one unit of n N_h / N
+    for k, N_h in zip(row["allocation"].values(), N_H):
+        assert abs(k - row["n"] * N_h / sum(N_H)) < 1
