@@ -39,9 +39,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
 
 from simcheck.intervals.base import Method, register
+from simcheck.intervals.mean import t_ppf
 
 __all__ = ["ClusterSums", "cluster_sums", "ratio_estimate", "cluster_t_interval", "cluster_t_proportion"]
 
@@ -128,7 +128,7 @@ def cluster_t_interval(s: ClusterSums, confidence: float) -> tuple[np.ndarray, n
     """
     r, se = ratio_estimate(s)
     k = np.asarray(s.k, dtype=float)
-    t = stats.t.ppf(0.5 + 0.5 * float(confidence), k - 1.0)
+    t = t_ppf(0.5 + 0.5 * float(confidence), k - 1.0)
     half = t * se
     return r - half, r + half
 

@@ -10,6 +10,7 @@ always passes n >= 2, so n - 1 > 0.
 from __future__ import annotations
 
 import functools
+import threading
 
 import numpy as np
 from scipy import stats
@@ -17,17 +18,29 @@ from scipy import stats
 from simcheck.intervals.base import Method, Summary, register
 
 
+#: scipy before 1.13 computes the t quantile with Fortran code (cdflib) that keeps
+#: global state: two threads calling it at once can loop for ever (seen with scipy
+#: 1.11, the declared floor). Every t quantile in simcheck goes through t_ppf.
+_T_PPF_LOCK = threading.Lock()
+
+
+def t_ppf(q, df):
+    """``scipy.stats.t.ppf(q, df)``, one call at a time across threads (see ``_T_PPF_LOCK``)."""
+    with _T_PPF_LOCK:
+        return stats.t.ppf(q, df)
+
+
 def _t_quantile(q: float, df) -> np.ndarray | float:
     """t quantile; scalar degrees of freedom are cached (scipy's ppf costs far
     more than the interval arithmetic on a chunk of replicates)."""
     if np.ndim(df) == 0:
         return _t_scalar(float(q), float(df))
-    return stats.t.ppf(q, df)
+    return t_ppf(q, df)
 
 
 @functools.lru_cache(maxsize=4096)
 def _t_scalar(q: float, df: float) -> float:
-    return float(stats.t.ppf(q, df))
+    return float(t_ppf(q, df))
 
 
 @functools.lru_cache(maxsize=64)
@@ -293,7 +306,7 @@ def welch_interval(a: Summary, b: Summary, confidence: float) -> tuple[np.ndarra
     """
     na, nb = _as_float(a.n), _as_float(b.n)
     se = np.sqrt(np.maximum(_as_float(a.var), 0.0) / na + np.maximum(_as_float(b.var), 0.0) / nb)
-    t = stats.t.ppf(1.0 - _alpha_half(confidence), welch_df(a, b))
+    t = t_ppf(1.0 - _alpha_half(confidence), welch_df(a, b))
     diff = _as_float(a.mean) - _as_float(b.mean)
     return diff - t * se, diff + t * se
 
