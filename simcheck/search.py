@@ -890,7 +890,7 @@ def _sim_undecided(run: _Runner, ev: dict, cur: list, stop: str, budget: int, pr
         notes.append(f"the point estimates first meet the targets at n = {ev['n_first']}")
     at = max(cur, key=lambda r: (ctx["targets"].score(r), r.n))  # the best-supported n of the window
     return _result(run, design=ctx["design"], targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=None,
-                   reached=False, n_range=(low, hi_n), at=at, stop="replicate budget spent", exact=False,
+                   reached=False, n_range=(low, hi_n), at=at, best=at, stop="replicate budget spent", exact=False,
                    n_first=ev["n_first"], notes=notes, curve_rows=cur, decision="undecided",
                    replicates_needed=_replicates_needed(ev, precision))
 

@@ -326,10 +326,13 @@ def _results_table(doc: _Doc, s: StudyResults) -> None:
         lo, hi = r["n_range_low"], r["n_range_high"]
         rng = "–" if lo is None else (f"{lo:,}" if lo == hi else f"{lo:,}–{hi:,}")
         reps = "exact" if r["exact"] else fmt_num(r["confirm_replicates"])
+        # no n given: the figures are those of another n, which the cell names
+        other = getattr(s.searches.get(m), "best_coverage_n", None) if r["n_found"] is None else None
+        where = "" if other is None else f" at n = {other:,}"
         rows.append([
             m, _status_cell(r), rng,
-            fmt_estimate(r["coverage"], r["coverage_mcse"], r["exact"]),
-            fmt_estimate(r["assurance"], r["assurance_mcse"], r["exact"]),
+            fmt_estimate(r["coverage"], r["coverage_mcse"], r["exact"]) + where,
+            fmt_estimate(r["assurance"], r["assurance_mcse"], r["exact"]) + where,
             f"{fmt_num(r['miss_low'], 4)} / {fmt_num(r['miss_high'], 4)}",
             f"{fmt_num(r['margin_median'])} / {fmt_num(r['margin_p90'])}", reps,
             fmt_estimate(r["coverage_at_formula_n"], r["coverage_at_formula_n_mcse"], r["exact"]),
