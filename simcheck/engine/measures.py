@@ -79,7 +79,6 @@ QUANTILE_Z = 1.959963984540054
 
 def row_from_measures(design, n, m, seed, path) -> CheckResult:
     """A :class:`CheckResult` from measures computed exactly (all MCSEs 0)."""
-    nb = design.n_b(n)
     a = m.get("assurance")
     notes = list(design_notes(design))
     deg = float(m.get("degenerate_share", 0.0))
@@ -99,16 +98,8 @@ def row_from_measures(design, n, m, seed, path) -> CheckResult:
         margin_p90=float(m["margin_p90"]),
         assurance=None if a is None else float(a),
         assurance_mcse=None if a is None else 0.0,
-        method=design.method,
-        seed=seed,
         exact=True,
-        estimand=design.estimand,
-        confidence=design.confidence,
-        target_margin=design.margin,
-        n_b=nb,
-        observations=int(n + (nb or 0)),
-        path=path,
-        notes=tuple(notes),
+        **design_fields(design, n, seed, path, notes),
         miss_low_mcse=0.0,
         miss_high_mcse=0.0,
         margin_mean_mcse=0.0,
@@ -119,6 +110,14 @@ def row_from_measures(design, n, m, seed, path) -> CheckResult:
         margin_values=np.asarray(m.get("margin_values")) if m.get("margin_values") is not None else None,
         margin_weights=np.asarray(m.get("margin_weights")) if m.get("margin_weights") is not None else None,
     )
+
+
+def design_fields(design: Design, n: int, seed, path: str, notes) -> dict:
+    """The fields of a :class:`CheckResult` that come from the design and n, not from the measures."""
+    nb = design.n_b(n)
+    return {"method": design.method, "seed": seed, "estimand": design.estimand, "confidence": design.confidence,
+            "target_margin": design.margin, "n_b": nb, "observations": int(n + (nb or 0)), "path": path,
+            "notes": tuple(notes)}
 
 
 def design_notes(design: Design) -> tuple[str, ...]:
@@ -370,7 +369,6 @@ class Accumulator:
         cov = self.covered[j] / R
         assurance = None if self.margin is None else self.assured[j] / R
         mean, mean_se = self._mean_and_mcse(j)
-        nb = design.n_b(n)
         deg = int(self.degenerate[j])
         notes = list(design_notes(design))
         if self.keep < R:
@@ -396,17 +394,9 @@ class Accumulator:
             margin_p90=float(self.q90[j]),
             assurance=None if assurance is None else float(assurance),
             assurance_mcse=None if assurance is None else share_mcse(assurance, R),
-            method=design.method,
-            seed=seed,
             exact=False,
-            estimand=design.estimand,
-            confidence=design.confidence,
-            target_margin=design.margin,
-            n_b=nb,
-            observations=int(n + (nb or 0)),
             degenerate=deg,
-            path=path,
-            notes=tuple(notes),
+            **design_fields(design, n, seed, path, notes),
             miss_low_mcse=share_mcse(self.low[j] / R, R),
             miss_high_mcse=share_mcse(self.high[j] / R, R),
             margin_mean_mcse=mean_se,
