@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import textwrap
+
 from pathlib import Path
 
 import numpy as np
@@ -42,7 +44,9 @@ def qq_figure(result: FitResult, models: int = 4):
         ax.set_xlabel("fitted quantile", fontsize=8)
         ax.set_ylabel("pilot value", fontsize=8)
         ax.tick_params(labelsize=7)
-    fig.suptitle(f"Q-Q: {result.source}, n = {result.n}", fontsize=9)
+    # the source can be a long path: wrap it to the figure's width instead of cutting it off
+    title = textwrap.fill(f"Q-Q: {result.source}, n = {result.n}", width=max(30, int(14 * 3.4 * cols)))
+    fig.suptitle(title, fontsize=9)
     return fig
 
 
