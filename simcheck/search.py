@@ -90,6 +90,7 @@ from scipy import stats
 from simcheck import engine
 from simcheck import rng as rngmod
 from simcheck.design import Design
+from simcheck.estimands import REGISTRY as ESTIMAND_SPECS
 from simcheck.errors import Collector, InputError
 from simcheck.intervals import get_method
 from simcheck.results import CheckResult, CurveResult, MethodComparison, SearchResult
@@ -168,6 +169,8 @@ def _formula(design: Design):
         return None
     if design.strata is not None:
         return _stratified_formula(design)
+    if design.estimand in ESTIMAND_SPECS:
+        return _registered_formula(design)
     kw: dict[str, Any] = {"confidence": design.confidence, "multiplier": "z", "bound": design.bound}
     try:
         if design.estimand in ("mean", "mean-diff"):
@@ -196,6 +199,18 @@ def _formula(design: Design):
         return None
     n = res.clusters if cl is not None else res.n
     return None if n is None else (res, int(n))
+
+
+def _registered_formula(design: Design):
+    """The closed-form baseline of an estimand from the registry, from the design's planning values."""
+    spec = ESTIMAND_SPECS[design.estimand]
+    if spec.formula is None or spec.planning is None:
+        return None
+    try:
+        res = spec.formula(float(design.margin), design.confidence, **spec.planning(design))
+    except (InputError, ValueError, ZeroDivisionError, OverflowError, TypeError):
+        return None
+    return res, int(res.n)
 
 
 def _stratified_formula(design: Design):
