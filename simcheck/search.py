@@ -585,7 +585,8 @@ def _methods_that_reach(run: _Runner, ctx: dict) -> list[str]:
 def _exact_search(run: _Runner, start: int, **ctx) -> SearchResult:
     # counts (binomial, beta-binomial, hypergeometric) make coverage oscillate in n;
     # the exact laws of normal data give coverage and assurance monotone in n
-    if ctx["design"].estimand in ("proportion", "proportion-diff"):
+    design = ctx["design"]
+    if design.estimand in ("proportion", "proportion-diff") or get_method(design.estimand, design.method).exact_oscillates:
         return _exact_scan(run, **ctx)
     return _exact_monotone(run, start, **ctx)
 

@@ -92,7 +92,8 @@ def _exact_row(design: Design, n: int, m: dict, seed) -> CheckResult:
     r = row_from_measures(design, n, m, seed, "exact")
     if m.get("margin_at_assurance") is not None:
         r = replace(r, margin_at_assurance=float(m["margin_at_assurance"]))
-    return r
+    # exact paths give ratio-scale margins as factors already; say so as the simulated rows do
+    return with_note(r, RATIO_NOTE) if design.ratio_scale else r
 
 
 def _columns(design: Design, ns: list[int]) -> tuple[int, int]:

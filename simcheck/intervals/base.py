@@ -149,6 +149,9 @@ class Method:
     #: ``exact(design, ns)`` can compute the measures without simulation
     exact: Callable | None = field(default=None, repr=False)
     exact_applies: Callable | None = field(default=None, repr=False)
+    #: the exact path's coverage oscillates in n (binomial laws of counts or
+    #: ranks): searches scan every n (window criterion) instead of bisecting
+    exact_oscillates: bool = False
     #: the method resamples (bootstrap): the engine hands it ``Sample.rng``
     resampling: bool = False
 
