@@ -460,3 +460,14 @@ def test_search_order_statistic_scans_every_n(tmp_path):
     assert all(r.coverage >= 0.945 and r.assurance >= 0.5 for r in rows[1:])
     # the n before fails, unless the targets held earlier and broke off (then n_first says so)
     assert not (rows[0].coverage >= 0.945 and rows[0].assurance >= 0.5) or res.n_first is not None
+
+
+def test_scenario_round_trip_keeps_the_quantile_level():
+    """Sweeps hash Scenario.to_dict(): two levels must give two scenarios, and the dict must load back."""
+    from simcheck.scenario import scenario_from_dict
+
+    a = scenario_from_dict(QT)
+    b = scenario_from_dict({**QT, "target": {**QT["target"], "quantile": 0.5}})
+    assert a.to_dict()["target"]["quantile"] == 0.9 and a.to_dict() != b.to_dict()
+    assert scenario_from_dict(a.to_dict()).design.quantile == 0.9
+    assert "quantile" not in scenario_from_dict(GM).to_dict()["target"]
