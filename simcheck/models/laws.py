@@ -87,8 +87,12 @@ def log_moments(model) -> tuple[float, float]:
     # log of the quantile function integrated over (0, 1): no density singularities to meet
     from scipy import integrate
 
+    def log_q(u: float) -> float:
+        # a quantile that underflows to 0 sits in a tail of negligible probability
+        return math.log(max(float(law.ppf(u)), 5e-324))
+
     def moment(f):
-        val, _ = integrate.quad(lambda u: f(math.log(float(law.ppf(u)))), 0.0, 1.0, limit=200)
+        val, _ = integrate.quad(lambda u: f(log_q(u)), 0.0, 1.0, limit=200)
         return val
 
     m = moment(lambda y: y)
