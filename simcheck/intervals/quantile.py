@@ -144,7 +144,7 @@ for _estimand in ("median", "quantile"):
         "order-statistic", _estimand, "raw", order_statistic,
         summary="distribution-free interval between two order statistics; exact coverage for continuous data",
         references=(_CONOVER, _DAVID),
-        exact=order_statistic_exact, exact_applies=_continuous, exact_oscillates=True,
+        exact=order_statistic_exact, exact_applies=_continuous,
     ))
     register(Method(
         "maritz-jarrett", _estimand, "raw", maritz_jarrett,
