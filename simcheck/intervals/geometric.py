@@ -156,18 +156,19 @@ register(Method(
     "log-t", "geometric-mean", "raw", log_t,
     summary="t interval on the logs, back-transformed: exact for lognormal data",
     references=(_OLSSON, _STUDENT),
-    exact=log_t_exact, exact_applies=lambda d: _lognormal(d.model),
+    exact=log_t_exact, exact_applies=lambda d: _lognormal(d.model), exact_monotone=True, prose="log-scale t",
 ))
 register(Method(
     "log-t", "geometric-mean-ratio", "raw", log_t_ratio,
     summary="pooled t interval on the logs, back-transformed: exact for lognormal groups with one sdlog",
     references=(_OLSSON, _STUDENT),
-    exact=log_t_ratio_exact, exact_applies=_equal_lognormals,
+    exact=log_t_ratio_exact, exact_applies=_equal_lognormals, exact_monotone=True,
+    prose="log-scale t",
 ))
 register(Method(
     "log-welch", "geometric-mean-ratio", "raw", log_welch_ratio,
     summary="Welch interval on the logs, back-transformed (unequal log-scale SDs)",
-    references=(_OLSSON, _WELCH),
+    references=(_OLSSON, _WELCH), prose="log-scale Welch",
 ))
 for _estimand, _func in (("geometric-mean", bootstrap_gm), ("geometric-mean-ratio", bootstrap_gmr)):
     register(Method(

@@ -143,11 +143,11 @@ for _estimand in ("median", "quantile"):
     register(Method(
         "order-statistic", _estimand, "raw", order_statistic,
         summary="distribution-free interval between two order statistics; exact coverage for continuous data",
-        references=(_CONOVER, _DAVID),
+        references=(_CONOVER, _DAVID), prose="distribution-free order-statistic",
         exact=order_statistic_exact, exact_applies=_continuous,
     ))
     register(Method(
         "maritz-jarrett", _estimand, "raw", maritz_jarrett,
         summary="sample quantile ± z times the Maritz-Jarrett standard error",
-        references=(_MJ, _WILCOX),
+        references=(_MJ, _WILCOX), prose="Maritz-Jarrett",
     ))
