@@ -491,3 +491,11 @@ def test_scenario_round_trip_keeps_the_quantile_level():
     assert a.to_dict()["target"]["quantile"] == 0.9 and a.to_dict() != b.to_dict()
     assert scenario_from_dict(a.to_dict()).design.quantile == 0.9
     assert "quantile" not in scenario_from_dict(GM).to_dict()["target"]
+
+
+def test_lognormal_geometric_mean_is_its_median():
+    # exp(meanlog) is both the geometric mean and the median of a lognormal law (Johnson, Kotz &
+    # Balakrishnan 1994, ch. 14; from memory): two estimands, two routes to one number
+    gm = _design(LN, "geometric-mean", "log-t", 1.2).true_value
+    med = _design(LN, "median", "order-statistic", 1.0).true_value
+    assert gm == pytest.approx(med, rel=1e-12)

@@ -1,7 +1,8 @@
 """Intervals for the geometric mean and the ratio of two geometric means.
 
 Each is a t interval on the natural logs of the data, back-transformed by
-exp (common practice for log-normal data; Olsson 2005):
+exp (common practice for log-normal data; Olsson 2005 shows it covers the
+geometric mean, i.e. the lognormal median, and not the arithmetic mean):
 
 ``log-t`` (estimand ``geometric-mean``)
     exp(ȳ ± t_{n-1} s_y / sqrt(n)), y = log x.
@@ -43,7 +44,8 @@ from simcheck.intervals.base import Method, Sample, Summary, register
 from simcheck.intervals.bootstrap import percentile_diff, percentile_mean
 from simcheck.intervals.mean import t_diff_interval, t_interval, t_ppf, welch_interval
 
-_OLSSON = "Olsson (2005), Journal of Statistics Education 13(1) (log-scale t interval; from memory)"
+_OLSSON = ("common practice; Olsson (2005), Journal of Statistics Education 13(1): the back-transformed log-scale "
+           "t interval covers the geometric mean (the lognormal median), not the mean (from memory)")
 _STUDENT = "Student (1908), Biometrika 6:1-25"
 _WELCH = "Welch (1947), Biometrika 34:28-35"
 
