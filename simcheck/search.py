@@ -585,7 +585,9 @@ def _methods_that_reach(run: _Runner, ctx: dict) -> list[str]:
 def _exact_search(run: _Runner, start: int, **ctx) -> SearchResult:
     # counts (binomial, beta-binomial, hypergeometric) make coverage oscillate in n;
     # the exact laws of normal data give coverage and assurance monotone in n
-    if ctx["design"].estimand in ("proportion", "proportion-diff"):
+    design = ctx["design"]
+    discrete = any(m is not None and m.discrete for m in (design.model, design.model_b))
+    if design.estimand in ("proportion", "proportion-diff") or discrete:
         return _exact_scan(run, **ctx)
     return _exact_monotone(run, start, **ctx)
 
