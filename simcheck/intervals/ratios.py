@@ -86,8 +86,14 @@ from simcheck.intervals.base import Method, Sample, register
 #: bisection bracket for the log ratio of the score intervals: ratios beyond
 #: e^±40 (about 2e17) are read as 0 or infinity
 LOG_BRACKET = 40.0
-#: bisection steps: the bracket of width 80 shrinks below 1e-15
-BISECTION_STEPS = 60
+#: bisection steps before the Illinois steps (bracket width 80 / 2^6)
+BISECT_FIRST = 6
+#: a root is found when its bracket on the log scale is this narrow (relative 1e-12 on the ratio)
+ROOT_TOL = 1e-12
+#: ... or when the statistic at a point is within this of its target (rounding level of the statistic)
+F_TOL = 1e-13
+#: most steps of one root (every fifth bisects: 80 / 2^40 < ROOT_TOL within 200)
+MAX_STEPS = 200
 
 _KATZ = "Katz, Baptista, Azen & Pike (1978), Biometrics 34:469-474"
 _ADJLOG = ("Walter (1975), Biometrika 62:371-374",
@@ -165,35 +171,79 @@ def _signed_ratio(num, var):
         return np.where((var <= 0) & (num != 0), np.sign(num) * np.inf, t)
 
 
-def score_limits(statistic, z: float, shape):
+def score_limits(statistic, z: float, args):
     """Limits exp(t) where a decreasing score statistic T(t) crosses +z (lower) and -z (upper).
 
-    ``statistic(t)`` takes an array of log ratios of ``shape``. Vectorised
-    bisection on [-LOG_BRACKET, LOG_BRACKET]; a statistic that stays below
-    z over the whole bracket gives the lower limit 0, one that stays above
-    -z the upper limit infinity.
+    ``statistic(t, *args)`` takes arrays of log ratios and of the counts
+    ``args`` (same shape). A statistic that stays below z over
+    [-LOG_BRACKET, LOG_BRACKET] gives the lower limit 0, one that stays
+    above -z the upper limit infinity; elsewhere :func:`_crossing` finds
+    the root of each element on its own (so a limit does not depend on the
+    other tables of the call).
     """
+    args = np.broadcast_arrays(*args)
+    flat = [a.ravel() for a in args]
+    edge_lo = statistic(np.full(flat[0].shape, -LOG_BRACKET), *flat)
+    edge_hi = statistic(np.full(flat[0].shape, LOG_BRACKET), *flat)
     out = []
     for target in (z, -z):
-        lo = np.full(shape, -LOG_BRACKET)
-        hi = np.full(shape, LOG_BRACKET)
-        below_all = statistic(lo) <= target   # the crossing lies below the bracket
-        above_all = statistic(hi) >= target   # ... or above it
-        for _ in range(BISECTION_STEPS):
-            mid = 0.5 * (lo + hi)
-            up = statistic(mid) > target      # decreasing: still left of the crossing
-            lo = np.where(up, mid, lo)
-            hi = np.where(up, hi, mid)
-        limit = np.exp(0.5 * (lo + hi))
-        limit = np.where(below_all, 0.0, limit)
-        out.append(np.where(above_all & ~below_all, np.inf, limit))
+        below_all = edge_lo <= target   # the crossing lies below the bracket
+        above_all = edge_hi >= target   # ... or above it
+        limit = np.where(below_all, 0.0, np.inf)
+        todo = np.flatnonzero(~below_all & ~above_all)
+        if todo.size:
+            sub = [a[todo] for a in flat]
+            limit[todo] = np.exp(_crossing(lambda t, idx: statistic(t, *(a[idx] for a in sub)) - target,
+                                           edge_lo[todo] - target, edge_hi[todo] - target))
+        out.append(limit.reshape(args[0].shape))
     return out[0], out[1]
+
+
+def _crossing(f, f_lo, f_hi):
+    """Roots of decreasing functions on [-LOG_BRACKET, LOG_BRACKET] with f_lo > 0 > f_hi, to ROOT_TOL.
+
+    A few bisection steps, then the Illinois variant of regula falsi
+    (Dowell & Jarratt 1971), each element until its bracket is narrower
+    than ROOT_TOL or the statistic hits its target to F_TOL; every fifth step bisects, which bounds the steps even
+    where the secant stalls. ``f(t, idx)`` evaluates the elements ``idx``.
+    """
+    a = np.full(f_lo.shape, -LOG_BRACKET)
+    b = np.full(f_lo.shape, LOG_BRACKET)
+    fa, fb = f_lo.copy(), f_hi.copy()
+    last = np.zeros(f_lo.shape, np.int8)   # side replaced last: -1 lower end, +1 upper end
+    active = np.arange(a.size)
+    for step in range(MAX_STEPS):
+        if active.size == 0:
+            break
+        aa, bb, ffa, ffb = a[active], b[active], fa[active], fb[active]
+        mid = 0.5 * (aa + bb)
+        bisect = step < BISECT_FIRST or step % 5 == 4
+        if bisect:
+            c = mid
+        else:
+            with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+                c = bb - ffb * (bb - aa) / (ffb - ffa)
+            c = np.where(np.isfinite(c) & (c > aa) & (c < bb), c, mid)
+        fc = f(c, active)
+        right = fc > 0                      # the root lies above c: c replaces the lower end
+        # Illinois: an end kept twice in a row has its value halved, so the next secant moves it
+        keep = 1.0 if bisect else 0.5
+        a[active] = np.where(right, c, aa)
+        fa[active] = np.where(right, fc, np.where(last[active] == 1, keep * ffa, ffa))
+        b[active] = np.where(right, bb, c)
+        fb[active] = np.where(right, np.where(last[active] == -1, keep * ffb, ffb), fc)
+        last[active] = np.where(right, -1, 1)
+        # |f(c)| at rounding level: c is the root (within ~1e-13 / slope of the statistic)
+        at_root = np.abs(fc) <= F_TOL
+        a[active[at_root]] = b[active[at_root]] = c[at_root]
+        active = active[(b[active] - a[active] > ROOT_TOL) & ~at_root]
+    return 0.5 * (a + b)
 
 
 def _score_rr_limits(xa, na, xb, nb, confidence, correction):
     xa, na, xb, nb = _arrays(xa, na, xb, nb)
-    corr = correction(na + nb)
-    return score_limits(lambda t: _score_rr(t, xa, na, xb, nb, corr), _z(confidence), xa.shape)
+    corr = np.asarray(correction(na + nb), dtype=np.float64)
+    return score_limits(_score_rr, _z(confidence), (xa, na, xb, nb, corr))
 
 
 def koopman_limits(xa, na, xb, nb, confidence: float):
@@ -270,7 +320,7 @@ def mn_odds_limits(xa, na, xb, nb, confidence: float):
     """Miettinen and Nurminen's (1985) score interval for the odds ratio."""
     xa, na, xb, nb = _arrays(xa, na, xb, nb)
     corr = _mn_factor(na + nb)
-    return score_limits(lambda t: _score_or(t, xa, na, xb, nb, corr), _z(confidence), xa.shape)
+    return score_limits(_score_or, _z(confidence), (xa, na, xb, nb, corr))
 
 
 # ----------------------------------------------------------------------------- registration
