@@ -394,3 +394,40 @@ def test_bad_scenarios_one_line_exit_2(tmp_path, target, data_b, phrase):
     write_toml(path, table)
     err = _one_line_exit_2(*run_cli(["check", path, "--n", 20]))
     assert phrase in err, err
+
+
+# ------------------------------------------------------------------ exact conditional (Cornfield)
+@pytest.mark.parametrize("xa,na,xb,nb", [(9, 13, 4, 14), (7, 34, 1, 34), (3, 25, 9, 30), (30, 168, 40, 168),
+                                         (90, 168, 10, 168), (15, 168, 69, 168), (20, 21, 4, 60)])
+def test_exact_conditional_matches_scipy(xa, na, xb, nb):
+    # scipy.stats.contingency.odds_ratio(kind="conditional"): Cornfield's exact interval from
+    # Fisher's noncentral hypergeometric law (SciPy's own implementation, an independent code)
+    ci = stats.contingency.odds_ratio([[xa, na - xa], [xb, nb - xb]]).confidence_interval(0.95)
+    np.testing.assert_allclose(ratios.exact_conditional_limits(xa, na, xb, nb, 0.95), [ci.low, ci.high],
+                               rtol=1e-8)
+
+
+def test_exact_conditional_by_own_tail_sums():
+    # the tail probabilities written out: P(X >= x_a; L) = P(X <= x_a; U) = alpha / 2
+    xa, na, xb, nb = 4, 12, 9, 15
+    m = xa + xb
+    xs = np.arange(max(0, m - nb), min(na, m) + 1)
+    logc = np.array([math.lgamma(na + 1) - math.lgamma(x + 1) - math.lgamma(na - x + 1)
+                     + math.lgamma(nb + 1) - math.lgamma(m - x + 1) - math.lgamma(nb - m + x + 1) for x in xs])
+
+    def prob(psi, keep):
+        w = np.exp(logc + xs * math.log(psi) - (logc + xs * math.log(psi)).max())
+        return w[keep].sum() / w.sum()
+
+    lo, hi = ratios.exact_conditional_limits(xa, na, xb, nb, 0.9)
+    assert prob(float(lo), xs >= xa) == pytest.approx(0.05, abs=1e-10)
+    assert prob(float(hi), xs <= xa) == pytest.approx(0.05, abs=1e-10)
+
+
+def test_exact_conditional_edges_and_guaranteed_coverage():
+    lo, hi = ratios.exact_conditional_limits(np.array([0, 13, 0, 5]), 13, np.array([4, 4, 0, 14]), 14, 0.95)
+    assert lo[0] == 0 and hi[1] == math.inf and (lo[2], hi[2]) == (0, math.inf) and lo[3] == 0
+    # an exact conditional interval never covers less than its level (Cornfield 1956): exact enumeration
+    for pa, pb in ((0.3, 0.1), (0.5, 0.45)):
+        r = engine.check(design("odds-ratio", "exact-conditional", pa=pa, pb=pb, margin=3.0), 25)
+        assert r.exact and r.coverage >= 0.95 - 1e-12

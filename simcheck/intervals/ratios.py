@@ -44,6 +44,11 @@ Odds ratio (estimand ``odds-ratio``):
 ``miettinen-nurminen``
     The score interval for the odds ratio with the N / (N - 1) variance
     correction [5]_, solved numerically like ``koopman``.
+``exact-conditional``
+    Cornfield's exact interval [11]_: the odds ratios not rejected by the
+    two one-sided conditional tests at alpha/2 given the event total
+    (Fisher's noncentral hypergeometric law of x_a); conservative, like
+    every exact interval of discrete data.
 
 Infinite limits (a lower limit 0 or an upper limit infinity) give an
 unbounded margin on the ratio scale; NaN limits count as not computed
@@ -74,12 +79,16 @@ References
    Biometrika 43, 461-464.
 .. [10] Gart, J. J. (1966). Alternative analyses of contingency tables.
    Journal of the Royal Statistical Society B 28, 164-179.
+.. [11] Cornfield, J. (1956). A statistical problem arising from
+   retrospective studies. Proceedings of the Third Berkeley Symposium on
+   Mathematical Statistics and Probability 4, 135-148.
 """
 
 from __future__ import annotations
 
 import numpy as np
 from scipy import stats
+from scipy.special import gammaln
 
 from simcheck.intervals.base import Method, Sample, register
 
@@ -90,6 +99,8 @@ LOG_BRACKET = 40.0
 BISECT_FIRST = 6
 #: a root is found when its bracket on the log scale is this narrow (relative 1e-12 on the ratio)
 ROOT_TOL = 1e-12
+#: padded support cells of the exact conditional interval evaluated at once (memory)
+COND_CELLS = 1 << 20
 #: ... or when the statistic at a point is within this of its target (rounding level of the statistic)
 F_TOL = 1e-13
 #: most steps of one root (every fifth bisects: 80 / 2^40 < ROOT_TOL within 200)
@@ -103,6 +114,7 @@ _MN = "Miettinen & Nurminen (1985), Statistics in Medicine 4:213-226"
 _FLL = "Fagerland, Lydersen & Laake (2015), Statistical Methods in Medical Research 24:224-254"
 _WOOLF = "Woolf (1955), Annals of Human Genetics 19:251-253"
 _HALDANE = ("Haldane (1956), Annals of Human Genetics 20:309-311", "Anscombe (1956), Biometrika 43:461-464")
+_CORNFIELD = "Cornfield (1956), Proceedings of the Third Berkeley Symposium 4:135-148"
 _GART = "Gart (1966), Journal of the Royal Statistical Society B 28:164-179"
 
 
@@ -175,28 +187,35 @@ def score_limits(statistic, z: float, args):
     """Limits exp(t) where a decreasing score statistic T(t) crosses +z (lower) and -z (upper).
 
     ``statistic(t, *args)`` takes arrays of log ratios and of the counts
-    ``args`` (same shape). A statistic that stays below z over
-    [-LOG_BRACKET, LOG_BRACKET] gives the lower limit 0, one that stays
-    above -z the upper limit infinity; elsewhere :func:`_crossing` finds
-    the root of each element on its own (so a limit does not depend on the
-    other tables of the call).
+    ``args`` (broadcast together); see :func:`decreasing_roots`.
     """
     args = np.broadcast_arrays(*args)
     flat = [a.ravel() for a in args]
-    edge_lo = statistic(np.full(flat[0].shape, -LOG_BRACKET), *flat)
-    edge_hi = statistic(np.full(flat[0].shape, LOG_BRACKET), *flat)
     out = []
     for target in (z, -z):
-        below_all = edge_lo <= target   # the crossing lies below the bracket
-        above_all = edge_hi >= target   # ... or above it
-        limit = np.where(below_all, 0.0, np.inf)
-        todo = np.flatnonzero(~below_all & ~above_all)
-        if todo.size:
-            sub = [a[todo] for a in flat]
-            limit[todo] = np.exp(_crossing(lambda t, idx: statistic(t, *(a[idx] for a in sub)) - target,
-                                           edge_lo[todo] - target, edge_hi[todo] - target))
-        out.append(limit.reshape(args[0].shape))
+        roots = decreasing_roots(lambda t, idx: statistic(t, *(a[idx] for a in flat)) - target, flat[0].size)
+        out.append(roots.reshape(args[0].shape))
     return out[0], out[1]
+
+
+def decreasing_roots(f, size: int) -> np.ndarray:
+    """exp(t) at the roots of decreasing functions ``f(t, idx)`` of the log ratio, one per element.
+
+    A function still <= 0 at t = -LOG_BRACKET gives 0, one still >= 0 at
+    t = LOG_BRACKET gives infinity; the others are solved by
+    :func:`_crossing`, each element on its own (so a limit does not depend
+    on the other tables of the call).
+    """
+    every = np.arange(size)
+    f_lo = f(np.full(size, -LOG_BRACKET), every)
+    f_hi = f(np.full(size, LOG_BRACKET), every)
+    below_all = f_lo <= 0   # the root lies below the bracket
+    above_all = f_hi >= 0   # ... or above it
+    limit = np.where(below_all, 0.0, np.inf)
+    todo = np.flatnonzero(~below_all & ~above_all)
+    if todo.size:
+        limit[todo] = np.exp(_crossing(lambda t, idx: f(t, todo[idx]), f_lo[todo], f_hi[todo]))
+    return limit
 
 
 def _crossing(f, f_lo, f_hi):
@@ -323,6 +342,66 @@ def mn_odds_limits(xa, na, xb, nb, confidence: float):
     return score_limits(_score_or, _z(confidence), (xa, na, xb, nb, corr))
 
 
+def exact_conditional_limits(xa, na, xb, nb, confidence: float):
+    """Cornfield's exact conditional interval for the odds ratio.
+
+    Given the event total m = x_a + x_b, x_a follows Fisher's noncentral
+    hypergeometric law, P(x) proportional to C(n_a, x) C(n_b, m - x) psi^x
+    on max(0, m - n_b) <= x <= min(n_a, m); the lower limit solves
+    P(X >= x_a; psi) = alpha/2 (0 when x_a is the smallest possible count),
+    the upper P(X <= x_a; psi) = alpha/2 (infinity when x_a is the
+    largest). Each distinct table is solved once; the supports are padded
+    into one matrix, in chunks of at most ``COND_CELLS`` cells.
+    """
+    xa, na, xb, nb = _arrays(xa, na, xb, nb)
+    shape = xa.shape
+    tables, back = np.unique(np.stack([v.ravel() for v in (xa, na, xb + xa, nb)], axis=1), axis=0,
+                             return_inverse=True)
+    lo, hi = np.empty(len(tables)), np.empty(len(tables))
+    half = (1.0 - confidence) / 2.0
+    width = int(np.max(np.minimum(tables[:, 1], tables[:, 2]) - np.maximum(0, tables[:, 2] - tables[:, 3]))) + 1
+    step = max(1, COND_CELLS // width)
+    for s0 in range(0, len(tables), step):
+        part = slice(s0, s0 + step)
+        lw, pos = _conditional_support(tables[part], width)
+        lo[part] = decreasing_roots(_conditional_tail(lw, pos, half, upper=False), len(pos))
+        hi[part] = decreasing_roots(_conditional_tail(lw, pos, half, upper=True), len(pos))
+    back = back.ravel()
+    return lo[back].reshape(shape), hi[back].reshape(shape)
+
+
+def _conditional_support(tables, width):
+    """Log weights log C(n_a, x) + log C(n_b, m - x) (up to a constant) on each table's
+    support, padded with -inf to ``width`` columns, and the column of the observed x_a."""
+    xa, na, m, nb = tables.T
+    first = np.maximum(0.0, m - nb)
+    xs = first[:, None] + np.arange(width)[None, :]
+    valid = xs <= np.minimum(na, m)[:, None]
+    xv = np.where(valid, xs, first[:, None])  # keep gammaln's arguments positive off the support
+    lw = -(gammaln(xv + 1) + gammaln(na[:, None] - xv + 1) + gammaln(m[:, None] - xv + 1)
+           + gammaln(nb[:, None] - m[:, None] + xv + 1))
+    return np.where(valid, lw, -np.inf), (xa - first).astype(np.int64)
+
+
+def _conditional_tail(lw, pos, half, *, upper: bool):
+    """f(t, idx), decreasing in t = log psi: P(X <= x_a) - alpha/2, or alpha/2 - P(X >= x_a)."""
+    cols = np.arange(lw.shape[1])
+
+    def f(t, idx):
+        w = lw[idx] + t[:, None] * cols[None, :]
+        w -= w.max(axis=1, keepdims=True)
+        cum = np.cumsum(np.exp(w), axis=1)
+        total = cum[:, -1]
+        p = pos[idx]
+        rows = np.arange(idx.size)
+        if upper:
+            return cum[rows, p] / total - half
+        before = np.where(p > 0, cum[rows, np.maximum(p - 1, 0)], 0.0)
+        return half - (total - before) / total
+
+    return f
+
+
 # ----------------------------------------------------------------------------- registration
 #: (estimand, name) -> counts function (xa, na, xb, nb, confidence) -> (lo, hi)
 COUNT_FUNCS = {
@@ -334,6 +413,7 @@ COUNT_FUNCS = {
     ("odds-ratio", "woolf-haldane"): woolf_haldane_limits,
     ("odds-ratio", "gart"): gart_limits,
     ("odds-ratio", "miettinen-nurminen"): mn_odds_limits,
+    ("odds-ratio", "exact-conditional"): exact_conditional_limits,
 }
 
 
@@ -362,6 +442,8 @@ def _register_all() -> None:
         "woolf": ("log OR ± z SE over the four cells; not computed when a cell is zero", (_WOOLF,)),
         "woolf-haldane": ("Woolf's interval, 0.5 added to all four cells when a cell is zero", (_WOOLF,) + _HALDANE),
         "gart": ("adjusted logit interval: 0.5 added to all four cells always", (_GART, _FLL)),
+        "exact-conditional": ("Cornfield's exact interval from the conditional (noncentral hypergeometric) law",
+                              (_CORNFIELD, _FLL)),
     }
     for (estimand, name), func in COUNT_FUNCS.items():
         if name == "miettinen-nurminen":
