@@ -417,6 +417,15 @@ COUNT_FUNCS = {
 }
 
 
+#: the methods' names as written in prose (reports)
+PROSE = {
+    "katz": "Katz log", "adjusted-log": "adjusted log", "koopman": "Koopman score",
+    "miettinen-nurminen": "Miettinen–Nurminen score", "woolf": "Woolf logit",
+    "woolf-haldane": "Woolf logit (Haldane–Anscombe correction)", "gart": "Gart adjusted logit",
+    "exact-conditional": "Cornfield exact conditional",
+}
+
+
 def counts_of(s: Sample):
     """(x_a, n_a, x_b, n_b) of a sample of 0/1 values in two groups."""
     return s.x.sum(axis=1), s.n, s.xb.sum(axis=1), s.n_b
@@ -451,7 +460,7 @@ def _register_all() -> None:
             refs = (_MN, _FLL)
         else:
             summary, refs = info[name]
-        register(Method(name, estimand, "raw", _raw(func), summary=summary, references=refs,
+        register(Method(name, estimand, "raw", _raw(func), summary=summary, references=refs, prose=PROSE[name],
                         exact=exact_path(func), exact_applies=exact_applies))
 
 
