@@ -431,3 +431,30 @@ def test_exact_conditional_edges_and_guaranteed_coverage():
     for pa, pb in ((0.3, 0.1), (0.5, 0.45)):
         r = engine.check(design("odds-ratio", "exact-conditional", pa=pa, pb=pb, margin=3.0), 25)
         assert r.exact and r.coverage >= 0.95 - 1e-12
+
+
+def test_search_answer_equals_own_window_scan():
+    # brute force written here: Katz's interval by a full double sum at every n, then the window
+    # rule (targets hold at every n from n to ceil(1.25 n)), against the search's exact scan
+    pa, pb, f, conf_target, ass_target = 0.3, 0.2, 2.5, 0.945, 0.8
+    truth = pa / pb
+
+    def targets(n):
+        xa, xb = np.meshgrid(np.arange(n + 1.0), np.arange(n + 1.0), indexing="ij")
+        w = np.outer(stats.binom.pmf(np.arange(n + 1), n, pa), stats.binom.pmf(np.arange(n + 1), n, pb))
+        ok = (xa > 0) & (xb > 0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            log_rr = np.log(xa / n) - np.log(xb / n)
+            se = np.sqrt(1 / xa - 2 / n + 1 / xb)
+            lo, hi = np.exp(log_rr - Z95 * se), np.exp(log_rr + Z95 * se)
+        cov = w[ok & (lo <= truth) & (truth <= hi)].sum()
+        ass = w[ok & (Z95 * se <= math.log(f)) & ((se > 0) | ((lo <= truth) & (truth <= hi)))].sum()
+        return cov >= conf_target - 1e-12 and ass >= ass_target - 1e-12
+
+    passes = {n: targets(n) for n in range(2, 161)}
+    want = next(n for n in range(2, 121) if all(passes[k] for k in range(n, math.ceil(1.25 * n) + 1)))
+    from simcheck.search import find_n
+
+    res = find_n(design("risk-ratio", "katz", pa=pa, pb=pb, margin=f), assurance=ass_target, n_max=160)
+    assert 20 < want < 120  # the answer lies inside the scanned range
+    assert res.n == want and res.criterion == "window"
