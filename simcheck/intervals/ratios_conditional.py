@@ -31,6 +31,8 @@ def exact_conditional_limits(xa, na, xb, nb, confidence: float):
     """
     xa, na, xb, nb = count_arrays(xa, na, xb, nb)
     shape = xa.shape
+    if xa.size == 0:
+        return np.empty(shape), np.empty(shape)
     tables, back = np.unique(np.stack([v.ravel() for v in (xa, na, xb + xa, nb)], axis=1), axis=0,
                              return_inverse=True)
     lo, hi = np.empty(len(tables)), np.empty(len(tables))

@@ -81,8 +81,9 @@ def _crossing(f, f_lo, f_hi):
 
     A few bisection steps, then the Illinois variant of regula falsi
     (Dowell & Jarratt 1971), each element until its bracket is narrower
-    than ROOT_TOL or the statistic hits its target to F_TOL; every fifth step bisects, which bounds the steps even
-    where the secant stalls. ``f(t, idx)`` evaluates the elements ``idx``.
+    than ROOT_TOL or the function is within F_TOL of 0; every fifth step
+    bisects, which bounds the steps where the secant stalls. ``f(t, idx)``
+    evaluates the elements ``idx``.
     """
     a = np.full(f_lo.shape, -LOG_BRACKET)
     b = np.full(f_lo.shape, LOG_BRACKET)
