@@ -18,8 +18,10 @@ from simcheck.models.base import Model
 ESTIMANDS = ("mean", "proportion", "mean-diff", "proportion-diff", "total")
 TWO_SAMPLE = ("mean-diff", "proportion-diff")
 BOUNDS = ("two-sided", "upper", "lower")
-#: interval methods of stratified designs (computed by the stratified evaluator)
-STRATIFIED_METHODS = {"mean": ("t", "z"), "total": ("t", "z"), "proportion": ("t", "wald")}
+#: interval methods of stratified designs (computed by the stratified evaluator); "bootstrap" is
+#: Rao & Wu's (1988) rescaling bootstrap, percentile interval (simcheck.intervals.stratified_bootstrap)
+STRATIFIED_METHODS = {"mean": ("t", "z", "bootstrap"), "total": ("t", "z", "bootstrap"),
+                      "proportion": ("t", "wald", "bootstrap")}
 
 
 @dataclass(frozen=True)
@@ -261,6 +263,9 @@ class Design:
             c.add("target.estimand", f"stratified designs estimate a mean, a proportion or a total, not {self.estimand!r}")
         elif self.method not in allowed:
             c.add("method.interval", f"stratified {self.estimand} intervals: {', '.join(allowed)}; got {self.method!r}")
+        elif self.method == "bootstrap" and self.one_sided:
+            c.add("target.bound", "a one-sided limit is not available with the stratified bootstrap (a percentile "
+                  "interval, not symmetric); use t or z")
         if self.clusters is not None or self.population is not None:
             c.add("strata", "cannot be combined with [clusters] or [population] (each stratum is its own finite population)")
         if len(st.sizes) < 2:

@@ -306,6 +306,8 @@ class _Runner:
 
 
 def _resampling(design: Design) -> bool:
+    if design.strata is not None:  # stratified methods are not in the registry
+        return design.method == "bootstrap"
     return get_method(design.estimand, design.method).kind in ("sample", "sample2")
 
 
@@ -448,8 +450,8 @@ def _validate(design, assurance, coverage_tolerance, replicates, n_min, n_max, b
     c.number("precision", precision, low=0, high=1, low_open=True)
     c.number("window", window, low=1, high=WINDOW_MAX)
     c.raise_if_any()
-    method = get_method(design.estimand, design.method)
-    floor = 1 if method.kind in ("count", "count2") else 2
+    floor = 2 if design.strata is not None else (
+        1 if get_method(design.estimand, design.method).kind in ("count", "count2") else 2)
     lo_n = max(lo_n, floor)
     while design.two_sample and design.n_b(lo_n) < floor:
         lo_n += 1
