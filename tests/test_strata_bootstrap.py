@@ -117,7 +117,9 @@ def test_interval_is_the_percentile_interval_of_the_estimates(monkeypatch):
     xs = [g.normal(size=(30, 7)), g.normal(size=(30, 4))]
     lo, hi = rescaled_bootstrap(xs, [0.3, 0.7], [0.0, 0.2], 0.9, np.random.default_rng(2), 199)
     est = rescaled_estimates(xs, [0.3, 0.7], [0.0, 0.2], np.random.default_rng(2), 199)
-    assert np.array_equal(lo, np.percentile(est, 5, axis=1)) and np.array_equal(hi, np.percentile(est, 95, axis=1))
+    # (1 - 0.9) / 2 is 0.04999... in floating point: equal to rounding
+    assert np.allclose(lo, np.percentile(est, 5, axis=1), rtol=1e-12, atol=0)
+    assert np.allclose(hi, np.percentile(est, 95, axis=1), rtol=1e-12, atol=0)
 
 
 def test_engine_results_do_not_depend_on_threads():
