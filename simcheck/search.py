@@ -168,6 +168,8 @@ def _formula(design: Design):
         return None
     if design.strata is not None:
         return _stratified_formula(design)
+    if design.estimand == "total":
+        return _total_formula(design)
     kw: dict[str, Any] = {"confidence": design.confidence, "multiplier": "z", "bound": design.bound}
     try:
         if design.estimand in ("mean", "mean-diff"):
@@ -210,6 +212,29 @@ def _stratified_formula(design: Design):
             means=[m.mean for m in st.models], rule=st.rule, costs=st.costs, given=st.given,
             minimum=st.minimum, confidence=design.confidence)
     except (InputError, ValueError, ZeroDivisionError, OverflowError):
+        return None
+    return res, int(res.n)
+
+
+def _total_formula(design: Design):
+    """A total without strata: one stage (the mean's n at margin B / N), or M clusters (simcheck.cluster_total)."""
+    from simcheck import formulas
+    from simcheck.cluster_total import cluster_total_sample_size
+
+    m = design.model
+    try:
+        cl = design.clusters
+        if cl is not None:
+            kw: dict[str, Any] = {"p": float(m.mean)} if m.zero_one else {"sd": float(m.sd), "mean": float(m.mean)}
+            res = cluster_total_sample_size(
+                float(design.margin), cl.count, cl.size if cl.size is not None else cl.size_mean, cl.icc,
+                cluster_size_cv=None if cl.size is not None else cl.size_cv, confidence=design.confidence,
+                bound=design.bound, **kw)
+            return res, int(res.clusters)
+        kw = {"sd": float(m.sd)} if design.base_estimand == "mean" else {"p": float(m.mean)}
+        res = formulas.total_sample_size(float(design.margin), int(design.population.size),
+                                         confidence=formulas.multiplier_confidence(design.confidence, design.bound), **kw)
+    except (InputError, ValueError, ZeroDivisionError, OverflowError, TypeError):
         return None
     return res, int(res.n)
 
