@@ -98,7 +98,8 @@ from simcheck.results import CheckResult
 #: largest pooled count k m enumerated exactly for clustered 0/1 data
 EXACT_COUNT_MAX = 2_000_000
 
-__all__ = ["applies", "evaluate", "available_paths", "exact_available", "population_for", "cluster_model_for", "validate_design"]
+__all__ = ["applies", "evaluate", "available_paths", "exact_available", "population_for", "cluster_model_for", "validate_design",
+           "cluster_population_for", "finite_cluster_estimates"]
 
 
 #: values drawn per piece and pieces per random block: fixed, so the numbers
@@ -382,16 +383,7 @@ def _finite_clusters(design, method, ns, replicates, root, seed, path, curve, pr
         acc = msr.Accumulator(len(group), replicates, design.margin)
         for bi, g, ps, pe, last in _pieces(root, replicates, block_columns(M, K)):
             idx = sample_indices(g, M, (pe - ps, K), ordered=nested)
-            y = totals[idx] - shift if total else totals[idx]
-            lo, hi = _cluster_intervals(design, plain, sizes[idx], y, None, None, group, law.fixed)
-            centre = (lo + hi) / 2.0
-            lo, hi = centre - (centre - lo) * f, centre + (hi - centre) * f
-            if total:
-                lo, hi = M * (lo + shift), M * (hi + shift)
-            # a census (n = M) estimates the population value itself: exact, zero width
-            lo, hi = np.where(f == 0, truth, lo), np.where(f == 0, truth, hi)
-            if design.estimand == "proportion":
-                lo, hi = np.clip(lo, 0.0, 1.0), np.clip(hi, 0.0, 1.0)
+            lo, hi = _finite_cluster_limits(design, plain, sizes[idx], totals[idx], group, law, f, shift, truth)
             acc.add(lo, hi, truth)
             if progress and last:
                 progress(pe, replicates)
@@ -401,6 +393,47 @@ def _finite_clusters(design, method, ns, replicates, root, seed, path, curve, pr
             rows.append(replace(r, true_value=truth, observations=_observations(k, law),
                                 notes=tuple(list(r.notes) + notes)))
     return rows
+
+
+def _finite_cluster_limits(design, plain, m, y, group, law, f, shift: float, truth: float):
+    """Limits of cluster-t on sampled cluster sizes ``m`` and totals ``y`` (rows x clusters), FPC factor ``f``."""
+    total = design.estimand == "total"
+    lo, hi = _cluster_intervals(design, plain, m, y - shift if total else y, None, None, group, law.fixed)
+    centre = (lo + hi) / 2.0
+    lo, hi = centre - (centre - lo) * f, centre + (hi - centre) * f
+    if total:
+        M = float(design.clusters.count)
+        lo, hi = M * (lo + shift), M * (hi + shift)
+    # a census (n = M) estimates the population value itself: exact, zero width
+    lo, hi = np.where(f == 0, truth, lo), np.where(f == 0, truth, hi)
+    if design.estimand == "proportion":
+        lo, hi = np.clip(lo, 0.0, 1.0), np.clip(hi, 0.0, 1.0)
+    return lo, hi
+
+
+def finite_cluster_estimates(design: Design, n: int, replicates: int, rng) -> np.ndarray:
+    """Point estimates (interval midpoints) of a finite-cluster design at ``n``, on the check's own streams.
+
+    For a total (M x the mean cluster total, an interval symmetric about its
+    estimate and never clipped) these are the estimates behind
+    :func:`simcheck.engine.check`'s intervals, replicate by replicate; used to
+    test unbiasedness and the estimator's variance.
+    """
+    root, _ = rngmod.root_sequence(rng)
+    M = int(design.clusters.count)
+    _, law = cluster_model_for(design)
+    sizes, totals, truth = cluster_population_for(design, root)
+    total = design.estimand == "total"
+    plain = get_method("total" if total else "mean", "cluster-t")
+    shift = float(totals.mean()) if total else 0.0
+    truth = float(totals.sum()) if total else truth
+    f = np.sqrt(fpc_variance_factor(np.asarray([n], dtype=np.float64), M, "S2"))
+    out = np.empty(replicates)
+    for bi, g, ps, pe, last in _pieces(root, replicates, block_columns(M, n)):
+        idx = sample_indices(g, M, (pe - ps, n), ordered=False)
+        lo, hi = _finite_cluster_limits(design, plain, sizes[idx], totals[idx], [n], law, f, shift, truth)
+        out[ps:pe] = ((lo + hi) / 2.0)[:, 0]
+    return out
 
 
 def _finite_cluster_notes(design, cm, law, method, M: int, truth: float) -> list[str]:
