@@ -174,3 +174,25 @@ def test_bad_formula_cluster_totals_exit_2(capsys, argv, field):
     assert main(["formula", "--estimand", "total", "--margin", "100"] + argv) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and field in err[0], err
+
+
+# --- search's closed form for one-stage totals (no strata, no clusters) --------------------------
+@pytest.mark.parametrize("data,interval,N,B", [
+    ({"model": "lognormal", "mean": 30.0, "cv": 1.0}, "t", 5000, 20000.0),
+    ({"model": "bernoulli", "p": 0.1}, "wilson", 2000, 60.0),
+])
+def test_search_formula_for_one_stage_totals(data, interval, N, B):
+    # a half-width B on N ybar is B / N on the mean; Cochran (1977) sections 4.4 and 4.6:
+    # means n = n0 / (1 + n0 / N) with n0 = (z S / b)^2, proportions n = n0 / (1 + (n0 - 1) / N) with n0 = z^2 P Q / b^2
+    from simcheck.search import formula_n
+
+    t = {"title": "invented ledger", "target": {"estimand": "total", "margin": B}, "method": {"interval": interval},
+         "data": data, "population": {"size": N}, "simulation": {"replicates": 1000, "seed": 1}}
+    z, b = stats.norm.ppf(0.975), B / N
+    if "p" in data:
+        n0 = z**2 * data["p"] * (1 - data["p"]) / b**2
+        n = n0 / (1 + (n0 - 1) / N)
+    else:
+        n0 = (z * data["cv"] * data["mean"] / b) ** 2
+        n = n0 / (1 + n0 / N)
+    assert formula_n(scenario_from_dict(t).design) == math.ceil(n - 1e-9)
