@@ -441,7 +441,7 @@ def _finite_cluster_notes(design, cm, law, method, M: int, truth: float) -> list
     notes.append(f"n clusters drawn without replacement from a population of {M} clusters (drawn once from the model)")
     if design.estimand == "total":
         notes.append(f"true value: the population's total over its {M} clusters ({truth:.6g}), not the data model's")
-        notes.append("total = M x the mean cluster total (unbiased expansion estimator; Cochran 1977, section 9A.2), "
+        notes.append("total = M x the mean cluster total (unbiased expansion estimator; Cochran 1977, ch. 9A), "
                      "t interval on the cluster totals with k - 1 df")
     else:
         notes.append(f"true value: the population's mean over its {M} clusters ({truth:.6g}), not the data model's")

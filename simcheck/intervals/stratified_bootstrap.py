@@ -9,7 +9,7 @@ ybar*_h to
 
 The bootstrap estimate of the stratified mean is ``sum_h W_h ytilde_h``. Its
 bootstrap mean is ``ybar_st`` and its bootstrap variance is exactly the usual
-estimator ``sum_h W_h^2 (1 - f_h) s_h^2 / n_h`` (Rao & Wu 1988, section 2;
+estimator ``sum_h W_h^2 (1 - f_h) s_h^2 / n_h`` (Rao & Wu 1988;
 Cochran 1977, Theorem 5.4), whatever m_h. Here ``m_h = n_h - 1``, the choice
 Rao & Wu recommend and survey software uses, so ``lambda_h = sqrt(1 - f_h)``:
 the rescaled mean is a convex combination of ybar_h and ybar*_h, so a 0/1
@@ -27,7 +27,7 @@ the result is a pure function of the samples, ``resamples`` and the state of
 References
 ----------
 .. [1] Rao, J. N. K. & Wu, C. F. J. (1988). Resampling inference with complex
-   survey data. *Journal of the American Statistical Association* 83(401),
+   survey data. *Journal of the American Statistical Association* 83,
    231-241.
 .. [2] Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley, sections
    5.2-5.4 (the stratified mean and its variance estimator).
