@@ -194,6 +194,8 @@ def _formula(design: Design):
             # the FPC counts units; clustered designs sample clusters of units
             kw["population_size"] = int(pop.size)
         res = formulas.sample_size(design.estimand, float(design.margin), **kw)
+        if cl is not None and cl.count is not None:  # clusters drawn from M: first-stage correction
+            res = formulas.finite_clusters(res, cl.count)
     except (InputError, ValueError, ZeroDivisionError, OverflowError, TypeError):
         return None
     n = res.clusters if cl is not None else res.n

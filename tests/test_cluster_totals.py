@@ -196,3 +196,15 @@ def test_search_formula_for_one_stage_totals(data, interval, N, B):
         n0 = (z * data["cv"] * data["mean"] / b) ** 2
         n = n0 / (1 + n0 / N)
     assert formula_n(scenario_from_dict(t).design) == math.ceil(n - 1e-9)
+
+
+def test_search_formula_for_a_mean_of_finite_clusters_has_the_first_stage_correction():
+    # k = k0 / (1 + k0 / M), k0 = (z sd / B)^2 (1 + (m - 1) rho) / m (Kish deff; Cochran 1977 ch. 9, from memory)
+    from simcheck.search import formula_n
+
+    t = _table(count=60, size=20, margin=2.0)
+    t["target"]["estimand"] = "mean"
+    t["data"] = {"model": "normal", "mean": 50.0, "sd": 10.0}
+    t["clusters"]["icc"] = 0.05
+    k0 = (stats.norm.ppf(0.975) * 10.0 / 2.0) ** 2 * (1 + 19 * 0.05) / 20
+    assert formula_n(scenario_from_dict(t).design) == math.ceil(k0 / (1 + k0 / 60) - 1e-9)
