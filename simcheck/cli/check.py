@@ -136,7 +136,11 @@ def report(scenario, rows: Sequence[Any]) -> str:
         count = f", {pop.events} with the event (a fixed count)" if pop.events is not None else ""
         lines.append(f"population:  {pop.size} units{count}, sampled without replacement ({fpc} finite population correction)")
     what = {"mean": "mean", "proportion": "proportion", "mean-diff": "difference of means a - b",
-            "proportion-diff": "difference of proportions a - b", "total": "population total"}[d.estimand]
+            "proportion-diff": "difference of proportions a - b", "total": "population total"}.get(d.estimand)
+    if what is None:
+        from simcheck.estimands import spec_for
+
+        what = spec_for(d.estimand).label
     # the result's true value: for a finite population it is the population's mean, not the model's
     true = rows[0].true_value if rows else d.true_value
     lines.append(f"true value:  {_g(float(true), 6)} ({what})")

@@ -31,7 +31,7 @@ from simcheck import CAUTION, __version__
 from simcheck.errors import InputError
 from simcheck.report.study import Progress, StudyResults, SweepResults, is_store, read_sweep, run_study
 from simcheck.report.text import (
-    ESTIMAND_TEXT,
+    estimand_text,
     STATUS_TEXT,
     criterion_sentence,
     decision_status,
@@ -361,7 +361,7 @@ def _study_doc(study: StudyResults, figs: dict[str, Path], base: Path) -> _Doc:
     doc.para("Decision: " + ("; ".join(f"`{m}` {t}" for m, t in states) if len(states) > 1
                              else (states[0][1] if states else "–")) + ".")
     doc.heading("Targets")
-    rows = [["Estimand", ESTIMAND_TEXT.get(s.estimand, s.estimand)],
+    rows = [["Estimand", estimand_text(s.estimand)],
             ["Confidence level", fmt_g(s.confidence)],
             ["Target margin (half-width)", fmt_g(s.margin)],
             ["Required assurance (share of samples with half-width ≤ target)", fmt_g(s.assurance)],
