@@ -629,6 +629,8 @@ def n_axis_label(design) -> str:
 
 def value_axis_label(scenario, units: str | None = None) -> str:
     units = units or scenario.design.units
+    if scenario.design.ratio_scale:
+        return "Achieved margin as a factor (interval within estimate ÷ f to × f)"
     if scenario.design.bound != "two-sided":
         return f"Achieved margin, limit to estimate ({units or 'data units'})"
     if units:
