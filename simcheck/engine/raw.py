@@ -51,6 +51,8 @@ RATIO_NOTE = ("margin on the ratio scale: the factor f with the interval within 
 
 def applies(design: Design) -> bool:
     """True for designs whose method takes the drawn values (registered estimands)."""
+    if getattr(design, "strata", None) is not None:
+        return False  # stratified methods are not in the registry; the stratified evaluator takes them
     m = get_method(design.estimand, design.method)
     return m.kind == "raw"
 
@@ -92,7 +94,8 @@ def _exact_row(design: Design, n: int, m: dict, seed) -> CheckResult:
     r = row_from_measures(design, n, m, seed, "exact")
     if m.get("margin_at_assurance") is not None:
         r = replace(r, margin_at_assurance=float(m["margin_at_assurance"]))
-    # exact paths give ratio-scale margins as factors already; say so as the simulated rows do
+    for note in m.get("notes", ()):  # what an exact path has to say (e.g. intervals not computed)
+        r = with_note(r, note)
     return with_note(r, RATIO_NOTE) if design.ratio_scale else r
 
 
