@@ -144,6 +144,8 @@ for _estimand in ("median", "quantile"):
         "order-statistic", _estimand, "raw", order_statistic,
         summary="distribution-free interval between two order statistics; exact coverage for continuous data",
         references=(_CONOVER, _DAVID), prose="distribution-free order-statistic",
+        exact_text=("from the binomial law of the number of values below the true quantile (the same for every "
+                    "continuous model; the half-width from the law of two order statistics)"),
         exact=order_statistic_exact, exact_applies=_continuous,
     ))
     register(Method(
