@@ -159,7 +159,7 @@ register(Method(
     summary="t interval on the logs, back-transformed: exact for lognormal data",
     references=(_OLSSON, _STUDENT),
     exact=log_t_exact, exact_applies=lambda d: _lognormal(d.model), exact_monotone=True, prose="log-scale t",
-    exact_text="from the exact laws of the mean and variance of the logs (normal for lognormal data)",
+    exact_text="from the sampling laws of the mean and variance of the logs (normal for lognormal data)",
 ))
 register(Method(
     "log-t", "geometric-mean-ratio", "raw", log_t_ratio,
@@ -167,7 +167,7 @@ register(Method(
     references=(_OLSSON, _STUDENT),
     exact=log_t_ratio_exact, exact_applies=_equal_lognormals, exact_monotone=True,
     prose="log-scale t",
-    exact_text="from the exact laws of the group means and pooled variance of the logs (normal for lognormal data)",
+    exact_text="from the sampling laws of the group means and pooled variance of the logs (normal for lognormal data)",
 ))
 register(Method(
     "log-welch", "geometric-mean-ratio", "raw", log_welch_ratio,
