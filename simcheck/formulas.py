@@ -657,6 +657,17 @@ def _plan(v: dict[str, Any], bound: str) -> _Plan:
     )
 
 
+def _smallest_n(pl: _Plan, at_z: float, needed: Callable[[int], float],
+                n_max: int | None = None) -> tuple[int, float, int | None]:
+    """(n, unrounded n, t iterations): z rounds up the n at the z multiple; t iterates
+    ``needed(n)``, the n asked for at the t multiple of n's degrees of freedom, from there."""
+    _too_large(at_z)
+    if pl.kind == "z":
+        return max(1, ceil_robust(at_z)), at_z, None  # a margin far above the SD gives n0 near 0 (or 0 after underflow)
+    nz = ceil_robust(at_z)
+    return _iterate(needed, nz, lo=max(1, nz - 1), n_min=2, n_max=n_max)
+
+
 # --- one sample
 
 
@@ -674,18 +685,9 @@ def _one_sample(pl: _Plan, u: float, var: float, vname: str, unit_variance: str,
         x = base(mult)
         return fpc_n(x, N, unit_variance) if N is not None else x
 
-    nz_un = final(pl.z)
-    _too_large(nz_un)
-    df = iterations = None
-    if pl.kind == "z":
-        mult, n_un = pl.z, nz_un
-        n = max(1, ceil_robust(n_un))  # a margin far above the SD gives n0 near 0 (or 0 after underflow)
-    else:
-        nz = ceil_robust(nz_un)
-        n, n_un, iterations = _iterate(lambda n_: final(t_value(pl.mconf, n_ - 1)), nz, lo=max(1, nz - 1),
-                                       n_min=2, n_max=N)
-        df = float(n - 1)
-        mult = t_value(pl.mconf, df)
+    n, n_un, iterations = _smallest_n(pl, final(pl.z), lambda n_: final(t_value(pl.mconf, n_ - 1)), n_max=N)
+    df = None if pl.kind == "z" else float(n - 1)
+    mult = pl.z if pl.kind == "z" else t_value(pl.mconf, df)
     x0 = base(mult) / deff
     n_before_fpc = x0 * deff if N is not None else None
     steps = _one_sample_steps(pl, n, n_un, mult, x0, var, vname, unit_variance)
@@ -744,17 +746,9 @@ def _two_sample(pl: _Plan, u_a: float, u_b: float, var_a: float, var_b: float, v
             return float(n_ + 1)
         return base_a(t_value(mconf, welch_df(ra * ra, n_, rb * rb, nb_)))
 
-    nz_un = base_a(pl.z)
-    _too_large(nz_un)
-    df = iterations = None
-    if pl.kind == "z":
-        mult, n_un = pl.z, nz_un
-        n = max(1, ceil_robust(n_un))  # a margin far above the SD gives n0 near 0 (or 0 after underflow)
-    else:
-        nz = ceil_robust(nz_un)
-        n, n_un, iterations = _iterate(needed, nz, lo=max(1, nz - 1), n_min=2)
-        df = welch_df(ra * ra, n, rb * rb, ceil_robust(K * n))
-        mult = t_value(mconf, df)
+    n, n_un, iterations = _smallest_n(pl, base_a(pl.z), needed)
+    df = None if pl.kind == "z" else welch_df(ra * ra, n, rb * rb, ceil_robust(K * n))
+    mult = pl.z if pl.kind == "z" else t_value(mconf, df)
     n_b = max(1, ceil_robust(K * n))
     mname = "z" if pl.kind == "z" else f"t({_g(df)})"
     va, vb = vnames
