@@ -5,7 +5,8 @@ from __future__ import annotations
 import argparse
 import sys
 
-from simcheck.cli.common import add_json, emit_json, fmt, table
+from simcheck.cli.common import emit_json, fmt, table
+from simcheck.cli.options import add_closing_options
 from simcheck.errors import Collector, InputError
 from simcheck.formulas import BOUNDS, ESTIMANDS, demonstration_plan, relative_sample_size, sample_size
 
@@ -27,8 +28,7 @@ def add_parser(subparsers) -> None:
     _add_design_options(p)
     _add_plan_options(p)
     _add_strata_options(p)
-    add_json(p)
-    p.set_defaults(run=run)
+    add_closing_options(p, run)
 
 
 def _add_target_options(p: argparse.ArgumentParser) -> None:
