@@ -440,27 +440,28 @@ def _check_numbers(c: Collector, sd, sd_b, p, p_b, population_size, design_effec
     )
 
 
+def _refuse_values(c: Collector, estimand: str, v: dict[str, Any], keys: tuple[str, str],
+                   instead: tuple[str, str]) -> None:
+    """The planning values ``keys`` (group a, b) that do not apply, naming the options to give ``instead``."""
+    two = estimand in TWO_SAMPLE
+    for key, give in zip(keys, (instead[0], instead[1] if two else instead[0])):
+        if v[key] is not None:
+            c.add("--" + key.replace("_", "-"), f"does not apply to a {estimand} estimand (give {give})")
+
+
 def _check_mean_values(c: Collector, estimand: str, v: dict[str, Any]) -> None:
     """mean, mean-diff: planned by SDs (required), not by proportions."""
-    two = estimand in TWO_SAMPLE
-    if v["p"] is not None:
-        c.add("--p", f"does not apply to a {estimand} estimand (give --sd)")
-    if v["p_b"] is not None:
-        c.add("--p-b", f"does not apply to a {estimand} estimand (give {'--sd-b' if two else '--sd'})")
+    _refuse_values(c, estimand, v, ("p", "p_b"), ("--sd", "--sd-b"))
     if v["sd"] is None and "--sd" not in _fields(c):
         c.add("--sd", f"is required for a {estimand} estimand: the planning standard deviation")
-    if not two and v["sd_b"] is not None:
+    if estimand not in TWO_SAMPLE and v["sd_b"] is not None:
         c.add("--sd-b", "applies to two-sample estimands only (mean-diff)")
 
 
 def _check_proportion_values(c: Collector, estimand: str, v: dict[str, Any]) -> None:
     """proportion, proportion-diff: planned by proportions (default 0.5), not by SDs."""
-    two = estimand in TWO_SAMPLE
-    if v["sd"] is not None:
-        c.add("--sd", f"does not apply to a {estimand} estimand (give --p)")
-    if v["sd_b"] is not None:
-        c.add("--sd-b", f"does not apply to a {estimand} estimand (give {'--p-b' if two else '--p'})")
-    if not two and v["p_b"] is not None:
+    _refuse_values(c, estimand, v, ("sd", "sd_b"), ("--p", "--p-b"))
+    if estimand not in TWO_SAMPLE and v["p_b"] is not None:
         c.add("--p-b", "applies to two-sample estimands only (proportion-diff)")
 
 

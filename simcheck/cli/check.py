@@ -212,24 +212,36 @@ class Progress:
         self.last = None
         self.bar = None
 
+    def _has_bar(self, elapsed: float, total: int | None) -> bool:
+        """Whether the terminal bar shows (it appears once the run has taken ``delay`` seconds)."""
+        if self.bar is None:
+            if elapsed < self.delay:
+                return False
+            from tqdm import tqdm
+
+            self.bar = tqdm(total=total, file=self.stream, unit="rep", leave=False, dynamic_ncols=True)
+        return True
+
+    def _line_due(self, now: float, elapsed: float) -> bool:
+        """Whether a plain progress line is due (after ``quiet`` seconds, then every ``every``)."""
+        if elapsed < self.quiet or (self.last is not None and now - self.last < self.every):
+            return False
+        self.last = now
+        return True
+
     def __call__(self, done: int, total: int) -> None:
         now = time.monotonic()
         elapsed = now - self.start
         if self.tty:
-            if self.bar is None:
-                if elapsed < self.delay:
-                    return
-                from tqdm import tqdm
-
-                self.bar = tqdm(total=total, file=self.stream, unit="rep", leave=False, dynamic_ncols=True)
+            if not self._has_bar(elapsed, total):
+                return
             if self.bar.total != total:
                 self.bar.total = total
             self.bar.n = min(done, total)
             self.bar.refresh()
             return
-        if elapsed < self.quiet or (self.last is not None and now - self.last < self.every):
+        if not self._line_due(now, elapsed):
             return
-        self.last = now
         share = 100.0 * done / total if total else 100.0
         self.stream.write(f"simcheck: {share:.0f}% done ({done} of {total}), {elapsed:.0f} s\n")
         self.stream.flush()
@@ -289,19 +301,14 @@ class SearchProgress(Progress):
         now = time.monotonic()
         elapsed = now - self.start
         if self.tty:
-            if self.bar is None:
-                if elapsed < self.delay:
-                    return
-                from tqdm import tqdm
-
-                self.bar = tqdm(total=self.budget, file=self.stream, unit="rep", leave=False, dynamic_ncols=True)
+            if not self._has_bar(elapsed, self.budget):
+                return
             self.bar.set_description(self.describe(done, total), refresh=False)
             self.bar.n = min(overall, self.budget) if self.budget else overall
             self.bar.refresh()
             return
-        if elapsed < self.quiet or (self.last is not None and now - self.last < self.every):
+        if not self._line_due(now, elapsed):
             return
-        self.last = now
         of = f" ({100.0 * overall / self.budget:.0f}% of the budget {self.budget:,})" if self.budget else ""
         self.stream.write(f"simcheck: {self.describe(done, total)}; {overall:,} replicates simulated so far{of}, "
                           f"{elapsed:.0f} s\n")

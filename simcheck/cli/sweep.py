@@ -175,20 +175,15 @@ def run(args: argparse.Namespace) -> int:
             on_start=progress.start, on_cell=on_cell,
             on_notice=lambda line: note(f"sweep: note: {line}"), on_validate=_Checking(),
         )
-    except SweepInterrupted as exc:
+    except (SweepInterrupted, SweepAborted) as exc:
         progress.close()
         s = exc.summary
-        note(error_line(f"interrupted: {s.stored_ok} of {s.cells_total} cells are stored in {s.store}; {resume}"))
+        interrupted = isinstance(exc, SweepInterrupted)
+        what = "interrupted:" if interrupted else f"sweep stopped: {exc};"
+        note(error_line(f"{what} {s.stored_ok} of {s.cells_total} cells are stored in {s.store}; {resume}"))
         if args.json:
             emit_json(s.to_dict())
-        return 130
-    except SweepAborted as exc:
-        progress.close()
-        s = exc.summary
-        note(error_line(f"sweep stopped: {exc}; {s.stored_ok} of {s.cells_total} cells are stored in {s.store}; {resume}"))
-        if args.json:
-            emit_json(s.to_dict())
-        return 1
+        return 130 if interrupted else 1
     finally:
         progress.close()
         signal.signal(signal.SIGTERM, old)
