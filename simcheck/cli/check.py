@@ -133,7 +133,11 @@ def data_lines(d) -> list[str]:
 def _target_lines(scenario, d, rows: Sequence[Any]) -> list[str]:
     """The true value, the method and its target, and how the rows were computed."""
     what = {"mean": "mean", "proportion": "proportion", "mean-diff": "difference of means a - b",
-            "proportion-diff": "difference of proportions a - b", "total": "population total"}[d.estimand]
+            "proportion-diff": "difference of proportions a - b", "total": "population total"}.get(d.estimand)
+    if what is None:
+        from simcheck.estimands import spec_for
+
+        what = spec_for(d.estimand).label
     # the result's true value: for a finite population it is the population's mean, not the model's
     true = rows[0].true_value if rows else d.true_value
     lines = [f"true value:  {_g(float(true), 6)} ({what})"]
@@ -179,9 +183,13 @@ def _closing_lines(d, rows: Sequence[Any]) -> list[str]:
     elif any(r.exact for r in rows):
         lines.append("* exact: computed by enumeration or exact law, not simulation (MCSE 0).")
     half = "half-width" if d.bound == "two-sided" else "margin (distance from estimate to limit)"
+    if d.ratio_scale:
+        half = "margin factor"
+    scale = ("margins are factors f (the interval within estimate / f to estimate x f)" if d.ratio_scale
+             else f"margins {units_text(d.units)}")
     lines.append(f"coverage = {coverage_words(d.bound)} (nominal {d.confidence:.4g}); "
                  f"assurance = share with {half} <= {_g(d.margin, 6)} "
-                 f"(zero-width intervals that miss the true value do not count); margins {units_text(d.units)}.")
+                 f"(zero-width intervals that miss the true value do not count); {scale}.")
     lines += result_lines(rows, d.units)
     notes: list[str] = []
     for r in rows:

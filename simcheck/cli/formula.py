@@ -5,9 +5,11 @@ from __future__ import annotations
 import argparse
 import sys
 
+from simcheck.cli import formula_estimands
 from simcheck.cli.common import emit_json, fmt, table
 from simcheck.cli.options import add_closing_options
 from simcheck.errors import Collector, InputError
+from simcheck.estimands import REGISTRY as ESTIMAND_SPECS
 from simcheck.formulas import BOUNDS, ESTIMANDS, demonstration_plan, relative_sample_size, sample_size
 
 
@@ -28,14 +30,16 @@ def add_parser(subparsers) -> None:
     _add_design_options(p)
     _add_plan_options(p)
     _add_strata_options(p)
+    formula_estimands.add_options(p)
     add_closing_options(p, run)
 
 
 def _add_target_options(p: argparse.ArgumentParser) -> None:
     """What is estimated, to what margin, and the planning values."""
-    p.add_argument("--estimand", choices=ESTIMANDS + ("total",), metavar="E",
+    p.add_argument("--estimand", choices=ESTIMANDS + ("total",) + tuple(ESTIMAND_SPECS), metavar="E",
                    help="what is estimated: mean, proportion, mean-diff or proportion-diff (difference a - b); "
-                        "total (N times the mean; with --stratum, or with --population-size and --sd or --p)")
+                        "total (N times the mean; with --stratum, or with --population-size and --sd or --p); "
+                        + ", ".join(ESTIMAND_SPECS) + " (their planning values below)")
     p.add_argument("--margin", type=float, metavar="B",
                    help="target half-width of the interval, > 0, in the data's units (0.05 = 5 points for proportions); required")
     p.add_argument("--confidence", type=float, default=0.95, metavar="C",
@@ -198,6 +202,8 @@ def run(args: argparse.Namespace) -> int:
 
 def _answer_kind(args: argparse.Namespace) -> str:
     """Which closed form the options ask for, after refusing the combinations it cannot take."""
+    if args.estimand in ESTIMAND_SPECS:
+        return "registered"  # the estimand registry's closed form, with its own checks
     if args.stratum:
         if args.bound != "two-sided" or args.relative_margin is not None or args.limit is not None:
             opt = "--bound" if args.bound != "two-sided" else ("--relative-margin" if args.relative_margin is not None else "--limit")
@@ -275,6 +281,7 @@ def _run_margin(args: argparse.Namespace) -> int:
 
 #: One function per kind of answer (:func:`_answer_kind`); each prints its JSON object or text.
 ANSWERS = {
+    "registered": formula_estimands.run_registered,
     "strata": _run_strata,
     "total": _run_total,
     "plan": _run_plan,
