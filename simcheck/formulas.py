@@ -35,6 +35,8 @@ from simcheck.errors import Collector, InputError
 __all__ = [
     "ESTIMANDS",
     "TWO_SAMPLE",
+    "ESTIMAND_FORMULAS",
+    "EstimandFormula",
     "FormulaResult",
     "sample_size",
     "total_sample_size",
