@@ -145,6 +145,13 @@ def _plan_problems(args: argparse.Namespace) -> None:
     c.raise_if_any()
 
 
+def _not_used(c: Collector, args: argparse.Namespace, dests: tuple[str, ...], message: str) -> None:
+    """One problem for each of the options ``dests`` that was given."""
+    for dest in dests:
+        if getattr(args, dest) is not None:
+            c.add("--" + dest.replace("_", "-"), message)
+
+
 def _strata(args: argparse.Namespace):
     """The stratified closed form from repeated --stratum options."""
     from simcheck.errors import Collector
@@ -168,10 +175,8 @@ def _strata(args: argparse.Namespace):
         sizes.append(int(nums[0]) if nums[0].is_integer() else nums[0])
         values.append(nums[1])
         extras.append(nums[2] if len(nums) > 2 else None)
-    for opt in ("sd", "sd_b", "p", "p_b", "population_size", "design_effect", "icc", "cluster_size", "ratio",
-                "dropout", "pilot_n", "cluster_count"):
-        if getattr(args, opt) is not None:
-            c.add("--" + opt.replace("_", "-"), "not used with --stratum (give each stratum its own value)")
+    _not_used(c, args, ("sd", "sd_b", "p", "p_b", "population_size", "design_effect", "icc", "cluster_size", "ratio",
+                        "dropout", "pilot_n", "cluster_count"), "not used with --stratum (give each stratum its own value)")
     c.raise_if_any()
     prop = args.estimand == "proportion"
     given = [int(v) if float(v).is_integer() else v for v in extras] if rule == "given" else None
@@ -189,10 +194,9 @@ def _total(args: argparse.Namespace):
     c = Collector()
     if args.cluster_count is not None or args.icc is not None or args.cluster_size is not None:
         return _cluster_total(args)
-    for opt in ("sd_b", "p_b", "design_effect", "icc", "cluster_size", "cluster_size_cv", "ratio", "cluster_count"):
-        if getattr(args, opt) is not None:
-            c.add("--" + opt.replace("_", "-"), "not used with --estimand total without --stratum (a one-stage "
-                  "sample of a finite population: give --population-size and --sd or --p)")
+    _not_used(c, args, ("sd_b", "p_b", "design_effect", "icc", "cluster_size", "cluster_size_cv", "ratio", "cluster_count"),
+              "not used with --estimand total without --stratum (a one-stage sample of a finite population: give "
+              "--population-size and --sd or --p)")
     c.raise_if_any()
     return total_sample_size(args.margin, args.population_size, confidence=args.confidence, sd=args.sd, p=args.p,
                              multiplier=args.multiplier)
@@ -208,10 +212,8 @@ def _cluster_total(args: argparse.Namespace):
                      ("cluster_size", "the (mean) cluster size")):
         if getattr(args, opt) is None:
             c.add("--" + opt.replace("_", "-"), f"is required for a total of clusters: {why}")
-    for opt in ("sd_b", "p_b", "design_effect", "ratio", "population_size"):
-        if getattr(args, opt) is not None:
-            c.add("--" + opt.replace("_", "-"), "not used with a total of clusters (give --cluster-count, --icc, "
-                  "--cluster-size and --sd or --p)")
+    _not_used(c, args, ("sd_b", "p_b", "design_effect", "ratio", "population_size"),
+              "not used with a total of clusters (give --cluster-count, --icc, --cluster-size and --sd or --p)")
     c.raise_if_any()
     return cluster_total_sample_size(args.margin, args.cluster_count, args.cluster_size, args.icc, sd=args.sd, p=args.p,
                                      cluster_size_cv=args.cluster_size_cv, confidence=args.confidence, bound=args.bound)
