@@ -378,16 +378,23 @@ def prefix_moments(d: np.ndarray, ns: Sequence[int], nested: bool, need_m3: bool
         s3 = np.einsum("ij,ij,ij->i", d, d, d)[:, None] if need_m3 else None
         return s1, s2, s3
     cols = prefix_columns(ns) if cols is None else cols
-    sq = d * d
-    cube = sq * d if need_m3 else None
-    # running sums in place (the draws are not needed afterwards); columns kept
-    # with gaps between them are copied to contiguous arrays, on which the many
-    # element-wise passes that follow run two to three times faster than on
-    # strided views; consecutive columns are used in place (rows of contiguous
-    # values, as fast as a copy without the copy)
+    # Both running sums in one pass: d in the real and d^2 in the imaginary
+    # part of a complex array. A complex add is two independent IEEE double
+    # adds, so the sums are the very bits of two real running sums, while a
+    # running sum's speed is set by the chain from one element to the next
+    # (about 3.3 ns per element on the project machine): the pair costs about
+    # 60% of two real cumsums (measured on 81 x 400 slabs, packing included).
+    z = np.empty(d.shape, dtype=np.complex128)
+    z.real[...] = d
+    np.multiply(d, d, out=z.imag)
+    cube = np.multiply(z.imag, d) if need_m3 else None
+    np.cumsum(z, axis=1, out=z)
+    # columns kept with gaps between them are copied to contiguous arrays, on
+    # which the many element-wise passes that follow run two to three times
+    # faster than on strided views; consecutive columns are read in place
     keep = (lambda a: a) if isinstance(cols, slice) and cols.step == 1 else np.ascontiguousarray
-    s1 = keep(np.cumsum(d, axis=1, out=d)[:, cols])
-    s2 = keep(np.cumsum(sq, axis=1, out=sq)[:, cols])
+    s1 = keep(z.real[:, cols])
+    s2 = keep(z.imag[:, cols])
     s3 = keep(np.cumsum(cube, axis=1, out=cube)[:, cols]) if need_m3 else None
     return s1, s2, s3
 
@@ -405,15 +412,19 @@ def prefix_columns(ns) -> slice | np.ndarray:
 
 
 def summary_from_sums(s1, s2, s3, n, sd_true) -> Summary:
-    """Summary from power sums (centred data); overwrites s1 and s2 in place."""
+    """Summary from power sums (centred data); may overwrite s1 in place.
+
+    Strided views (the running sums of :func:`prefix_moments`) are read, not
+    written: the results go to new contiguous arrays in as many passes.
+    """
     inv_n = 1.0 / np.asarray(n, dtype=np.float64)
-    mean = np.multiply(s1, inv_n, out=s1)
+    mean = np.multiply(s1, inv_n, out=s1 if s1.flags.c_contiguous and s1.flags.writeable else None)
     m3 = None
     if s3 is not None:
         m3 = s3 * inv_n - 3.0 * mean * (s2 * inv_n) + 2.0 * mean**3
     tmp = mean * mean
     tmp *= np.asarray(n, dtype=np.float64)
-    var = np.subtract(s2, tmp, out=s2)
+    var = np.subtract(s2, tmp, out=tmp)
     var *= 1.0 / (np.asarray(n, dtype=np.float64) - 1.0)
     # rounding can leave a tiny negative variance; every method clips it
     return Summary(n=n, mean=mean, var=var, m3=m3, sd_true=sd_true)
