@@ -212,7 +212,12 @@ def quantiles_with_mcse(values: np.ndarray, probs=(0.5, 0.9)) -> tuple[np.ndarra
             hi = int(min(max(math.ceil(m * p + half), 1), m))
             ranks.append((_rank(m, p), lo, hi))
         kth = sorted({r - 1 for trio in ranks for r in trio})
-        part = np.partition(v, kth, axis=0)
+        if v.shape[1] > 1:
+            # one column per row: selection along contiguous memory (faster than
+            # down the columns of the kept rows); order statistics are exact either way
+            part = np.partition(np.ascontiguousarray(v.T), kth, axis=1).T
+        else:
+            part = np.partition(v, kth, axis=0)
         with np.errstate(invalid="ignore"):  # inf - inf: no finite error
             for i, (r, lo, hi) in enumerate(ranks):
                 q[i, cols] = part[r - 1]

@@ -417,15 +417,16 @@ def summary_from_sums(s1, s2, s3, n, sd_true) -> Summary:
     Strided views (the running sums of :func:`prefix_moments`) are read, not
     written: the results go to new contiguous arrays in as many passes.
     """
-    inv_n = 1.0 / np.asarray(n, dtype=np.float64)
+    nf = np.asarray(n, dtype=np.float64)
+    inv_n = 1.0 / nf
     mean = np.multiply(s1, inv_n, out=s1 if s1.flags.c_contiguous and s1.flags.writeable else None)
     m3 = None
     if s3 is not None:
         m3 = s3 * inv_n - 3.0 * mean * (s2 * inv_n) + 2.0 * mean**3
     tmp = mean * mean
-    tmp *= np.asarray(n, dtype=np.float64)
+    tmp *= nf
     var = np.subtract(s2, tmp, out=tmp)
-    var *= 1.0 / (np.asarray(n, dtype=np.float64) - 1.0)
+    var *= 1.0 / (nf - 1.0)
     # rounding can leave a tiny negative variance; every method clips it
     return Summary(n=n, mean=mean, var=var, m3=m3, sd_true=sd_true)
 
@@ -613,7 +614,9 @@ def _limits(plan: _SimPlan, ma, mb, xa, xb, g_boot, starts) -> _Limits:
         if kind == "summary" and method.centre_half is not None:
             c, h = method.centre_half(sa, conf)
             shape = np.shape(sa.mean)
-            return _Limits(np.broadcast_to(c, shape), np.broadcast_to(h, shape), None, starts, symmetric=True)
+            if np.shape(c) != shape or np.shape(h) != shape:  # e.g. z: one half-width per n
+                c, h = np.broadcast_to(c, shape), np.broadcast_to(h, shape)
+            return _Limits(c, h, None, starts, symmetric=True)
         if kind == "summary":
             lo, hi = method.func(sa, conf)
         else:
