@@ -202,3 +202,20 @@ def test_slab_size_changes_no_number(monkeypatch):
     other = engine.curve(d, ns, replicates=4_000, rng=22, threads=2)
     for a, b in zip(ref.rows, other.rows):
         _same(a, b)
+
+
+def test_t_quantiles_of_a_curve_are_cached_but_exact():
+    # The t interval along a curve asks for the t quantile of every n once per
+    # slab; the cached row must be scipy's own quantiles (reference: scipy.stats.t.ppf
+    # called here, element by element), on the first call and on later ones.
+    from scipy import stats
+
+    from simcheck.intervals import Summary
+    from simcheck.intervals.mean import t_centre_half
+
+    n = np.arange(2, 60)
+    var = np.linspace(0.5, 3.0, n.size)
+    for _ in range(2):  # the second call is served from the cache
+        _, half = t_centre_half(Summary(n=n, mean=np.zeros(n.size), var=var.copy()), 0.9)
+        ref = np.array([stats.t.ppf(0.95, k - 1) * np.sqrt(v / k) for k, v in zip(n, var)])
+        np.testing.assert_allclose(half, ref, rtol=1e-13)
