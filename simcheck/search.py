@@ -90,6 +90,7 @@ from scipy import stats
 from simcheck import engine
 from simcheck import rng as rngmod
 from simcheck.design import Design
+from simcheck.estimands import REGISTRY as ESTIMAND_SPECS
 from simcheck.errors import Collector, InputError
 from simcheck.intervals import get_method
 from simcheck.results import CheckResult, CurveResult, MethodComparison, SearchResult
@@ -168,6 +169,8 @@ def _formula(design: Design):
         return None
     if design.strata is not None:
         return _stratified_formula(design)
+    if design.estimand in ESTIMAND_SPECS:
+        return _registered_formula(design)
     kw: dict[str, Any] = {"confidence": design.confidence, "multiplier": "z", "bound": design.bound}
     try:
         if design.estimand in ("mean", "mean-diff"):
@@ -196,6 +199,18 @@ def _formula(design: Design):
         return None
     n = res.clusters if cl is not None else res.n
     return None if n is None else (res, int(n))
+
+
+def _registered_formula(design: Design):
+    """The closed-form baseline of an estimand from the registry, from the design's planning values."""
+    spec = ESTIMAND_SPECS[design.estimand]
+    if spec.formula is None or spec.planning is None:
+        return None
+    try:
+        res = spec.formula(float(design.margin), design.confidence, **spec.planning(design))
+    except (InputError, ValueError, ZeroDivisionError, OverflowError, TypeError):
+        return None
+    return res, int(res.n)
 
 
 def _stratified_formula(design: Design):
@@ -306,7 +321,8 @@ class _Runner:
 
 
 def _resampling(design: Design) -> bool:
-    return get_method(design.estimand, design.method).kind in ("sample", "sample2")
+    m = get_method(design.estimand, design.method)
+    return m.kind in ("sample", "sample2") or m.resampling
 
 
 def _dense_paths(design: Design, path: str) -> tuple[bool, bool]:
@@ -550,7 +566,7 @@ def _methods_that_reach(run: _Runner, ctx: dict) -> list[str]:
         if name == design.method:
             continue
         m = get_method(design.estimand, name)
-        if m.kind in ("sample", "sample2"):
+        if m.kind in ("sample", "sample2") or m.resampling:
             continue  # bootstrap: too expensive for a quick check at n_max
         try:
             d = design.with_method(name)
@@ -570,8 +586,12 @@ def _methods_that_reach(run: _Runner, ctx: dict) -> list[str]:
 def _exact_search(run: _Runner, start: int, **ctx) -> SearchResult:
     # counts (binomial, beta-binomial, hypergeometric) make coverage oscillate in n;
     # the exact laws of normal data give coverage and assurance monotone in n
-    if ctx["design"].estimand in ("proportion", "proportion-diff"):
+    design = ctx["design"]
+    if design.estimand in ("proportion", "proportion-diff"):
         return _exact_scan(run, **ctx)
+    method = get_method(design.estimand, design.method)
+    if method.kind == "raw" and not method.exact_monotone:
+        return _exact_scan(run, **ctx)  # registered estimands: monotone only where the method says so
     return _exact_monotone(run, start, **ctx)
 
 
@@ -673,8 +693,10 @@ def _exact_monotone(run: _Runner, start: int, **ctx) -> SearchResult:
     notes = _formula_note(ctx["nf"], n)
     if n_first != n:
         notes.append(f"the targets first hold at n = {n_first}, and for every larger n checked from n = {n}")
-    notes.append("exact: computed from the exact law of the sample mean and variance of normal data "
-                 "(no Monte Carlo error); coverage and assurance rise monotonically in n, so the window holds")
+    law = ("the exact law of the statistic" if get_method(design.estimand, design.method).kind == "raw"
+           else "the exact law of the sample mean and variance of normal data")
+    notes.append(f"exact: computed from {law} (no Monte Carlo error); coverage and assurance rise monotonically "
+                 "in n, so the window holds")
     return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=n,
                    reached=True, n_range=(n, n), at=ev(n), stop="exact", exact=True, n_first=n_first,
                    notes=notes, curve_rows=win, window=window)

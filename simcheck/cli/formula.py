@@ -5,7 +5,9 @@ from __future__ import annotations
 import argparse
 import sys
 
+from simcheck.cli import formula_estimands
 from simcheck.cli.common import add_json, emit_json, fmt, table
+from simcheck.estimands import REGISTRY as ESTIMAND_SPECS
 from simcheck.errors import Collector
 from simcheck.formulas import BOUNDS, ESTIMANDS, demonstration_plan, relative_sample_size, sample_size
 
@@ -23,9 +25,10 @@ def add_parser(subparsers) -> None:
             "`simcheck check` and `simcheck search` test whether n really delivers the interval."
         ),
     )
-    p.add_argument("--estimand", choices=ESTIMANDS + ("total",), metavar="E",
+    p.add_argument("--estimand", choices=ESTIMANDS + ("total",) + tuple(ESTIMAND_SPECS), metavar="E",
                    help="what is estimated: mean, proportion, mean-diff or proportion-diff (difference a - b); "
-                        "total (N times the mean; with --stratum, or with --population-size and --sd or --p)")
+                        "total (N times the mean; with --stratum, or with --population-size and --sd or --p); "
+                        + ", ".join(ESTIMAND_SPECS) + " (their planning values below)")
     p.add_argument("--margin", type=float, metavar="B",
                    help="target half-width of the interval, > 0, in the data's units (0.05 = 5 points for proportions); required")
     p.add_argument("--confidence", type=float, default=0.95, metavar="C",
@@ -87,6 +90,7 @@ def add_parser(subparsers) -> None:
                    help="how the total n is shared among the strata (default proportional)")
     p.add_argument("--minimum", type=int, default=None, metavar="K",
                    help="least n per stratum, >= 2 (default 2)")
+    formula_estimands.add_options(p)
     add_json(p)
     p.set_defaults(run=run)
 
@@ -173,6 +177,8 @@ def _total(args: argparse.Namespace):
 
 
 def run(args: argparse.Namespace) -> int:
+    if args.estimand in ESTIMAND_SPECS:
+        return formula_estimands.run_registered(args)
     if args.stratum and (args.bound != "two-sided" or args.relative_margin is not None or args.limit is not None):
         from simcheck.errors import InputError
 
