@@ -213,9 +213,12 @@ def quantiles_with_mcse(values: np.ndarray, probs=(0.5, 0.9)) -> tuple[np.ndarra
             ranks.append((_rank(m, p), lo, hi))
         kth = sorted({r - 1 for trio in ranks for r in trio})
         if v.shape[1] > 1:
-            # one column per row: selection along contiguous memory (faster than
-            # down the columns of the kept rows); order statistics are exact either way
-            part = np.partition(np.ascontiguousarray(v.T), kth, axis=1).T
+            # many short columns (a curve's 2,000 kept replicates per n): numpy's
+            # vectorised sort of contiguous rows beats selecting six order
+            # statistics (about 11 against 15 ms for 2,000 x 399 values); one long
+            # column: selection (14 against 38 ms for 10^6 values). Order
+            # statistics are exact either way.
+            part = np.sort(np.ascontiguousarray(v.T), axis=1).T
         else:
             part = np.partition(v, kth, axis=0)
         with np.errstate(invalid="ignore"):  # inf - inf: no finite error
@@ -549,7 +552,8 @@ def _finite_or_none(x) -> float | None:
 
 def share_mcse(p: float, r: int) -> float:
     """Monte Carlo SE of a share: sqrt(p (1 - p) / R) (Morris et al. 2019, Table 6)."""
-    return float(math.sqrt(max(p * (1.0 - p), 0.0) / r))
+    p = float(p)  # plain floats: numpy scalar arithmetic costs far more, with the same bits
+    return math.sqrt(max(p * (1.0 - p), 0.0) / r)
 
 
 def block_starts(blocks) -> list[int]:
