@@ -220,14 +220,15 @@ PIECE_VALUES = 1 << 15
 PIECES_PER_BLOCK = 4
 #: values per work unit on buffered paths
 UNIT_VALUES = 1 << 17
-#: values per slab of a nested unit, so that a slab's running sums, limits and
-#: counts stay in a core's cache. Measured on the work after the draw of one
-#: 324 x 400 unit (t interval): on the quiet machine slabs of 24-128 rows took
-#: 2.1-3.1 ms against 3.8-5.7 ms for the whole unit; at load average 10 the
-#: sizes from 16 Ki to 128 Ki values were within the noise. Smaller slabs lose
-#: to Python's overhead per call (about 80 microseconds a slab). No number
+#: values per slab of a nested unit: a slab's running sums, limits and counts
+#: stay in cache between passes. Measured on the work after the draw of one
+#: 324 x 400 unit (t interval), quiet machine: slabs of 24-128 rows took
+#: 2.1-3.1 ms against 3.8-5.7 ms for the whole unit; whole curve n = 2..400 /
+#: one check at load average 9 (best of 8, alternating): 2.53 with 32 Ki
+#: values, 2.42 with 64 Ki and 2.42 with 128 Ki (whole units). Smaller slabs
+#: lose to Python's overhead per slab (about 60 microseconds). No number
 #: depends on it.
-SLAB_VALUES = 1 << 15
+SLAB_VALUES = 1 << 16
 
 
 def piece_rows(columns: int) -> int:
