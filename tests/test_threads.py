@@ -197,8 +197,9 @@ def test_slab_size_changes_no_number(monkeypatch):
 
     d = _design(dict(model=LOGNORMAL, method="t"))
     ns = range(2, 90)
+    monkeypatch.setattr(simple, "SLAB_VALUES", 1 << 12)  # 46 rows: about 30 slabs per unit
     ref = engine.curve(d, ns, replicates=4_000, rng=22, threads=1)
-    monkeypatch.setattr(simple, "SLAB_VALUES", simple.UNIT_VALUES * 4)
+    monkeypatch.setattr(simple, "SLAB_VALUES", simple.UNIT_VALUES * 4)  # whole units
     other = engine.curve(d, ns, replicates=4_000, rng=22, threads=2)
     for a, b in zip(ref.rows, other.rows):
         _same(a, b)
