@@ -133,6 +133,8 @@ def _cluster_designs():
          range(3, 30, 3), "auto"),
         ("finite clusters", Design(model=normal, method="cluster-t", margin=1.0,
                                    clusters=ClusterSpec(icc=0.05, size=6, count=60)), range(4, 61, 4), "auto"),
+        ("finite clusters, total", Design(model=gamma, estimand="total", method="cluster-t", margin=400.0,
+                                          clusters=ClusterSpec(icc=0.2, size=5, count=40)), range(4, 41, 6), "auto"),
         ("population t", Design(model=gamma, method="t", margin=0.5, population=PopulationSpec(size=500)),
          range(5, 300, 15), "auto"),
         ("population cox, no fpc", Design(model=make_model(LOGNORMAL), method="cox", margin=1.0,
