@@ -341,6 +341,11 @@ class Reducer:
             above -= _count(bad & (lo > truth))
             hw[bad] = np.nan
             sums = _segment_sums(np.where(bad, 0.0, hw), st, prev=prev)
+        if np.isinf(sums).any():
+            # unbounded intervals (an infinite limit) are counted, never meet the
+            # margin and are left out of the mean, which they would make infinite
+            sums = _segment_sums(np.where(np.isfinite(hw), hw, 0.0), st, prev=prev)
+            p.unbounded += _count(np.isinf(hw))
         p.low += below
         p.high += above
         self._half_widths(hw, sums, st, bad, None if degenerate is None else np.asarray(degenerate, bool),
@@ -354,7 +359,7 @@ class Reducer:
         st = starts if starts is not None else [0]
         prev = p.sums[-1] if more else None
         sums = _segment_sums(half, st, prev=prev)
-        if np.isnan(sums).any():  # a NaN centre comes with a NaN half here
+        if not np.isfinite(sums).all():  # a NaN centre comes with a NaN half here; infinite halves are rare
             self.add(centre - half, centre + half, starts=starts, more=more)
             return
         if more:
@@ -372,8 +377,8 @@ class Reducer:
         """
         p = self.p
         ok = hw if bad is None else np.where(bad, 0.0, hw)
-        if np.isinf(sums).any():
-            p.unbounded += _count(np.isinf(ok))
+        if p.unbounded.any():
+            ok = np.where(np.isinf(ok), 0.0, ok)
         p.sums.extend(sums)
         p.squares.extend(_segment_sums(ok, st, squares=True, prev=p.squares.pop() if more else None))
         if flagged is None and not (hw.size and ok.min() <= 0):
@@ -482,7 +487,8 @@ class Accumulator:
         self.q50_se, self.q90_se = se[0], se[1]
 
     def _mean_and_mcse(self, j: int) -> tuple[float, float | None]:
-        m = int(self.total - self.nan[j])
+        # over the intervals that could be computed and are bounded
+        m = int(self.total - self.nan[j] - self.unbounded[j])
         if m <= 0:
             return math.nan, None
         mean = float(self.hw_sum[j] / m)
@@ -503,7 +509,8 @@ class Accumulator:
         if self.keep < R:
             notes.append(f"margin median and 90th percentile from the first {self.keep} replicates")
         if self.unbounded[j]:
-            notes.append(f"{int(self.unbounded[j])} intervals were unbounded (infinite half-width), so the margin mean is infinite")
+            notes.append(f"{int(self.unbounded[j])} intervals were unbounded (an infinite limit): they never meet the "
+                         "margin, count in the median and 90th percentile as infinite, and are left out of the margin mean")
         if deg:
             notes.append(f"{deg} intervals had zero width (degenerate, e.g. all values equal or no events); "
                          "they never count as meeting the margin")
