@@ -71,6 +71,7 @@ KEYWORDS: dict[str, str] = {
     "data": "data",
     "data_a": "data.a",
     "data_b": "data.b",
+    "correlation": "data.correlation",
     "interval": "method.interval",
     "resamples": "method.resamples",
     "replicates": "simulation.replicates",
