@@ -120,6 +120,10 @@ def report(scenario, rows: Sequence[Any]) -> str:
     if d.two_sample:
         lines.append(f"data a:      {d.model.describe()}")
         lines.append(f"data b:      {d.model_b.describe()}  (n_b = {d.ratio:g} x n)")
+    elif d.paired:
+        lines.append(f"data a:      {d.model.describe()}  (first measurement of each pair)")
+        lines.append(f"data b:      {d.model_b.describe()}  (second measurement; n counts pairs)")
+        lines.append(f"correlation: {d.correlation:g} between the measurements' normal scores (Gaussian copula)")
     elif d.strata is not None:
         for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models):
             lines.append(f"stratum:     {name} (N = {size}): {m.describe()}")
