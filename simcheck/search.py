@@ -688,11 +688,19 @@ def _exact_monotone(run: _Runner, start: int, **ctx) -> SearchResult:
     notes = _formula_note(ctx["nf"], n)
     if n_first != n:
         notes.append(f"the targets first hold at n = {n_first}, and for every larger n checked from n = {n}")
-    notes.append("exact: computed from the exact law of the sample mean and variance of normal data "
-                 "(no Monte Carlo error); coverage and assurance rise monotonically in n, so the window holds")
+    notes.append(_exact_note(design))
     return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=n,
                    reached=True, n_range=(n, n), at=ev(n), stop="exact", exact=True, n_first=n_first,
                    notes=notes, curve_rows=win, window=window)
+
+
+def _exact_note(design: Design) -> str:
+    if design.estimand in ESTIMAND_SPECS:
+        # registered estimands: the method's own exact path (Method.exact) says which law it uses
+        return ("exact: computed from the exact law of the method's statistic under the data model (no Monte Carlo "
+                "error); the targets were checked at n and at the window's top n")
+    return ("exact: computed from the exact law of the sample mean and variance of normal data "
+            "(no Monte Carlo error); coverage and assurance rise monotonically in n, so the window holds")
 
 
 def _bracket(passes: Callable[[int], bool], start: int, lo_n: int, hi_n: int) -> tuple[int | None, int]:

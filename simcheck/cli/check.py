@@ -12,7 +12,7 @@ import time
 from typing import Any, Sequence
 
 from simcheck import CAUTION
-from simcheck.cli.common import add_json, add_sim_overrides, emit_json, note, table
+from simcheck.cli.common import add_json, add_sim_overrides, emit_json, paired_lines, note, table
 from simcheck.bound_text import bound_words, coverage_words, result_lines, units_text
 from simcheck.cli.options import add_allow_outside
 
@@ -121,9 +121,7 @@ def report(scenario, rows: Sequence[Any]) -> str:
         lines.append(f"data a:      {d.model.describe()}")
         lines.append(f"data b:      {d.model_b.describe()}  (n_b = {d.ratio:g} x n)")
     elif d.paired:
-        lines.append(f"data a:      {d.model.describe()}  (first measurement of each pair)")
-        lines.append(f"data b:      {d.model_b.describe()}  (second measurement; n counts pairs)")
-        lines.append(f"correlation: {d.correlation:g} between the measurements' normal scores (Gaussian copula)")
+        lines += paired_lines(d)
     elif d.strata is not None:
         for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models):
             lines.append(f"stratum:     {name} (N = {size}): {m.describe()}")

@@ -7,7 +7,7 @@ import sys
 from typing import Any
 
 from simcheck import CAUTION
-from simcheck.cli.common import add_json, add_sim_overrides, emit_json, table
+from simcheck.cli.common import add_json, add_sim_overrides, emit_json, paired_lines, table
 from simcheck.bound_text import bound_words, coverage_words
 from simcheck.cli.check import CLI_FIELDS, SearchProgress, add_bound_option, add_method_option, bound_overrides, run_seed
 from simcheck.cli.options import add_allow_outside
@@ -113,6 +113,8 @@ def _header(scenario, design) -> list[str]:
     if d.two_sample:
         lines.append(f"data a:      {d.model.describe()}")
         lines.append(f"data b:      {d.model_b.describe()}  (n_b = {d.ratio:g} x n)")
+    elif d.paired:
+        lines += paired_lines(d)
     elif d.strata is not None:
         for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models):
             lines.append(f"stratum:     {name} (N = {size}): {m.describe()}")
