@@ -146,6 +146,30 @@ def test_copula_correlation_of_lognormal_margins_closed_form(sa, sb, rho):
     assert d.true_value == pytest.approx(ref, abs=1e-9)
 
 
+@pytest.mark.parametrize("rho", [0.5, -0.8])
+def test_copula_correlation_of_two_bernoulli_margins_against_scipy_bivariate_normal(rho):
+    # X = 1[Z1 > Phi^-1(1 - p_a)], Y likewise: P(X = Y = 1) is a bivariate normal orthant (scipy's mvn cdf)
+    pa, pb = 0.3, 0.6
+    ca, cb = stats.norm.ppf(1 - pa), stats.norm.ppf(1 - pb)
+    p11 = stats.multivariate_normal([0, 0], [[1, rho], [rho, 1]]).cdf([-ca, -cb])
+    ref = (p11 - pa * pb) / math.sqrt(pa * (1 - pa) * pb * (1 - pb))
+    d = _design("correlation", "fisher-z", make_model({"model": "bernoulli", "p": pa}),
+                make_model({"model": "bernoulli", "p": pb}), rho)
+    assert d.true_value == pytest.approx(ref, abs=1e-8)
+
+
+def test_copula_correlation_of_count_and_skewed_margins_against_own_simulation():
+    a = make_model({"model": "poisson", "mean": 3.0})
+    b = make_model({"model": "gamma", "mean": 2.0, "cv": 1.0})
+    d = _design("correlation", "fisher-z", a, b, 0.5)
+    rng = np.random.default_rng(18)
+    z1, z2 = _pairs_numpy(rng, 1, 0.5, 2_000_000)
+    x = stats.poisson(3.0).ppf(stats.norm.cdf(z1[:, 0]))
+    y = -2.0 * stats.norm.logsf(z2[:, 0])
+    r = np.corrcoef(x, y)[0, 1]
+    assert abs(d.true_value - r) < 4 * 4 * (1 - r * r) / math.sqrt(2_000_000)
+
+
 def test_copula_correlation_of_gamma_margins_against_own_simulation():
     a = make_model({"model": "gamma", "mean": 2.0, "cv": 1.0})
     b = make_model({"model": "weibull", "shape": 1.5, "scale": 3.0})
@@ -329,7 +353,7 @@ def test_cli_check_and_search_exact(tmp_path):
             "components": [{"model": "normal", "mean": 1, "sd": 1}, {"model": "normal", "mean": 5, "sd": 1}]}},
      "data.b", "closed-form law"),
     ({"margin": 1.0}, "target.margin", "correlation lies in"),
-    ({"a": {"model": "poisson", "mean": 3}}, "data.a", "continuous"),
+    ({"a": {"model": "student-t", "df": 2.5, "mean": 0, "scale": 1}, "margin": 1.5}, "target.margin", "correlation lies in"),
 ])
 def test_cli_bad_input_exit_2_one_line(tmp_path, change, field, phrase):
     kw = {"correlation": change.get("correlation", 0.5)}

@@ -103,11 +103,12 @@ def _check_pairs(design, c: Collector) -> None:
 
 def _check_correlation(design, c: Collector) -> None:
     _check_pairs(design, c)
-    for key, m in (("data.a", design.model), ("data.b", design.model_b)):
-        if m.discrete:
-            c.add(key, "the correlation estimand takes continuous margins (its true value is computed for "
-                       f"continuous laws); got the discrete model {m.describe()}")
-    if design.margin is not None and not c.problems and design.margin >= 1:
+    if c.problems:
+        return
+    if not math.isfinite(correlation_of(design)):
+        c.add("data", "the Pearson correlation of these two margins cannot be computed (a discrete margin whose "
+                      "values are not whole-number steps, or a margin without spread); choose other margin models")
+    if design.margin is not None and design.margin >= 1:
         c.add("target.margin", f"a correlation lies in [-1, 1]: a margin of {design.margin:g} or more says nothing")
 
 
