@@ -51,6 +51,8 @@ RATIO_NOTE = ("margin on the ratio scale: the factor f with the interval within 
 
 def applies(design: Design) -> bool:
     """True for designs whose method takes the drawn values (registered estimands)."""
+    if getattr(design, "strata", None) is not None:
+        return False  # stratified methods are not in the registry; the stratified evaluator takes them
     m = get_method(design.estimand, design.method)
     return m.kind == "raw"
 
@@ -92,7 +94,9 @@ def _exact_row(design: Design, n: int, m: dict, seed) -> CheckResult:
     r = row_from_measures(design, n, m, seed, "exact")
     if m.get("margin_at_assurance") is not None:
         r = replace(r, margin_at_assurance=float(m["margin_at_assurance"]))
-    return r
+    for note in m.get("notes", ()):  # what an exact path has to say (e.g. intervals not computed)
+        r = with_note(r, note)
+    return with_note(r, RATIO_NOTE) if design.ratio_scale else r
 
 
 def _columns(design: Design, ns: list[int]) -> tuple[int, int]:
@@ -118,9 +122,8 @@ def _simulate(design, method, ns, replicates, root, seed, progress, threads, pat
         bi, block = item
         return _block_limits(design, method, ns, root, bi, block, rows_per_unit, n_max, nb_max, ratio)
 
-    # resampling methods are evaluated on one thread: their cost is inside the method
-    n_threads = 1 if method.resampling else threads
-    for out in ordered_map(work, list(enumerate(blocks)), n_threads):
+    # every block has its own streams (resampling included): threads do not change results
+    for out in ordered_map(work, list(enumerate(blocks)), threads):
         for lo, hi, deg, stop in out:
             acc.add(lo, hi, acc_truth, deg, starts=[0])
             if progress:

@@ -21,7 +21,8 @@ Kinds and call signatures (all arrays broadcast together):
 A method may also carry an exact path: ``exact_applies(design) -> bool`` and
 ``exact(design, ns) -> list[dict]``, one dict of measures per n in the keys
 of :func:`simcheck.engine.measures.row_from_measures`, margins on the scale
-the estimand reports (a factor for ratio-scale estimands).
+the estimand reports (a factor for ratio-scale estimands), plus optional
+``margin_at_assurance`` and ``notes`` (sentences added to the row).
 """
 
 from __future__ import annotations
@@ -149,8 +150,16 @@ class Method:
     #: ``exact(design, ns)`` can compute the measures without simulation
     exact: Callable | None = field(default=None, repr=False)
     exact_applies: Callable | None = field(default=None, repr=False)
+    #: coverage and assurance of the exact path rise monotonically in n (a
+    #: continuous law), so a search may bisect; otherwise (counts) it scans
+    exact_monotone: bool = False
     #: the method resamples (bootstrap): the engine hands it ``Sample.rng``
     resampling: bool = False
+    #: the method's name as written in prose ("Bonett's"), for reports
+    prose: str = ""
+    #: how its exact path computes, after "computed exactly" in the methods
+    #: paragraph ("from the chi-square law of the sample variance of normal data")
+    exact_text: str = ""
 
     @property
     def one_sided_only(self) -> bool:

@@ -182,6 +182,9 @@ register(Method(
     "t", "paired-mean-diff", "raw", paired_t,
     summary="d̄ ± t s_d / sqrt(n) on the paired differences; exact for normal margins",
     references=(_STUDENT,), exact=paired_t_exact, exact_applies=_both_normal,
+    # coverage is the confidence at every n and the half-width law shrinks with n
+    exact_monotone=True, prose="paired t",
+    exact_text="from the chi-square law of the variance of the paired differences (normal margins)",
 ))
 register(Method(
     "bootstrap-percentile", "paired-mean-diff", "raw", paired_percentile,
@@ -192,6 +195,10 @@ register(Method(
     "fisher-z", "correlation", "raw", fisher_z,
     summary="tanh(atanh r ± z / sqrt(n - 3)); exact law of r for bivariate normal data",
     references=(_FISHER,), exact=fisher_z_exact, exact_applies=_both_normal,
+    # the half-width law shrinks with n and coverage settles towards the confidence from n of about 10 on;
+    # the search still checks the window's top n and scans every n if that fails
+    exact_monotone=True, prose="Fisher z",
+    exact_text="from the exact law of Pearson's r for bivariate normal pairs (Hotelling 1953)",
 ))
 register(Method(
     "bootstrap-percentile", "correlation", "raw", correlation_percentile,

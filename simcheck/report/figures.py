@@ -99,6 +99,7 @@ METHOD_STYLES: dict[str, dict[str, Any]] = {
     "bootstrap-percentile": _style(_O, "X", "-"),
     "bootstrap-t": _style(_S, "h", "--"),
     "cluster-t": _style(_G, "p", "-"),
+    "bootstrap": _style(_P, "X", "-."),  # stratified designs only (beside t, z, wald)
     # proportions (one and two groups)
     "wald": _style(_V, "s", "--"),
     "wilson": _style(_B, "o", "-"),
@@ -422,6 +423,7 @@ def margin_figure(
     n_label: str = "Sample size n",
     width: float = FULL_WIDTH,
     height: float = 3.0,
+    undecided: Sequence[str] = (),
 ) -> Figure:
     """Distribution of the achieved half-width at the chosen n, and assurance against n.
 
@@ -443,6 +445,9 @@ def margin_figure(
         Required assurance, a horizontal reference line.
     n_found : int or dict, optional
         Marked on the assurance panel.
+    undecided : sequence of str
+        Methods whose search confirmed no n: their half-widths are labelled as
+        taken at an n that was not confirmed.
     """
     checks = _as_checks(checks)
     curve_map = _as_curves(curves) if curves is not None else {}
@@ -452,18 +457,26 @@ def margin_figure(
     found = _per_method(n_found, labels)
     # a one-sided limit's margin is the distance from the estimate to the limit
     hw = "half-width" if all(getattr(c, "bound", "two-sided") == "two-sided" for c in checks.values()) else "margin"
+    if any(_ratio_scale(getattr(c, "estimand", None)) for c in checks.values()):
+        hw = "margin factor"
     with rc_context(STYLE):
         fig = _new_figure(width, height)
         if curve_map:
             ax, ax2 = fig.subplots(1, 2)
         else:
             ax, ax2 = fig.add_subplot(), None
+        x_ends: list[float] = []
         for name, chk in checks.items():
             i = labels.index(name)
             st = method_style(name, i)
             if chk.margin_values is None or np.size(chk.margin_values) == 0:
                 continue
             x, y = _thin_ecdf(*_ecdf(chk.margin_values, chk.margin_weights))
+            if x.size == 0:
+                continue
+            # far tails of exact laws (a 1e-17 chance of a huge interval) would squash the plot:
+            # the axis ends past the 99.5th percentile of every method (and the target)
+            x_ends.append(float(x[min(np.searchsorted(y, 0.995), x.size - 1)]))
             # Start the step at 0 and carry it past the target so the curve reads as a distribution function.
             right = max(float(x[-1]), target_margin or float(x[-1])) * 1.03
             x = np.concatenate([[x[0]], x, [right]])
@@ -473,7 +486,7 @@ def margin_figure(
             draw = ax.step if x.size < 200 else ax.plot
             kw = {"where": "post"} if x.size < 200 else {}
             draw(x, y, color=st["color"], linestyle=st["linestyle"], **kw,
-                    label=f"{name}, n = {chk.n:,}" if len(checks) > 1 else f"half-width at n = {chk.n:,}")
+                    label=_margin_label(name, chk.n, name in undecided, len(checks) > 1))
             # One marker where the ECDF crosses the target, for greyscale reading.
             if target_margin is not None and chk.assurance is not None:
                 ax.plot([target_margin], [chk.assurance], linestyle="none", marker=st["marker"],
@@ -481,6 +494,11 @@ def margin_figure(
         if target_margin is not None:
             ax.axvline(target_margin, color=REFERENCE_COLOUR, linestyle=(0, (4, 2)), linewidth=0.9,
                        label=f"target margin {target_margin:g}")
+        if x_ends:
+            lo, hi = ax.get_xlim()
+            end = max(max(x_ends), target_margin or 0.0) * 1.08
+            if end < hi:
+                ax.set_xlim(lo, end)
         ax.set_xlabel(value_label)
         ax.set_ylabel(f"Share of samples with\n{hw} at most x")
         ax.set_ylim(-0.02, 1.02)
@@ -489,6 +507,19 @@ def margin_figure(
             _assurance_panel(ax2, curve_map, labels, found, assurance, n_label, single=len(checks) <= 1, hw=hw)
         _outside_legend(fig, ax)
     return fig
+
+
+def _ratio_scale(estimand: str | None) -> bool:
+    from simcheck.estimands import spec_for
+
+    spec = spec_for(estimand) if estimand else None
+    return spec is not None and spec.ratio_scale
+
+
+def _margin_label(name: str, n: int, undecided: bool, several: bool) -> str:
+    """Legend text of one half-width distribution; an undecided search's n is said to be unconfirmed."""
+    at = f"n = {n:,}" + (" (no n confirmed; n with the best coverage)" if undecided else "")
+    return f"{name}, {at}" if several else f"half-width at {at}"
 
 
 def _assurance_panel(ax2, curve_map: Mapping[str, CurveResult], labels: Sequence[str], found: Mapping[str, Any],
