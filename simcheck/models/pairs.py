@@ -86,6 +86,12 @@ def margin_values(model: Model, z: np.ndarray) -> np.ndarray:
     low = z <= 0
     out[low] = law.ppf(special.ndtr(z[low]))
     out[~low] = law.isf(special.ndtr(-z[~low]))
+    bad = ~np.isfinite(out)
+    if bad.any() and not model.discrete:
+        # some scipy laws give up far in the tails (student-t beyond about 1e-100): those nodes carry
+        # quadrature weights below 1e-14, so the value at |z| = 8 serves
+        zc = np.clip(z[bad], -8.0, 8.0)
+        out[bad] = np.where(zc <= 0, law.ppf(special.ndtr(zc)), law.isf(special.ndtr(-zc)))
     return out
 
 
