@@ -1042,7 +1042,7 @@ def _strata_model(c: Collector, table: dict[str, Any], files: _Files, values, ab
 
 def _group(c: Collector, data: dict[str, Any], g: str, files: _Files):
     if g not in data:
-        c.add(f"data.{g}", f"missing: a two-sample estimand needs [data.a] and [data.b]; [data.{g}] is not given")
+        c.add(f"data.{g}", f"missing: a two-sample or paired estimand needs [data.a] and [data.b]; [data.{g}] is not given")
         return None
     return _model(c, data[g], f"data.{g}", files)
 
