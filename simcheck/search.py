@@ -672,7 +672,7 @@ def _exact_scan(run: _Runner, **ctx) -> SearchResult:
     at = next(r for r in rows if r.n == n)
     notes = _formula_note(ctx["nf"], n)
     if out.n_first is not None and out.n_first != n:
-        notes.append(f"coverage oscillates in n (discrete data): the targets first hold at n = {out.n_first}, "
+        notes.append(f"coverage oscillates in n (exact computation): the targets first hold at n = {out.n_first}, "
                      f"and hold at every n from {n} to {top} (window {window:g}) from n = {n} on")
     notes.append(f"exact enumeration of {out.evaluated} values of n (no Monte Carlo error); "
                  "n does not depend on n_max once n_max >= ceil(window x n)")
@@ -728,9 +728,10 @@ def _exact_monotone(run: _Runner, start: int, **ctx) -> SearchResult:
     notes = _formula_note(ctx["nf"], n)
     if n_first != n:
         notes.append(f"the targets first hold at n = {n_first}, and for every larger n checked from n = {n}")
-    law = ("the exact law of the statistic" if get_method(design.estimand, design.method).kind == "raw"
-           else "the exact law of the sample mean and variance of normal data")
-    notes.append(f"exact: computed from {law} (no Monte Carlo error); coverage and assurance rise monotonically "
+    meth = get_method(design.estimand, design.method)
+    law = ("from the exact law of the sample mean and variance of normal data" if meth.kind != "raw"
+           else meth.exact_text or "from the exact law of the statistic")
+    notes.append(f"exact: computed {law} (no Monte Carlo error); coverage and assurance rise monotonically "
                  "in n, so the window holds")
     return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=n,
                    reached=True, n_range=(n, n), at=ev(n), stop="exact", exact=True, n_first=n_first,

@@ -139,7 +139,7 @@ def _target_lines(scenario, d, rows: Sequence[Any]) -> list[str]:
     if what is None:
         from simcheck.estimands import spec_for
 
-        what = spec_for(d.estimand).label
+        what = spec_for(d.estimand).words(d.to_dict())
     # the result's true value: for a finite population it is the population's mean, not the model's
     true = rows[0].true_value if rows else d.true_value
     lines = [f"true value:  {_g(float(true), 6)} ({what})"]

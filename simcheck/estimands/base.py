@@ -122,6 +122,18 @@ class EstimandSpec:
     #: design attributes the estimand uses: ``quantile``, ``exposure``, ``correlation``
     params: tuple[str, ...] = ()
     notes: Callable[[Any], tuple[str, ...]] | None = field(default=None, repr=False)
+    #: words for the estimand given the design's dict (``Design.to_dict()``), when
+    #: ``label`` alone cannot say it ("the 0.9 quantile")
+    describe: Callable[[dict], str] | None = field(default=None, repr=False)
+
+    def words(self, data: dict | None = None) -> str:
+        """The label, or :attr:`describe` of the design's dict when it can say more."""
+        if self.describe is not None and data:
+            try:
+                return self.describe(data)
+            except (KeyError, TypeError, ValueError):
+                pass
+        return self.label
 
     def __post_init__(self) -> None:
         if self.data not in DATA_KINDS:

@@ -150,6 +150,7 @@ MEDIAN = register_estimand(EstimandSpec(
 QUANTILE = register_estimand(EstimandSpec(
     name="quantile",
     label="the q-quantile (q = target.quantile)",
+    describe=lambda d: f"the {float(d['quantile']):g} quantile",
     data="one",
     true_value=true_quantile,
     check=check,

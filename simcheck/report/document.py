@@ -363,7 +363,7 @@ def _study_doc(study: StudyResults, figs: dict[str, Path], base: Path) -> _Doc:
     doc.para("Decision: " + ("; ".join(f"`{m}` {t}" for m, t in states) if len(states) > 1
                              else (states[0][1] if states else "–")) + ".")
     doc.heading("Targets")
-    rows = [["Estimand", estimand_text(s.estimand)],
+    rows = [["Estimand", estimand_text(s.estimand, dict(s.data))],
             ["Confidence level", fmt_g(s.confidence)],
             ["Target margin (half-width)", fmt_g(s.margin)],
             ["Required assurance (share of samples with half-width ≤ target)", fmt_g(s.assurance)],

@@ -148,7 +148,7 @@ class StudyResults:
         out: list[str] = []
         for src in (self.searches.get(method), self.checks.get(method)):
             for t in (src.notes if src is not None else ()):
-                t = explain_note(t, self.discrete)
+                t = explain_note(t, self.discrete, exact=bool(getattr(src, "exact", False)))
                 if t not in out:
                     out.append(t)
         return out

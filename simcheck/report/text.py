@@ -26,12 +26,13 @@ ESTIMAND_TEXT = {
 
 
 
-def estimand_text(estimand: str) -> str:
-    """Words for an estimand: built-in ones from ESTIMAND_TEXT, registered ones from their spec."""
+def estimand_text(estimand: str, data: dict | None = None) -> str:
+    """Words for an estimand: built-in ones from ESTIMAND_TEXT, registered ones from their spec
+    (given the design's dict ``data``, e.g. "the 0.9 quantile")."""
     from simcheck.estimands import spec_for
 
     spec = spec_for(estimand)
-    return ESTIMAND_TEXT.get(estimand) or (spec.label if spec is not None else estimand)
+    return ESTIMAND_TEXT.get(estimand) or (spec.words(data) if spec is not None else estimand)
 
 
 # Plain-language names of model parameters in the methods paragraph.
@@ -328,10 +329,11 @@ STATUS_TEXT = {
 }
 
 
-def explain_note(note: str, discrete: bool) -> str:
+def explain_note(note: str, discrete: bool, exact: bool = False) -> str:
     """A search note with its wiggle explained: oscillation for discrete data,
-    Monte Carlo noise for continuous data."""
-    if "coverage oscillates in n" not in note or discrete:
+    Monte Carlo noise for simulated continuous data (an exact path's
+    oscillation is real: an order-statistic interval's ranks change in steps)."""
+    if "coverage oscillates in n" not in note or discrete or exact:
         return note
     return note.replace("(coverage oscillates in n)", "(Monte Carlo noise: the data are continuous, so the true "
                         "coverage changes smoothly with n)").replace(
@@ -340,9 +342,10 @@ def explain_note(note: str, discrete: bool) -> str:
 
 def wiggle_sentence(n_first: int, n: int, discrete: bool, exact: bool) -> str:
     """Why the targets first hold at ``n_first`` but the answer is ``n``."""
-    if discrete:
+    if discrete or exact:
         how = "exactly" if exact else "by simulation"
-        return (f"Because the data are discrete, coverage oscillates in n (computed {how}): the targets first hold "
+        why = "Because the data are discrete, coverage" if discrete else "Coverage"
+        return (f"{why} oscillates in n (computed {how}): the targets first hold "
                 f"at n = {n_first:,} but hold for every larger n only from n = {n:,}, which is the answer given.")
     return (f"The targets first appear to hold at n = {n_first:,}; the data are continuous, so the true coverage changes "
             f"smoothly with n and the ups and downs between {n_first:,} and {n:,} are Monte Carlo noise; the answer "
@@ -385,7 +388,7 @@ def _design_sentences(s: StudyResults) -> list[str]:
 
 
 def _simulation_sentences(s: StudyResults) -> list[str]:
-    est = estimand_text(s.estimand)
+    est = estimand_text(s.estimand, dict(s.data))
     any_exact = any(c.exact for c in s.checks.values()) or any(r.exact for r in s.searches.values())
     all_exact = bool(s.searches) and all(r.exact for r in s.searches.values())
     if all_exact:
@@ -539,9 +542,10 @@ def _wiggle_sentences(s: StudyResults) -> list[str]:
             text = f"With the {method_text(m)} interval, {text[0].lower() + text[1:]}"
         return [text]
     firsts = join_words([f"{method_text(m)} {r.n_first:,}" for m, r in late])
-    if s.discrete:
+    if s.discrete or all(r.exact for _, r in late):
         how = "exactly" if all(r.exact for _, r in late) else "by simulation"
-        return [f"Because the data are discrete, coverage oscillates in n (computed {how}): the targets first hold at "
+        why = "Because the data are discrete, coverage" if s.discrete else "Coverage"
+        return [f"{why} oscillates in n (computed {how}): the targets first hold at "
                 f"a smaller n ({firsts}) but hold for every larger n only from the n given above."]
     return [f"The targets first appear to hold at a smaller n ({firsts}); the data are continuous, so the true "
             f"coverage changes smoothly with n and the ups and downs below the n given are Monte Carlo noise."]
