@@ -52,7 +52,7 @@ def target_sentences(data: Mapping[str, Any], confidence: float, margin: float |
         out.append(f"The target margin is {data['relative_margin']:g} of the true value{abs_m}; achieved "
                    f"margins are also reported relative to the true value.")
     elif margin is not None:
-        out.append(f"Margins are {units_text(units)}.")
+        out.append(f"Margins are {data.get('margin_words') or units_text(units)}.")
     if data.get("limit") is not None:
         c = int(data.get("events_allowed") or 0)
         out.append(f"The demonstration plan passes when at most {c} event{'s' if c != 1 else ''} occur, which keeps "

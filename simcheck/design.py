@@ -426,6 +426,9 @@ class Design:
                 d[attr] = getattr(self, attr)
         if self.ratio_scale:
             d["scale"] = "ratio"
+        spec = spec_for(self.estimand)
+        if spec is not None and spec.margin_words:
+            d["margin_words"] = spec.margin_words
         if self.two_sample or self.paired:
             d["data_a"] = self.model.to_dict()
             d["data_b"] = self.model_b.to_dict()

@@ -188,7 +188,7 @@ def _closing_lines(d, rows: Sequence[Any]) -> list[str]:
     if d.ratio_scale:
         half = "margin factor"
     scale = ("margins are factors f (the interval within estimate / f to estimate x f)" if d.ratio_scale
-             else f"margins {units_text(d.units)}")
+             else f"margins {_margin_words(d)}")
     lines.append(f"coverage = {coverage_words(d.bound)} (nominal {d.confidence:.4g}); "
                  f"assurance = share with {half} <= {_g(d.margin, 6)} "
                  f"(zero-width intervals that miss the true value do not count); {scale}.")
@@ -323,3 +323,11 @@ class SearchProgress(Progress):
         self.stream.write(f"simcheck: {self.describe(done, total)}; {overall:,} replicates simulated so far{of}, "
                           f"{elapsed:.0f} s\n")
         self.stream.flush()
+
+
+def _margin_words(d) -> str:
+    """What margins are measured in: the estimand's own words (a correlation's scale), else the data's units."""
+    from simcheck.estimands import spec_for
+
+    spec = spec_for(d.estimand)
+    return spec.margin_words if spec is not None and spec.margin_words else units_text(d.units)

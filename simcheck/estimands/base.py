@@ -122,6 +122,8 @@ class EstimandSpec:
     #: design attributes the estimand uses: ``quantile``, ``exposure``, ``correlation``
     params: tuple[str, ...] = ()
     notes: Callable[[Any], tuple[str, ...]] | None = field(default=None, repr=False)
+    #: what the margin is measured in, when not the data's units ("on the correlation scale")
+    margin_words: str = ""
     #: words for the estimand given the design's dict (``Design.to_dict()``), when
     #: ``label`` alone cannot say it ("the 0.9 quantile")
     describe: Callable[[dict], str] | None = field(default=None, repr=False)

@@ -133,6 +133,7 @@ PAIRED_MEAN_DIFF = register_estimand(EstimandSpec(
 CORRELATION = register_estimand(EstimandSpec(
     name="correlation",
     label="the Pearson correlation of measurements a and b",
+    margin_words="on the correlation scale (-1 to 1)",
     data="paired",
     true_value=correlation_of,
     check=_check_correlation,
