@@ -168,6 +168,10 @@ def _formula(design: Design):
         return None
     if design.strata is not None:
         return _stratified_formula(design)
+    if design.selection is not None:  # PPS / monetary-unit: their closed forms live with their evaluator
+        from simcheck.engine.pps import formula_result as selection_formula
+
+        return selection_formula(design)
     kw: dict[str, Any] = {"confidence": design.confidence, "multiplier": "z", "bound": design.bound}
     try:
         if design.estimand in ("mean", "mean-diff"):

@@ -124,13 +124,15 @@ def report(scenario, rows: Sequence[Any]) -> str:
         for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models):
             lines.append(f"stratum:     {name} (N = {size}): {m.describe()}")
         lines.append(f"allocation:  {d.strata.rule}; n counts the whole sample")
+    elif d.selection is not None:  # sizes, values, misstatements; drawn with replacement
+        lines.append(f"selection:   {scenario.describe_data()}")
     else:
         lines.append(f"data:        {d.model.describe()}")
     if d.clusters is not None:
         cl = d.clusters
         size = f"size {cl.size}" if cl.size is not None else f"size mean {cl.size_mean:g}, CV {cl.size_cv:g}"
         lines.append(f"clusters:    ICC {cl.icc:g}, {size}, {cl.effect} effect (n counts clusters)")
-    if d.population is not None:
+    if d.population is not None and d.selection is None:
         pop = d.population
         fpc = "with" if pop.fpc else "without"
         count = f", {pop.events} with the event (a fixed count)" if pop.events is not None else ""

@@ -117,11 +117,13 @@ def _header(scenario, design) -> list[str]:
         for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models):
             lines.append(f"stratum:     {name} (N = {size}): {m.describe()}")
         lines.append(f"allocation:  {d.strata.rule}; n counts the whole sample")
+    elif d.selection is not None:  # sizes, values, misstatements; drawn with replacement
+        lines.append(f"selection:   {scenario.describe_data()}")
     else:
         lines.append(f"data:        {d.model.describe()}")
     if d.clusters is not None:
         lines.append(f"clusters:    ICC {d.clusters.icc:g} (n counts clusters)")
-    if d.population is not None:
+    if d.population is not None and d.selection is None:
         lines.append(f"population:  {d.population.size} units, sampled without replacement")
     return lines
 
