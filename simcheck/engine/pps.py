@@ -224,11 +224,11 @@ def _one_n(design: Design, n: int, replicates: int, root, seed, pop: SizePopulat
             progress(e, replicates)
     acc.finish()
     row = acc.row(0, design, n, replicates, seed, "simulation")
-    notes = tuple(row.notes) + tuple(_notes(design, pop, truth, accepted, replicates))
+    notes = tuple(row.notes) + tuple(_notes(design, n, pop, truth, accepted, replicates))
     return replace(row, true_value=float(truth), notes=notes)
 
 
-def _notes(design: Design, pop: SizePopulation, truth: float, accepted: int, R: int) -> list[str]:
+def _notes(design: Design, n: int, pop: SizePopulation, truth: float, accepted: int, R: int) -> list[str]:
     sel = design.selection
     what = "monetary units" if sel.monetary_unit else "items"
     out = [f"n counts draws of {what} with probability proportional to size, with replacement "
@@ -244,7 +244,7 @@ def _notes(design: Design, pop: SizePopulation, truth: float, accepted: int, R: 
         out.append("achieved margin: the upper limit minus the point estimate (the Hansen-Hurwitz projection)")
         if design.margin is not None:
             share = accepted / R
-            out.append(f"share of samples whose upper limit is at most the target margin {design.margin:.6g}: "
+            out.append(f"n = {n}: share of samples whose upper limit is at most the target margin {design.margin:.6g}: "
                        f"{share:.4f} (MCSE {msr.share_mcse(share, R):.4f})")
     return out
 
