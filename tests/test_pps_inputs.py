@@ -171,3 +171,30 @@ def test_check_and_curve_commands_run(tmp_path):
     code, out, err = run_cli(["curve", path, "--n-values", "40,80", "--method", "poisson-bound"])
     assert code == 0, err
     assert "monetary-unit selection" in out
+
+
+# --- hostile values for every new key: refused with InputError or run, never a crash ----------------------
+HOSTILE = ["x", "", True, [], [1.0], {}, {"model": "nope"}, float("inf"), float("nan"), -1, 0, 0.5, 1, 2, 1e308, 10**400]
+KEYS = ["selection.rule", "selection.size", "selection.size_column", "selection.data_per_size",
+        "misstatement.error_rate", "misstatement.taint", "selection", "misstatement"]
+
+
+@pytest.mark.parametrize("key", KEYS)
+@pytest.mark.parametrize("make", [mus_table, pps_table])
+def test_hostile_values_are_refused_or_run(tmp_path, key, make):
+    from simcheck import engine
+    from simcheck.errors import InputError
+    from simcheck.scenario import set_dotted
+
+    for v in HOSTILE:
+        table = set_dotted(make(), key, v)
+        try:
+            s = scenario_from_dict(table, base_dir=tmp_path)
+        except InputError as e:
+            assert e.one_line() and "\n" not in e.one_line()
+            continue
+        try:
+            r = engine.check(s.design, 20, replicates=100, rng=1)
+        except InputError:
+            continue
+        assert 0.0 <= r.coverage <= 1.0, (key, v)
