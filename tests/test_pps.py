@@ -222,3 +222,40 @@ def test_stringer_covers_and_is_tighter_than_the_poisson_bound(tmp_path):
     assert s.coverage >= 0.95 - 4 * s.coverage_mcse  # conservative in practice (de Jager et al. 1997)
     assert s.margin_mean < p.margin_mean
     assert any("share of samples whose upper limit is at most the target margin" in t for t in s.notes)
+
+
+def _stringer_by_hand(taints_row, BV, conf):
+    """The Stringer bound of one sample, written out: Clopper-Pearson limits from scipy's beta law."""
+    n = len(taints_row)
+    t = sorted((v for v in taints_row if v > 0), reverse=True)
+    u = [stats.beta.ppf(conf, j + 1, n - j) if j < n else 1.0 for j in range(len(t) + 1)]
+    return BV * (u[0] + sum((u[j] - u[j - 1]) * t[j - 1] for j in range(1, len(t) + 1)))
+
+
+@pytest.mark.slow
+def test_engine_stringer_against_an_independent_simulation(tmp_path):
+    # the engine's ledger (book values from a file, misstatements drawn once from the seed) is
+    # the input; the samples (numpy's weighted choice) and the bound (_stringer_by_hand) are
+    # written here
+    from simcheck.engine.pps import population_for
+
+    path, bv = _ledger_file(tmp_path, N=200, seed=21)
+    BV, n, conf = float(bv.sum()), 25, 0.6  # a low level, so that the conservative bound misses at times
+    d = _mus(path, bv.size, "stringer", 0.3, taint=make_model({"model": "uniform", "lower": 0.1, "upper": 0.9}),
+             conf=conf, margin=BV * 0.035)
+    r = engine.check(d, n, replicates=20_000, rng=5)
+    ledger = population_for(d, 5)
+    taint = ledger.values / ledger.sizes
+    D = float(ledger.values.sum())
+    assert r.true_value == pytest.approx(D) and np.allclose(ledger.sizes, bv)
+    R = 4000
+    idx = np.random.default_rng(77).choice(bv.size, size=(R, n), p=bv / BV)
+    ul = np.array([_stringer_by_hand(row, BV, conf) for row in taint[idx]])
+    margin = ul - BV * taint[idx].mean(axis=1)
+    cov_ref = float(np.mean(ul >= D))
+    assert 0.5 < cov_ref < 1.0  # a case where the bound can miss
+    assert abs(r.coverage - cov_ref) <= 4 * math.sqrt(cov_ref * (1 - cov_ref) / R + r.coverage_mcse**2)
+    se = math.sqrt(margin.var(ddof=1) / R + r.margin_mean_mcse**2)
+    assert abs(r.margin_mean - margin.mean()) <= 4 * se
+    ass_ref = float(np.mean(margin <= d.margin))
+    assert abs(r.assurance - ass_ref) <= 4 * math.sqrt(ass_ref * (1 - ass_ref) / R + r.assurance_mcse**2)
