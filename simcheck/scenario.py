@@ -505,9 +505,7 @@ def validate(
     population = _population(c, pop_t, files) if pop_t is not None else None
     if from_file and population is not None and (population.file or population.events is not None) and not c.problems:
         model = _population_model(c, population, tgt.estimand)
-    selection = None
-    if "selection" in table or "misstatement" in table:
-        selection, model = read_selection(c, table, population, model, files)
+    selection, model = read_selection(c, table, population, model, files)
     n_max = _n_range(c, sim, population, clusters)
     _strata_n_min(c, sim, strata, sim_t or {})
 

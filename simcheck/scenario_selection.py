@@ -97,7 +97,8 @@ def _misstatement(c: Collector, table: dict[str, Any], rule: str | None, files) 
 
 
 def read_selection(c: Collector, table: dict[str, Any], population, model, files) -> tuple[SelectionSpec | None, Any]:
-    """The :class:`SelectionSpec` of ``table`` and the design's model (None after recording problems).
+    """The :class:`SelectionSpec` of ``table`` and the design's model (None without a
+    [selection] table, or after recording problems).
 
     ``model`` is the model read so far ([data], or the summary of
     population.file's column); rule monetary-unit without a file gets the
@@ -105,7 +106,8 @@ def read_selection(c: Collector, table: dict[str, Any], population, model, files
     """
     sel = table.get("selection")
     if sel is None:
-        c.add("misstatement", "only with a [selection] table (rule = \"monetary-unit\")")
+        if "misstatement" in table:
+            c.add("misstatement", "only with a [selection] table (rule = \"monetary-unit\")")
         return None, model
     if not isinstance(sel, dict):
         c.add("selection", f"must be a table ([selection]), got {shown(sel)}")
