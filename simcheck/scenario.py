@@ -1237,8 +1237,9 @@ def _check_engine(c: Collector, designs: list[Design], path: str) -> None:
 
     for d in designs:
         if d.selection is not None:
-            if path not in ("auto", "full"):
-                c.add("simulation.path", f"{path!r} is not available for selection by size; available: auto, full")
+            if path != "auto" and path not in available_paths(d):
+                c.add("simulation.path", f"{path!r} is not available for this selection design; available: auto, "
+                      f"{', '.join(available_paths(d))}")
             continue  # Design checked the rest
         if d.one_sided:
             from simcheck.engine import kind_for, onesided

@@ -574,8 +574,8 @@ def _methods_that_reach(run: _Runner, ctx: dict) -> list[str]:
 def _exact_search(run: _Runner, start: int, **ctx) -> SearchResult:
     # counts (binomial, beta-binomial, hypergeometric) make coverage oscillate in n;
     # the exact laws of normal data give coverage and assurance monotone in n
-    if ctx["design"].estimand in ("proportion", "proportion-diff"):
-        return _exact_scan(run, **ctx)
+    if ctx["design"].estimand in ("proportion", "proportion-diff") or ctx["design"].selection is not None:
+        return _exact_scan(run, **ctx)  # (monetary-unit limits: counts of misstated units)
     return _exact_monotone(run, start, **ctx)
 
 

@@ -201,16 +201,33 @@ def test_poisson_and_binomial_bounds_coverage_against_the_binomial_law(tmp_path)
     path, bv = _ledger_file(tmp_path, N=400, seed=9)
     BV, n, conf, R = float(bv.sum()), 40, 0.9, 40_000
     for method in ("poisson-bound", "binomial-bound"):
-        r = engine.check(_mus(path, bv.size, method, 0.08, conf=conf), n, replicates=R, rng=12)
-        pi = r.true_value / BV
+        d = _mus(path, bv.size, method, 0.08, conf=conf)
+        exact = engine.check(d, n, rng=12)  # a constant taint: the engine sums over the count itself
+        sim = engine.check(d, n, replicates=R, rng=12, path="full")
+        pi = exact.true_value / BV
         k = np.arange(n + 1)
         if method == "poisson-bound":
             ul = stats.chi2.ppf(conf, 2 * k + 2) / 2 / n
         else:
             ul = np.where(k < n, stats.beta.ppf(conf, k + 1, np.maximum(n - k, 1)), 1.0)
         cov = float(stats.binom.pmf(k, n, pi)[ul >= pi].sum())
-        assert 0 < pi < 0.5
-        assert abs(r.coverage - cov) <= 4 * math.sqrt(cov * (1 - cov) / R) + 1e-12, method
+        assert 0 < pi < 0.5 and cov < 0.99
+        assert exact.exact and exact.coverage_mcse == 0.0
+        assert exact.coverage == pytest.approx(cov, abs=1e-12), method
+        assert sim.true_value == exact.true_value and not sim.exact
+        assert abs(sim.coverage - cov) <= 4 * math.sqrt(cov * (1 - cov) / R), method
+
+
+@pytest.mark.parametrize("method", ["stringer", "stringer-poisson", "binomial-bound", "poisson-bound", "t", "z"])
+def test_exact_path_of_a_constant_taint_agrees_with_simulation(tmp_path, method):
+    path, bv = _ledger_file(tmp_path, N=400, seed=9)
+    d = _mus(path, bv.size, method, 0.06, taint=0.4, conf=0.9, margin=float(bv.sum()) * 0.06)
+    e = engine.check(d, 50, rng=3)
+    s = engine.check(d, 50, replicates=20_000, rng=3, path="full")
+    assert e.exact and not s.exact and e.true_value == s.true_value
+    for a, b, se in ((e.coverage, s.coverage, s.coverage_mcse), (e.assurance, s.assurance, s.assurance_mcse),
+                     (e.margin_mean, s.margin_mean, s.margin_mean_mcse)):
+        assert abs(a - b) <= 4 * se + 1e-9, method
 
 
 def test_stringer_covers_and_is_tighter_than_the_poisson_bound(tmp_path):
@@ -260,3 +277,31 @@ def test_engine_stringer_against_an_independent_simulation(tmp_path):
     ass_ref = float(np.mean(margin <= d.margin))
     assert 0.1 < ass_ref < 0.9
     assert abs(r.assurance - ass_ref) <= 4 * math.sqrt(ass_ref * (1 - ass_ref) / R + r.assurance_mcse**2)
+
+
+def test_exact_search_matches_a_brute_force_over_the_binomial_law(tmp_path):
+    # the search's window criterion (targets hold at every n from n to ceil(1.25 n)) written
+    # out over the exact law: k ~ Binomial(n, pi), limit BV Gamma_c(k + 1) / n (chi-square form),
+    # margin = limit - BV tau k / n
+    from simcheck.engine.pps import population_for
+    from simcheck.search import find_n
+
+    path, bv = _ledger_file(tmp_path, N=500, seed=2)
+    BV, tau, conf, TM, a_t, tol = float(bv.sum()), 0.5, 0.95, float(bv.sum()) * 0.05, 0.8, 0.005
+    d = _mus(path, bv.size, "poisson-bound", 0.03, taint=tau, conf=conf, margin=TM)
+    ledger = population_for(d, 31)
+    D = float(ledger.values.sum())
+    pi = float(bv[ledger.values > 0].sum() / BV)
+
+    def passes(n):
+        k = np.arange(n + 1)
+        w = stats.binom.pmf(k, n, pi)
+        ul = BV * stats.chi2.ppf(conf, 2 * k + 2) / 2 / n
+        cov = w[ul >= D].sum()
+        ass = w[ul - BV * tau * k / n <= TM * (1 + 1e-12)].sum()
+        return cov >= conf - tol and ass >= a_t
+
+    ok = {n: passes(n) for n in range(2, 500)}
+    want = next(n for n in range(2, 400) if all(ok[m] for m in range(n, math.ceil(1.25 * n) + 1)))
+    res = find_n(d, assurance=a_t, coverage_tolerance=tol, n_min=2, n_max=499, rng=31)
+    assert res.exact and res.n == want

@@ -54,7 +54,7 @@ from simcheck.engine import measures as msr
 from simcheck.engine.onesided import one_sided_rows
 from simcheck.errors import InputError
 from simcheck.intervals.pps import (
-    HH_METHODS, MUS_BOUNDS, count_bound, hh_interval, monetary_unit_n, stringer_bound,
+    HH_METHODS, MUS_BOUNDS, binomial_upper, count_bound, hh_interval, monetary_unit_n, poisson_factor, stringer_bound,
 )
 from simcheck.models.base import Model
 from simcheck.results import CheckResult
@@ -72,7 +72,16 @@ def applies(design: Design) -> bool:
 
 
 def available_paths(design: Design) -> list[str]:
-    """Selection designs are simulated."""
+    """``["exact", "full"]`` for monetary-unit sampling with a constant taint, else ``["full"]``.
+
+    With one taint value every drawn unit's taint is 0 or that value, so each
+    method's limit and estimate depend only on the number k of misstated
+    units drawn, and k is Binomial(n, pi) with pi the misstated share of the
+    book value: the measures are sums over k.
+    """
+    sel = design.selection
+    if sel.monetary_unit and not isinstance(sel.taint, Model):
+        return ["exact", "full"]
     return ["full"]
 
 
@@ -242,26 +251,86 @@ def _notes(design: Design, n: int, pop: SizePopulation, truth: float, accepted: 
         out.append(f"{wrong} of {pop.size} items misstated; {share:.4g} of the book value is misstated")
     if design.method in MUS_BOUNDS or design.bound == "upper":
         out.append("achieved margin: the upper limit minus the point estimate (the Hansen-Hurwitz projection)")
-        if design.margin is not None:
+        if design.margin is not None and R:
             share = accepted / R
             out.append(f"n = {n}: share of samples whose upper limit is at most the target margin {design.margin:.6g}: "
                        f"{share:.4f} (MCSE {msr.share_mcse(share, R):.4f})")
+        elif design.margin is not None:
+            out.append(f"n = {n}: probability that the upper limit is at most the target margin {design.margin:.6g}: "
+                       f"{accepted:.4f} (exact)")
     return out
 
 
 def evaluate(design: Design, ns: Sequence[int], replicates: int, rng, path: str, progress, chunk_bytes: int,
              curve: bool = True, threads: int = 1) -> list[CheckResult]:
     """One :class:`CheckResult` per n in ``ns`` (one-sided rows read as one-sided limits)."""
-    if path not in ("auto", "full"):
-        raise InputError("simulation.path", f"path {path!r} is not available for selection by size; available: auto, full")
+    valid = available_paths(design)
+    if path != "auto" and path not in valid:
+        raise InputError("simulation.path", f"path {path!r} is not available for this selection design; "
+                         f"available: auto, {', '.join(valid)}")
     for n in ns:
         if int(n) < 2:
             raise InputError("n", f"must be >= 2 draws for selection by size, got {n}")
     root, seed = rngmod.root_sequence(rng)
     pop = population_for(design, root)
     truth = pop.total if design.estimand == "total" else pop.total / pop.size
-    rows = [_one_n(design, int(n), replicates, root, seed, pop, truth, progress) for n in ns]
+    if valid[0] == "exact" and path in ("auto", "exact"):
+        rows = [_exact_n(design, int(n), seed, pop, truth) for n in ns]
+    else:
+        rows = [_one_n(design, int(n), replicates, root, seed, pop, truth, progress) for n in ns]
     return one_sided_rows(design, rows) if design.one_sided else rows
+
+
+def _count_limits(design: Design, n: int, X: float, N: int) -> tuple[np.ndarray, np.ndarray]:
+    """(lower, upper) after k = 0..n misstated units drawn, each with the constant taint."""
+    tau, conf = float(design.selection.taint), design.confidence
+    k = np.arange(n + 1, dtype=np.float64)
+    est = X * tau * k / n
+    if design.method in HH_METHODS:
+        # n draws of y/p in {X tau, 0}: sample variance (X tau)^2 k (n - k) / (n (n - 1))
+        var = (X * tau) ** 2 * k * (n - k) / (n * (n - 1.0)) / n
+        level = conf if design.bound == "two-sided" else 2.0 * conf - 1.0
+        p = 1.0 - (1.0 - level) / 2.0
+        from scipy import special
+
+        q = special.stdtrit(n - 1, p) if design.method == "t" else special.ndtri(p)
+        lo, hi = est - q * np.sqrt(var), est + q * np.sqrt(var)
+    else:
+        kind, factors = MUS_BOUNDS[design.method]
+        u = binomial_upper(k, n, conf) if factors == "binomial" else poisson_factor(k, conf) / n
+        upper = X * (u[0] + tau * (u - u[0])) if kind == "stringer" else X * u
+        lo, hi = 2.0 * est - upper, upper
+    if design.estimand == "mean":
+        lo, hi = lo / N, hi / N
+    return lo, hi
+
+
+def _exact_n(design: Design, n: int, seed, pop: SizePopulation, truth: float) -> CheckResult:
+    """Exact measures at n: a sum over the Binomial(n, pi) number of misstated units drawn."""
+    from scipy import stats
+
+    from simcheck.engine.onesided import margin_quantile
+
+    X = pop.total_size
+    pi = float(pop.sizes[pop.values > 0].sum() / X)
+    w = stats.binom.pmf(np.arange(n + 1), n, pi)
+    lo, hi = _count_limits(design, n, X, pop.size)
+    hw = (hi - lo) / 2.0
+    low, high = hi < truth, lo > truth
+    zero = (hw <= 0) & (low | high)
+    m = {"coverage": float(w[~(low | high)].sum()), "miss_low": float(w[low].sum()), "miss_high": float(w[high].sum()),
+         "margin_mean": float(np.dot(w, hw)), "degenerate_share": float(w[zero].sum()),
+         "margin_values": hw, "margin_weights": w}
+    m["margin_median"] = margin_quantile(hw, w, 0.5)
+    m["margin_p90"] = margin_quantile(hw, w, 0.9)
+    if design.margin is not None:
+        m["assurance"] = float(w[(hw <= design.margin * msr.MARGIN_RTOL) & ~zero].sum())
+    row = msr.row_from_measures(design, n, m, seed, "exact-count")
+    accepted = None if design.margin is None else float(w[hi <= design.margin * msr.MARGIN_RTOL].sum())
+    notes = tuple(row.notes) + tuple(_notes(design, n, pop, truth, accepted, 0))
+    notes += (f"exact: the {n} draws find Binomial({n}, {pi:.6g}) misstated units, each with taint "
+              f"{float(design.selection.taint):g}, and every limit depends on that count alone",)
+    return replace(row, true_value=float(truth), notes=notes)
 
 
 def formula_result(design: Design):
