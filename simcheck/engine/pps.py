@@ -320,7 +320,8 @@ def _exact_n(design: Design, n: int, seed, pop: SizePopulation, truth: float) ->
     zero = (hw <= 0) & (low | high)
     m = {"coverage": float(w[~(low | high)].sum()), "miss_low": float(w[low].sum()), "miss_high": float(w[high].sum()),
          "margin_mean": float(np.dot(w, hw)), "degenerate_share": float(w[zero].sum()),
-         "margin_values": hw, "margin_weights": w}
+         # the support kept for figures: counts of negligible probability would only stretch the axis
+         "margin_values": hw[w >= 1e-12], "margin_weights": w[w >= 1e-12]}
     m["margin_median"] = margin_quantile(hw, w, 0.5)
     m["margin_p90"] = margin_quantile(hw, w, 0.9)
     if design.margin is not None:
