@@ -198,3 +198,12 @@ def test_hostile_values_are_refused_or_run(tmp_path, key, make):
         except InputError:
             continue
         assert 0.0 <= r.coverage <= 1.0, (key, v)
+
+
+def test_report_words_describe_the_selection():
+    from simcheck.report.text import model_text
+
+    mus = model_text(scenario_from_dict(mus_table()).design.to_dict())
+    assert mus.startswith("a ledger of 2,000 items") and "misstated with probability 0.02" in mus
+    pps = model_text(scenario_from_dict(pps_table()).design.to_dict())
+    assert "value per unit of size" in pps and "800 items" in pps
