@@ -13,13 +13,27 @@ from dataclasses import dataclass, field, replace
 from typing import Any
 
 from simcheck.errors import Collector
+from simcheck.estimands import REGISTRY as ESTIMAND_SPECS
+from simcheck.estimands import spec_for
 from simcheck.models.base import Model
 
-ESTIMANDS = ("mean", "proportion", "mean-diff", "proportion-diff", "total")
-TWO_SAMPLE = ("mean-diff", "proportion-diff")
+#: the estimands built into the engine and formulas; the others come from
+#: the registry in :mod:`simcheck.estimands`
+BUILT_IN = ("mean", "proportion", "mean-diff", "proportion-diff", "total")
+ESTIMANDS = BUILT_IN + tuple(ESTIMAND_SPECS)
+#: two independent groups (n_b = ceil(ratio n))
+TWO_SAMPLE = ("mean-diff", "proportion-diff") + tuple(k for k, v in ESTIMAND_SPECS.items() if v.data == "two")
+#: n pairs of two correlated measurements ([data.a], [data.b], data.correlation)
+PAIRED = tuple(k for k, v in ESTIMAND_SPECS.items() if v.data == "paired")
+#: estimands whose data come as [data.a] and [data.b]
+TWO_GROUP_DATA = TWO_SAMPLE + PAIRED
+#: design keys that only some registered estimands use (scenario key -> attribute)
+ESTIMAND_PARAMS = {"target.quantile": "quantile", "target.exposure": "exposure", "data.correlation": "correlation"}
 BOUNDS = ("two-sided", "upper", "lower")
-#: interval methods of stratified designs (computed by the stratified evaluator)
-STRATIFIED_METHODS = {"mean": ("t", "z"), "total": ("t", "z"), "proportion": ("t", "wald")}
+#: interval methods of stratified designs (computed by the stratified evaluator); "bootstrap" is
+#: Rao & Wu's (1988) rescaling bootstrap, percentile interval (simcheck.intervals.stratified_bootstrap)
+STRATIFIED_METHODS = {"mean": ("t", "z", "bootstrap"), "total": ("t", "z", "bootstrap"),
+                      "proportion": ("t", "wald", "bootstrap")}
 
 
 @dataclass(frozen=True)
@@ -185,7 +199,8 @@ class Design:
     estimand : {"mean", "proportion", "mean-diff", "proportion-diff", "total"}
         ``total`` needs ``strata`` or ``population``: N times the mean (or
         the proportion, for 0/1 data: the number of events), its interval N
-        times the mean's.
+        times the mean's; or ``clusters`` with ``count`` M and ``cluster-t``:
+        M times the mean cluster total.
     method : str
         Interval method name (see :func:`simcheck.intervals.methods_for`).
     confidence : float
@@ -240,6 +255,12 @@ class Design:
     limit: float | None = None
     events_allowed: int | None = None
     assurance: float = 0.5
+    #: the quantile estimated (estimand ``quantile``), in (0, 1)
+    quantile: float | None = None
+    #: exposure of each observation unit (rates: person-years, litres), > 0
+    exposure: float | None = None
+    #: correlation of the two measurements of a pair (paired estimands), in (-1, 1)
+    correlation: float | None = None
     #: selection with probability proportional to size (with replacement) or monetary-unit sampling
     selection: SelectionSpec | None = None
 
@@ -255,20 +276,25 @@ class Design:
             c.number("target.margin", self.margin, low=0, low_open=True)
         c.number("simulation.ratio", self.ratio, low=0, low_open=True)
         c.number("method.resamples", self.resamples, low=99, integer=True)
-        if self.estimand in TWO_SAMPLE and self.model_b is None:
+        if self.estimand in TWO_GROUP_DATA and self.model_b is None:
             c.add("data.b", f"estimand {self.estimand!r} needs two groups ([data.a] and [data.b])")
-        if self.estimand not in TWO_SAMPLE and self.model_b is not None:
+        if self.estimand not in TWO_GROUP_DATA and self.model_b is not None:
             c.add("data.b", f"estimand {self.estimand!r} is one-sample; a second group makes no sense")
         if self.estimand in ("proportion", "proportion-diff"):
             for label, m in (("data", self.model), ("data.b", self.model_b)):
                 if isinstance(m, Model) and not m.zero_one:
                     c.add(label, "a proportion estimand needs 0/1 data: model 'bernoulli', or event_values / event_above in [target]")
+        spec = spec_for(self.estimand)
+        self._check_estimand_params(c, spec)
         if self.selection is not None:
             self._check_selection(c)
+        elif spec is not None:
+            self._check_registered(c, spec)
         elif self.strata is not None:
             self._check_strata(c)
-        elif self.estimand == "total" and self.population is None:
-            c.add("target.estimand", "'total' needs the population size: a [population] table, or [[strata]] tables with their sizes")
+        elif self.estimand == "total" and self.population is None and self.clusters is None:
+            c.add("target.estimand", "'total' needs the population size: a [population] table, [[strata]] tables with "
+                  "their sizes, or [clusters] with clusters.count")
         elif self.estimand in ESTIMANDS:
             from simcheck.intervals import methods_for
             from simcheck.intervals.base import lookup
@@ -282,6 +308,44 @@ class Design:
                 self._check_finite(c, m)
         c.raise_if_any()
 
+    def _check_estimand_params(self, c: Collector, spec) -> None:
+        """Keys only some estimands use: given to another estimand they are a mistake."""
+        used = spec.params if spec is not None else ()
+        for key, attr in ESTIMAND_PARAMS.items():
+            if getattr(self, attr) is not None and attr not in used:
+                users = [k for k, v in ESTIMAND_SPECS.items() if attr in v.params]
+                c.add(key, f"is only for estimand {' / '.join(users) or '(none)'}; estimand is {self.estimand!r}")
+
+    def _check_registered(self, c: Collector, spec) -> None:
+        """Rules of an estimand from the registry (simple random samples, two-sided)."""
+        for label, what in (("clusters", self.clusters), ("population", self.population), ("strata", self.strata)):
+            if what is not None:
+                c.add(label, f"estimand {self.estimand!r} is planned for simple random samples; [{label}] is not available with it")
+        if self.bound != "two-sided":
+            c.add("target.bound", f"estimand {self.estimand!r} has two-sided intervals only, got {self.bound!r}")
+        if spec.ratio_scale:
+            if self.margin is not None and not (isinstance(self.margin, (int, float)) and self.margin > 1):
+                c.add("target.margin", f"for {spec.label} the margin is a factor > 1 (1.2: the interval lies within "
+                                       f"the estimate divided and multiplied by 1.2), got {self.margin!r}")
+            if self.relative_margin is not None:
+                c.add("target.relative_margin", f"for {spec.label} the margin is a factor already; give target.margin")
+        for label, m in (("data.a" if self.model_b is not None else "data", self.model), ("data.b", self.model_b)):
+            if not isinstance(m, Model):
+                continue
+            if spec.zero_one and not m.zero_one:
+                c.add(label, f"{spec.label} needs 0/1 data: model 'bernoulli'")
+            if spec.counts and not _counts_model(m):
+                c.add(label, f"{spec.label} needs counts (whole numbers >= 0): model 'poisson' or 'negative-binomial'")
+        from simcheck.intervals.base import lookup
+
+        if lookup(self.estimand, self.method) is None:
+            from simcheck.intervals import methods_for
+
+            c.add("method.interval", f"unknown interval {self.method!r} for estimand {self.estimand!r}; "
+                                     f"choose one of {', '.join(methods_for(self.estimand))}")
+        if spec.check is not None and not c.problems:
+            spec.check(self, c)
+
     def _check_finite(self, c: Collector, method) -> None:
         """Rules of finite-population methods and of totals without strata."""
         if method.needs_population_size and self.population is None:
@@ -289,8 +353,13 @@ class Design:
         if method.needs_population_size and self.clusters is not None:
             c.add("method.interval", f"{self.method!r} is for units drawn from a finite population, not with [clusters]")
         if self.estimand == "total":
-            if self.clusters is not None:
-                c.add("target.estimand", "'total' is not available with [clusters]; estimate the mean")
+            if self.clusters is not None and self.clusters.count is None:
+                c.add("clusters.count", "missing: a total with [clusters] needs the number of clusters in the "
+                      "population (the total is M times the mean cluster total)")
+            if self.clusters is not None and method.kind != "cluster":
+                c.add("method.interval", f"a total with [clusters] uses cluster-t (M x the mean cluster total), not {self.method!r}")
+            if self.clusters is None and method.kind == "cluster":
+                c.add("method.interval", f"{self.method!r} for a total needs [clusters] with clusters.count")
             if self.base_estimand == "proportion" and isinstance(self.model, Model) and not self.model.zero_one:
                 c.add("method.interval", f"{self.method!r} is a proportion interval: a total with it needs 0/1 data")
 
@@ -336,6 +405,9 @@ class Design:
             c.add("target.estimand", f"stratified designs estimate a mean, a proportion or a total, not {self.estimand!r}")
         elif self.method not in allowed:
             c.add("method.interval", f"stratified {self.estimand} intervals: {', '.join(allowed)}; got {self.method!r}")
+        elif self.method == "bootstrap" and self.one_sided:
+            c.add("target.bound", "a one-sided limit is not available with the stratified bootstrap (a percentile "
+                  "interval, not symmetric); use t or z")
         if self.clusters is not None or self.population is not None:
             c.add("strata", "cannot be combined with [clusters] or [population] (each stratum is its own finite population)")
         if len(st.sizes) < 2:
@@ -429,14 +501,32 @@ class Design:
         return self.estimand in TWO_SAMPLE
 
     @property
+    def paired(self) -> bool:
+        """n pairs of two correlated measurements (paired estimands)."""
+        return self.estimand in PAIRED
+
+    @property
+    def ratio_scale(self) -> bool:
+        """The margin is a factor > 1 (ratio-scale estimands from the registry)."""
+        spec = spec_for(self.estimand)
+        return spec is not None and spec.ratio_scale
+
+    @property
     def true_value(self) -> float:
         if self.selection is not None:
             return self._selection_truth()
+        spec = spec_for(self.estimand)
+        if spec is not None:
+            return float(spec.true_value(self))
         if self.strata is not None:
             # the planning value; an evaluation reports its finite populations' value
             mean = sum(w * m.mean for w, m in zip(self.strata.weights, self.strata.models))
             return mean * self.strata.population_size if self.estimand == "total" else mean
         a = self.model.mean
+        if self.estimand == "total" and self.clusters is not None:
+            # planning value: M clusters of mean size m; an evaluation reports its cluster population's total
+            cl = self.clusters
+            return a * (cl.size if cl.size is not None else (cl.size_mean or 1.0)) * (cl.count or 1)
         if self.estimand == "total" and self.population is not None:
             return a * self.population.size  # the planning value; an evaluation reports its population's
         return a - self.model_b.mean if self.two_sample else a
@@ -484,9 +574,15 @@ class Design:
         if self.limit is not None:
             d["limit"] = self.limit
             d["events_allowed"] = self.events_allowed or 0
-        if self.two_sample:
+        for attr in ESTIMAND_PARAMS.values():
+            if getattr(self, attr) is not None:
+                d[attr] = getattr(self, attr)
+        if self.ratio_scale:
+            d["scale"] = "ratio"
+        if self.two_sample or self.paired:
             d["data_a"] = self.model.to_dict()
             d["data_b"] = self.model_b.to_dict()
+        if self.two_sample:
             d["ratio"] = self.ratio
         elif self.strata is None:
             d["data"] = self.model.to_dict()
@@ -501,3 +597,12 @@ class Design:
         if self.selection is not None:
             d["selection"] = self.selection.to_dict()
         return d
+
+
+def _counts_model(m: Model) -> bool:
+    """Counts: a discrete law on whole numbers >= 0."""
+    law = m.law()
+    if law is None or not m.discrete:
+        return False
+    lo = law.support()[0]
+    return lo >= 0

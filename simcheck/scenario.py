@@ -51,7 +51,7 @@ from numbers import Integral
 from pathlib import Path
 from typing import Any, Mapping
 
-from simcheck.design import ESTIMANDS, STRATIFIED_METHODS, TWO_SAMPLE, ClusterSpec, Design, PopulationSpec
+from simcheck.design import ESTIMANDS, STRATIFIED_METHODS, TWO_GROUP_DATA, TWO_SAMPLE, ClusterSpec, Design, PopulationSpec
 from simcheck.errors import Collector, InputError, Problem, shown
 from simcheck.files import read_csv_column, read_toml, regular_file, resolve_data_path
 from simcheck.scenario_strata import KNOWN_KEYS as STRATA_KEYS
@@ -110,9 +110,12 @@ KNOWN_KEYS: dict[str, str] = {
     "target.units": "units of the data, text (used in tables, figures and the methods paragraph)",
     "target.limit": "demonstration plan: the proportion in (0, 1) the upper limit must stay below (bound = upper)",
     "target.events_allowed": "demonstration plan: events allowed while the plan still passes, whole number >= 0; default 0",
+    "target.quantile": "estimand quantile: the quantile estimated, in (0, 1) (0.5 = the median)",
+    "target.exposure": "estimands rate and rate-ratio: exposure of each observation unit (person-years, litres, m^2), > 0; default 1",
     "data": "one-sample model table: model = \"...\" and its parameters",
-    "data.a": "two-sample: model table of group a (the difference is a - b)",
-    "data.b": "two-sample: model table of group b",
+    "data.a": "two-sample: model table of group a (the difference is a - b); paired: the first measurement",
+    "data.b": "two-sample: model table of group b; paired: the second measurement",
+    "data.correlation": "paired estimands: correlation of the two measurements' normal scores, in (-1, 1)",
     "method.interval": "required: interval method name, or a list of names",
     "method.resamples": f"bootstrap resamples, whole number in [{RESAMPLES_MIN}, {RESAMPLES_MAX}]; default {DEFAULT_RESAMPLES}",
     "simulation.replicates": f"simulated samples per n, whole number in [{REPLICATES_MIN}, {REPLICATES_MAX}]; default {DEFAULT_REPLICATES}",
@@ -446,6 +449,10 @@ class _Target:
     window: float | None = None
     dropout: float = 0.0
     bounds: dict[str, Any] = field(default_factory=dict)
+    #: keys only some estimands use (see design.ESTIMAND_PARAMS)
+    quantile: float | None = None
+    exposure: float | None = None
+    correlation: float | None = None
 
 
 @dataclass
@@ -625,6 +632,8 @@ def _target(c: Collector, target: dict[str, Any]) -> _Target:
     t.event_values, t.event_above = _event(c, target, t.estimand)
     t.window = _num(c, target, "target", "window", 1.25, low=1, high=4)
     t.dropout = _num(c, target, "target", "dropout", 0.0, low=0, high=1, high_open=True)
+    t.quantile = _num(c, target, "target", "quantile", None, low=0, high=1, low_open=True, high_open=True)
+    t.exposure = _num(c, target, "target", "exposure", None, low=0, low_open=True)
     return t
 
 
@@ -651,18 +660,20 @@ def _data(c: Collector, table: dict[str, Any], tgt: _Target, files: _Files, from
     if data is None:
         c.add("data", "missing: a [data] table with model = \"...\" (two-sample: [data.a] and [data.b])")
         return None, None, None
-    if _is_model(data) and estimand not in TWO_SAMPLE:  # a model object, from Python
+    if _is_model(data) and estimand not in TWO_GROUP_DATA:  # a model object, from Python
         return _model(c, data, "data", files), None, None
     if not isinstance(data, dict):
         c.add("data", f"must be a table, got {shown(data)}")
         return None, None, None
-    if estimand in TWO_SAMPLE or (estimand is None and data and set(data) <= {"a", "b"}):
+    if estimand in TWO_GROUP_DATA or (estimand is None and data and set(data) <= {"a", "b"}):
         # (an invalid estimand is already reported; still check both groups' models)
         if "model" in data:
             c.add("data", f"estimand {estimand!r} compares two groups: put their models in [data.a] and [data.b]")
             return None, None, None
+        if "correlation" in data:
+            tgt.correlation = _num(c, data, "data", "correlation", None, low=-1, high=1, low_open=True, high_open=True)
         for k in data:
-            if k not in ("a", "b"):
+            if k not in ("a", "b", "correlation"):
                 near = difflib.get_close_matches(str(k), ["a", "b"], n=1, cutoff=0.5)
                 hint = f"did you mean 'data.{near[0]}'?" if near else "two-sample data has only [data.a] and [data.b]"
                 c.add(f"data.{k}", f"unknown key; {hint}")
@@ -761,6 +772,9 @@ def _designs(c: Collector, tgt: _Target, model, model_b, methods: list[str], sim
             population=population,
             strata=strata,
             selection=selection,
+            quantile=tgt.quantile,
+            exposure=tgt.exposure,
+            correlation=tgt.correlation,
             **_design_bound_args(tgt.bounds, tgt.assurance),
         )
     except InputError as e:
@@ -826,13 +840,13 @@ def _unknown_keys(c: Collector, table: dict[str, Any]) -> None:
 
 
 def _suggest(leaf: str, table: str, keys: tuple[str, ...]) -> str:
+    # a key written under the wrong table header (TOML keys belong to the last header above them)
+    if leaf in _TOP and table:
+        return f"did you mean the top-level {leaf!r}? (top-level keys go before the first [table])"
     near = difflib.get_close_matches(leaf, list(keys), n=1, cutoff=0.6)
     if near:
         return f"did you mean {_join(table, near[0])!r}?"
-    # a key written under the wrong table header (TOML keys belong to the last header above them)
     elsewhere = [k for k in KNOWN_KEYS if k.rsplit(".", 1)[-1] == leaf and k != _join(table, leaf)]
-    if leaf in _TOP and table:
-        return f"did you mean the top-level {leaf!r}? (top-level keys go before the first [table])"
     if elsewhere:
         return f"did you mean {elsewhere[0]!r}?"
     near = difflib.get_close_matches(_join(table, leaf), _FIXED_KEYS, n=1, cutoff=0.6)

@@ -90,6 +90,7 @@ from scipy import stats
 from simcheck import engine
 from simcheck import rng as rngmod
 from simcheck.design import Design
+from simcheck.estimands import REGISTRY as ESTIMAND_SPECS
 from simcheck.errors import Collector, InputError
 from simcheck.intervals import get_method
 from simcheck.results import CheckResult, CurveResult, MethodComparison, SearchResult
@@ -172,6 +173,10 @@ def _formula(design: Design):
         from simcheck.engine.pps import formula_result as selection_formula
 
         return selection_formula(design)
+    if design.estimand == "total":
+        return _total_formula(design)
+    if design.estimand in ESTIMAND_SPECS:
+        return _registered_formula(design)
     kw: dict[str, Any] = {"confidence": design.confidence, "multiplier": "z", "bound": design.bound}
     try:
         if design.estimand in ("mean", "mean-diff"):
@@ -196,10 +201,24 @@ def _formula(design: Design):
             # the FPC counts units; clustered designs sample clusters of units
             kw["population_size"] = int(pop.size)
         res = formulas.sample_size(design.estimand, float(design.margin), **kw)
+        if cl is not None and cl.count is not None:  # clusters drawn from M: first-stage correction
+            res = formulas.finite_clusters(res, cl.count)
     except (InputError, ValueError, ZeroDivisionError, OverflowError, TypeError):
         return None
     n = res.clusters if cl is not None else res.n
     return None if n is None else (res, int(n))
+
+
+def _registered_formula(design: Design):
+    """The closed-form baseline of an estimand from the registry, from the design's planning values."""
+    spec = ESTIMAND_SPECS[design.estimand]
+    if spec.formula is None or spec.planning is None:
+        return None
+    try:
+        res = spec.formula(float(design.margin), design.confidence, **spec.planning(design))
+    except (InputError, ValueError, ZeroDivisionError, OverflowError, TypeError):
+        return None
+    return res, int(res.n)
 
 
 def _stratified_formula(design: Design):
@@ -214,6 +233,29 @@ def _stratified_formula(design: Design):
             means=[m.mean for m in st.models], rule=st.rule, costs=st.costs, given=st.given,
             minimum=st.minimum, confidence=design.confidence)
     except (InputError, ValueError, ZeroDivisionError, OverflowError):
+        return None
+    return res, int(res.n)
+
+
+def _total_formula(design: Design):
+    """A total without strata: one stage (the mean's n at margin B / N), or M clusters (simcheck.cluster_total)."""
+    from simcheck import formulas
+    from simcheck.cluster_total import cluster_total_sample_size
+
+    m = design.model
+    try:
+        cl = design.clusters
+        if cl is not None:
+            kw: dict[str, Any] = {"p": float(m.mean)} if m.zero_one else {"sd": float(m.sd), "mean": float(m.mean)}
+            res = cluster_total_sample_size(
+                float(design.margin), cl.count, cl.size if cl.size is not None else cl.size_mean, cl.icc,
+                cluster_size_cv=None if cl.size is not None else cl.size_cv, confidence=design.confidence,
+                bound=design.bound, **kw)
+            return res, int(res.clusters)
+        kw = {"sd": float(m.sd)} if design.base_estimand == "mean" else {"p": float(m.mean)}
+        res = formulas.total_sample_size(float(design.margin), int(design.population.size),
+                                         confidence=formulas.multiplier_confidence(design.confidence, design.bound), **kw)
+    except (InputError, ValueError, ZeroDivisionError, OverflowError, TypeError):
         return None
     return res, int(res.n)
 
@@ -310,7 +352,10 @@ class _Runner:
 
 
 def _resampling(design: Design) -> bool:
-    return get_method(design.estimand, design.method).kind in ("sample", "sample2")
+    if design.strata is not None:  # stratified methods are not in the registry
+        return design.method == "bootstrap"
+    m = get_method(design.estimand, design.method)
+    return m.kind in ("sample", "sample2") or m.resampling
 
 
 def _dense_paths(design: Design, path: str) -> tuple[bool, bool]:
@@ -452,8 +497,8 @@ def _validate(design, assurance, coverage_tolerance, replicates, n_min, n_max, b
     c.number("precision", precision, low=0, high=1, low_open=True)
     c.number("window", window, low=1, high=WINDOW_MAX)
     c.raise_if_any()
-    method = get_method(design.estimand, design.method)
-    floor = 1 if method.kind in ("count", "count2") else 2
+    floor = 2 if design.strata is not None else (
+        1 if get_method(design.estimand, design.method).kind in ("count", "count2") else 2)
     lo_n = max(lo_n, floor)
     while design.two_sample and design.n_b(lo_n) < floor:
         lo_n += 1
@@ -554,7 +599,7 @@ def _methods_that_reach(run: _Runner, ctx: dict) -> list[str]:
         if name == design.method:
             continue
         m = get_method(design.estimand, name)
-        if m.kind in ("sample", "sample2"):
+        if m.kind in ("sample", "sample2") or m.resampling:
             continue  # bootstrap: too expensive for a quick check at n_max
         try:
             d = design.with_method(name)
@@ -574,8 +619,12 @@ def _methods_that_reach(run: _Runner, ctx: dict) -> list[str]:
 def _exact_search(run: _Runner, start: int, **ctx) -> SearchResult:
     # counts (binomial, beta-binomial, hypergeometric) make coverage oscillate in n;
     # the exact laws of normal data give coverage and assurance monotone in n
-    if ctx["design"].estimand in ("proportion", "proportion-diff") or ctx["design"].selection is not None:
+    design = ctx["design"]
+    if design.estimand in ("proportion", "proportion-diff") or design.selection is not None:
         return _exact_scan(run, **ctx)  # (monetary-unit limits: counts of misstated units)
+    method = get_method(design.estimand, design.method)
+    if method.kind == "raw" and not method.exact_monotone:
+        return _exact_scan(run, **ctx)  # registered estimands: monotone only where the method says so
     return _exact_monotone(run, start, **ctx)
 
 
@@ -677,8 +726,10 @@ def _exact_monotone(run: _Runner, start: int, **ctx) -> SearchResult:
     notes = _formula_note(ctx["nf"], n)
     if n_first != n:
         notes.append(f"the targets first hold at n = {n_first}, and for every larger n checked from n = {n}")
-    notes.append("exact: computed from the exact law of the sample mean and variance of normal data "
-                 "(no Monte Carlo error); coverage and assurance rise monotonically in n, so the window holds")
+    law = ("the exact law of the statistic" if get_method(design.estimand, design.method).kind == "raw"
+           else "the exact law of the sample mean and variance of normal data")
+    notes.append(f"exact: computed from {law} (no Monte Carlo error); coverage and assurance rise monotonically "
+                 "in n, so the window holds")
     return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=n,
                    reached=True, n_range=(n, n), at=ev(n), stop="exact", exact=True, n_first=n_first,
                    notes=notes, curve_rows=win, window=window)

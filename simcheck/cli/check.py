@@ -138,7 +138,11 @@ def report(scenario, rows: Sequence[Any]) -> str:
         count = f", {pop.events} with the event (a fixed count)" if pop.events is not None else ""
         lines.append(f"population:  {pop.size} units{count}, sampled without replacement ({fpc} finite population correction)")
     what = {"mean": "mean", "proportion": "proportion", "mean-diff": "difference of means a - b",
-            "proportion-diff": "difference of proportions a - b", "total": "population total"}[d.estimand]
+            "proportion-diff": "difference of proportions a - b", "total": "population total"}.get(d.estimand)
+    if what is None:
+        from simcheck.estimands import spec_for
+
+        what = spec_for(d.estimand).label
     # the result's true value: for a finite population it is the population's mean, not the model's
     true = rows[0].true_value if rows else d.true_value
     lines.append(f"true value:  {_g(float(true), 6)} ({what})")
@@ -177,9 +181,13 @@ def report(scenario, rows: Sequence[Any]) -> str:
     elif any(r.exact for r in rows):
         lines.append("* exact: computed by enumeration or exact law, not simulation (MCSE 0).")
     half = "half-width" if d.bound == "two-sided" else "margin (distance from estimate to limit)"
+    if d.ratio_scale:
+        half = "margin factor"
+    scale = ("margins are factors f (the interval within estimate / f to estimate x f)" if d.ratio_scale
+             else f"margins {units_text(d.units)}")
     lines.append(f"coverage = {coverage_words(d.bound)} (nominal {d.confidence:.4g}); "
                  f"assurance = share with {half} <= {_g(d.margin, 6)} "
-                 f"(zero-width intervals that miss the true value do not count); margins {units_text(d.units)}.")
+                 f"(zero-width intervals that miss the true value do not count); {scale}.")
     lines += result_lines(rows, d.units)
     notes: list[str] = []
     for r in rows:

@@ -5,7 +5,9 @@ from __future__ import annotations
 import argparse
 import sys
 
+from simcheck.cli import formula_estimands
 from simcheck.cli.common import add_json, emit_json, fmt, table
+from simcheck.estimands import REGISTRY as ESTIMAND_SPECS
 from simcheck.errors import Collector
 from simcheck.formulas import BOUNDS, ESTIMANDS, demonstration_plan, relative_sample_size, sample_size
 
@@ -23,9 +25,10 @@ def add_parser(subparsers) -> None:
             "`simcheck check` and `simcheck search` test whether n really delivers the interval."
         ),
     )
-    p.add_argument("--estimand", choices=ESTIMANDS + ("total",), metavar="E",
+    p.add_argument("--estimand", choices=ESTIMANDS + ("total",) + tuple(ESTIMAND_SPECS), metavar="E",
                    help="what is estimated: mean, proportion, mean-diff or proportion-diff (difference a - b); "
-                        "total (N times the mean; with --stratum, or with --population-size and --sd or --p)")
+                        "total (N times the mean; with --stratum, or with --population-size and --sd or --p); "
+                        + ", ".join(ESTIMAND_SPECS) + " (their planning values below)")
     p.add_argument("--margin", type=float, metavar="B",
                    help="target half-width of the interval, > 0, in the data's units (0.05 = 5 points for proportions); required")
     p.add_argument("--confidence", type=float, default=0.95, metavar="C",
@@ -87,6 +90,7 @@ def add_parser(subparsers) -> None:
                    help="how the total n is shared among the strata (default proportional)")
     p.add_argument("--minimum", type=int, default=None, metavar="K",
                    help="least n per stratum, >= 2 (default 2)")
+    formula_estimands.add_options(p)
     add_json(p)
     p.set_defaults(run=run)
 
@@ -163,6 +167,8 @@ def _total(args: argparse.Namespace):
     from simcheck.formulas import total_sample_size
 
     c = Collector()
+    if args.cluster_count is not None or args.icc is not None or args.cluster_size is not None:
+        return _cluster_total(args)
     for opt in ("sd_b", "p_b", "design_effect", "icc", "cluster_size", "cluster_size_cv", "ratio", "cluster_count"):
         if getattr(args, opt) is not None:
             c.add("--" + opt.replace("_", "-"), "not used with --estimand total without --stratum (a one-stage "
@@ -172,7 +178,28 @@ def _total(args: argparse.Namespace):
                              multiplier=args.multiplier)
 
 
+def _cluster_total(args: argparse.Namespace):
+    """The total of M clusters (--cluster-count): M times the mean cluster total (simcheck.cluster_total)."""
+    from simcheck.cluster_total import cluster_total_sample_size
+    from simcheck.errors import Collector
+
+    c = Collector()
+    for opt, why in (("cluster_count", "the number of clusters in the population"), ("icc", "the intracluster correlation"),
+                     ("cluster_size", "the (mean) cluster size")):
+        if getattr(args, opt) is None:
+            c.add("--" + opt.replace("_", "-"), f"is required for a total of clusters: {why}")
+    for opt in ("sd_b", "p_b", "design_effect", "ratio", "population_size"):
+        if getattr(args, opt) is not None:
+            c.add("--" + opt.replace("_", "-"), "not used with a total of clusters (give --cluster-count, --icc, "
+                  "--cluster-size and --sd or --p)")
+    c.raise_if_any()
+    return cluster_total_sample_size(args.margin, args.cluster_count, args.cluster_size, args.icc, sd=args.sd, p=args.p,
+                                     cluster_size_cv=args.cluster_size_cv, confidence=args.confidence, bound=args.bound)
+
+
 def run(args: argparse.Namespace) -> int:
+    if args.estimand in ESTIMAND_SPECS:
+        return formula_estimands.run_registered(args)
     if args.stratum and (args.bound != "two-sided" or args.relative_margin is not None or args.limit is not None):
         from simcheck.errors import InputError
 

@@ -12,6 +12,9 @@ design shares, then hand the design to its *design kind* (see
 ``selection`` (:mod:`simcheck.engine.pps`)
     selection with probability proportional to size, with replacement
     (Hansen-Hurwitz; monetary-unit sampling and its upper limits).
+``raw`` (:mod:`simcheck.engine.raw`)
+    the estimands of :mod:`simcheck.estimands` (median, SD, rates, ratios,
+    correlation, ...), whose methods take the drawn values.
 
 Every evaluator turns interval limits into measures through
 :mod:`simcheck.engine.measures`; exact enumerations live in
@@ -32,7 +35,7 @@ import numpy as np
 
 from simcheck import rng as rngmod
 from simcheck.design import Design
-from simcheck.engine import clustered, onesided, pps, simple, stratified
+from simcheck.engine import clustered, onesided, pps, raw, simple, stratified
 from simcheck.engine.kinds import KINDS, DesignKind, kind_for, register_kind
 from simcheck.engine.measures import share_mcse
 from simcheck.engine.simple import CHUNK_BYTES, PATHS, block_size, piece_rows, unit_rows
@@ -48,6 +51,7 @@ Progress = Callable[[int, int], None] | None
 EXACT2_PAIRS_MAX = 5_000_000
 
 register_kind(DesignKind("selection", pps.applies, pps.available_paths, pps.evaluate, self_contained=True))
+register_kind(DesignKind("raw", raw.applies, raw.available_paths, raw.evaluate))
 register_kind(DesignKind("stratified", stratified.applies, stratified.available_paths, stratified.evaluate))
 register_kind(DesignKind("clustered-or-population", clustered.applies, clustered.available_paths, clustered.evaluate))
 register_kind(DesignKind("simple", simple.applies, simple.available_paths, simple.evaluate, fallback=True))

@@ -15,6 +15,13 @@ Kinds and call signatures (all arrays broadcast together):
 ``sample``    ``func(x, confidence, *, rng, resamples) -> (lo, hi, degenerate)`` raw (R, n) samples (bootstrap)
 ``sample2``   ``func(xa, xb, confidence, *, rng, resamples) -> (lo, hi, degenerate)``
 ``cluster``   ``func(values, sizes, confidence) -> (lo, hi)`` see intervals.cluster
+``raw``       ``func(s: Sample, confidence) -> (lo, hi)`` or ``(lo, hi, degenerate)``: the drawn
+              values of the estimands in :mod:`simcheck.estimands` (see :class:`Sample`)
+
+A method may also carry an exact path: ``exact_applies(design) -> bool`` and
+``exact(design, ns) -> list[dict]``, one dict of measures per n in the keys
+of :func:`simcheck.engine.measures.row_from_measures`, margins on the scale
+the estimand reports (a factor for ratio-scale estimands).
 """
 
 from __future__ import annotations
@@ -63,6 +70,44 @@ class Summary:
 
 
 @dataclass(frozen=True)
+class Sample:
+    """Drawn values handed to a ``raw`` method, one row per replicate.
+
+    Methods must not write into the arrays: along a curve they are views of
+    one draw shared by every n.
+
+    Attributes
+    ----------
+    x : ndarray
+        (R, n) values of the one sample, of group a, or the first
+        measurement of each pair.
+    n : int
+        Sample size (pairs for paired data).
+    y : ndarray, optional
+        (R, n) second measurement of each pair (paired data).
+    xb : ndarray, optional
+        (R, n_b) values of group b (two independent groups).
+    n_b : int, optional
+        Size of group b.
+    params : dict
+        The design's estimand parameters (``quantile``, ``exposure``).
+    rng : numpy.random.Generator, optional
+        Stream for resampling methods (bootstrap).
+    resamples : int
+        Bootstrap resamples.
+    """
+
+    x: np.ndarray
+    n: int
+    y: np.ndarray | None = None
+    xb: np.ndarray | None = None
+    n_b: int | None = None
+    params: dict = field(default_factory=dict)
+    rng: np.random.Generator | None = None
+    resamples: int = 1999
+
+
+@dataclass(frozen=True)
 class Method:
     """An interval method in the registry."""
 
@@ -100,6 +145,17 @@ class Method:
     #: the interval is always point estimate ± half-width (no clipping), so
     #: the achieved one-sided margin equals the two-sided half-width
     symmetric: bool = False
+    #: an exact path for ``raw`` methods: ``exact_applies(design)`` says whether
+    #: ``exact(design, ns)`` can compute the measures without simulation
+    exact: Callable | None = field(default=None, repr=False)
+    exact_applies: Callable | None = field(default=None, repr=False)
+    #: coverage and assurance of the exact path rise monotonically in n (a
+    #: continuous law), so a search may bisect; otherwise (counts) it scans
+    exact_monotone: bool = False
+    #: the method resamples (bootstrap): the engine hands it ``Sample.rng``
+    resampling: bool = False
+    #: the method's name as written in prose ("Bonett's"), for reports
+    prose: str = ""
 
     @property
     def one_sided_only(self) -> bool:

@@ -93,6 +93,15 @@ class Model(ABC):
         """
         return None
 
+    def law(self):
+        """The law of one observation as a frozen scipy.stats distribution, or None.
+
+        Estimands beyond the mean (quantiles, geometric means, correlations
+        of transformed margins) compute their true values and planning
+        values from it; models without a closed-form law return None.
+        """
+        return None
+
     def event_probability(self, *, values: list[float] | None = None, above: float | None = None) -> float:
         """P(X in values) or P(X > above) for a proportion estimand.
 

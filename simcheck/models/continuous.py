@@ -339,6 +339,9 @@ class Normal(_Continuous):
     def _sf(self, x: float) -> float:
         return stats.norm.sf(x, loc=self._mean, scale=self._sd)
 
+    def law(self):
+        return stats.norm(loc=self._mean, scale=self._sd)
+
     def _draw(self, rng, size, out) -> None:
         rng.standard_normal(out=out)
         out *= self._sd
@@ -417,6 +420,9 @@ class Lognormal(_Continuous):
             return 1.0
         return stats.norm.sf((math.log(x) - self.meanlog) / self.sdlog)
 
+    def law(self):
+        return stats.lognorm(self.sdlog, scale=math.exp(self.meanlog))
+
     def _draw(self, rng, size, out) -> None:
         rng.standard_normal(out=out)
         out *= self.sdlog
@@ -475,6 +481,9 @@ class Gamma(_Continuous):
     def _sf(self, x: float) -> float:
         return stats.gamma.sf(x, self.shape, scale=self.scale)
 
+    def law(self):
+        return stats.gamma(self.shape, scale=self.scale)
+
     def _draw(self, rng, size, out) -> None:
         rng.standard_gamma(self.shape, out=out)
         out *= self.scale
@@ -514,6 +523,9 @@ class Exponential(_Continuous):
 
     def _sf(self, x: float) -> float:
         return stats.expon.sf(x, scale=self._mean)
+
+    def law(self):
+        return stats.expon(scale=self._mean)
 
     def _draw(self, rng, size, out) -> None:
         rng.standard_exponential(out=out)
@@ -562,6 +574,9 @@ class Weibull(_Continuous):
 
     def _sf(self, x: float) -> float:
         return stats.weibull_min.sf(x, self.shape, scale=self.scale)
+
+    def law(self):
+        return stats.weibull_min(self.shape, scale=self.scale)
 
     def _draw(self, rng, size, out) -> None:
         rng.standard_exponential(out=out)
@@ -650,6 +665,9 @@ class Beta(_Continuous):
     def _sf(self, x: float) -> float:
         return stats.beta.sf(x, self.a, self.b, loc=self.lower, scale=self._w)
 
+    def law(self):
+        return stats.beta(self.a, self.b, loc=self.lower, scale=self._w)
+
     def _draw(self, rng, size, out) -> None:
         # numpy's beta has no out=; one temporary, then scaled in place.
         out[...] = rng.beta(self.a, self.b, size=size)
@@ -697,6 +715,9 @@ class Uniform(_Continuous):
 
     def _sf(self, x: float) -> float:
         return stats.uniform.sf(x, loc=self.lower, scale=self.upper - self.lower)
+
+    def law(self):
+        return stats.uniform(loc=self.lower, scale=self.upper - self.lower)
 
     def _draw(self, rng, size, out) -> None:
         rng.random(out=out)
@@ -762,6 +783,9 @@ class TruncatedNormal(StoredMoments, _Continuous):
     def _sf(self, x: float) -> float:
         return float(self._dist.sf(x))
 
+    def law(self):
+        return self._dist
+
     def _draw(self, rng, size, out) -> None:
         rng.random(out=out)
         out *= self._pb - self._pa
@@ -817,6 +841,9 @@ class StudentT(_Continuous):
 
     def _sf(self, x: float) -> float:
         return stats.t.sf(x, self.df, loc=self._mean, scale=self.scale)
+
+    def law(self):
+        return stats.t(self.df, loc=self._mean, scale=self.scale)
 
     def _draw(self, rng, size, out) -> None:
         out[...] = rng.standard_t(self.df, size=size)

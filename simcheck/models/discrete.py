@@ -144,6 +144,9 @@ class Bernoulli(ZeroOneMoments, _Discrete):
     def bernoulli_p(self) -> float:
         return self.p
 
+    def law(self):
+        return stats.bernoulli(self.p)
+
     def event_probability(self, *, values=None, above=None) -> float:
         vals, a = event_args(values, above)
         if vals is not None:
@@ -197,6 +200,9 @@ class Poisson(_Discrete):
 
     def _draw(self, rng, size, out) -> None:
         out[...] = rng.poisson(self._mean, size=size)
+
+    def law(self):
+        return stats.poisson(self._mean)
 
 
 @register("negative-binomial")
@@ -263,3 +269,6 @@ class NegativeBinomial(_Discrete):
 
     def _draw(self, rng, size, out) -> None:
         out[...] = rng.negative_binomial(self.n, self.p, size=size)
+
+    def law(self):
+        return stats.nbinom(self.n, self.p)

@@ -31,7 +31,7 @@ from simcheck import CAUTION, __version__
 from simcheck.errors import InputError
 from simcheck.report.study import Progress, StudyResults, SweepResults, is_store, read_sweep, run_study
 from simcheck.report.text import (
-    ESTIMAND_TEXT,
+    estimand_text,
     STATUS_TEXT,
     criterion_sentence,
     decision_status,
@@ -239,7 +239,9 @@ def study_figures(study: StudyResults) -> dict[str, Any]:
         has_assurance = any(r.assurance is not None for c in curves.values() for r in c.rows)
         out["margin"] = F.margin_figure(checks, target_margin=study.margin, curves=curves if has_assurance else None,
                                         assurance=study.assurance, n_found=found, value_label=study.value_label,
-                                        n_label=study.n_label)
+                                        n_label=study.n_label,
+                                        undecided=[label[m] for m, s in study.searches.items() if m in label and
+                                                   decision_status(s) == "undecided" and s.n is None])
     if curves:
         out["misses"] = F.miss_figure(curves, confidence=study.confidence, n_found=found, n_formula=study.n_formula,
                                       n_label=study.n_label)
@@ -361,7 +363,7 @@ def _study_doc(study: StudyResults, figs: dict[str, Path], base: Path) -> _Doc:
     doc.para("Decision: " + ("; ".join(f"`{m}` {t}" for m, t in states) if len(states) > 1
                              else (states[0][1] if states else "–")) + ".")
     doc.heading("Targets")
-    rows = [["Estimand", ESTIMAND_TEXT.get(s.estimand, s.estimand)],
+    rows = [["Estimand", estimand_text(s.estimand)],
             ["Confidence level", fmt_g(s.confidence)],
             ["Target margin (half-width)", fmt_g(s.margin)],
             ["Required assurance (share of samples with half-width ≤ target)", fmt_g(s.assurance)],

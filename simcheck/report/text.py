@@ -24,6 +24,16 @@ ESTIMAND_TEXT = {
 }
 
 
+
+
+def estimand_text(estimand: str) -> str:
+    """Words for an estimand: built-in ones from ESTIMAND_TEXT, registered ones from their spec."""
+    from simcheck.estimands import spec_for
+
+    spec = spec_for(estimand)
+    return ESTIMAND_TEXT.get(estimand) or (spec.label if spec is not None else estimand)
+
+
 # Plain-language names of model parameters in the methods paragraph.
 # Published interval names as written in prose.
 METHOD_TEXT = {
@@ -47,11 +57,17 @@ METHOD_TEXT = {
     "chen-modified-t": "Chen's modified-t",
     "chebyshev": "Chebyshev (Cantelli)",
     "grice-bain": "gamma-based (Grice–Bain)",
+    "bootstrap": "rescaled (Rao–Wu) stratified bootstrap",
 }
 
 
 def method_text(name: str) -> str:
-    return METHOD_TEXT.get(name, name)
+    """A method's name as written in prose: the table above, else the registered method's ``prose``."""
+    if name in METHOD_TEXT:
+        return METHOD_TEXT[name]
+    from simcheck.intervals import REGISTRY
+
+    return next((m.prose for (_, n), m in REGISTRY.items() if n == name and m.prose), name)
 
 
 PARAM_TEXT = {
@@ -383,7 +399,7 @@ def _design_sentences(s: StudyResults) -> list[str]:
 
 
 def _simulation_sentences(s: StudyResults) -> list[str]:
-    est = ESTIMAND_TEXT.get(s.estimand, s.estimand)
+    est = estimand_text(s.estimand)
     any_exact = any(c.exact for c in s.checks.values()) or any(r.exact for r in s.searches.values())
     all_exact = bool(s.searches) and all(r.exact for r in s.searches.values())
     if all_exact:
@@ -636,6 +652,8 @@ def n_axis_label(design) -> str:
 
 def value_axis_label(scenario, units: str | None = None) -> str:
     units = units or scenario.design.units
+    if scenario.design.ratio_scale:
+        return "Achieved margin as a factor (interval within estimate ÷ f to × f)"
     if scenario.design.bound != "two-sided":
         return f"Achieved margin, limit to estimate ({units or 'data units'})"
     if units:

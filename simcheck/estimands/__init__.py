@@ -1,0 +1,18 @@
+"""Estimands beyond a mean and a proportion (see :mod:`simcheck.estimands.base`).
+
+Each module defines and registers the estimands of one family; importing
+this package fills :data:`REGISTRY`.
+"""
+
+from simcheck.estimands.base import (
+    DATA_KINDS, PLANNING_VALUES, REGISTRY, SCALES, EstimandFormula, EstimandSpec, formula_for, formula_result,
+    register_estimand, spec_for, z_two_sided,
+)
+
+# Importing the family modules fills REGISTRY.
+from simcheck.estimands import spread as _spread  # noqa: F401,E402
+
+__all__ = [
+    "DATA_KINDS", "PLANNING_VALUES", "REGISTRY", "SCALES", "EstimandFormula", "EstimandSpec", "formula_for",
+    "formula_result", "register_estimand", "spec_for", "z_two_sided",
+]
