@@ -21,7 +21,8 @@ Kinds and call signatures (all arrays broadcast together):
 A method may also carry an exact path: ``exact_applies(design) -> bool`` and
 ``exact(design, ns) -> list[dict]``, one dict of measures per n in the keys
 of :func:`simcheck.engine.measures.row_from_measures`, margins on the scale
-the estimand reports (a factor for ratio-scale estimands).
+the estimand reports (a factor for ratio-scale estimands), plus optional
+``margin_at_assurance`` and ``notes`` (sentences added to the row).
 """
 
 from __future__ import annotations
