@@ -157,6 +157,9 @@ class Method:
     resampling: bool = False
     #: the method's name as written in prose ("Bonett's"), for reports
     prose: str = ""
+    #: how its exact path computes, after "computed exactly" in the methods
+    #: paragraph ("from the chi-square law of the sample variance of normal data")
+    exact_text: str = ""
 
     @property
     def one_sided_only(self) -> bool:
