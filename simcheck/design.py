@@ -116,6 +116,77 @@ class StrataSpec:
         return {"strata": out, "allocation": {"rule": self.rule, "minimum": self.minimum}, "fpc": self.fpc}
 
 
+#: selection rules of :class:`SelectionSpec`
+SELECTION_RULES = ("pps", "monetary-unit")
+
+
+@dataclass(frozen=True)
+class SelectionSpec:
+    """Selection with probability proportional to size, with replacement.
+
+    ``rule = "pps"``: each of the n draws picks item i of the population with
+    probability ``x_i / X`` (its size over the total size); the estimand is
+    the total (or mean) of the items' values (Hansen-Hurwitz). The design's
+    ``model`` gives the values (or, with ``data_per_size``, the value per
+    unit of size).
+
+    ``rule = "monetary-unit"``: the sizes are book values and each draw is a
+    monetary unit; an item is misstated with probability ``error_rate``, by
+    the share ``taint`` of its book value; the estimand is the total
+    misstatement. The design's ``model`` is then the book values' model.
+
+    Sizes come from ``size_model`` (``population.size`` items drawn once) or,
+    with ``population.file``, from ``size_column`` (rule pps) or
+    ``population.column`` (rule monetary-unit: the book values).
+    """
+
+    rule: str
+    size_model: Model | None = None
+    size_column: str | None = None
+    #: rule pps with models: the data model is the value per unit of size (value = size x draw)
+    data_per_size: bool = True
+    error_rate: float | None = None
+    #: taint of a misstated item: a model of values in [0, 1], or a constant
+    taint: Model | float | None = None
+
+    @property
+    def monetary_unit(self) -> bool:
+        return self.rule == "monetary-unit"
+
+    @property
+    def mean_taint(self) -> float:
+        return float(self.taint.mean) if isinstance(self.taint, Model) else float(self.taint)
+
+    def to_dict(self) -> dict[str, Any]:
+        d: dict[str, Any] = {"rule": self.rule}
+        if self.size_model is not None:
+            d["size"] = self.size_model.to_dict()
+        if self.size_column is not None:
+            d["size_column"] = self.size_column
+        if self.rule == "pps" and self.size_model is not None:
+            d["data_per_size"] = self.data_per_size
+        if self.monetary_unit:
+            d["error_rate"] = self.error_rate
+            d["taint"] = self.taint.to_dict() if isinstance(self.taint, Model) else self.taint
+        return d
+
+
+def _support_problem(m: Model, low: float, high: float | None, what: str) -> str | None:
+    """Why ``m`` can give values outside ``(low, high]`` (sizes) or ``[low, high]`` (taints), or None."""
+    try:
+        if high is None:
+            out = 1.0 - m.event_probability(above=low)
+            side = f"<= {low:g}"
+        else:
+            out = 1.0 - m.event_probability(above=low - 1e-300) + m.event_probability(above=high)
+            side = f"outside [{low:g}, {high:g}]"
+    except (NotImplementedError, ValueError, TypeError):
+        return None  # no law to ask: the values are checked when drawn
+    if out > 1e-15:
+        return f"{m.describe()} gives {what} {side} with probability {out:.3g}; use a model whose values stay in range"
+    return None
+
+
 @dataclass(frozen=True)
 class Design:
     """Data model, estimand, interval method, confidence and target margin.
@@ -190,6 +261,8 @@ class Design:
     exposure: float | None = None
     #: correlation of the two measurements of a pair (paired estimands), in (-1, 1)
     correlation: float | None = None
+    #: selection with probability proportional to size (with replacement) or monetary-unit sampling
+    selection: SelectionSpec | None = None
 
     def __post_init__(self) -> None:
         c = Collector()
@@ -213,7 +286,9 @@ class Design:
                     c.add(label, "a proportion estimand needs 0/1 data: model 'bernoulli', or event_values / event_above in [target]")
         spec = spec_for(self.estimand)
         self._check_estimand_params(c, spec)
-        if spec is not None:
+        if self.selection is not None:
+            self._check_selection(c)
+        elif spec is not None:
             self._check_registered(c, spec)
         elif self.strata is not None:
             self._check_strata(c)
@@ -349,6 +424,69 @@ class Design:
 
         check_strata(c, st.sizes, st.rule, st.costs, st.given, st.minimum)
 
+    def _check_selection(self, c: Collector) -> None:
+        """Rules of selection with probability proportional to size (the evaluator is engine.pps)."""
+        from simcheck.intervals.base import lookup
+        from simcheck.intervals.pps import SELECTION_METHODS
+
+        sel, pop = self.selection, self.population
+        if sel.rule not in SELECTION_RULES:
+            c.add("selection.rule", f"must be one of {', '.join(SELECTION_RULES)}, got {sel.rule!r}")
+            return
+        mus = sel.monetary_unit
+        allowed = SELECTION_METHODS[sel.rule]
+        if self.method not in allowed:
+            c.add("method.interval", f"{sel.rule} selection intervals: {', '.join(allowed)}; got {self.method!r}")
+        else:
+            m = lookup("total", self.method)
+            if m is not None and self.bound in BOUNDS and self.bound not in m.bounds:
+                c.add("method.interval", f"{self.method!r} is a one-sided upper limit; set target.bound = \"upper\"")
+        estimands = ("total",) if mus else ("mean", "total")
+        if self.estimand not in estimands:
+            c.add("target.estimand", f"{sel.rule} selection estimates {' or '.join(estimands)}"
+                  f"{' (the total misstatement)' if mus else ''}, not {self.estimand!r}")
+        if self.clusters is not None or self.strata is not None:
+            c.add("selection", "cannot be combined with [clusters] or [[strata]]")
+        if pop is None:
+            c.add("population.size", "selection by size needs [population]: size (with a size model) or file and column")
+            return
+        if pop.values is not None or pop.events is not None:
+            c.add("population", "with [selection] give population.size (and a size model) or population.file and column")
+        self._check_selection_sources(c, sel, pop.file is not None)
+
+    def _check_selection_sources(self, c: Collector, sel: SelectionSpec, has_file: bool) -> None:
+        """Where sizes, values and misstatements come from, and their ranges."""
+        if sel.size_model is not None and (has_file or sel.size_column is not None):
+            c.add("selection.size", "a size model is for populations drawn from models; with population.file name a column")
+        if sel.monetary_unit:
+            if sel.size_column is not None:
+                c.add("selection.size_column", "not used by rule monetary-unit: the book values are population.column")
+            if not has_file and sel.size_model is None:
+                c.add("selection.size", "missing: a model of the book values ([selection.size]) or population.file and column")
+            if sel.error_rate is None:
+                c.add("misstatement.error_rate", "missing (required: the share of items misstated, in [0, 1])")
+            else:
+                c.number("misstatement.error_rate", sel.error_rate, low=0, high=1)
+            if sel.taint is None:
+                c.add("misstatement.taint", "missing (required: a number in [0, 1] or a model table of values in [0, 1])")
+            elif isinstance(sel.taint, Model):
+                why = _support_problem(sel.taint, 0.0, 1.0, "taints")
+                if why:
+                    c.add("misstatement.taint", why)
+            else:
+                c.number("misstatement.taint", sel.taint, low=0, high=1)
+        else:
+            if has_file and sel.size_column is None:
+                c.add("selection.size_column", "missing (required with population.file: the column holding the sizes)")
+            if not has_file and sel.size_model is None:
+                c.add("selection.size", "missing: a model of the item sizes ([selection.size]) or population.file and size_column")
+            if sel.error_rate is not None or sel.taint is not None:
+                c.add("misstatement", "only with selection.rule = \"monetary-unit\"")
+        if sel.size_model is not None:
+            why = _support_problem(sel.size_model, 0.0, None, "sizes")
+            if why:
+                c.add("selection.size", why)
+
     @property
     def base_estimand(self) -> str:
         """What a total is N times (one-stage finite population): its method's mean or proportion."""
@@ -375,6 +513,8 @@ class Design:
 
     @property
     def true_value(self) -> float:
+        if self.selection is not None:
+            return self._selection_truth()
         spec = spec_for(self.estimand)
         if spec is not None:
             return float(spec.true_value(self))
@@ -390,6 +530,19 @@ class Design:
         if self.estimand == "total" and self.population is not None:
             return a * self.population.size  # the planning value; an evaluation reports its population's
         return a - self.model_b.mean if self.two_sample else a
+
+    def _selection_truth(self) -> float:
+        """Planning value of a selection design; an evaluation reports its population's."""
+        sel, pop = self.selection, self.population
+        try:
+            mean = float(self.model.mean)
+            if sel.monetary_unit:
+                mean *= float(sel.error_rate) * sel.mean_taint
+            elif sel.data_per_size and sel.size_model is not None:
+                mean *= float(sel.size_model.mean)
+            return mean * pop.size if self.estimand == "total" else mean
+        except (TypeError, ValueError, AttributeError):
+            return math.nan  # the problems are reported by _check_selection
 
     def n_b(self, n: int) -> int | None:
         """Size of group b for group-a size n (ceil(ratio * n), robust to float error)."""
@@ -444,6 +597,8 @@ class Design:
             d["population"] = self.population.to_dict()
         if self.strata is not None:
             d.update(self.strata.to_dict())
+        if self.selection is not None:
+            d["selection"] = self.selection.to_dict()
         return d
 
 

@@ -56,6 +56,8 @@ from simcheck.errors import Collector, InputError, Problem, shown
 from simcheck.files import read_csv_column, read_toml, regular_file, resolve_data_path
 from simcheck.scenario_strata import KNOWN_KEYS as STRATA_KEYS
 from simcheck.scenario_strata import read_strata, strata_tables
+from simcheck.scenario_selection import KNOWN_KEYS as SELECTION_KEYS
+from simcheck.scenario_selection import read_selection, selection_tables, supplies_data
 
 __all__ = [
     "KNOWN_KEYS",
@@ -137,9 +139,11 @@ KNOWN_KEYS: dict[str, str] = {
     "population.values": "the population's unit values as a list (instead of file; from Python an array or Series)",
     "population.events": "a 0/1 population with exactly this many events (units of value 1), whole number in [0, size]; no [data] needed",
     **STRATA_KEYS,
+    **SELECTION_KEYS,
 }
 
-_TOP = ("title", "target", "data", "method", "simulation", "clusters", "population", "strata", "allocation")
+_TOP = ("title", "target", "data", "method", "simulation", "clusters", "population", "strata", "allocation", "selection",
+        "misstatement")
 _TABLES: dict[str, tuple[str, ...]] = {}
 for _k in KNOWN_KEYS:
     if "." in _k and not _k.startswith(("data", "allocation")):
@@ -215,6 +219,10 @@ class Scenario:
     def describe_data(self) -> str:
         """The data model(s) in one line."""
         d = self.design
+        if d.selection is not None:
+            from simcheck.scenario_selection import describe
+
+            return describe(d, self.table)
         if d.strata is not None:
             return "; ".join(f"{name} (N = {size}): {m.describe()}"
                              for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models))
@@ -292,6 +300,10 @@ class Scenario:
         if d.strata is not None:
             out.pop("data")
             out.update(_json_safe(copy.deepcopy(strata_tables(self.table))))
+        if d.selection is not None:
+            out.update(_json_safe(copy.deepcopy(selection_tables(self.table))))
+            if d.selection.monetary_unit:
+                out.pop("data")  # the book values and misstatements come from [selection] and [misstatement]
         if d.clusters is not None:
             out["clusters"] = _json_safe(d.clusters.to_dict())
         if d.population is not None:
@@ -489,7 +501,7 @@ def validate(
     tgt = _target(c, target_t) if target_t is not None else _Target()
     # population.file supplies the values: [data] is then neither needed nor used
     from_file = (isinstance(pop_t, dict) and ("file" in pop_t or "events" in pop_t) and tgt.estimand not in TWO_SAMPLE
-                 and "strata" not in table)
+                 and "strata" not in table) or supplies_data(table)
     notices: list[str] = []
     model, model_b, strata = _data(c, table, tgt, files, from_file, notices)
     if strata is None:
@@ -504,12 +516,13 @@ def validate(
     population = _population(c, pop_t, files) if pop_t is not None else None
     if from_file and population is not None and (population.file or population.events is not None) and not c.problems:
         model = _population_model(c, population, tgt.estimand)
+    selection, model = read_selection(c, table, population, model, files)
     n_max = _n_range(c, sim, population, clusters)
     _strata_n_min(c, sim, strata, sim_t or {})
 
     design, designs = None, []
     if not c.problems and model is not None and methods:
-        design, designs = _designs(c, tgt, model, model_b, methods, sim, resamples, clusters, population, strata)
+        design, designs = _designs(c, tgt, model, model_b, methods, sim, resamples, clusters, population, strata, selection)
     _dedupe(c)
     c.raise_if_any(source=source)
     assert design is not None  # every path without a design recorded a problem
@@ -747,7 +760,7 @@ def _strata_n_min(c: Collector, sim: _Simulation, strata, sim_t: dict[str, Any])
 
 
 def _designs(c: Collector, tgt: _Target, model, model_b, methods: list[str], sim: _Simulation,
-             resamples, clusters, population, strata) -> tuple[Design | None, list[Design]]:
+             resamples, clusters, population, strata, selection=None) -> tuple[Design | None, list[Design]]:
     """The combination: Design's constructor is the one check of model / estimand / method."""
     try:
         design = Design(
@@ -762,6 +775,7 @@ def _designs(c: Collector, tgt: _Target, model, model_b, methods: list[str], sim
             clusters=clusters,
             population=population,
             strata=strata,
+            selection=selection,
             quantile=tgt.quantile,
             exposure=tgt.exposure,
             correlation=tgt.correlation,
@@ -1240,6 +1254,11 @@ def _check_engine(c: Collector, designs: list[Design], path: str) -> None:
     from simcheck.intervals import get_method
 
     for d in designs:
+        if d.selection is not None:
+            if path != "auto" and path not in available_paths(d):
+                c.add("simulation.path", f"{path!r} is not available for this selection design; available: auto, "
+                      f"{', '.join(available_paths(d))}")
+            continue  # Design checked the rest
         if d.one_sided:
             from simcheck.engine import kind_for, onesided
 

@@ -169,6 +169,10 @@ def _formula(design: Design):
         return None
     if design.strata is not None:
         return _stratified_formula(design)
+    if design.selection is not None:  # PPS / monetary-unit: their closed forms live with their evaluator
+        from simcheck.engine.pps import formula_result as selection_formula
+
+        return selection_formula(design)
     if design.estimand == "total":
         return _total_formula(design)
     if design.estimand in ESTIMAND_SPECS:
@@ -622,8 +626,8 @@ def _exact_search(run: _Runner, start: int, **ctx) -> SearchResult:
     # counts (binomial, beta-binomial, hypergeometric) make coverage oscillate in n;
     # the exact laws of normal data give coverage and assurance monotone in n
     design = ctx["design"]
-    if design.estimand in ("proportion", "proportion-diff"):
-        return _exact_scan(run, **ctx)
+    if design.estimand in ("proportion", "proportion-diff") or design.selection is not None:
+        return _exact_scan(run, **ctx)  # (monetary-unit limits: counts of misstated units)
     method = get_method(design.estimand, design.method)
     if method.kind == "raw" and not method.exact_monotone:
         return _exact_scan(run, **ctx)  # registered estimands: monotone only where the method says so

@@ -105,7 +105,7 @@ def report(scenario, rows: Sequence[Any]) -> str:
         cl = d.clusters
         size = f"size {cl.size}" if cl.size is not None else f"size mean {cl.size_mean:g}, CV {cl.size_cv:g}"
         lines.append(f"clusters:    ICC {cl.icc:g}, {size}, {cl.effect} effect (n counts clusters)")
-    if d.population is not None:
+    if d.population is not None and d.selection is None:
         pop = d.population
         fpc = "with" if pop.fpc else "without"
         count = f", {pop.events} with the event (a fixed count)" if pop.events is not None else ""
@@ -129,6 +129,10 @@ def data_lines(d) -> list[str]:
         return [*(f"stratum:     {name} (N = {size}): {m.describe()}"
                   for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models)),
                 f"allocation:  {d.strata.rule}; n counts the whole sample"]
+    if d.selection is not None:  # sizes, values, misstatements; drawn with replacement
+        from simcheck.scenario_selection import describe
+
+        return [f"selection:   {describe(d, {})}"]
     return [f"data:        {d.model.describe()}"]
 
 

@@ -107,7 +107,7 @@ def _header(scenario, design) -> list[str]:
     lines = [scenario.title, "", *data_lines(d)]
     if d.clusters is not None:
         lines.append(f"clusters:    ICC {d.clusters.icc:g} (n counts clusters)")
-    if d.population is not None:
+    if d.population is not None and d.selection is None:
         lines.append(f"population:  {d.population.size} units, sampled without replacement")
     return lines
 

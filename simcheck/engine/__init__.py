@@ -9,6 +9,9 @@ design shares, then hand the design to its *design kind* (see
     and plain simulation;
 ``clustered`` / ``population`` (:mod:`simcheck.engine.clustered`)
     clustered samples and samples without replacement from a finite population;
+``selection`` (:mod:`simcheck.engine.pps`)
+    selection with probability proportional to size, with replacement
+    (Hansen-Hurwitz; monetary-unit sampling and its upper limits).
 ``raw`` (:mod:`simcheck.engine.raw`)
     the estimands of :mod:`simcheck.estimands` (median, SD, rates, ratios,
     correlation, ...), whose methods take the drawn values.
@@ -32,7 +35,7 @@ import numpy as np
 
 from simcheck import rng as rngmod
 from simcheck.design import Design
-from simcheck.engine import clustered, onesided, raw, simple, stratified
+from simcheck.engine import clustered, onesided, pps, raw, simple, stratified
 from simcheck.engine.kinds import KINDS, DesignKind, kind_for, register_kind
 from simcheck.engine.measures import share_mcse
 from simcheck.engine.simple import CHUNK_BYTES, PATHS, block_size, piece_rows, unit_rows
@@ -47,6 +50,7 @@ Progress = Callable[[int, int], None] | None
 #: enumeration may hold (about 100 bytes each while it runs, measured: 0.5 GB).
 EXACT2_PAIRS_MAX = 5_000_000
 
+register_kind(DesignKind("selection", pps.applies, pps.available_paths, pps.evaluate, self_contained=True))
 register_kind(DesignKind("raw", raw.applies, raw.available_paths, raw.evaluate))
 register_kind(DesignKind("stratified", stratified.applies, stratified.available_paths, stratified.evaluate))
 register_kind(DesignKind("clustered-or-population", clustered.applies, clustered.available_paths, clustered.evaluate))
@@ -191,6 +195,10 @@ def _evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve, t
         raise InputError("simulation.path", f"must be one of {', '.join(PATHS)}, got {path!r}")
     if isinstance(replicates, bool) or not isinstance(replicates, (int, np.integer)) or replicates < 1:
         raise InputError("simulation.replicates", f"must be a whole number >= 1, got {replicates!r}")
+    kind = kind_for(design)
+    if kind.self_contained:
+        rows = kind.evaluate(design, ns, replicates, rng, path, progress, chunk_bytes, curve, thread_count(threads))
+        return onesided.finish_rows(design, rows)
     if design.one_sided:
         kind = kind_for(design)
         work = onesided.evaluation_design(design, simple_kind=kind.name == "simple")

@@ -35,6 +35,9 @@ class DesignKind:
     evaluate: Callable[..., list]
     #: tried after every other kind (the simple random sample)
     fallback: bool = False
+    #: the kind checks n and evaluates one-sided targets itself (its rows are
+    #: already one-sided); the engine then only adds the target figures
+    self_contained: bool = False
 
 
 KINDS: list[DesignKind] = []

@@ -258,6 +258,8 @@ def _paired(data: Mapping[str, Any]) -> bool:
 def model_text(data: Mapping[str, Any]) -> str:
     if "strata" in data:
         return strata_text(data)
+    if "selection" in data:
+        return selection_text(data)
     if _paired(data):
         return (f"{describe_model(data['data_a'])} for the first measurement (a) and "
                 f"{describe_model(data['data_b'])} for the second (b) of each pair, the two joined by a Gaussian "
@@ -266,6 +268,22 @@ def model_text(data: Mapping[str, Any]) -> str:
         return (f"{describe_model(data['data_a'])} in group a and {describe_model(data['data_b'])} in group b "
                 f"({ratio_text(data.get('ratio', 1.0))})")
     return describe_model(data.get("data", {}))
+
+
+def selection_text(data: Mapping[str, Any]) -> str:
+    """The population of a selection design (PPS or monetary-unit) in words."""
+    sel, pop = data["selection"], data.get("population", {})
+    items = f"{fmt_g(pop.get('size'))} items"
+    if sel["rule"] == "monetary-unit":
+        books = describe_model(sel["size"]) if "size" in sel else f"column '{pop.get('column')}' of the population file"
+        t = sel.get("taint")
+        taint = describe_model(t) if isinstance(t, Mapping) else fmt_g(t)
+        return (f"a ledger of {items} with book values from {books}, each item misstated with probability "
+                f"{fmt_g(sel.get('error_rate'))} by a share of its book value (taint) from {taint}")
+    if "size" in sel:
+        what = "value per unit of size" if sel.get("data_per_size", True) else "value"
+        return f"{items} with sizes from {describe_model(sel['size'])} and a {what} from {describe_model(data.get('data', {}))}"
+    return f"{items} with the sizes in column '{sel.get('size_column')}' and the values in column '{pop.get('column')}' of the population file"
 
 
 #: how the stratified evaluator computes each method (simcheck.engine.stratified)
@@ -368,7 +386,8 @@ def _lim(s: StudyResults) -> str:
 
 
 def _design_sentences(s: StudyResults) -> list[str]:
-    lead = "The population was assumed to consist of" if "strata" in s.data else "Data were assumed to follow"
+    lead = ("The population was assumed to consist of" if "strata" in s.data or "selection" in s.data
+            else "Data were assumed to follow")
     parts = [f"{lead} {model_text(s.data)}."]
     parts += target_sentences(s.data, s.confidence, s.margin)
     if "clusters" in s.data:
@@ -379,7 +398,11 @@ def _design_sentences(s: StudyResults) -> list[str]:
         if cl.get("count") is not None:
             parts.append(f"Clusters were drawn without replacement from {fmt_g(cl['count'])} clusters, with the "
                          f"first-stage finite population correction on the cluster-t interval.")
-    if "population" in s.data:
+    if "selection" in s.data:
+        parts.append("Each sample drew n items with replacement, each draw picking an item with probability "
+                     "proportional to its size (book value); the population was fixed once (drawn from the models or "
+                     "read from the file) and the true value is its total.")
+    elif "population" in s.data:
         parts.append(f"Samples were drawn without replacement from a finite population of "
                      f"{fmt_g(s.data['population'].get('size'))} units.")
         if s.data["population"].get("events") is not None:
