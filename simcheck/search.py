@@ -583,9 +583,10 @@ def _methods_that_reach(run: _Runner, ctx: dict) -> list[str]:
 # exact paths
 # --------------------------------------------------------------------------
 def _exact_search(run: _Runner, start: int, **ctx) -> SearchResult:
-    # counts (binomial, beta-binomial, hypergeometric) make coverage oscillate in n;
-    # the exact laws of normal data give coverage and assurance monotone in n
-    if ctx["design"].estimand in ("proportion", "proportion-diff"):
+    # counts (binomial, beta-binomial, hypergeometric, Poisson totals) make coverage
+    # oscillate in n; the exact laws of normal data give coverage and assurance monotone in n
+    design = ctx["design"]
+    if design.estimand in ("proportion", "proportion-diff") or getattr(design.model, "discrete", False):
         return _exact_scan(run, **ctx)
     return _exact_monotone(run, start, **ctx)
 

@@ -11,5 +11,6 @@ from simcheck.intervals import upper as _upper  # noqa: F401
 from simcheck.intervals import hypergeometric as _hypergeometric  # noqa: F401
 from simcheck.intervals import total as _total  # noqa: F401  (after the mean and proportion methods)
 from simcheck.intervals import spread as _spread  # noqa: F401
+from simcheck.intervals import rates as _rates  # noqa: F401
 
 __all__ = ["ESTIMANDS", "REGISTRY", "Method", "Summary", "get_method", "methods_for", "register"]

@@ -1,0 +1,174 @@
+"""Exact paths of the rate intervals: enumeration over the law of the total count.
+
+The total of n independent Poisson(mu) counts is Poisson(n mu); the total of
+n negative-binomial counts NB(k, p) (``scipy.stats.nbinom``, mean
+k (1 - p) / p) is NB(n k, p). Every rate interval here is a function of the
+total count(s) and the exposure, so its coverage and half-width law follow
+by summing over the total's support: one sum for ``rate``, a double sum over
+the two independent totals for ``rate-ratio``.
+
+Tails of probability below :data:`TAIL_TRIM` (1e-17 each, as the binomial
+enumerations in :mod:`simcheck.engine.exact`) are left out: at most 2e-17 per
+total, below the rounding of sums near 1. Supports beyond
+:data:`SUPPORT_MAX` values (one total) or :data:`PAIRS_MAX` pairs (two) are
+refused with one line pointing to the simulated paths.
+
+Measures follow :func:`simcheck.engine.exact.weighted_measures` (the same
+definitions as simulation); intervals with a NaN limit (the Wald rate ratio
+with a zero count) count as not covering and are left out of the half-width
+summaries, as on the simulated paths. Ratio-scale estimands are measured on
+the log scale and their margins reported as factors exp(half-width).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy import stats
+
+from simcheck.errors import InputError
+
+#: each tail of a total's law with less probability than this is not enumerated
+TAIL_TRIM = 1e-17
+#: largest support of one total enumerated (about 16 MB per array)
+SUPPORT_MAX = 2_000_000
+#: largest number of (x_a, x_b) pairs enumerated at one n (about 32 MB per array)
+PAIRS_MAX = 4_000_000
+#: models whose total over n units has a closed-form law
+COUNT_LAWS = ("poisson", "negative-binomial")
+
+
+def totals_law_applies(design) -> bool:
+    """True when every group's model is Poisson or negative binomial (the totals' laws are known)."""
+    models = [design.model] + ([design.model_b] if design.model_b is not None else [])
+    return all(getattr(m, "name", None) in COUNT_LAWS for m in models)
+
+
+def total_law(model, n: int):
+    """The scipy law of the total of ``n`` independent counts of ``model``."""
+    law = model.law()
+    if law.dist.name == "poisson":
+        return stats.poisson(n * float(law.args[0]))
+    if law.dist.name == "nbinom":
+        k, p = (float(v) for v in law.args)
+        return stats.nbinom(n * k, p)
+    raise ValueError(f"no closed-form law for the total of {law.dist.name} counts")
+
+
+def _upper_end(law) -> int:
+    """Smallest x with P(X > x) < TAIL_TRIM (bisection on the survival function)."""
+    hi = int(math.ceil(law.mean() + 10.0 * law.std() + 20.0))
+    lo = -1
+    while law.sf(hi) >= TAIL_TRIM:
+        lo, hi = hi, 2 * hi
+    while hi - lo > 1:
+        mid = (lo + hi) // 2
+        if law.sf(mid) < TAIL_TRIM:
+            hi = mid
+        else:
+            lo = mid
+    return hi
+
+
+def support_bounds(law) -> tuple[int, int]:
+    """First and last count enumerated (tails below TAIL_TRIM left out)."""
+    lo = int(law.ppf(TAIL_TRIM))
+    return max(lo, 0), _upper_end(law)
+
+
+def exposure(design) -> float:
+    return 1.0 if design.exposure is None else float(design.exposure)
+
+
+def _weighted_quantile(values: np.ndarray, weights: np.ndarray, q: float) -> float:
+    """Smallest sorted value whose cumulative probability is >= q (as the engine's exact paths)."""
+    if values.size == 0:
+        return math.nan
+    cum = np.cumsum(weights)
+    i = int(np.searchsorted(cum / cum[-1], q - 1e-12, side="left"))
+    return float(values[min(i, values.size - 1)])
+
+
+def measures(lo, hi, w, truth: float, margin: float | None, assurance: float, ratio: bool) -> dict:
+    """Measures of intervals (lo, hi) with probabilities w; NaN limits count as not covering."""
+    from simcheck.engine.exact import weighted_measures
+
+    if ratio:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            lo, hi = np.log(lo), np.log(hi)
+        truth = math.log(truth)
+        margin = None if margin is None else math.log(margin)
+    ok = ~(np.isnan(lo) | np.isnan(hi)) & (w > 0)
+    total = float(w.sum())
+    if not ok.any():
+        nan = math.nan
+        return {"coverage": 0.0, "miss_low": 0.0, "miss_high": 0.0, "margin_mean": nan, "margin_median": nan,
+                "margin_p90": nan, "assurance": None if margin is None else 0.0, "margin_at_assurance": nan}
+    m = weighted_measures(lo[ok], hi[ok], w[ok], truth, margin)
+    share = float(w[ok].sum()) / total
+    for key in ("coverage", "miss_low", "miss_high", "degenerate_share"):
+        m[key] *= share
+    if m["assurance"] is not None:
+        m["assurance"] *= share
+    m["margin_at_assurance"] = _weighted_quantile(m["margin_values"], m["margin_weights"], assurance)
+    if ratio:
+        for key in ("margin_mean", "margin_median", "margin_p90", "margin_at_assurance"):
+            m[key] = math.exp(m[key]) if math.isfinite(m[key]) else m[key]
+        m["margin_values"] = np.exp(m["margin_values"])
+    return m
+
+
+def rate_exact_path(total_func):
+    """``exact(design, ns)`` for a one-rate interval ``total_func(x, e, confidence)``."""
+    def exact(design, ns) -> list[dict]:
+        t, out = exposure(design), []
+        for n in ns:
+            law = total_law(design.model, n)
+            a, b = support_bounds(law)
+            if b - a + 1 > SUPPORT_MAX:
+                raise InputError("n", f"the exact enumeration at n = {n} would hold {b - a + 1:.3g} totals, over "
+                                      f"the limit of {SUPPORT_MAX:.0e}; use a smaller n or simulate "
+                                      "(simulation.path = \"nested\" or \"full\")")
+            x = np.arange(a, b + 1, dtype=np.float64)
+            lo, hi = total_func(x, n * t, design.confidence)
+            out.append(measures(lo, hi, law.pmf(x), design.true_value, design.margin, design.assurance, False))
+        return out
+
+    return exact
+
+
+def _pairs_cap(design, ns) -> None:
+    """Refuse before any work when the largest n would enumerate too many pairs."""
+    n = max(ns)
+    nb = design.n_b(n)
+    a0, a1 = support_bounds(total_law(design.model, n))
+    b0, b1 = support_bounds(total_law(design.model_b, nb))
+    pairs = (a1 - a0 + 1) * (b1 - b0 + 1)
+    if pairs > PAIRS_MAX:
+        raise InputError("n", f"the exact enumeration of two totals at n = {n} (n_b = {nb}) would hold about "
+                              f"{pairs:.2g} pairs, over the limit of {PAIRS_MAX:.0e}; use a smaller n "
+                              "(simulation.n_max, --n-max, --n) or simulate (simulation.path = \"nested\" or \"full\")")
+
+
+def ratio_exact_path(totals_func):
+    """``exact(design, ns)`` for a two-rate interval ``totals_func(xa, ea, xb, eb, confidence)``."""
+    def exact(design, ns) -> list[dict]:
+        _pairs_cap(design, ns)
+        t, out = exposure(design), []
+        for n in ns:
+            nb = design.n_b(n)
+            la, lb = total_law(design.model, n), total_law(design.model_b, nb)
+            xa = np.arange(*_inclusive(support_bounds(la)), dtype=np.float64)
+            xb = np.arange(*_inclusive(support_bounds(lb)), dtype=np.float64)
+            w = np.outer(la.pmf(xa), lb.pmf(xb)).ravel()
+            ga, gb = np.meshgrid(xa, xb, indexing="ij")
+            lo, hi = totals_func(ga.ravel(), n * t, gb.ravel(), nb * t, design.confidence)
+            out.append(measures(lo, hi, w, design.true_value, design.margin, design.assurance, True))
+        return out
+
+    return exact
+
+
+def _inclusive(bounds: tuple[int, int]) -> tuple[int, int]:
+    return bounds[0], bounds[1] + 1
