@@ -51,7 +51,7 @@ from numbers import Integral
 from pathlib import Path
 from typing import Any, Mapping
 
-from simcheck.design import ESTIMANDS, STRATIFIED_METHODS, TWO_GROUP_DATA, TWO_SAMPLE, ClusterSpec, Design, PopulationSpec
+from simcheck.design import ESTIMAND_PARAMS, ESTIMANDS, STRATIFIED_METHODS, TWO_GROUP_DATA, TWO_SAMPLE, ClusterSpec, Design, PopulationSpec
 from simcheck.errors import Collector, InputError, Problem, shown
 from simcheck.files import read_csv_column, read_toml, regular_file, resolve_data_path
 from simcheck.scenario_strata import KNOWN_KEYS as STRATA_KEYS
@@ -262,6 +262,10 @@ class Scenario:
             target["event_above"] = float(self.event_above)
         if self.dropout:  # only when given, so scenarios without it hash as before
             target["dropout"] = float(self.dropout)
+        for key, attr in ESTIMAND_PARAMS.items():  # target.quantile, target.exposure (data.* are in the data table)
+            section, name = key.split(".")
+            if section == "target" and getattr(d, attr) is not None:
+                target[name] = float(getattr(d, attr))
         sim: dict[str, Any] = {
             "replicates": int(self.replicates),
             "n_min": int(self.n_min),

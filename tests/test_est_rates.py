@@ -342,3 +342,15 @@ def test_bad_formula_input_exit_2_one_line():
                  ["formula", "--estimand", "rate-ratio", "--margin", "0.9", "--rate", "0.3", "--rate-b", "0.2"]):
         code, out, err = run_cli(argv)
         assert code == 2 and len(err.strip().splitlines()) == 1
+
+
+def test_exposure_is_part_of_the_resolved_scenario_and_sweeps_vary_it(tmp_path):
+    sc = scenario_from_dict(rate_table())
+    d = sc.to_dict()
+    assert d["target"]["exposure"] == 2.0
+    assert scenario_from_dict(d).design.true_value == pytest.approx(0.3)
+    write_toml(tmp_path / "rate.toml", rate_table())
+    (tmp_path / "sweep.toml").write_text(
+        'base = "rate.toml"\ntask = "check"\nn = [20]\n[vary]\n"target.exposure" = [1.0, 4.0]\n', encoding="utf-8")
+    code, out, err = run_cli(["sweep", tmp_path / "sweep.toml", "--store", tmp_path / "s.sqlite", "--json"])
+    assert code == 0, err
