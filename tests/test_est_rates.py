@@ -24,6 +24,7 @@ from simcheck.intervals.base import Sample
 from simcheck.intervals.rates import (
     byar_total, conditional_exact_totals, garwood_total, score_ratio_totals, score_total, wald_ratio_totals, wald_total,
 )
+from simcheck.intervals.rate_diff import score_diff_totals, wald_diff_totals
 from simcheck.scenario import scenario_from_dict
 
 Z95 = 1.959963984540054
@@ -268,6 +269,63 @@ def test_rate_ratio_simulated_path_agrees_with_exact(method):
     tol = 4 * math.sqrt(ex.coverage * (1 - ex.coverage) / 6000)
     assert abs(sim.coverage - ex.coverage) <= tol
     assert abs(sim.margin_median - ex.margin_median) <= 4 * sim.margin_median_mcse + 1e-3
+
+
+# ------------------------------------------------------------------ rate difference
+def _score_diff_reference(xa, ea, xb, eb, z):
+    """Miettinen & Nurminen (1985) score limits for a rate difference, solved with brentq (own code)."""
+    from scipy.optimize import brentq
+
+    d = xa / ea - xb / eb
+
+    def stat(delta):
+        # restricted MLE: maximise xa log(lb + delta) - ea (lb + delta) + xb log lb - eb lb over lb > max(0, -delta)
+        a, b, c = ea + eb, (ea + eb) * delta - xa - xb, -xb * delta
+        lb = max((-b + math.sqrt(b * b - 4 * a * c)) / (2 * a), max(-delta, 0.0))
+        return (d - delta) / math.sqrt((lb + delta) / ea + lb / eb)
+
+    step = 10 * math.sqrt((xa + 1) / ea ** 2 + (xb + 1) / eb ** 2)
+    lo = brentq(lambda t: stat(t) - z, d - step, d - 1e-12 if xa + xb else d - 1e-9, xtol=1e-14)
+    hi = brentq(lambda t: stat(t) + z, d + (1e-12 if xa + xb else 1e-9), d + step, xtol=1e-14)
+    return lo, hi
+
+
+def test_rate_difference_score_and_wald_limits():
+    ea, eb = 40.0, 25.0
+    for xa, xb in [(12, 3), (0, 7), (5, 0), (60, 61), (1, 1)]:
+        lo, hi = score_diff_totals(np.array([xa]), ea, np.array([xb]), eb, 0.95)
+        ref = _score_diff_reference(xa, ea, xb, eb, Z95)
+        assert (lo[0], hi[0]) == pytest.approx(ref, abs=1e-9)
+        wl, wh = wald_diff_totals(np.array([xa]), ea, np.array([xb]), eb, 0.95)
+        h = Z95 * math.sqrt(xa / ea ** 2 + xb / eb ** 2)
+        assert (wl[0], wh[0]) == pytest.approx((xa / ea - xb / eb - h, xa / ea - xb / eb + h))
+    # no events at all: the score limits are -z^2 / E_b and z^2 / E_a (solved by hand)
+    lo, hi = score_diff_totals(np.array([0.0]), ea, np.array([0.0]), eb, 0.95)
+    assert (lo[0], hi[0]) == pytest.approx((-Z95 ** 2 / eb, Z95 ** 2 / ea), rel=1e-9)
+
+
+def test_rate_difference_exact_path_equals_own_double_enumeration():
+    d = design_of(ratio_table(target__estimand="rate-diff", target__margin=0.5, method__interval="score"))
+    n = 12
+    nb, t = d.n_b(n), d.exposure
+    la, lb = n * d.model.mean, nb * d.model_b.mean
+    xa, xb = np.arange(0, 80), np.arange(0, 100)
+    w = np.outer(stats.poisson.pmf(xa, la), stats.poisson.pmf(xb, lb)).ravel()
+    truth = (d.model.mean - d.model_b.mean) / t
+    covered = 0.0
+    for (i, j), wij in zip(np.ndindex(xa.size, xb.size), w):
+        if wij < 1e-16:
+            continue
+        lo, hi = _score_diff_reference(float(xa[i]), n * t, float(xb[j]), nb * t, Z95)
+        covered += wij * (lo <= truth <= hi)
+    r = engine.check(d, n, path="exact")
+    assert r.exact and r.true_value == pytest.approx(truth)
+    assert r.coverage == pytest.approx(covered, abs=1e-9)
+
+
+def test_rate_difference_formula():
+    res = formula_for("rate-diff", 0.05, 0.95, {"rate": 0.2, "rate_b": 0.1, "exposure": 3.0, "ratio": 0.5})
+    assert res.n_unrounded == pytest.approx(Z95 ** 2 * (0.2 + 0.1 / 0.5) / (3.0 * 0.05 ** 2))
 
 
 # ------------------------------------------------------------------ baselines

@@ -1,4 +1,4 @@
-"""Event rates per unit of exposure: one rate, and the ratio of two rates.
+"""Event rates per unit of exposure: one rate, the ratio and the difference of two rates.
 
 The data model gives the count of one observation unit (a person followed
 for t years, a litre of water, a square metre of surface): ``poisson``
@@ -17,7 +17,10 @@ Closed-form baselines (large-sample variances of the estimates):
   E;
 * rate ratio: Var(log RR) = (1 + mu_a / k) / (n mu_a) + (1 + mu_b / k) /
   (n_b mu_b) with mu = lambda t per unit (the delta method; Breslow & Day
-  1987), so n = z^2 [(1 + mu_a/k) / mu_a + (1 + mu_b/k) / (r mu_b)] / (ln f)^2.
+  1987), so n = z^2 [(1 + mu_a/k) / mu_a + (1 + mu_b/k) / (r mu_b)] / (ln f)^2;
+* rate difference: Var = lambda_a (1 + mu_a/k) / (n t) + lambda_b (1 + mu_b/k)
+  / (n_b t), so n = z^2 [lambda_a (1 + mu_a/k) + lambda_b (1 + mu_b/k) / r] /
+  (t E^2).
 
 References
 ----------
@@ -105,6 +108,33 @@ def rate_ratio_formula(margin: float, confidence: float, *, rate: float, rate_b:
     )
 
 
+def rate_diff_formula(margin: float, confidence: float, *, rate: float, rate_b: float,
+                      exposure: float | None = None, ratio: float | None = None, dispersion: float | None = None):
+    """n units in group a for a half-width ``margin`` of the rate difference a - b."""
+    c = Collector()
+    check_finite_in(c, "--margin", margin, 0, _INF)
+    check_finite_in(c, "--rate", rate, 0, _INF)
+    check_finite_in(c, "--rate-b", rate_b, 0, _INF)
+    if ratio is not None:
+        check_finite_in(c, "--ratio", ratio, 0, _INF)
+    _check_common(c, margin, confidence, exposure, dispersion)
+    c.raise_if_any()
+    t = 1.0 if exposure is None else float(exposure)
+    r = 1.0 if ratio is None else float(ratio)
+    z = z_two_sided(confidence)
+    v1 = rate * _inflation(rate * t, dispersion) + rate_b * _inflation(rate_b * t, dispersion) / r
+    n0 = z * z * v1 / (t * margin * margin)
+    law = "Poisson counts" if dispersion is None else f"negative-binomial counts, dispersion k = {dispersion:g}"
+    return formula_result(
+        "rate-diff", n0, margin, confidence,
+        formula="n = z^2 [rate_a (1 + mu_a/k) + rate_b (1 + mu_b/k) / r] / (exposure B^2), mu = rate x exposure",
+        assumptions=(f"large-sample half-width of the difference of the two rates, {law}",
+                     f"every unit observed for exposure {t:g}"),
+        planning={"rate": float(rate), "rate_b": float(rate_b), "exposure": t, "ratio": r, "dispersion": dispersion},
+        ratio=r, multiplier=z, minimum=1,
+    )
+
+
 def _dispersion(*models) -> float | None:
     """The planning dispersion: the smallest k among negative-binomial groups (the most over-dispersed)."""
     ks = [float(m.dispersion) for m in models if getattr(m, "name", None) == "negative-binomial"]
@@ -153,6 +183,21 @@ RATE_RATIO = register_estimand(EstimandSpec(
     counts=True,
     check=_check,
     formula=rate_ratio_formula,
+    formula_inputs=("rate", "rate_b", "exposure", "ratio", "dispersion"),
+    required=("rate", "rate_b"),
+    planning=_ratio_planning,
+    references=_REFS,
+    params=("exposure",),
+))
+
+RATE_DIFF = register_estimand(EstimandSpec(
+    name="rate-diff",
+    label="the difference of two event rates (a - b)",
+    data="two",
+    true_value=lambda d: (d.model.mean - d.model_b.mean) / _exposure(d),
+    counts=True,
+    check=_check,
+    formula=rate_diff_formula,
     formula_inputs=("rate", "rate_b", "exposure", "ratio", "dispersion"),
     required=("rate", "rate_b"),
     planning=_ratio_planning,

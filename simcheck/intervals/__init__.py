@@ -12,5 +12,6 @@ from simcheck.intervals import hypergeometric as _hypergeometric  # noqa: F401
 from simcheck.intervals import total as _total  # noqa: F401  (after the mean and proportion methods)
 from simcheck.intervals import spread as _spread  # noqa: F401
 from simcheck.intervals import rates as _rates  # noqa: F401
+from simcheck.intervals import rate_diff as _rate_diff  # noqa: F401
 
 __all__ = ["ESTIMANDS", "REGISTRY", "Method", "Summary", "get_method", "methods_for", "register"]

@@ -62,7 +62,7 @@ import numpy as np
 from scipy import special, stats
 
 from simcheck.intervals.base import Method, Sample, register
-from simcheck.intervals.rates_exact import rate_exact_path, ratio_exact_path, totals_law_applies
+from simcheck.intervals.rates_exact import rate_exact_path, two_totals_exact_path, totals_law_applies
 
 _GARWOOD = "Garwood (1936), Biometrika 28:437-442"
 _ULM = "Ulm (1990), American Journal of Epidemiology 131:373-375"
@@ -253,5 +253,5 @@ for _name, _func, _totals, _summary, _refs in (
 ):
     register(Method(
         _name, "rate-ratio", "raw", _func, summary=_summary, references=_refs,
-        exact=ratio_exact_path(_totals), exact_applies=totals_law_applies,
+        exact=two_totals_exact_path(_totals), exact_applies=totals_law_applies,
     ))

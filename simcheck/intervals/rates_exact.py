@@ -151,8 +151,9 @@ def _pairs_cap(design, ns) -> None:
                               "(simulation.n_max, --n-max, --n) or simulate (simulation.path = \"nested\" or \"full\")")
 
 
-def ratio_exact_path(totals_func):
-    """``exact(design, ns)`` for a two-rate interval ``totals_func(xa, ea, xb, eb, confidence)``."""
+def two_totals_exact_path(totals_func):
+    """``exact(design, ns)`` for a two-rate interval ``totals_func(xa, ea, xb, eb, confidence)``
+    (rate ratio: measured on the log scale; rate difference: as it is)."""
     def exact(design, ns) -> list[dict]:
         _pairs_cap(design, ns)
         t, out = exposure(design), []
@@ -164,7 +165,7 @@ def ratio_exact_path(totals_func):
             w = np.outer(la.pmf(xa), lb.pmf(xb)).ravel()
             ga, gb = np.meshgrid(xa, xb, indexing="ij")
             lo, hi = totals_func(ga.ravel(), n * t, gb.ravel(), nb * t, design.confidence)
-            out.append(measures(lo, hi, w, design.true_value, design.margin, design.assurance, True))
+            out.append(measures(lo, hi, w, design.true_value, design.margin, design.assurance, design.ratio_scale))
         return out
 
     return exact
