@@ -261,6 +261,23 @@ def test_rate_ratio_exact_path_equals_own_double_enumeration():
         assert r.coverage >= 0.95  # conditional exact: conservative
 
 
+def test_wald_ratio_zero_counts_count_as_misses_on_the_exact_path():
+    d = design_of(ratio_table(method__interval="wald"))
+    n = 4
+
+    def wald(xa, ea, xb, eb):  # written out; a zero count gives no interval (NaN: not covering)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            c, h = np.log(xa / ea) - np.log(xb / eb), Z95 * np.sqrt(1 / xa + 1 / xb)
+            ok = (xa > 0) & (xb > 0)
+            return np.where(ok, np.exp(c - h), np.nan), np.where(ok, np.exp(c + h), np.nan)
+
+    cov, _ = _double_enumeration(d, n, wald)
+    r = engine.check(d, n, path="exact")
+    assert r.coverage == pytest.approx(cov, abs=1e-12)
+    p_zero = 1 - (1 - math.exp(-n * 1.0)) * (1 - math.exp(-d.n_b(n) * 1.5))  # P(X_a = 0 or X_b = 0)
+    assert any(f"{p_zero:.4g} of an interval that cannot be computed" in note for note in r.notes)
+
+
 @pytest.mark.parametrize("method", ["conditional-exact", "wald", "score"])
 def test_rate_ratio_simulated_path_agrees_with_exact(method):
     d = design_of(ratio_table(method__interval=method))

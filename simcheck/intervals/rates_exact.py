@@ -107,6 +107,7 @@ def measures(lo, hi, w, truth: float, margin: float | None, assurance: float, ra
                 "margin_p90": nan, "assurance": None if margin is None else 0.0, "margin_at_assurance": nan}
     m = weighted_measures(lo[ok], hi[ok], w[ok], truth, margin)
     share = float(w[ok].sum()) / total
+    m["notes"] = _notes(1.0 - share, float(w[ok][np.isinf(hi[ok] - lo[ok])].sum()) / total)
     for key in ("coverage", "miss_low", "miss_high", "degenerate_share"):
         m[key] *= share
     if m["assurance"] is not None:
@@ -117,6 +118,17 @@ def measures(lo, hi, w, truth: float, margin: float | None, assurance: float, ra
             m[key] = math.exp(m[key]) if math.isfinite(m[key]) else m[key]
         m["margin_values"] = np.exp(m["margin_values"])
     return m
+
+
+def _notes(nan_share: float, unbounded: float) -> list[str]:
+    out = []
+    if unbounded > 0:
+        out.append(f"probability {unbounded:.4g} of an unbounded interval (infinite half-width, e.g. no events "
+                   "in a group), so the margin mean is infinite")
+    if nan_share > 1e-15:
+        out.append(f"probability {nan_share:.4g} of an interval that cannot be computed (e.g. a zero count for the "
+                   "Wald rate ratio): it counts as not covering and is left out of the half-width summaries")
+    return out
 
 
 def rate_exact_path(total_func):
