@@ -583,10 +583,12 @@ def _methods_that_reach(run: _Runner, ctx: dict) -> list[str]:
 # exact paths
 # --------------------------------------------------------------------------
 def _exact_search(run: _Runner, start: int, **ctx) -> SearchResult:
-    # counts (binomial, beta-binomial, hypergeometric, Poisson totals) make coverage
-    # oscillate in n; the exact laws of normal data give coverage and assurance monotone in n
+    # counts (binomial, beta-binomial, hypergeometric; the discrete data of registered
+    # estimands, e.g. Poisson totals) make coverage oscillate in n; the exact laws of
+    # normal data give coverage and assurance monotone in n
     design = ctx["design"]
-    if design.estimand in ("proportion", "proportion-diff") or getattr(design.model, "discrete", False):
+    discrete = design.estimand in ESTIMAND_SPECS and getattr(design.model, "discrete", False)
+    if design.estimand in ("proportion", "proportion-diff") or discrete:
         return _exact_scan(run, **ctx)
     return _exact_monotone(run, start, **ctx)
 
