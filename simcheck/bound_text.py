@@ -43,7 +43,11 @@ def target_sentences(data: Mapping[str, Any], confidence: float, margin: float |
         out.append(f"The target is a one-sided {bound} {confidence:g} confidence limit: coverage is the share of "
                    f"limits {side} the true value (only one side can miss), and the achieved margin is the distance "
                    f"from the sample estimate to the limit, its counterpart of a half-width.")
-    if data.get("relative_margin") is not None:
+    if data.get("scale") == "ratio":
+        out.append("Margins are factors: an achieved margin f means the interval runs from the estimate divided by f "
+                   "to the estimate multiplied by f (f is the exponential of the half-width on the log scale); the "
+                   "mean margin is the geometric mean of the factors.")
+    elif data.get("relative_margin") is not None:
         abs_m = "" if margin is None else f" (that is {margin:.4g} {units_text(units)})"
         out.append(f"The target margin is {data['relative_margin']:g} of the true value{abs_m}; achieved "
                    f"margins are also reported relative to the true value.")

@@ -408,6 +408,8 @@ class Design:
         for attr in ESTIMAND_PARAMS.values():
             if getattr(self, attr) is not None:
                 d[attr] = getattr(self, attr)
+        if self.ratio_scale:
+            d["scale"] = "ratio"
         if self.two_sample or self.paired:
             d["data_a"] = self.model.to_dict()
             d["data_b"] = self.model_b.to_dict()

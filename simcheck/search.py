@@ -321,7 +321,8 @@ class _Runner:
 
 
 def _resampling(design: Design) -> bool:
-    return get_method(design.estimand, design.method).kind in ("sample", "sample2")
+    m = get_method(design.estimand, design.method)
+    return m.kind in ("sample", "sample2") or m.resampling
 
 
 def _dense_paths(design: Design, path: str) -> tuple[bool, bool]:
@@ -565,7 +566,7 @@ def _methods_that_reach(run: _Runner, ctx: dict) -> list[str]:
         if name == design.method:
             continue
         m = get_method(design.estimand, name)
-        if m.kind in ("sample", "sample2"):
+        if m.kind in ("sample", "sample2") or m.resampling:
             continue  # bootstrap: too expensive for a quick check at n_max
         try:
             d = design.with_method(name)
@@ -583,13 +584,14 @@ def _methods_that_reach(run: _Runner, ctx: dict) -> list[str]:
 # exact paths
 # --------------------------------------------------------------------------
 def _exact_search(run: _Runner, start: int, **ctx) -> SearchResult:
-    # counts (binomial, beta-binomial, hypergeometric; the discrete data of registered
-    # estimands, e.g. Poisson totals) make coverage oscillate in n; the exact laws of
-    # normal data give coverage and assurance monotone in n
+    # counts (binomial, beta-binomial, hypergeometric) make coverage oscillate in n;
+    # the exact laws of normal data give coverage and assurance monotone in n
     design = ctx["design"]
-    discrete = design.estimand in ESTIMAND_SPECS and getattr(design.model, "discrete", False)
-    if design.estimand in ("proportion", "proportion-diff") or discrete:
+    if design.estimand in ("proportion", "proportion-diff"):
         return _exact_scan(run, **ctx)
+    method = get_method(design.estimand, design.method)
+    if method.kind == "raw" and not method.exact_monotone:
+        return _exact_scan(run, **ctx)  # registered estimands: monotone only where the method says so
     return _exact_monotone(run, start, **ctx)
 
 
@@ -691,8 +693,10 @@ def _exact_monotone(run: _Runner, start: int, **ctx) -> SearchResult:
     notes = _formula_note(ctx["nf"], n)
     if n_first != n:
         notes.append(f"the targets first hold at n = {n_first}, and for every larger n checked from n = {n}")
-    notes.append("exact: computed from the exact law of the sample mean and variance of normal data "
-                 "(no Monte Carlo error); coverage and assurance rise monotonically in n, so the window holds")
+    law = ("the exact law of the statistic" if get_method(design.estimand, design.method).kind == "raw"
+           else "the exact law of the sample mean and variance of normal data")
+    notes.append(f"exact: computed from {law} (no Monte Carlo error); coverage and assurance rise monotonically "
+                 "in n, so the window holds")
     return _result(run, design=design, targets_d=ctx["targets_d"], nf=ctx["nf"], seed=ctx["seed"], n=n,
                    reached=True, n_range=(n, n), at=ev(n), stop="exact", exact=True, n_first=n_first,
                    notes=notes, curve_rows=win, window=window)

@@ -179,9 +179,13 @@ def report(scenario, rows: Sequence[Any]) -> str:
     elif any(r.exact for r in rows):
         lines.append("* exact: computed by enumeration or exact law, not simulation (MCSE 0).")
     half = "half-width" if d.bound == "two-sided" else "margin (distance from estimate to limit)"
+    if d.ratio_scale:
+        half = "margin factor"
+    scale = ("margins are factors f (the interval within estimate / f to estimate x f)" if d.ratio_scale
+             else f"margins {units_text(d.units)}")
     lines.append(f"coverage = {coverage_words(d.bound)} (nominal {d.confidence:.4g}); "
                  f"assurance = share with {half} <= {_g(d.margin, 6)} "
-                 f"(zero-width intervals that miss the true value do not count); margins {units_text(d.units)}.")
+                 f"(zero-width intervals that miss the true value do not count); {scale}.")
     lines += result_lines(rows, d.units)
     notes: list[str] = []
     for r in rows:

@@ -118,9 +118,8 @@ def _simulate(design, method, ns, replicates, root, seed, progress, threads, pat
         bi, block = item
         return _block_limits(design, method, ns, root, bi, block, rows_per_unit, n_max, nb_max, ratio)
 
-    # resampling methods are evaluated on one thread: their cost is inside the method
-    n_threads = 1 if method.resampling else threads
-    for out in ordered_map(work, list(enumerate(blocks)), n_threads):
+    # every block has its own streams (resampling included): threads do not change results
+    for out in ordered_map(work, list(enumerate(blocks)), threads):
         for lo, hi, deg, stop in out:
             acc.add(lo, hi, acc_truth, deg, starts=[0])
             if progress:

@@ -149,8 +149,13 @@ class Method:
     #: ``exact(design, ns)`` can compute the measures without simulation
     exact: Callable | None = field(default=None, repr=False)
     exact_applies: Callable | None = field(default=None, repr=False)
+    #: coverage and assurance of the exact path rise monotonically in n (a
+    #: continuous law), so a search may bisect; otherwise (counts) it scans
+    exact_monotone: bool = False
     #: the method resamples (bootstrap): the engine hands it ``Sample.rng``
     resampling: bool = False
+    #: the method's name as written in prose ("Bonett's"), for reports
+    prose: str = ""
 
     @property
     def one_sided_only(self) -> bool:

@@ -108,10 +108,10 @@ register(Method(
     "chi-square", "sd", "raw", chi_square,
     summary="s sqrt((n-1)/chi2 quantiles): exact for normal data, fragile under heavy tails",
     references=("common practice (the chi-square law of (n - 1) s^2 / sigma^2 for normal data)",),
-    exact=chi_square_exact, exact_applies=_exact_applies,
+    exact=chi_square_exact, exact_applies=_exact_applies, exact_monotone=True,
 ))
 register(Method(
     "bonett", "sd", "raw", bonett,
     summary="Bonett's log-scale interval with a kurtosis estimate; robust to non-normal data",
-    references=(_BONETT,),
+    references=(_BONETT,), prose="Bonett's",
 ))

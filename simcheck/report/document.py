@@ -239,7 +239,9 @@ def study_figures(study: StudyResults) -> dict[str, Any]:
         has_assurance = any(r.assurance is not None for c in curves.values() for r in c.rows)
         out["margin"] = F.margin_figure(checks, target_margin=study.margin, curves=curves if has_assurance else None,
                                         assurance=study.assurance, n_found=found, value_label=study.value_label,
-                                        n_label=study.n_label)
+                                        n_label=study.n_label,
+                                        undecided=[label[m] for m, s in study.searches.items() if m in label and
+                                                   decision_status(s) == "undecided" and s.n is None])
     if curves:
         out["misses"] = F.miss_figure(curves, confidence=study.confidence, n_found=found, n_formula=study.n_formula,
                                       n_label=study.n_label)

@@ -420,6 +420,7 @@ def margin_figure(
     n_label: str = "Sample size n",
     width: float = FULL_WIDTH,
     height: float = 3.0,
+    undecided: Sequence[str] = (),
 ) -> Figure:
     """Distribution of the achieved half-width at the chosen n, and assurance against n.
 
@@ -441,6 +442,9 @@ def margin_figure(
         Required assurance, a horizontal reference line.
     n_found : int or dict, optional
         Marked on the assurance panel.
+    undecided : sequence of str
+        Methods whose search confirmed no n: their half-widths are labelled as
+        taken at an n that was not confirmed.
     """
     checks = _as_checks(checks)
     curve_map = _as_curves(curves) if curves is not None else {}
@@ -471,7 +475,7 @@ def margin_figure(
             draw = ax.step if x.size < 200 else ax.plot
             kw = {"where": "post"} if x.size < 200 else {}
             draw(x, y, color=st["color"], linestyle=st["linestyle"], **kw,
-                    label=f"{name}, n = {chk.n:,}" if len(checks) > 1 else f"half-width at n = {chk.n:,}")
+                    label=_margin_label(name, chk.n, name in undecided, len(checks) > 1))
             # One marker where the ECDF crosses the target, for greyscale reading.
             if target_margin is not None and chk.assurance is not None:
                 ax.plot([target_margin], [chk.assurance], linestyle="none", marker=st["marker"],
@@ -487,6 +491,12 @@ def margin_figure(
             _assurance_panel(ax2, curve_map, labels, found, assurance, n_label, single=len(checks) <= 1, hw=hw)
         _outside_legend(fig, ax)
     return fig
+
+
+def _margin_label(name: str, n: int, undecided: bool, several: bool) -> str:
+    """Legend text of one half-width distribution; an undecided search's n is said to be unconfirmed."""
+    at = f"n = {n:,}" + (" (no n confirmed; n with the best coverage)" if undecided else "")
+    return f"{name}, {at}" if several else f"half-width at {at}"
 
 
 def _assurance_panel(ax2, curve_map: Mapping[str, CurveResult], labels: Sequence[str], found: Mapping[str, Any],

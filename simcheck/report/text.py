@@ -61,7 +61,12 @@ METHOD_TEXT = {
 
 
 def method_text(name: str) -> str:
-    return METHOD_TEXT.get(name, name)
+    """A method's name as written in prose: the table above, else the registered method's ``prose``."""
+    if name in METHOD_TEXT:
+        return METHOD_TEXT[name]
+    from simcheck.intervals import REGISTRY
+
+    return next((m.prose for (_, n), m in REGISTRY.items() if n == name and m.prose), name)
 
 
 PARAM_TEXT = {
@@ -623,6 +628,8 @@ def n_axis_label(design) -> str:
 
 def value_axis_label(scenario, units: str | None = None) -> str:
     units = units or scenario.design.units
+    if scenario.design.ratio_scale:
+        return "Achieved margin as a factor (interval within estimate ÷ f to × f)"
     if scenario.design.bound != "two-sided":
         return f"Achieved margin, limit to estimate ({units or 'data units'})"
     if units:
