@@ -108,6 +108,6 @@ register(Method(
 register(Method(
     "score", "rate-diff", "raw", score_diff,
     summary="score interval with the rates' restricted maximum-likelihood estimates (Miettinen-Nurminen, no correction)",
-    references=("Miettinen & Nurminen (1985), Statistics in Medicine 4:213-226 (from memory)",),
+    references=("Miettinen & Nurminen (1985), Statistics in Medicine 4:213-226 (from memory)",), prose="score",
     exact=two_totals_exact_path(score_diff_totals), exact_applies=totals_law_applies,
 ))

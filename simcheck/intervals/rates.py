@@ -224,6 +224,9 @@ wald_ratio = _ratio(wald_ratio_totals)
 # --------------------------------------------------------------------------
 # registration
 # --------------------------------------------------------------------------
+_PROSE = {"garwood": "Garwood's exact", "byar": "Byar's", "score": "score",
+          "conditional-exact": "conditional exact (Clopper–Pearson)"}
+
 for _name, _func, _total, _summary, _refs in (
     ("garwood", garwood, garwood_total, "exact Poisson limits from the chi-square / gamma law (equal tails)",
      (_GARWOOD, _ULM)),
@@ -234,7 +237,7 @@ for _name, _func, _total, _summary, _refs in (
      ("common practice",)),
 ):
     register(Method(
-        _name, "rate", "raw", _func, summary=_summary, references=_refs,
+        _name, "rate", "raw", _func, summary=_summary, references=_refs, prose=_PROSE.get(_name, ""),
         exact=rate_exact_path(_total), exact_applies=totals_law_applies,
     ))
 register(Method(
@@ -252,6 +255,6 @@ for _name, _func, _totals, _summary, _refs in (
      ("common practice (the log rate ratio and its delta-method variance)",)),
 ):
     register(Method(
-        _name, "rate-ratio", "raw", _func, summary=_summary, references=_refs,
+        _name, "rate-ratio", "raw", _func, summary=_summary, references=_refs, prose=_PROSE.get(_name, ""),
         exact=two_totals_exact_path(_totals), exact_applies=totals_law_applies,
     ))
