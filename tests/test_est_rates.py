@@ -223,6 +223,16 @@ def test_wald_ratio_formula_and_zero_counts():
     assert math.isnan(lo[1]) and math.isnan(hi[1])
 
 
+def test_published_worked_example_blind_cohort():
+    # Rothman (2012), Epidemiology: An Introduction, 2nd ed., Table 9-2 (data of Feychting et al.):
+    # 136 cancers in 22,050 person-years (blind) vs 1,709 in 127,650 (severely impaired);
+    # 90% limits: rate ratio 0.46 (0.40 to 0.53), rate difference -7.2 (-8.2 to -6.2) per 1,000 person-years
+    lo, hi = wald_ratio_totals(np.array([136.0]), 22050.0, np.array([1709.0]), 127650.0, 0.90)
+    assert (round(lo[0], 2), round(hi[0], 2)) == (0.40, 0.53)
+    lo, hi = wald_diff_totals(np.array([136.0]), 22050.0, np.array([1709.0]), 127650.0, 0.90)
+    assert (round(1000 * lo[0], 1), round(1000 * hi[0], 1)) == (-8.2, -6.2)
+
+
 def _double_enumeration(d, n, limits):
     """Coverage and median log half-width (as a factor) by summing over both Poisson totals (own code)."""
     t, nb = d.exposure, d.n_b(n)
