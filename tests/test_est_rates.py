@@ -271,6 +271,17 @@ def test_rate_ratio_exact_path_equals_own_double_enumeration():
         assert r.coverage >= 0.95  # conditional exact: conservative
 
 
+def test_conditional_limits_kept_between_n_are_the_limits_of_each_n():
+    # the exact path keeps the Clopper-Pearson table from one n to the next; every n must
+    # still equal its own double enumeration (scipy's beta quantiles, computed here)
+    d = design_of(ratio_table())
+    for n in (30, 8, 31, 29, 60):
+        r = engine.check(d, n, path="exact")
+        cov, med = _double_enumeration(d, n, _cp_mapped)
+        assert r.coverage == pytest.approx(cov, abs=1e-11)
+        assert r.margin_median == pytest.approx(med, rel=1e-9)
+
+
 def test_wald_ratio_zero_counts_count_as_misses_on_the_exact_path():
     d = design_of(ratio_table(method__interval="wald"))
     n = 4

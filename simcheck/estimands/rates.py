@@ -76,7 +76,7 @@ def rate_formula(margin: float, confidence: float, *, rate: float, exposure: flo
         formula="n = z^2 rate (1 + rate exposure / k) / (exposure B^2)  (Poisson: k = infinity)",
         assumptions=(f"large-sample half-width of the total count over the total exposure, {law}",
                      f"every unit observed for exposure {t:g}"),
-        planning={"rate": float(rate), "exposure": t, "dispersion": dispersion}, multiplier=z, minimum=1,
+        planning={"rate": float(rate), "exposure": t, "dispersion": dispersion}, multiplier=z, minimum=2,
     )
 
 
@@ -104,7 +104,7 @@ def rate_ratio_formula(margin: float, confidence: float, *, rate: float, rate_b:
         assumptions=(f"large-sample half-width of the log rate ratio, {law}", f"every unit observed for exposure {t:g}",
                      "margin f: the interval lies within RR / f and RR x f"),
         planning={"rate": float(rate), "rate_b": float(rate_b), "exposure": t, "ratio": r, "dispersion": dispersion},
-        ratio=r, multiplier=z, minimum=1,
+        ratio=r, multiplier=z, minimum=2,
     )
 
 
@@ -131,7 +131,7 @@ def rate_diff_formula(margin: float, confidence: float, *, rate: float, rate_b: 
         assumptions=(f"large-sample half-width of the difference of the two rates, {law}",
                      f"every unit observed for exposure {t:g}"),
         planning={"rate": float(rate), "rate_b": float(rate_b), "exposure": t, "ratio": r, "dispersion": dispersion},
-        ratio=r, multiplier=z, minimum=1,
+        ratio=r, multiplier=z, minimum=2,
     )
 
 

@@ -157,7 +157,7 @@ wald = _one_rate(wald_total)
 # --------------------------------------------------------------------------
 # rate ratio: functions of the totals xa, xb and exposures ea, eb
 # --------------------------------------------------------------------------
-def _pi_to_ratio(lo_pi, hi_pi, ea, eb):
+def pi_to_ratio(lo_pi, hi_pi, ea, eb):
     """Limits for pi = RR ea / (RR ea + eb) mapped to RR = pi / (1 - pi) eb / ea."""
     with np.errstate(divide="ignore", invalid="ignore"):
         lo = np.where(lo_pi > 0, lo_pi / (1.0 - lo_pi), 0.0) * (eb / ea)
@@ -165,17 +165,20 @@ def _pi_to_ratio(lo_pi, hi_pi, ea, eb):
     return lo, hi
 
 
-def conditional_exact_totals(xa, ea, xb, eb, confidence: float):
-    """Clopper-Pearson limits for pi from xa of xa + xb, mapped to the rate ratio."""
+def clopper_pearson_pi(xa, xb, confidence: float):
+    """Clopper-Pearson limits for pi from xa of xa + xb ((0, 1) when both are 0)."""
     xa, xb = np.asarray(xa, np.float64), np.asarray(xb, np.float64)
     m = xa + xb
     a = 1.0 - confidence
     with np.errstate(invalid="ignore", divide="ignore"):
         lo_pi = np.where(xa > 0, special.betaincinv(np.maximum(xa, 1.0), xb + 1.0, a / 2), 0.0)
         hi_pi = np.where(xb > 0, special.betaincinv(xa + 1.0, np.maximum(xb, 1.0), 1.0 - a / 2), 1.0)
-    lo_pi = np.where(m > 0, lo_pi, 0.0)
-    hi_pi = np.where(m > 0, hi_pi, 1.0)
-    return _pi_to_ratio(lo_pi, hi_pi, ea, eb)
+    return np.where(m > 0, lo_pi, 0.0), np.where(m > 0, hi_pi, 1.0)
+
+
+def conditional_exact_totals(xa, ea, xb, eb, confidence: float):
+    """Clopper-Pearson limits for pi from xa of xa + xb, mapped to the rate ratio."""
+    return pi_to_ratio(*clopper_pearson_pi(xa, xb, confidence), ea, eb)
 
 
 def score_ratio_totals(xa, ea, xb, eb, confidence: float):
@@ -191,7 +194,7 @@ def score_ratio_totals(xa, ea, xb, eb, confidence: float):
     # the score limits are exactly 0 (1) when xa = 0 (xb = 0); rounding must not move them
     lo_pi = np.where((m > 0) & (xa > 0), np.clip(centre - half, 0.0, 1.0), 0.0)
     hi_pi = np.where((m > 0) & (xb > 0), np.clip(centre + half, 0.0, 1.0), 1.0)
-    return _pi_to_ratio(lo_pi, hi_pi, ea, eb)
+    return pi_to_ratio(lo_pi, hi_pi, ea, eb)
 
 
 def wald_ratio_totals(xa, ea, xb, eb, confidence: float):
@@ -224,6 +227,8 @@ wald_ratio = _ratio(wald_ratio_totals)
 # --------------------------------------------------------------------------
 # registration
 # --------------------------------------------------------------------------
+# the conditional-exact limits depend on the counts only: its exact path keeps them between n
+_CONDITIONAL = {"conditional-exact": (clopper_pearson_pi, pi_to_ratio)}
 _PROSE = {"garwood": "Garwood's exact", "byar": "Byar's", "score": "score",
           "conditional-exact": "conditional exact (Clopper–Pearson)"}
 
@@ -256,5 +261,5 @@ for _name, _func, _totals, _summary, _refs in (
 ):
     register(Method(
         _name, "rate-ratio", "raw", _func, summary=_summary, references=_refs, prose=_PROSE.get(_name, ""),
-        exact=two_totals_exact_path(_totals), exact_applies=totals_law_applies,
+        exact=two_totals_exact_path(_totals, conditional=_CONDITIONAL.get(_name)), exact_applies=totals_law_applies,
     ))

@@ -23,6 +23,7 @@ the log scale and their margins reported as factors exp(half-width).
 from __future__ import annotations
 
 import math
+import threading
 
 import numpy as np
 from scipy import stats
@@ -35,6 +36,8 @@ TAIL_TRIM = 1e-17
 SUPPORT_MAX = 2_000_000
 #: largest number of (x_a, x_b) pairs enumerated at one n (about 32 MB per array)
 PAIRS_MAX = 4_000_000
+#: largest table of conditional limits kept between n (two float64 tables: about 32 MB)
+GRID_CACHE_MAX = 2_000_000
 #: models whose total over n units has a closed-form law
 COUNT_LAWS = ("poisson", "negative-binomial")
 
@@ -163,25 +166,78 @@ def _pairs_cap(design, ns) -> None:
                               "(simulation.n_max, --n-max, --n) or simulate (simulation.path = \"nested\" or \"full\")")
 
 
-def two_totals_exact_path(totals_func):
+class GridCache:
+    """Values of ``func(xa, xb, confidence)`` on a rectangle of counts, kept from one n to the next.
+
+    Conditional limits (Clopper-Pearson for X_a given X_a + X_b) depend on the
+    two counts alone; a curve or a search asks for overlapping rectangles n
+    after n, so the table is computed once for a padded rectangle and sliced.
+    At most :data:`GRID_CACHE_MAX` cells are kept; larger requests are
+    computed without keeping them.
+    """
+
+    def __init__(self, func) -> None:
+        self.func = func
+        self.lock = threading.Lock()
+        self.key = None
+        self.box = (0, -1, 0, -1)
+        self.table = None
+
+    def get(self, a: tuple[int, int], b: tuple[int, int], confidence: float):
+        with self.lock:
+            (a0, a1), (b0, b1) = a, b
+            c0, c1, d0, d1 = self.box
+            if not (self.key == confidence and c0 <= a0 and a1 <= c1 and d0 <= b0 and b1 <= d1):
+                self._fill(a0, a1, b0, b1, confidence)
+            c0, _, d0, _ = self.box
+            return tuple(t[a0 - c0:a1 - c0 + 1, b0 - d0:b1 - d0 + 1] for t in self.table)
+
+    def _fill(self, a0, a1, b0, b1, confidence) -> None:
+        # pad by a quarter on each side (and join the kept box), so a scan recomputes rarely
+        pa, pb = (a1 - a0) // 4 + 1, (b1 - b0) // 4 + 1
+        box = [max(a0 - pa, 0), a1 + pa, max(b0 - pb, 0), b1 + pb]
+        if self.key == confidence:
+            c0, c1, d0, d1 = self.box
+            joined = [min(box[0], c0), max(box[1], c1), min(box[2], d0), max(box[3], d1)]
+            if (joined[1] - joined[0] + 1) * (joined[3] - joined[2] + 1) <= GRID_CACHE_MAX:
+                box = joined
+        if (box[1] - box[0] + 1) * (box[3] - box[2] + 1) > GRID_CACHE_MAX:
+            box = [a0, a1, b0, b1]
+        xa = np.arange(box[0], box[1] + 1, dtype=np.float64)
+        xb = np.arange(box[2], box[3] + 1, dtype=np.float64)
+        ga, gb = np.meshgrid(xa, xb, indexing="ij")
+        self.table = tuple(np.asarray(v) for v in self.func(ga, gb, confidence))
+        self.box, self.key = tuple(box), confidence
+
+
+def two_totals_exact_path(totals_func, conditional=None):
     """``exact(design, ns)`` for a two-rate interval ``totals_func(xa, ea, xb, eb, confidence)``
-    (rate ratio: measured on the log scale; rate difference: as it is)."""
+    (rate ratio: measured on the log scale; rate difference: as it is).
+
+    ``conditional = (pair_func, mapper)``: the limits are ``mapper(*pair_func(xa, xb,
+    confidence), ea, eb)``, with the values of ``pair_func`` kept in a :class:`GridCache`.
+    """
+    cache = None if conditional is None else GridCache(conditional[0])
+
+    def limits(a, b, ea, eb, confidence):
+        if cache is not None:
+            lo, hi = cache.get(a, b, confidence)
+            return conditional[1](lo.ravel(), hi.ravel(), ea, eb)
+        xa = np.arange(a[0], a[1] + 1, dtype=np.float64)
+        xb = np.arange(b[0], b[1] + 1, dtype=np.float64)
+        ga, gb = np.meshgrid(xa, xb, indexing="ij")
+        return totals_func(ga.ravel(), ea, gb.ravel(), eb, confidence)
+
     def exact(design, ns) -> list[dict]:
         _pairs_cap(design, ns)
         t, out = exposure(design), []
         for n in ns:
             nb = design.n_b(n)
             la, lb = total_law(design.model, n), total_law(design.model_b, nb)
-            xa = np.arange(*_inclusive(support_bounds(la)), dtype=np.float64)
-            xb = np.arange(*_inclusive(support_bounds(lb)), dtype=np.float64)
-            w = np.outer(la.pmf(xa), lb.pmf(xb)).ravel()
-            ga, gb = np.meshgrid(xa, xb, indexing="ij")
-            lo, hi = totals_func(ga.ravel(), n * t, gb.ravel(), nb * t, design.confidence)
+            a, b = support_bounds(la), support_bounds(lb)
+            w = np.outer(la.pmf(np.arange(a[0], a[1] + 1)), lb.pmf(np.arange(b[0], b[1] + 1))).ravel()
+            lo, hi = limits(a, b, n * t, nb * t, design.confidence)
             out.append(measures(lo, hi, w, design.true_value, design.margin, design.assurance, design.ratio_scale))
         return out
 
     return exact
-
-
-def _inclusive(bounds: tuple[int, int]) -> tuple[int, int]:
-    return bounds[0], bounds[1] + 1
