@@ -271,9 +271,15 @@ def test_rate_ratio_exact_path_equals_own_double_enumeration():
         assert r.coverage >= 0.95  # conditional exact: conservative
 
 
-def test_conditional_limits_kept_between_n_are_the_limits_of_each_n():
-    # the exact path keeps the Clopper-Pearson table from one n to the next; every n must
-    # still equal its own double enumeration (scipy's beta quantiles, computed here)
+@pytest.mark.parametrize("cap", [None, 400])
+def test_conditional_limits_kept_between_n_are_the_limits_of_each_n(cap, monkeypatch):
+    # the exact path keeps the Clopper-Pearson table from one n to the next (cut back when it
+    # outgrows the cap); every n must still equal its own double enumeration (scipy's beta
+    # quantiles, computed here)
+    from simcheck.intervals import rates_exact
+
+    if cap is not None:
+        monkeypatch.setattr(rates_exact, "GRID_CACHE_MAX", cap)
     d = design_of(ratio_table())
     for n in (30, 8, 31, 29, 60):
         r = engine.check(d, n, path="exact")

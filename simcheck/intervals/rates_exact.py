@@ -171,9 +171,10 @@ class GridCache:
 
     Conditional limits (Clopper-Pearson for X_a given X_a + X_b) depend on the
     two counts alone; a curve or a search asks for overlapping rectangles n
-    after n, so the table is computed once for a padded rectangle and sliced.
-    At most :data:`GRID_CACHE_MAX` cells are kept; larger requests are
-    computed without keeping them.
+    after n. The kept table grows to the union of the rectangles asked for,
+    and only cells not kept yet are computed; past :data:`GRID_CACHE_MAX`
+    cells it is cut back to the rectangle asked for (its overlap with the old
+    table still copied).
     """
 
     def __init__(self, func) -> None:
@@ -181,33 +182,45 @@ class GridCache:
         self.lock = threading.Lock()
         self.key = None
         self.box = (0, -1, 0, -1)
-        self.table = None
+        self.table: tuple[np.ndarray, ...] = ()
 
     def get(self, a: tuple[int, int], b: tuple[int, int], confidence: float):
         with self.lock:
             (a0, a1), (b0, b1) = a, b
             c0, c1, d0, d1 = self.box
-            if not (self.key == confidence and c0 <= a0 and a1 <= c1 and d0 <= b0 and b1 <= d1):
-                self._fill(a0, a1, b0, b1, confidence)
+            if self.key != confidence:
+                self._rebuild((a0, a1, b0, b1), confidence, keep=False)
+            elif not (c0 <= a0 and a1 <= c1 and d0 <= b0 and b1 <= d1):
+                union = (min(a0, c0), max(a1, c1), min(b0, d0), max(b1, d1))
+                cells = (union[1] - union[0] + 1) * (union[3] - union[2] + 1)
+                self._rebuild(union if cells <= GRID_CACHE_MAX else (a0, a1, b0, b1), confidence, keep=True)
             c0, _, d0, _ = self.box
             return tuple(t[a0 - c0:a1 - c0 + 1, b0 - d0:b1 - d0 + 1] for t in self.table)
 
-    def _fill(self, a0, a1, b0, b1, confidence) -> None:
-        # pad by a quarter on each side (and join the kept box), so a scan recomputes rarely
-        pa, pb = (a1 - a0) // 4 + 1, (b1 - b0) // 4 + 1
-        box = [max(a0 - pa, 0), a1 + pa, max(b0 - pb, 0), b1 + pb]
-        if self.key == confidence:
-            c0, c1, d0, d1 = self.box
-            joined = [min(box[0], c0), max(box[1], c1), min(box[2], d0), max(box[3], d1)]
-            if (joined[1] - joined[0] + 1) * (joined[3] - joined[2] + 1) <= GRID_CACHE_MAX:
-                box = joined
-        if (box[1] - box[0] + 1) * (box[3] - box[2] + 1) > GRID_CACHE_MAX:
-            box = [a0, a1, b0, b1]
-        xa = np.arange(box[0], box[1] + 1, dtype=np.float64)
-        xb = np.arange(box[2], box[3] + 1, dtype=np.float64)
-        ga, gb = np.meshgrid(xa, xb, indexing="ij")
-        self.table = tuple(np.asarray(v) for v in self.func(ga, gb, confidence))
-        self.box, self.key = tuple(box), confidence
+    def _rebuild(self, box, confidence, keep: bool) -> None:
+        b0, b1, d0, d1 = box
+        c0, c1, e0, e1 = self.box
+        o = (max(b0, c0), min(b1, c1), max(d0, e0), min(d1, e1))  # overlap with the kept table
+        have = keep and o[0] <= o[1] and o[2] <= o[3]
+        strips = [box] if not have else [  # the cells of box outside the overlap
+            (b0, o[0] - 1, d0, d1), (o[1] + 1, b1, d0, d1), (o[0], o[1], d0, o[2] - 1), (o[0], o[1], o[3] + 1, d1)]
+        new = None
+        for r0, r1, q0, q1 in strips:
+            if r0 > r1 or q0 > q1:
+                continue
+            ga, gb = np.meshgrid(np.arange(r0, r1 + 1, dtype=np.float64), np.arange(q0, q1 + 1, dtype=np.float64),
+                                 indexing="ij")
+            vals = [np.asarray(v) for v in self.func(ga, gb, confidence)]
+            if new is None:
+                new = [np.empty((b1 - b0 + 1, d1 - d0 + 1)) for _ in vals]
+            for t, v in zip(new, vals):
+                t[r0 - b0:r1 - b0 + 1, q0 - d0:q1 - d0 + 1] = v
+        if have:
+            if new is None:
+                new = [np.empty((b1 - b0 + 1, d1 - d0 + 1)) for _ in self.table]
+            for t, old in zip(new, self.table):
+                t[o[0] - b0:o[1] - b0 + 1, o[2] - d0:o[3] - d0 + 1] = old[o[0] - c0:o[1] - c0 + 1, o[2] - e0:o[3] - e0 + 1]
+        self.table, self.box, self.key = tuple(new), box, confidence
 
 
 def two_totals_exact_path(totals_func, conditional=None):
