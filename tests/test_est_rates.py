@@ -305,6 +305,23 @@ def test_wald_ratio_zero_counts_count_as_misses_on_the_exact_path():
     assert any(f"{p_zero:.4g} of an interval that cannot be computed" in note for note in r.notes)
 
 
+def test_over_dispersed_groups_make_the_conditional_interval_under_cover():
+    # two groups of NB counts (Cameron & Trivedi 2013, sec. 3.3): the exact double enumeration of
+    # the NB(n k, p) totals against a plain numpy simulation of the units, and far below 0.95
+    mu_a, mu_b, k, n, R = 3.0, 2.0, 1.0, 40, 6000
+    d = design_of(ratio_table(data__a={"model": "negative-binomial", "mean": mu_a, "dispersion": k},
+                              data__b={"model": "negative-binomial", "mean": mu_b, "dispersion": k},
+                              simulation__ratio=1.0, target__exposure=1.0))
+    ex = engine.check(d, n, path="exact")
+    g = np.random.default_rng(7)
+    xa = g.negative_binomial(k, k / (k + mu_a), size=(R, n)).sum(axis=1).astype(float)
+    xb = g.negative_binomial(k, k / (k + mu_b), size=(R, n)).sum(axis=1).astype(float)
+    lo, hi = _cp_mapped(xa, float(n), xb, float(n))
+    cov = np.mean((lo <= mu_a / mu_b) & (mu_a / mu_b <= hi))
+    assert abs(ex.coverage - cov) <= 4 * math.sqrt(cov * (1 - cov) / R)
+    assert ex.coverage < 0.8
+
+
 @pytest.mark.parametrize("method", ["conditional-exact", "wald", "score"])
 def test_rate_ratio_simulated_path_agrees_with_exact(method):
     d = design_of(ratio_table(method__interval=method))
