@@ -22,7 +22,7 @@ from simcheck.estimands import formula_for
 from simcheck.intervals import get_method
 from simcheck.intervals.base import Sample
 from simcheck.intervals.rates import (
-    byar_total, conditional_exact_totals, garwood_total, score_ratio_totals, score_total, wald_ratio_totals, wald_total,
+    midp_total, byar_total, conditional_exact_totals, garwood_total, score_ratio_totals, score_total, wald_ratio_totals, wald_total,
 )
 from simcheck.intervals.rate_diff import score_diff_totals, wald_diff_totals
 from simcheck.scenario import scenario_from_dict
@@ -117,6 +117,31 @@ def test_score_limits_solve_the_score_equation_and_wald_formula():
     np.testing.assert_allclose(wl, np.maximum(x - Z95 * np.sqrt(x), 0) / 4.0)
 
 
+def _midp_reference(x, e, conf):
+    """Mid-p limits solved one by one with brentq on scipy's Poisson law (Berry & Armitage 1995, from memory)."""
+    from scipy.optimize import brentq
+
+    a2 = (1 - conf) / 2
+    lo, hi = [], []
+    for k in np.asarray(x, dtype=float):
+        top = k + 40 * math.sqrt(k + 1) + 40
+        hi.append(brentq(lambda m: stats.poisson.cdf(k - 1, m) + 0.5 * stats.poisson.pmf(k, m) - a2, 1e-12, top,
+                         xtol=1e-14, rtol=1e-14))
+        lo.append(0.0 if k == 0 else brentq(lambda m: stats.poisson.sf(k, m) + 0.5 * stats.poisson.pmf(k, m) - a2,
+                                            1e-12, k, xtol=1e-14, rtol=1e-14))
+    return np.array(lo) / e, np.array(hi) / e
+
+
+def test_midp_limits_against_brentq_and_the_zero_count():
+    x = np.array([0.0, 1, 2, 7, 30, 400])
+    lo, hi = midp_total(x, 2.5, 0.95)
+    ref_lo, ref_hi = _midp_reference(x, 2.5, 0.95)
+    np.testing.assert_allclose(lo, ref_lo, rtol=1e-9, atol=1e-15)
+    np.testing.assert_allclose(hi, ref_hi, rtol=1e-9)
+    # x = 0: half of P(X = 0) = e^-mu is alpha/2, so the upper limit is ln(1 / alpha) = ln 20 (written out)
+    assert hi[0] * 2.5 == pytest.approx(math.log(20.0), rel=1e-12)
+
+
 def test_raw_form_sums_the_units():
     counts = np.array([[0, 2, 1, 3], [0, 0, 0, 0]], dtype=float)
     s = Sample(x=counts, n=4, params={"exposure": 2.5})
@@ -151,7 +176,8 @@ def _wald_written_out(x, e, conf):
     return np.maximum(x - z * np.sqrt(x), 0) / e, (x + z * np.sqrt(x)) / e
 
 
-@pytest.mark.parametrize("method, limits", [("garwood", _chi2_limits), ("wald", _wald_written_out)])
+@pytest.mark.parametrize("method, limits", [("garwood", _chi2_limits), ("wald", _wald_written_out),
+                                           ("mid-p", _midp_reference)])
 def test_exact_path_equals_own_enumeration(method, limits):
     d = design_of(rate_table(method__interval=method, target__margin=0.2))
     for n in (3, 25, 140):

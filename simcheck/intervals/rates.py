@@ -20,6 +20,10 @@ X / E with E = n t; the rate ratio by (X_a / E_a) / (X_b / E_b).
     X + z^2/2 ± z sqrt(X + z^2/4).
 ``wald``
     X ± z sqrt(X), lower limit cut at 0; zero width at X = 0 (degenerate).
+``mid-p``
+    the mid-p exact limits: P(X > x) + P(X = x)/2 = a/2 (lower), P(X < x) +
+    P(X = x)/2 = a/2 (upper), by bisection inside Garwood's interval (Berry &
+    Armitage 1995).
 ``t``
     the t interval of the mean count per unit over t (variance estimated
     from the counts, so over-dispersion does not break it; no exact path).
@@ -68,6 +72,7 @@ _GARWOOD = "Garwood (1936), Biometrika 28:437-442"
 _ULM = "Ulm (1990), American Journal of Epidemiology 131:373-375"
 _BD = "Breslow & Day (1987), Statistical Methods in Cancer Research vol. II, IARC (Byar's approximation, from memory)"
 _BD_COND = "Breslow & Day (1987), Statistical Methods in Cancer Research vol. II, IARC (conditional binomial interval, from memory)"
+_MIDP = "Berry & Armitage (1995), The Statistician 44:417-423 (mid-P confidence intervals; from memory)"
 _GMM = "Graham, Mengersen & Morton (2003), Statistics in Medicine 22:2071-2083"
 
 
@@ -122,6 +127,46 @@ def wald_total(x, e, confidence: float):
     return np.maximum(x - h, 0.0) / e, (x + h) / e
 
 
+#: bisection halvings of the mid-p limits inside Garwood's interval (2^-50 of its width)
+MIDP_HALVINGS = 50
+
+
+def _poisson_pmf(x, mu):
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.exp(special.xlogy(x, mu) - mu - special.gammaln(x + 1.0))
+
+
+def midp_total(x, e, confidence: float):
+    """The mid-p exact limits: P(X > x) + P(X = x)/2 = alpha/2 at the lower limit,
+    P(X < x) + P(X = x)/2 = alpha/2 at the upper (lower 0 at x = 0); found by
+    bisection inside Garwood's interval, which contains them."""
+    x = np.asarray(x, np.float64)
+    a2 = (1.0 - confidence) / 2.0
+    g_lo, g_hi = garwood_total(x, 1.0, confidence)
+
+    def low_tail(mu):  # P(X >= x) - P(X = x)/2, rising in mu
+        return 1.0 - np.where(x > 0, special.pdtr(np.maximum(x - 1.0, 0.0), mu), 0.0) - 0.5 * _poisson_pmf(x, mu)
+
+    def high_tail(mu):  # P(X <= x) - P(X = x)/2, falling in mu
+        return special.pdtr(x, mu) - 0.5 * _poisson_pmf(x, mu)
+
+    lo = _bisect(low_tail, g_lo, np.maximum(x, g_lo), a2, rising=True)
+    hi = _bisect(high_tail, np.maximum(x, 1e-300), g_hi, a2, rising=False)
+    return np.where(x > 0, lo, 0.0) / e, hi / e
+
+
+def _bisect(f, left, right, target: float, rising: bool):
+    """The root of f(mu) = target in [left, right], vectorised (f monotone)."""
+    left, right = left.copy(), right.copy()
+    for _ in range(MIDP_HALVINGS):
+        mid = 0.5 * (left + right)
+        above = f(mid) > target
+        go_left = above if rising else ~above
+        right = np.where(go_left, mid, right)
+        left = np.where(go_left, left, mid)
+    return 0.5 * (left + right)
+
+
 def _one_rate(total_func):
     def func(s: Sample, confidence: float):
         x = s.x.sum(axis=1)
@@ -152,6 +197,7 @@ garwood = _one_rate(garwood_total)
 byar = _one_rate(byar_total)
 score = _one_rate(score_total)
 wald = _one_rate(wald_total)
+midp = _one_rate(midp_total)
 
 
 # --------------------------------------------------------------------------
@@ -229,7 +275,7 @@ wald_ratio = _ratio(wald_ratio_totals)
 # --------------------------------------------------------------------------
 # the conditional-exact limits depend on the counts only: its exact path keeps them between n
 _CONDITIONAL = {"conditional-exact": (clopper_pearson_pi, pi_to_ratio)}
-_PROSE = {"garwood": "Garwood's exact", "byar": "Byar's", "score": "score",
+_PROSE = {"garwood": "Garwood's exact", "mid-p": "mid-p exact", "byar": "Byar's", "score": "score",
           "conditional-exact": "conditional exact (Clopper–Pearson)"}
 
 for _name, _func, _total, _summary, _refs in (
@@ -240,6 +286,8 @@ for _name, _func, _total, _summary, _refs in (
      ("common practice (the score test of a Poisson mean inverted)",)),
     ("wald", wald, wald_total, "x ± z sqrt(x) over the exposure, cut at 0; zero width with no events",
      ("common practice",)),
+    ("mid-p", midp, midp_total, "mid-p exact Poisson limits: half the probability of the observed count in each tail",
+     (_MIDP,)),
 ):
     register(Method(
         _name, "rate", "raw", _func, summary=_summary, references=_refs, prose=_PROSE.get(_name, ""),
