@@ -579,7 +579,7 @@ def _with_methods(scen: Scenario, methods: Sequence[str]) -> Scenario:
     est = scen.design.estimand
     problems = []
     for i, m in enumerate(methods):
-        if not isinstance(m, str) or (est, m) not in REGISTRY:
+        if not isinstance(m, str) or (scen.design.strata is None and (est, m) not in REGISTRY):
             problems.append(Problem(f"methods[{i}]", f"unknown interval {m!r} for estimand {est!r}; "
                                                      f"choose from {', '.join(methods_for(est))}"))
     if len(set(methods)) != len(methods) and not problems:

@@ -30,8 +30,10 @@ TWO_GROUP_DATA = TWO_SAMPLE + PAIRED
 #: design keys that only some registered estimands use (scenario key -> attribute)
 ESTIMAND_PARAMS = {"target.quantile": "quantile", "target.exposure": "exposure", "data.correlation": "correlation"}
 BOUNDS = ("two-sided", "upper", "lower")
-#: interval methods of stratified designs (computed by the stratified evaluator)
-STRATIFIED_METHODS = {"mean": ("t", "z"), "total": ("t", "z"), "proportion": ("t", "wald")}
+#: interval methods of stratified designs (computed by the stratified evaluator); "bootstrap" is
+#: Rao & Wu's (1988) rescaling bootstrap, percentile interval (simcheck.intervals.stratified_bootstrap)
+STRATIFIED_METHODS = {"mean": ("t", "z", "bootstrap"), "total": ("t", "z", "bootstrap"),
+                      "proportion": ("t", "wald", "bootstrap")}
 
 
 @dataclass(frozen=True)
@@ -126,7 +128,8 @@ class Design:
     estimand : {"mean", "proportion", "mean-diff", "proportion-diff", "total"}
         ``total`` needs ``strata`` or ``population``: N times the mean (or
         the proportion, for 0/1 data: the number of events), its interval N
-        times the mean's.
+        times the mean's; or ``clusters`` with ``count`` M and ``cluster-t``:
+        M times the mean cluster total.
     method : str
         Interval method name (see :func:`simcheck.intervals.methods_for`).
     confidence : float
@@ -214,8 +217,9 @@ class Design:
             self._check_registered(c, spec)
         elif self.strata is not None:
             self._check_strata(c)
-        elif self.estimand == "total" and self.population is None:
-            c.add("target.estimand", "'total' needs the population size: a [population] table, or [[strata]] tables with their sizes")
+        elif self.estimand == "total" and self.population is None and self.clusters is None:
+            c.add("target.estimand", "'total' needs the population size: a [population] table, [[strata]] tables with "
+                  "their sizes, or [clusters] with clusters.count")
         elif self.estimand in ESTIMANDS:
             from simcheck.intervals import methods_for
             from simcheck.intervals.base import lookup
@@ -274,8 +278,13 @@ class Design:
         if method.needs_population_size and self.clusters is not None:
             c.add("method.interval", f"{self.method!r} is for units drawn from a finite population, not with [clusters]")
         if self.estimand == "total":
-            if self.clusters is not None:
-                c.add("target.estimand", "'total' is not available with [clusters]; estimate the mean")
+            if self.clusters is not None and self.clusters.count is None:
+                c.add("clusters.count", "missing: a total with [clusters] needs the number of clusters in the "
+                      "population (the total is M times the mean cluster total)")
+            if self.clusters is not None and method.kind != "cluster":
+                c.add("method.interval", f"a total with [clusters] uses cluster-t (M x the mean cluster total), not {self.method!r}")
+            if self.clusters is None and method.kind == "cluster":
+                c.add("method.interval", f"{self.method!r} for a total needs [clusters] with clusters.count")
             if self.base_estimand == "proportion" and isinstance(self.model, Model) and not self.model.zero_one:
                 c.add("method.interval", f"{self.method!r} is a proportion interval: a total with it needs 0/1 data")
 
@@ -321,6 +330,9 @@ class Design:
             c.add("target.estimand", f"stratified designs estimate a mean, a proportion or a total, not {self.estimand!r}")
         elif self.method not in allowed:
             c.add("method.interval", f"stratified {self.estimand} intervals: {', '.join(allowed)}; got {self.method!r}")
+        elif self.method == "bootstrap" and self.one_sided:
+            c.add("target.bound", "a one-sided limit is not available with the stratified bootstrap (a percentile "
+                  "interval, not symmetric); use t or z")
         if self.clusters is not None or self.population is not None:
             c.add("strata", "cannot be combined with [clusters] or [population] (each stratum is its own finite population)")
         if len(st.sizes) < 2:
@@ -371,6 +383,10 @@ class Design:
             mean = sum(w * m.mean for w, m in zip(self.strata.weights, self.strata.models))
             return mean * self.strata.population_size if self.estimand == "total" else mean
         a = self.model.mean
+        if self.estimand == "total" and self.clusters is not None:
+            # planning value: M clusters of mean size m; an evaluation reports its cluster population's total
+            cl = self.clusters
+            return a * (cl.size if cl.size is not None else (cl.size_mean or 1.0)) * (cl.count or 1)
         if self.estimand == "total" and self.population is not None:
             return a * self.population.size  # the planning value; an evaluation reports its population's
         return a - self.model_b.mean if self.two_sample else a

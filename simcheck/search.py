@@ -169,6 +169,8 @@ def _formula(design: Design):
         return None
     if design.strata is not None:
         return _stratified_formula(design)
+    if design.estimand == "total":
+        return _total_formula(design)
     if design.estimand in ESTIMAND_SPECS:
         return _registered_formula(design)
     kw: dict[str, Any] = {"confidence": design.confidence, "multiplier": "z", "bound": design.bound}
@@ -195,6 +197,8 @@ def _formula(design: Design):
             # the FPC counts units; clustered designs sample clusters of units
             kw["population_size"] = int(pop.size)
         res = formulas.sample_size(design.estimand, float(design.margin), **kw)
+        if cl is not None and cl.count is not None:  # clusters drawn from M: first-stage correction
+            res = formulas.finite_clusters(res, cl.count)
     except (InputError, ValueError, ZeroDivisionError, OverflowError, TypeError):
         return None
     n = res.clusters if cl is not None else res.n
@@ -225,6 +229,29 @@ def _stratified_formula(design: Design):
             means=[m.mean for m in st.models], rule=st.rule, costs=st.costs, given=st.given,
             minimum=st.minimum, confidence=design.confidence)
     except (InputError, ValueError, ZeroDivisionError, OverflowError):
+        return None
+    return res, int(res.n)
+
+
+def _total_formula(design: Design):
+    """A total without strata: one stage (the mean's n at margin B / N), or M clusters (simcheck.cluster_total)."""
+    from simcheck import formulas
+    from simcheck.cluster_total import cluster_total_sample_size
+
+    m = design.model
+    try:
+        cl = design.clusters
+        if cl is not None:
+            kw: dict[str, Any] = {"p": float(m.mean)} if m.zero_one else {"sd": float(m.sd), "mean": float(m.mean)}
+            res = cluster_total_sample_size(
+                float(design.margin), cl.count, cl.size if cl.size is not None else cl.size_mean, cl.icc,
+                cluster_size_cv=None if cl.size is not None else cl.size_cv, confidence=design.confidence,
+                bound=design.bound, **kw)
+            return res, int(res.clusters)
+        kw = {"sd": float(m.sd)} if design.base_estimand == "mean" else {"p": float(m.mean)}
+        res = formulas.total_sample_size(float(design.margin), int(design.population.size),
+                                         confidence=formulas.multiplier_confidence(design.confidence, design.bound), **kw)
+    except (InputError, ValueError, ZeroDivisionError, OverflowError, TypeError):
         return None
     return res, int(res.n)
 
@@ -321,6 +348,8 @@ class _Runner:
 
 
 def _resampling(design: Design) -> bool:
+    if design.strata is not None:  # stratified methods are not in the registry
+        return design.method == "bootstrap"
     m = get_method(design.estimand, design.method)
     return m.kind in ("sample", "sample2") or m.resampling
 
@@ -464,8 +493,8 @@ def _validate(design, assurance, coverage_tolerance, replicates, n_min, n_max, b
     c.number("precision", precision, low=0, high=1, low_open=True)
     c.number("window", window, low=1, high=WINDOW_MAX)
     c.raise_if_any()
-    method = get_method(design.estimand, design.method)
-    floor = 1 if method.kind in ("count", "count2") else 2
+    floor = 2 if design.strata is not None else (
+        1 if get_method(design.estimand, design.method).kind in ("count", "count2") else 2)
     lo_n = max(lo_n, floor)
     while design.two_sample and design.n_b(lo_n) < floor:
         lo_n += 1

@@ -290,7 +290,8 @@ def _method_design(c: Collector, scenario: Scenario, method: Any, name: str) -> 
     from simcheck.intervals import REGISTRY, methods_for
 
     d = scenario.design
-    if not isinstance(method, str) or (d.estimand, method) not in REGISTRY:
+    # stratified methods are not in the registry: Design.with_method checks them
+    if not isinstance(method, str) or (d.strata is None and (d.estimand, method) not in REGISTRY):
         c.add(name, f"unknown interval {method!r} for estimand {d.estimand!r}; choose one of {', '.join(methods_for(d.estimand))}")
         return d
     try:

@@ -167,6 +167,8 @@ def _total(args: argparse.Namespace):
     from simcheck.formulas import total_sample_size
 
     c = Collector()
+    if args.cluster_count is not None or args.icc is not None or args.cluster_size is not None:
+        return _cluster_total(args)
     for opt in ("sd_b", "p_b", "design_effect", "icc", "cluster_size", "cluster_size_cv", "ratio", "cluster_count"):
         if getattr(args, opt) is not None:
             c.add("--" + opt.replace("_", "-"), "not used with --estimand total without --stratum (a one-stage "
@@ -174,6 +176,25 @@ def _total(args: argparse.Namespace):
     c.raise_if_any()
     return total_sample_size(args.margin, args.population_size, confidence=args.confidence, sd=args.sd, p=args.p,
                              multiplier=args.multiplier)
+
+
+def _cluster_total(args: argparse.Namespace):
+    """The total of M clusters (--cluster-count): M times the mean cluster total (simcheck.cluster_total)."""
+    from simcheck.cluster_total import cluster_total_sample_size
+    from simcheck.errors import Collector
+
+    c = Collector()
+    for opt, why in (("cluster_count", "the number of clusters in the population"), ("icc", "the intracluster correlation"),
+                     ("cluster_size", "the (mean) cluster size")):
+        if getattr(args, opt) is None:
+            c.add("--" + opt.replace("_", "-"), f"is required for a total of clusters: {why}")
+    for opt in ("sd_b", "p_b", "design_effect", "ratio", "population_size"):
+        if getattr(args, opt) is not None:
+            c.add("--" + opt.replace("_", "-"), "not used with a total of clusters (give --cluster-count, --icc, "
+                  "--cluster-size and --sd or --p)")
+    c.raise_if_any()
+    return cluster_total_sample_size(args.margin, args.cluster_count, args.cluster_size, args.icc, sd=args.sd, p=args.p,
+                                     cluster_size_cv=args.cluster_size_cv, confidence=args.confidence, bound=args.bound)
 
 
 def run(args: argparse.Namespace) -> int:

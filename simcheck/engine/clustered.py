@@ -98,7 +98,8 @@ from simcheck.results import CheckResult
 #: largest pooled count k m enumerated exactly for clustered 0/1 data
 EXACT_COUNT_MAX = 2_000_000
 
-__all__ = ["applies", "evaluate", "available_paths", "exact_available", "population_for", "cluster_model_for", "validate_design"]
+__all__ = ["applies", "evaluate", "available_paths", "exact_available", "population_for", "cluster_model_for", "validate_design",
+           "cluster_population_for", "finite_cluster_estimates"]
 
 
 #: values drawn per piece and pieces per random block: fixed, so the numbers
@@ -133,7 +134,7 @@ def evaluate(design: Design, ns: Sequence[int], replicates: int, rng, path: str,
     ``curve`` is accepted for the design-kind interface; the nested path is
     chosen here whenever several n are evaluated.
     """
-    if design.estimand == "total" and design.strata is None:
+    if design.estimand == "total" and design.strata is None and design.clusters is None:
         inner = total_inner(design)
         rows = evaluate(inner, ns, replicates, rng, path, progress, chunk_bytes, curve)
         return [_total_row(r, design) for r in rows]
@@ -159,7 +160,7 @@ def exact_available(design: Design) -> bool:
     Populations: proportion methods on a 0/1 population (model-drawn
     populations are 0/1 exactly when the model is).
     """
-    if design.estimand == "total":
+    if design.estimand == "total" and design.clusters is None:
         return exact_available(total_inner(design))
     method = get_method(design.estimand, design.method)
     if design.two_sample or (design.clusters is not None and design.population is not None):
@@ -183,7 +184,7 @@ def exact_available(design: Design) -> bool:
 
 def available_paths(design: Design) -> list[str]:
     """The paths valid for a clustered or finite-population design, cheapest first."""
-    if design.estimand == "total":
+    if design.estimand == "total" and design.clusters is None:
         return available_paths(total_inner(design))
     method = get_method(design.estimand, design.method)
     out = ["exact"] if exact_available(design) else []
@@ -357,14 +358,22 @@ def cluster_population_for(design: Design, root: np.random.SeedSequence) -> tupl
 
 
 def _finite_clusters(design, method, ns, replicates, root, seed, path, curve, progress, cm, law) -> list[CheckResult]:
-    """cluster-t on n of M clusters drawn without replacement, first-stage FPC sqrt(1 - n/M)."""
+    """cluster-t on n of M clusters drawn without replacement, first-stage FPC sqrt(1 - n/M).
+
+    A mean (proportion) is the ratio estimator; a total is M times the mean
+    cluster total (:func:`simcheck.intervals.cluster.cluster_total_interval`),
+    computed on cluster totals centred on the population's mean cluster total
+    (the interval is shift-equivariant) and scaled by M.
+    """
     M = int(design.clusters.count)
     sizes, totals, truth = cluster_population_for(design, root)
-    notes = _cluster_notes(design, cm, law, method)
-    notes.append(f"n clusters drawn without replacement from a population of {M} clusters (drawn once from the model)")
-    notes.append(f"true value: the population's mean over its {M} clusters ({truth:.6g}), not the data model's")
-    notes.append("first-stage finite population correction: half-width x sqrt(1 - n/M)")
-    plain = get_method("mean", "cluster-t")  # unclipped: corrected first, then clipped once for proportions
+    total = design.estimand == "total"
+    # unclipped: corrected first, then clipped once for proportions
+    plain = get_method("total" if total else "mean", "cluster-t")
+    shift = float(totals.mean()) if total else 0.0
+    if total:
+        truth = float(totals.sum())
+    notes = _finite_cluster_notes(design, cm, law, method, M, truth)
     nested = path == "nested" or (path == "auto" and curve)
     groups = [ns] if nested else [[n] for n in ns]
     rows: list[CheckResult] = []
@@ -374,13 +383,7 @@ def _finite_clusters(design, method, ns, replicates, root, seed, path, curve, pr
         acc = msr.Accumulator(len(group), replicates, design.margin)
         for bi, g, ps, pe, last in _pieces(root, replicates, block_columns(M, K)):
             idx = sample_indices(g, M, (pe - ps, K), ordered=nested)
-            lo, hi = _cluster_intervals(design, plain, sizes[idx], totals[idx], None, None, group, law.fixed)
-            centre = (lo + hi) / 2.0
-            lo, hi = centre - (centre - lo) * f, centre + (hi - centre) * f
-            # a census (n = M) estimates the population mean itself: exact, zero width
-            lo, hi = np.where(f == 0, truth, lo), np.where(f == 0, truth, hi)
-            if design.estimand == "proportion":
-                lo, hi = np.clip(lo, 0.0, 1.0), np.clip(hi, 0.0, 1.0)
+            lo, hi = _finite_cluster_limits(design, plain, sizes[idx], totals[idx], group, law, f, shift, truth)
             acc.add(lo, hi, truth)
             if progress and last:
                 progress(pe, replicates)
@@ -390,6 +393,60 @@ def _finite_clusters(design, method, ns, replicates, root, seed, path, curve, pr
             rows.append(replace(r, true_value=truth, observations=_observations(k, law),
                                 notes=tuple(list(r.notes) + notes)))
     return rows
+
+
+def _finite_cluster_limits(design, plain, m, y, group, law, f, shift: float, truth: float):
+    """Limits of cluster-t on sampled cluster sizes ``m`` and totals ``y`` (rows x clusters), FPC factor ``f``."""
+    total = design.estimand == "total"
+    lo, hi = _cluster_intervals(design, plain, m, y - shift if total else y, None, None, group, law.fixed)
+    centre = (lo + hi) / 2.0
+    lo, hi = centre - (centre - lo) * f, centre + (hi - centre) * f
+    if total:
+        M = float(design.clusters.count)
+        lo, hi = M * (lo + shift), M * (hi + shift)
+    # a census (n = M) estimates the population value itself: exact, zero width
+    lo, hi = np.where(f == 0, truth, lo), np.where(f == 0, truth, hi)
+    if design.estimand == "proportion":
+        lo, hi = np.clip(lo, 0.0, 1.0), np.clip(hi, 0.0, 1.0)
+    return lo, hi
+
+
+def finite_cluster_estimates(design: Design, n: int, replicates: int, rng) -> np.ndarray:
+    """Point estimates (interval midpoints) of a finite-cluster design at ``n``, on the check's own streams.
+
+    For a total (M x the mean cluster total, an interval symmetric about its
+    estimate and never clipped) these are the estimates behind
+    :func:`simcheck.engine.check`'s intervals, replicate by replicate; used to
+    test unbiasedness and the estimator's variance.
+    """
+    root, _ = rngmod.root_sequence(rng)
+    M = int(design.clusters.count)
+    _, law = cluster_model_for(design)
+    sizes, totals, truth = cluster_population_for(design, root)
+    total = design.estimand == "total"
+    plain = get_method("total" if total else "mean", "cluster-t")
+    shift = float(totals.mean()) if total else 0.0
+    truth = float(totals.sum()) if total else truth
+    f = np.sqrt(fpc_variance_factor(np.asarray([n], dtype=np.float64), M, "S2"))
+    out = np.empty(replicates)
+    for bi, g, ps, pe, last in _pieces(root, replicates, block_columns(M, n)):
+        idx = sample_indices(g, M, (pe - ps, n), ordered=False)
+        lo, hi = _finite_cluster_limits(design, plain, sizes[idx], totals[idx], [n], law, f, shift, truth)
+        out[ps:pe] = ((lo + hi) / 2.0)[:, 0]
+    return out
+
+
+def _finite_cluster_notes(design, cm, law, method, M: int, truth: float) -> list[str]:
+    notes = _cluster_notes(design, cm, law, method)
+    notes.append(f"n clusters drawn without replacement from a population of {M} clusters (drawn once from the model)")
+    if design.estimand == "total":
+        notes.append(f"true value: the population's total over its {M} clusters ({truth:.6g}), not the data model's")
+        notes.append("total = M x the mean cluster total (unbiased expansion estimator; Cochran 1977, ch. 9A), "
+                     "t interval on the cluster totals with k - 1 df")
+    else:
+        notes.append(f"true value: the population's mean over its {M} clusters ({truth:.6g}), not the data model's")
+    notes.append("first-stage finite population correction: half-width x sqrt(1 - n/M)")
+    return notes
 
 
 def _cluster_intervals(design, method, m, s1, s2, s3, group, fixed_sizes):

@@ -51,6 +51,8 @@ RATIO_NOTE = ("margin on the ratio scale: the factor f with the interval within 
 
 def applies(design: Design) -> bool:
     """True for designs whose method takes the drawn values (registered estimands)."""
+    if getattr(design, "strata", None) is not None:
+        return False  # stratified methods are not in the registry; the stratified evaluator takes them
     m = get_method(design.estimand, design.method)
     return m.kind == "raw"
 

@@ -13,6 +13,11 @@ Estimator and intervals (Cochran 1977, sections 5.2-5.4):
   ``f_h = n_h / N_h`` (0 when ``fpc`` is off);
 * ``t``: ``ybar_st ± t_df sqrt(v)`` with Satterthwaite's df (Cochran eq. 5.16);
 * ``z`` (mean, total) and ``wald`` (proportion): ``ybar_st ± z sqrt(v)``;
+* ``bootstrap``: the percentile interval of Rao & Wu's (1988) rescaling
+  bootstrap (:mod:`simcheck.intervals.stratified_bootstrap`; m_h = n_h - 1
+  units drawn with replacement per stratum, rescaled by sqrt(1 - f_h)). Block
+  ``i`` resamples from its own stream ``(STAGE_BOOTSTRAP, i)``, so results do
+  not depend on chunking or threads;
 * a total is ``N`` times the mean, with its interval.
 
 References
@@ -20,6 +25,8 @@ References
 .. [1] Cochran, W. G. (1977). Sampling Techniques, 3rd ed. Wiley, ch. 5.
 .. [2] Satterthwaite, F. E. (1946). An approximate distribution of estimates
    of variance components. Biometrics Bulletin 2, 110-114.
+.. [3] Rao, J. N. K. & Wu, C. F. J. (1988). Resampling inference with complex
+   survey data. Journal of the American Statistical Association 83, 231-241.
 """
 
 from __future__ import annotations
@@ -34,6 +41,7 @@ from simcheck import rng as rngmod
 from simcheck.design import Design
 from simcheck.engine import measures as msr
 from simcheck.errors import InputError
+from simcheck.intervals.stratified_bootstrap import rescaled_bootstrap
 from simcheck.models.population import FinitePopulation, draw_population, sample_indices
 from simcheck.results import CheckResult
 from simcheck.strata import allocate, satterthwaite_df, shares
@@ -110,6 +118,17 @@ def _interval(design: Design, n_h: np.ndarray, means: np.ndarray, varis: np.ndar
     return centre, half
 
 
+def _bootstrap_interval(design: Design, n_h: np.ndarray, xs: list, g_boot) -> tuple[np.ndarray, np.ndarray]:
+    """Rao-Wu rescaled bootstrap percentile limits per replicate (total: times N)."""
+    st = design.strata
+    N = np.asarray(st.sizes, dtype=np.float64)
+    f = n_h / N if st.fpc else np.zeros_like(N)
+    lo, hi = rescaled_bootstrap(xs, N / N.sum(), f, design.confidence, g_boot, design.resamples)
+    if design.estimand == "total":
+        lo, hi = lo * N.sum(), hi * N.sum()
+    return lo, hi
+
+
 def _one_n(design: Design, n: int, replicates: int, root, seed, pops, truth, progress) -> CheckResult:
     st = design.strata
     alloc = allocation_for(design, n)
@@ -117,18 +136,25 @@ def _one_n(design: Design, n: int, replicates: int, root, seed, pops, truth, pro
     rows = _block_rows(n_h.astype(int), st.sizes)
     acc = msr.Accumulator(1, replicates, design.margin)
     H = len(st.sizes)
+    boot = design.method == "bootstrap"
     for bi, (s, e) in enumerate(rngmod.blocks(replicates, rows)):
         g = rngmod.generator(root, rngmod.STAGE_MAIN, bi)
         b = e - s
         means = np.empty((b, H))
         varis = np.empty((b, H))
+        xs = []
         for h, fp in enumerate(pops):
             x = fp.values[sample_indices(g, fp.size, (b, int(n_h[h])), ordered=False)]
             means[:, h] = x.mean(axis=1)
             varis[:, h] = x.var(axis=1, ddof=1)
-        centre, half = _interval(design, n_h, means, varis)
-        degenerate = (half == 0.0)[:, None]
-        acc.add((centre - half)[:, None], (centre + half)[:, None], truth, degenerate)
+            if boot:
+                xs.append(x)
+        if boot:
+            lo, hi = _bootstrap_interval(design, n_h, xs, rngmod.generator(root, rngmod.STAGE_BOOTSTRAP, bi))
+        else:
+            centre, half = _interval(design, n_h, means, varis)
+            lo, hi = centre - half, centre + half
+        acc.add(lo[:, None], hi[:, None], truth)
         if progress:
             progress(e, replicates)
     acc.finish()
@@ -145,6 +171,9 @@ def _notes(design: Design, alloc: dict[str, int], pops, truth: float) -> list[st
     out.append("finite population correction in each stratum" if st.fpc else "no finite population correction (fpc = false)")
     if design.method == "t":
         out.append("t interval with Satterthwaite degrees of freedom")
+    if design.method == "bootstrap":
+        out.append(f"rescaled bootstrap (Rao & Wu 1988): in each stratum n_h - 1 units drawn with replacement, "
+                   f"rescaled by sqrt(1 - f_h); percentile interval of {design.resamples} resamples")
     return out
 
 

@@ -43,7 +43,8 @@ import numpy as np
 from simcheck.intervals.base import Method, register
 from simcheck.intervals.mean import t_ppf
 
-__all__ = ["ClusterSums", "cluster_sums", "ratio_estimate", "cluster_t_interval", "cluster_t_proportion"]
+__all__ = ["ClusterSums", "cluster_sums", "ratio_estimate", "cluster_t_interval", "cluster_t_proportion",
+           "cluster_total_interval"]
 
 
 @dataclass(frozen=True)
@@ -147,6 +148,54 @@ def cluster_t_proportion(s: ClusterSums, confidence: float) -> tuple[np.ndarray,
     return np.clip(lo, 0.0, 1.0), np.clip(hi, 0.0, 1.0)
 
 
+def cluster_total_interval(s: ClusterSums, confidence: float, cluster_count: int | None = None):
+    """Interval for a population total from k of M clusters drawn without replacement.
+
+    The unbiased expansion estimator ``Y_hat = M ybar_c`` (ybar_c the mean of
+    the k sampled cluster totals y_j) with ``v(Y_hat) = M^2 (1 - k/M) s_c^2 / k``,
+    ``s_c^2`` the sample variance of the cluster totals (divisor k - 1): simple
+    random sampling of clusters, the cluster totals being the units (Cochran
+    1977, section 9A.2; the estimator and its variance are those of
+    sections 2.4-2.5 with the cluster totals as units). The interval is
+    ``Y_hat ± t_{k-1} sqrt(v)``. Only the cluster totals and M are used, not
+    the number of units in the population.
+
+    Parameters
+    ----------
+    s : ClusterSums
+        Running sums of the cluster totals (``sum_y``, ``sum_yy``) over k >= 2
+        clusters; the size sums are not used.
+    confidence : float
+        Confidence level in (0, 1).
+    cluster_count : int, optional
+        M, clusters in the population. Without it the interval is that of the
+        mean cluster total ``Y / M`` without the finite population correction
+        (the engine then applies ``sqrt(1 - k/M)`` and the factor M itself).
+
+    Returns
+    -------
+    lower, upper : ndarray
+
+    References
+    ----------
+    .. [1] Cochran, W. G. (1977). *Sampling Techniques*, 3rd ed. Wiley,
+       sections 2.4-2.5 (the estimated total and its variance) and 9A.2
+       (clusters of unequal sizes: the unbiased estimate of the total). Section
+       numbers from memory.
+    """
+    k = np.asarray(s.k, dtype=float)
+    mean = s.sum_y / k
+    ss = np.maximum(s.sum_yy - s.sum_y * mean, 0.0)
+    var = ss / (k * (k - 1.0))
+    scale = 1.0
+    if cluster_count is not None:
+        M = float(cluster_count)
+        scale = M
+        var = var * np.maximum(1.0 - k / M, 0.0)
+    half = t_ppf(0.5 + 0.5 * float(confidence), k - 1.0) * np.sqrt(var) * scale
+    return scale * mean - half, scale * mean + half
+
+
 _REFS = (
     "Kish (1965), Survey Sampling, Wiley, ch. 6",
     "Cochran (1977), Sampling Techniques, 3rd ed., Wiley, ch. 6 (ratio estimator variance)",
@@ -162,4 +211,11 @@ register(Method(
     name="cluster-t", estimand="proportion", kind="cluster", func=cluster_t_proportion, shift_equivariant=False,
     summary="t interval at the cluster level for a proportion (ratio estimator, k - 1 df), clipped to [0, 1]",
     references=_REFS,
+))
+register(Method(
+    name="cluster-t", estimand="total", kind="cluster", func=cluster_total_interval, shift_equivariant=True,
+    summary="total of M clusters: M x the mean cluster total ± t_{k-1} M sqrt((1 - k/M) s_c^2 / k) (needs clusters.count)",
+    references=("Cochran (1977), Sampling Techniques, 3rd ed., Wiley, sections 2.4-2.5 and 9A.2 (from memory)",),
+    one_sided="M ybar_c ± t_{1-alpha, k-1} M sqrt((1 - k/M) s_c^2 / k), the one-sided limit of the expansion estimator",
+    one_sided_references=("Cochran (1977), Sampling Techniques, ch. 2 and 9A (from memory)",), symmetric=True,
 ))

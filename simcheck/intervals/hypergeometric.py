@@ -24,11 +24,15 @@ References
 ----------
 .. [1] Buonaccorsi, J. P. (1987). A note on confidence intervals for
    proportions in finite populations. *The American Statistician* 41(3),
-   215-218. (Cited from memory; not re-read for this module.)
+   215-218. (Title, journal and pages from memory: a search of library
+   documentation and stored web pages found no record to check them against;
+   not re-read for this module.)
 .. [2] Wang, W. (2015). Exact optimal confidence intervals for hypergeometric
-   parameters. *Journal of the American Statistical Association* 110,
-   1491-1499. (Cited from memory; its optimal intervals are shorter than the
-   inversion implemented here, which is the plain two-tailed one.)
+   parameters. *Journal of the American Statistical Association* 110(512),
+   1491-1499, doi:10.1080/01621459.2014.966191. (Title, journal, volume, issue
+   and pages checked against the author's institutional repository record,
+   Wright State University CORE Scholar; its optimal intervals are shorter than
+   the inversion implemented here, which is the plain two-tailed one.)
 """
 
 from __future__ import annotations
@@ -120,9 +124,10 @@ def hypergeometric(x, n, confidence: float, *, population_size: int | None = Non
     ----------
     .. [1] Buonaccorsi, J. P. (1987). A note on confidence intervals for
        proportions in finite populations. *The American Statistician* 41(3),
-       215-218 (from memory).
+       215-218 (from memory; no record found to check it against).
     .. [2] Wang, W. (2015). Exact optimal confidence intervals for
-       hypergeometric parameters. *JASA* 110, 1491-1499 (from memory).
+       hypergeometric parameters. *JASA* 110(512), 1491-1499,
+       doi:10.1080/01621459.2014.966191 (checked).
     """
     if population_size is None:
         raise InputError("method.interval", "'hypergeometric' needs the population size: use it with a [population] table")
@@ -139,5 +144,5 @@ register(Method(
     shift_equivariant=False, needs_population_size=True,
     summary="exact interval for a finite population's share of events (hypergeometric inversion; no FPC needed)",
     references=("Buonaccorsi (1987), The American Statistician 41:215-218 (from memory)",
-                "Wang (2015), JASA 110:1491-1499 (from memory)"),
+                "Wang (2015), JASA 110(512):1491-1499, doi:10.1080/01621459.2014.966191"),
 ))

@@ -99,6 +99,7 @@ METHOD_STYLES: dict[str, dict[str, Any]] = {
     "bootstrap-percentile": _style(_O, "X", "-"),
     "bootstrap-t": _style(_S, "h", "--"),
     "cluster-t": _style(_G, "p", "-"),
+    "bootstrap": _style(_P, "X", "-."),  # stratified designs only (beside t, z, wald)
     # proportions (one and two groups)
     "wald": _style(_V, "s", "--"),
     "wilson": _style(_B, "o", "-"),

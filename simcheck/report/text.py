@@ -57,6 +57,7 @@ METHOD_TEXT = {
     "chen-modified-t": "Chen's modified-t",
     "chebyshev": "Chebyshev (Cantelli)",
     "grice-bain": "gamma-based (Grice–Bain)",
+    "bootstrap": "rescaled (Rao–Wu) stratified bootstrap",
 }
 
 
