@@ -12,8 +12,8 @@ X_b / E_b.
     l_a / E_a + l_b / E_b uses the rates' maximum-likelihood estimates
     restricted to l_a - l_b = delta, l_b the positive root of
     (E_a + E_b) l^2 + ((E_a + E_b) delta - X_a - X_b) l - X_b delta = 0. The
-    limits are found by bisection, vectorised over replicates (60 halvings
-    of a bracket found by doubling).
+    limits are found from a bracket (found by doubling) with the Illinois
+    iteration, vectorised over replicates.
 
 References
 ----------
@@ -31,7 +31,9 @@ from simcheck.intervals.base import Method, Sample, register
 from simcheck.intervals.rates import exposure_of
 from simcheck.intervals.rates_exact import two_totals_exact_path, totals_law_applies
 
-#: bisection halvings of the bracket of each score limit
+#: Illinois (modified regula falsi) steps for each score limit
+ILLINOIS_STEPS = 60
+#: bisection halvings for brackets the Illinois steps left unsettled
 HALVINGS = 60
 #: doublings tried while looking for a bracket (far more than any finite data need)
 DOUBLINGS = 200
@@ -58,23 +60,52 @@ def _score_stat(delta, xa, ea, xb, eb, d):
 
 
 def _score_limit(xa, ea, xb, eb, d, z, side: float):
-    """The score limit on one side (+1 upper, -1 lower): bracket by doubling, then bisection."""
+    """The score limit on one side (+1 upper, -1 lower): bracket by doubling, then the
+    Illinois (modified regula falsi) iteration; rows not settled by then are bisected."""
+    def g(delta):  # > 0 inside the interval, < 0 beyond the limit
+        return side * _score_stat(delta, xa, ea, xb, eb, d) + z
+
     step = np.sqrt((xa + 1.0) / ea ** 2 + (xb + 1.0) / eb ** 2)
     near, far = d.copy(), d + side * step
+    g_near = np.full(d.shape, z)  # the statistic is 0 at the estimate
+    g_far = g(far)
     for _ in range(DOUBLINGS):
-        out = side * _score_stat(far, xa, ea, xb, eb, d) < -z  # beyond the limit
-        if out.all():
+        grow = ~(g_far < 0)
+        if not grow.any():
             break
-        grow = ~out
-        near = np.where(grow, far, near)
+        near, g_near = np.where(grow, far, near), np.where(grow, g_far, g_near)
         step = np.where(grow, 2.0 * step, step)
         far = np.where(grow, d + side * step, far)
-    for _ in range(HALVINGS):
-        mid = 0.5 * (near + far)
-        out = side * _score_stat(mid, xa, ea, xb, eb, d) < -z
-        far = np.where(out, mid, far)
-        near = np.where(out, near, mid)
+        g_far = np.where(grow, g(far), g_far)
+    near, far = _illinois(g, near, far, g_near, g_far)
     return 0.5 * (near + far)
+
+
+def _illinois(g, near, far, g_near, g_far):
+    """Shrink brackets [near, far] with g(near) > 0 > g(far) below 1e-13 of their size (vectorised)."""
+    last = np.zeros(near.shape, np.int8)  # which end moved last: 1 far, -1 near
+    for _ in range(ILLINOIS_STEPS):
+        width = np.abs(far - near)
+        live = width > 1e-13 * (np.abs(near) + np.abs(far)) + 1e-300
+        if not live.any():
+            return near, far
+        with np.errstate(divide="ignore", invalid="ignore"):
+            x = far - g_far * (far - near) / (g_far - g_near)
+        off = ~np.isfinite(x) | ((x - near) * (x - far) >= 0)  # not strictly inside: bisect
+        x = np.where(off, 0.5 * (near + far), x)
+        gx = np.where(live, g(x), 1.0)
+        beyond = live & (gx < 0)
+        inside = live & ~beyond
+        g_near = np.where(beyond & (last == 1), 0.5 * g_near, g_near)
+        g_far = np.where(inside & (last == -1), 0.5 * g_far, g_far)
+        far, g_far = np.where(beyond, x, far), np.where(beyond, gx, g_far)
+        near, g_near = np.where(inside, x, near), np.where(inside, gx, g_near)
+        last = np.where(beyond, 1, np.where(inside, -1, last)).astype(np.int8)
+    for _ in range(HALVINGS):  # rows the iteration left unsettled (rare)
+        mid = 0.5 * (near + far)
+        out = g(mid) < 0
+        far, near = np.where(out, mid, far), np.where(out, near, mid)
+    return near, far
 
 
 def score_diff_totals(xa, ea, xb, eb, confidence: float):
