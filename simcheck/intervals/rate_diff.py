@@ -77,16 +77,18 @@ def _score_limit(xa, ea, xb, eb, d, z, side: float):
         step = np.where(grow, 2.0 * step, step)
         far = np.where(grow, d + side * step, far)
         g_far = np.where(grow, g(far), g_far)
-    near, far = _illinois(g, near, far, g_near, g_far)
+    near, far = _illinois(g, near, far, g_near, g_far, np.sqrt((xa + 1.0) / ea ** 2 + (xb + 1.0) / eb ** 2))
     return 0.5 * (near + far)
 
 
-def _illinois(g, near, far, g_near, g_far):
-    """Shrink brackets [near, far] with g(near) > 0 > g(far) below 1e-13 of their size (vectorised)."""
+def _illinois(g, near, far, g_near, g_far, scale):
+    """Shrink brackets [near, far] with g(near) > 0 > g(far) below 1e-11 of their size, or of
+    ``scale`` (the standard error's size) for limits near 0 (vectorised); closer than that
+    the statistic's rounding makes further steps stall."""
     last = np.zeros(near.shape, np.int8)  # which end moved last: 1 far, -1 near
     for _ in range(ILLINOIS_STEPS):
         width = np.abs(far - near)
-        live = width > 1e-13 * (np.abs(near) + np.abs(far)) + 1e-300
+        live = width > 1e-11 * (np.abs(near) + np.abs(far) + scale)
         if not live.any():
             return near, far
         with np.errstate(divide="ignore", invalid="ignore"):
