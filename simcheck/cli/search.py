@@ -126,11 +126,13 @@ def _header(scenario, design) -> list[str]:
     return lines
 
 
-def _targets_line(t: dict) -> str:
+def _targets_line(t: dict, ratio_scale: bool = False) -> str:
     text = (f"targets:     coverage >= {t['coverage_target']:.4f} "
             f"({t['confidence']:.4g} confidence - {t['coverage_tolerance']:g} tolerance)")
     if t.get("margin") is not None and t.get("assurance") is not None:
         what = "half-width" if t.get("bound", "two-sided") == "two-sided" else "margin"
+        if ratio_scale:
+            what = "margin factor"
         text += f", assurance >= {t['assurance']:g} (share of samples with {what} <= {t['margin']:g})"
     return text
 
@@ -202,7 +204,7 @@ def report(scenario, res) -> str:
         if design.bound != "two-sided":
             lines.append(f"bound:       one-sided {bound_words(design.bound)}: coverage = {coverage_words(design.bound)}; "
                          "margin = distance from estimate to limit")
-        lines.append(_targets_line(first.targets))
+        lines.append(_targets_line(first.targets, design.ratio_scale))
         lines.append("")
         headers = ["method", "n", "n range", "formula n", "n/formula", "coverage", "+/- mcse",
                    "assurance", "+/- mcse", "decision", "stopped"]
@@ -244,7 +246,7 @@ def report(scenario, res) -> str:
                      + (f" ({d.relative_margin:g} of the true value)" if d.relative_margin is not None else ""))
         if d.bound != "two-sided":
             lines.append(f"             one-sided: coverage = {coverage_words(d.bound)}; margin = distance from estimate to limit")
-        lines.append(_targets_line(res.targets))
+        lines.append(_targets_line(res.targets, design.ratio_scale))
         lines.append("")
         lines.extend(_one(res, d))
     lines.append("")

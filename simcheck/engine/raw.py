@@ -94,7 +94,9 @@ def _exact_row(design: Design, n: int, m: dict, seed) -> CheckResult:
     r = row_from_measures(design, n, m, seed, "exact")
     if m.get("margin_at_assurance") is not None:
         r = replace(r, margin_at_assurance=float(m["margin_at_assurance"]))
-    return r
+    for note in m.get("notes", ()):  # what an exact path has to say (e.g. intervals not computed)
+        r = with_note(r, note)
+    return with_note(r, RATIO_NOTE) if design.ratio_scale else r
 
 
 def _columns(design: Design, ns: list[int]) -> tuple[int, int]:

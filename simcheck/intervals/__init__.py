@@ -13,5 +13,6 @@ from simcheck.intervals import total as _total  # noqa: F401  (after the mean an
 from simcheck.intervals import spread as _spread  # noqa: F401
 from simcheck.intervals import rates as _rates  # noqa: F401
 from simcheck.intervals import rate_diff as _rate_diff  # noqa: F401
+from simcheck.intervals import ratios as _ratios  # noqa: F401
 
 __all__ = ["ESTIMANDS", "REGISTRY", "Method", "Summary", "get_method", "methods_for", "register"]

@@ -21,7 +21,8 @@ Kinds and call signatures (all arrays broadcast together):
 A method may also carry an exact path: ``exact_applies(design) -> bool`` and
 ``exact(design, ns) -> list[dict]``, one dict of measures per n in the keys
 of :func:`simcheck.engine.measures.row_from_measures`, margins on the scale
-the estimand reports (a factor for ratio-scale estimands).
+the estimand reports (a factor for ratio-scale estimands), plus optional
+``margin_at_assurance`` and ``notes`` (sentences added to the row).
 """
 
 from __future__ import annotations
@@ -156,6 +157,9 @@ class Method:
     resampling: bool = False
     #: the method's name as written in prose ("Bonett's"), for reports
     prose: str = ""
+    #: how its exact path computes, after "computed exactly" in the methods
+    #: paragraph ("from the chi-square law of the sample variance of normal data")
+    exact_text: str = ""
 
     @property
     def one_sided_only(self) -> bool:

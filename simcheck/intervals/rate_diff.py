@@ -28,7 +28,7 @@ import numpy as np
 from scipy import stats
 
 from simcheck.intervals.base import Method, Sample, register
-from simcheck.intervals.rates import exposure_of
+from simcheck.intervals.rates import EXACT_TEXT_TWO, exposure_of
 from simcheck.intervals.rates_exact import two_totals_exact_path, totals_law_applies
 
 #: Illinois (modified regula falsi) steps for each score limit
@@ -136,11 +136,11 @@ register(Method(
     "wald", "rate-diff", "raw", wald_diff,
     summary="d ± z sqrt(X_a/E_a^2 + X_b/E_b^2); zero width when both counts are 0",
     references=("common practice",),
-    exact=two_totals_exact_path(wald_diff_totals), exact_applies=totals_law_applies,
+    exact=two_totals_exact_path(wald_diff_totals), exact_applies=totals_law_applies, exact_text=EXACT_TEXT_TWO,
 ))
 register(Method(
     "score", "rate-diff", "raw", score_diff,
     summary="score interval with the rates' restricted maximum-likelihood estimates (Miettinen-Nurminen, no correction)",
     references=("Miettinen & Nurminen (1985), Statistics in Medicine 4:213-226 (from memory)",), prose="score",
-    exact=two_totals_exact_path(score_diff_totals), exact_applies=totals_law_applies,
+    exact=two_totals_exact_path(score_diff_totals), exact_applies=totals_law_applies, exact_text=EXACT_TEXT_TWO,
 ))

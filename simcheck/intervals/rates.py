@@ -273,6 +273,10 @@ wald_ratio = _ratio(wald_ratio_totals)
 # --------------------------------------------------------------------------
 # registration
 # --------------------------------------------------------------------------
+#: how the exact paths compute, for the methods paragraph ("computed exactly ...")
+EXACT_TEXT_ONE = ("by summing over the law of the total count (Poisson with mean n x the mean count per unit, "
+                  "or negative binomial NB(n k, p) for over-dispersed counts)")
+EXACT_TEXT_TWO = "by summing over the laws of the two groups' total counts (Poisson, or negative binomial)"
 # the conditional-exact limits depend on the counts only: its exact path keeps them between n
 _CONDITIONAL = {"conditional-exact": (clopper_pearson_pi, pi_to_ratio)}
 _PROSE = {"garwood": "Garwood's exact", "mid-p": "mid-p exact", "byar": "Byar's", "score": "score",
@@ -291,6 +295,7 @@ for _name, _func, _total, _summary, _refs in (
 ):
     register(Method(
         _name, "rate", "raw", _func, summary=_summary, references=_refs, prose=_PROSE.get(_name, ""),
+        exact_text=EXACT_TEXT_ONE,
         exact=rate_exact_path(_total), exact_applies=totals_law_applies,
     ))
 register(Method(
@@ -309,5 +314,6 @@ for _name, _func, _totals, _summary, _refs in (
 ):
     register(Method(
         _name, "rate-ratio", "raw", _func, summary=_summary, references=_refs, prose=_PROSE.get(_name, ""),
+        exact_text=EXACT_TEXT_TWO,
         exact=two_totals_exact_path(_totals, conditional=_CONDITIONAL.get(_name)), exact_applies=totals_law_applies,
     ))

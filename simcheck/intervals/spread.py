@@ -109,6 +109,7 @@ register(Method(
     summary="s sqrt((n-1)/chi2 quantiles): exact for normal data, fragile under heavy tails",
     references=("common practice (the chi-square law of (n - 1) s^2 / sigma^2 for normal data)",),
     exact=chi_square_exact, exact_applies=_exact_applies, exact_monotone=True,
+    exact_text="from the chi-square law of the sample variance of normal data",
 ))
 register(Method(
     "bonett", "sd", "raw", bonett,

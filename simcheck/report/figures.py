@@ -455,18 +455,26 @@ def margin_figure(
     found = _per_method(n_found, labels)
     # a one-sided limit's margin is the distance from the estimate to the limit
     hw = "half-width" if all(getattr(c, "bound", "two-sided") == "two-sided" for c in checks.values()) else "margin"
+    if any(_ratio_scale(getattr(c, "estimand", None)) for c in checks.values()):
+        hw = "margin factor"
     with rc_context(STYLE):
         fig = _new_figure(width, height)
         if curve_map:
             ax, ax2 = fig.subplots(1, 2)
         else:
             ax, ax2 = fig.add_subplot(), None
+        x_ends: list[float] = []
         for name, chk in checks.items():
             i = labels.index(name)
             st = method_style(name, i)
             if chk.margin_values is None or np.size(chk.margin_values) == 0:
                 continue
             x, y = _thin_ecdf(*_ecdf(chk.margin_values, chk.margin_weights))
+            if x.size == 0:
+                continue
+            # far tails of exact laws (a 1e-17 chance of a huge interval) would squash the plot:
+            # the axis ends past the 99.5th percentile of every method (and the target)
+            x_ends.append(float(x[min(np.searchsorted(y, 0.995), x.size - 1)]))
             # Start the step at 0 and carry it past the target so the curve reads as a distribution function.
             right = max(float(x[-1]), target_margin or float(x[-1])) * 1.03
             x = np.concatenate([[x[0]], x, [right]])
@@ -484,6 +492,11 @@ def margin_figure(
         if target_margin is not None:
             ax.axvline(target_margin, color=REFERENCE_COLOUR, linestyle=(0, (4, 2)), linewidth=0.9,
                        label=f"target margin {target_margin:g}")
+        if x_ends:
+            lo, hi = ax.get_xlim()
+            end = max(max(x_ends), target_margin or 0.0) * 1.08
+            if end < hi:
+                ax.set_xlim(lo, end)
         ax.set_xlabel(value_label)
         ax.set_ylabel(f"Share of samples with\n{hw} at most x")
         ax.set_ylim(-0.02, 1.02)
@@ -492,6 +505,13 @@ def margin_figure(
             _assurance_panel(ax2, curve_map, labels, found, assurance, n_label, single=len(checks) <= 1, hw=hw)
         _outside_legend(fig, ax)
     return fig
+
+
+def _ratio_scale(estimand: str | None) -> bool:
+    from simcheck.estimands import spec_for
+
+    spec = spec_for(estimand) if estimand else None
+    return spec is not None and spec.ratio_scale
 
 
 def _margin_label(name: str, n: int, undecided: bool, several: bool) -> str:

@@ -380,9 +380,7 @@ def _simulation_sentences(s: StudyResults) -> list[str]:
     any_exact = any(c.exact for c in s.checks.values()) or any(r.exact for r in s.searches.values())
     all_exact = bool(s.searches) and all(r.exact for r in s.searches.values())
     if all_exact:
-        how = ("by enumerating the binomial distribution of the event count"
-               if s.estimand in ("proportion", "proportion-diff")
-               else "from the sampling law of the sample mean and variance")
+        how = _exact_how(s)
         return [f"For each candidate sample size n, coverage of {interval_text(s.methods, s.confidence, 'strata' in s.data, _bound(s))} for {est} "
                 f"was computed exactly {how} instead of by simulation, so it carries no Monte Carlo error."]
     if "data_a" in s.data:
@@ -400,6 +398,26 @@ def _simulation_sentences(s: StudyResults) -> list[str]:
             + (" (methods with an exact path were enumerated instead)." if any_exact else ".")]
 
 
+def _exact_how(s: StudyResults) -> str:
+    """How an exact path computed the measures, in words."""
+    from simcheck.estimands import spec_for
+    from simcheck.intervals.base import lookup
+
+    if s.estimand in ("proportion", "proportion-diff"):
+        return "by enumerating the binomial distribution of the event count"
+    spec = spec_for(s.estimand)
+    if spec is None:
+        return "from the sampling law of the sample mean and variance"
+    texts = [m.exact_text for name in s.methods if (m := lookup(s.estimand, name)) is not None and m.exact_text]
+    if texts:
+        return join_words(list(dict.fromkeys(texts)))
+    if spec.zero_one:
+        return "by enumerating the binomial distributions of the event counts" + (" in both groups" if spec.data == "two" else "")
+    if spec.counts:
+        return "by enumerating the law of the total event count" + (" in each group" if spec.data == "two" else "")
+    return "from the exact sampling law of the statistic under the data model"
+
+
 def _formula_sentence(s: StudyResults) -> str:
     f = s.formula or {}
     kind = f.get("multiplier_kind", "z")
@@ -407,8 +425,11 @@ def _formula_sentence(s: StudyResults) -> str:
     extra = f", design effect {float(deff):.3g}" if deff not in (None, 1, 1.0) else ""
     fc = [(m, s.formula_checks[m]) for m in s.methods if m in s.formula_checks]
     nf_unit = " clusters" if _n_unit(s) == "clusters" else ""
+    what = "half-width" if _bound(s) == "two-sided" else "margin"
+    if s.data.get("scale") == "ratio":
+        what = "margin factor"
     text = (f"The closed-form formula ({kind} multiple{extra}) gives n = {s.n_formula:,}{nf_unit} for a "
-            f"{'half-width' if _bound(s) == 'two-sided' else 'margin'} of {fmt_g(s.margin)}")
+            f"{what} of {fmt_g(s.margin)}")
     if not fc:
         return text + "."
     said = []
@@ -544,7 +565,10 @@ def methods_paragraph(study: StudyResults) -> str:
              f"NumPy {s.versions.get('numpy', '?')}, SciPy {s.versions.get('scipy', '?')})."]
     parts += _design_sentences(s)
     parts += _simulation_sentences(s)
-    if s.margin is not None and _bound(s) == "two-sided":
+    if s.margin is not None and s.data.get("scale") == "ratio":
+        # what a factor means is said with the design (bound_text.target_sentences)
+        parts.append(f"Assurance is the share of samples whose margin factor was at most the target of {fmt_g(s.margin)}.")
+    elif s.margin is not None and _bound(s) == "two-sided":
         parts.append(f"The achieved margin of error is half the width of each interval; assurance is the share of "
                      f"samples whose half-width was at most the target of {fmt_g(s.margin)}.")
     if s.n_formula is not None:
