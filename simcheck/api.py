@@ -71,6 +71,7 @@ KEYWORDS: dict[str, str] = {
     "data": "data",
     "data_a": "data.a",
     "data_b": "data.b",
+    "correlation": "data.correlation",
     "interval": "method.interval",
     "resamples": "method.resamples",
     "replicates": "simulation.replicates",
@@ -215,13 +216,22 @@ def scenario(
     """
     given = {k: v for k, v in locals().items() if k not in ("more",) and v is not None}
     extra = _more_keywords()
-    for k, v in more.items():
+    given.update(_more_given(more, extra))
+    return _from_table(_keyword_table(given, extra), keyword_names=True)
+
+
+def _more_given(more: Mapping[str, Any], extra: Mapping[str, str]) -> dict[str, Any]:
+    """The ``**more`` keywords that are keys of the file format (None left out); refuses any other."""
+    for k in more:
         if k not in extra:
             near = difflib.get_close_matches(k, list(KEYWORDS) + list(extra), n=1, cutoff=0.6)
             hint = f"; did you mean {near[0]!r}?" if near else ""
             raise InputError(k, f"unknown keyword of simcheck.scenario{hint}")
-        if v is not None:
-            given[k] = v
+    return {k: v for k, v in more.items() if v is not None}
+
+
+def _keyword_table(given: Mapping[str, Any], extra: Mapping[str, str]) -> dict[str, Any]:
+    """The scenario table of keyword values, each at its dotted key (data models as models)."""
     table: dict[str, Any] = {}
     for k, v in given.items():
         dotted = KEYWORDS.get(k) or extra[k]
@@ -230,7 +240,7 @@ def scenario(
         for part in parts[:-1]:
             node = node.setdefault(part, {})
         node[parts[-1]] = _data_value(v) if parts[0] == "data" else v
-    return _from_table(table, keyword_names=True)
+    return table
 
 
 def scenario_from_dict(table: Mapping[str, Any]) -> Scenario:
@@ -369,6 +379,28 @@ def _run(task: str, scenario: ScenarioLike, rng: Any, progress: Progress, **kwar
 # ---------------------------------------------------------------------------
 # tasks
 # ---------------------------------------------------------------------------
+#: parameter descriptions that several task functions share word for word; a docstring line
+#: ``{name}`` stands for the entry (filled in by :func:`_shared_docs` at import)
+_PARAMETER_DOCS = {
+    "rng": "rng : int, SeedSequence, Generator or None\n        Root of the random streams.",
+    "method": "method : str, optional\n        One interval method; default the scenario's first.",
+    "progress": "progress : callable, optional\n        ``progress(done, total)`` in replicates.",
+    "progress_each": ("progress : callable, optional\n"
+                      "        ``progress(done, total)`` in replicates of each evaluation."),
+    "n_range": "n_min, n_max : int, optional\n        The range searched; default the scenario's.",
+    "replicates_each": "replicates : int, optional\n        Replicates per evaluation; default the scenario's.",
+}
+
+
+def _shared_docs(func: Callable) -> Callable:
+    """The function with the ``{name}`` lines of its docstring replaced by :data:`_PARAMETER_DOCS`."""
+    if func.__doc__:  # None under python -OO
+        for key, text in _PARAMETER_DOCS.items():
+            func.__doc__ = func.__doc__.replace("{" + key + "}", text)
+    return func
+
+
+@_shared_docs
 def check(
     scenario: ScenarioLike,
     n: int | Sequence[int],
@@ -391,10 +423,8 @@ def check(
         Root of the random streams (see the module notes on seeds).
     replicates : int, optional
         Simulated samples, in [100, 10**8]; default the scenario's.
-    method : str, optional
-        One interval method; default the scenario's first.
-    progress : callable, optional
-        ``progress(done, total)`` in replicates.
+    {method}
+    {progress}
 
     Returns
     -------
@@ -417,6 +447,7 @@ def check(
     return CurveResult(rows=tuple(out)) if isinstance(out, list) else out
 
 
+@_shared_docs
 def curve(
     scenario: ScenarioLike,
     *,
@@ -441,14 +472,11 @@ def curve(
         The range; default the scenario's.
     step : int, optional
         Spacing of the range (default 1; ``n_max`` is always included).
-    rng : int, SeedSequence, Generator or None
-        Root of the random streams.
+    {rng}
     replicates : int, optional
         Simulated samples per n; default the scenario's.
-    method : str, optional
-        One interval method; default the scenario's first.
-    progress : callable, optional
-        ``progress(done, total)`` in replicates.
+    {method}
+    {progress}
 
     Returns
     -------
@@ -470,6 +498,7 @@ def curve(
     return out
 
 
+@_shared_docs
 def search(
     scenario: ScenarioLike,
     *,
@@ -486,17 +515,13 @@ def search(
     ----------
     scenario : Scenario, dict or path
         What to simulate and the targets (``assurance``, ``coverage_tolerance``).
-    rng : int, SeedSequence, Generator or None
-        Root of the random streams.
-    replicates : int, optional
-        Replicates per evaluation; default the scenario's.
+    {rng}
+    {replicates_each}
     method : str, optional
         Search for this method only. By default a scenario with several
         methods compares them all (see :func:`compare`).
-    n_min, n_max : int, optional
-        The range searched; default the scenario's.
-    progress : callable, optional
-        ``progress(done, total)`` in replicates of each evaluation.
+    {n_range}
+    {progress_each}
 
     Returns
     -------
@@ -520,6 +545,7 @@ def search(
     return out
 
 
+@_shared_docs
 def compare(
     scenario: ScenarioLike,
     methods: Sequence[str] | None = None,
@@ -540,12 +566,9 @@ def compare(
         Interval methods to compare; default the scenario's list.
     rng : int, SeedSequence, Generator or None
         Root of the random streams (one seed for every method).
-    replicates : int, optional
-        Replicates per evaluation; default the scenario's.
-    n_min, n_max : int, optional
-        The range searched; default the scenario's.
-    progress : callable, optional
-        ``progress(done, total)`` in replicates of each evaluation.
+    {replicates_each}
+    {n_range}
+    {progress_each}
 
     Returns
     -------

@@ -35,6 +35,8 @@ from simcheck.errors import Collector, InputError
 __all__ = [
     "ESTIMANDS",
     "TWO_SAMPLE",
+    "ESTIMAND_FORMULAS",
+    "EstimandFormula",
     "FormulaResult",
     "sample_size",
     "total_sample_size",
@@ -55,8 +57,6 @@ __all__ = [
     "pass_probability",
 ]
 
-ESTIMANDS = ("mean", "proportion", "mean-diff", "proportion-diff")
-TWO_SAMPLE = ("mean-diff", "proportion-diff")
 MULTIPLIERS = ("z", "t")
 
 #: Largest n the formulas report; beyond it the inputs are almost surely a unit mistake.
@@ -391,88 +391,124 @@ def _proportion(c: Collector, field: str, value: Any) -> float | None:
     return c.number(field, value, low=0, high=1, low_open=True, high_open=True)
 
 
-def _validate(
-    estimand, margin, confidence, sd, sd_b, p, p_b, multiplier, population_size,
-    design_effect, icc, cluster_size, cluster_size_cv, ratio,
-) -> dict[str, Any]:
-    c = Collector()
+def _fields(c: Collector) -> set[str]:
+    """The fields that already have a problem (a follow-up message would repeat it)."""
+    return {pr.field for pr in c.problems}
+
+
+def _check_estimand(c: Collector, estimand: Any) -> str | None:
     if estimand is None:
         c.add("--estimand", f"is required: one of {', '.join(ESTIMANDS)}")
     elif estimand not in ESTIMANDS:
         c.add("--estimand", f"must be one of {', '.join(ESTIMANDS)}, got {estimand!r}")
-        estimand = None
-    two = estimand in TWO_SAMPLE
-    is_mean = estimand in ("mean", "mean-diff")
-    is_prop = estimand in ("proportion", "proportion-diff")
+        return None
+    return estimand
 
+
+def _check_margin(c: Collector, margin: Any, is_prop: bool) -> float | None:
     if margin is None:
         c.add("--margin", "is required: the target half-width of the interval, > 0")
-    else:
-        margin = c.number("--margin", margin, low=0, low_open=True)
-        if margin is not None and is_prop and margin >= 1:
-            c.add("--margin", f"must be < 1 for a proportion (0.05 means 5 percentage points), got {margin!r}")
-            margin = None
-    confidence = c.number("--confidence", confidence, low=0, high=1, low_open=True, high_open=True)
+        return None
+    margin = c.number("--margin", margin, low=0, low_open=True)
+    if margin is not None and is_prop and margin >= 1:
+        c.add("--margin", f"must be < 1 for a proportion (0.05 means 5 percentage points), got {margin!r}")
+        return None
+    return margin
 
+
+def _check_multiplier(c: Collector, multiplier: Any, is_prop: bool) -> str | None:
     if multiplier not in MULTIPLIERS:
         c.add("--multiplier", f"must be z or t, got {multiplier!r}")
-        multiplier = None
-    elif multiplier == "t" and is_prop:
+        return None
+    if multiplier == "t" and is_prop:
         c.add("--multiplier", "t applies to means only; proportions use z")
+    return multiplier
 
-    sd = _opt(c, "--sd", sd, low=0, low_open=True)
-    sd_b = _opt(c, "--sd-b", sd_b, low=0, low_open=True)
-    p = _proportion(c, "--p", p)
-    p_b = _proportion(c, "--p-b", p_b)
-    population_size = _opt(c, "--population-size", population_size, low=2, integer=True)
-    design_effect = _opt(c, "--design-effect", design_effect, low=0, low_open=True)
-    icc = _opt(c, "--icc", icc, low=0, high=1, high_open=True)
-    cluster_size = _opt(c, "--cluster-size", cluster_size, low=1)
-    cluster_size_cv = _opt(c, "--cluster-size-cv", cluster_size_cv, low=0)
-    if ratio is not None:
-        ratio = c.number("--ratio", ratio, low=0, low_open=True)
 
-    # combinations (only when the estimand is known)
-    if is_prop:
-        if sd is not None:
-            c.add("--sd", f"does not apply to a {estimand} estimand (give --p)")
-        if sd_b is not None:
-            c.add("--sd-b", f"does not apply to a {estimand} estimand (give {'--p-b' if two else '--p'})")
-    if is_mean:
-        if p is not None:
-            c.add("--p", f"does not apply to a {estimand} estimand (give --sd)")
-        if p_b is not None:
-            c.add("--p-b", f"does not apply to a {estimand} estimand (give {'--sd-b' if two else '--sd'})")
-        if sd is None and "--sd" not in {pr.field for pr in c.problems}:
-            c.add("--sd", f"is required for a {estimand} estimand: the planning standard deviation")
-    if estimand is not None and not two:
-        if sd_b is not None and not is_prop:
-            c.add("--sd-b", "applies to two-sample estimands only (mean-diff)")
-        if p_b is not None and not is_mean:
-            c.add("--p-b", "applies to two-sample estimands only (proportion-diff)")
-        if ratio is not None and ratio != 1.0:
-            c.add("--ratio", "applies to two-sample estimands only (mean-diff, proportion-diff)")
-    if two and population_size is not None:
-        c.add("--population-size", "applies to one-sample estimands only (mean, proportion)")
-    if design_effect is not None and icc is not None:
-        c.add("--design-effect", "give either --design-effect or --icc with --cluster-size, not both")
-    if icc is not None and cluster_size is None and "--cluster-size" not in {pr.field for pr in c.problems}:
-        c.add("--icc", "needs --cluster-size (the mean number of observations per cluster)")
-    if cluster_size_cv is not None and icc is None and "--icc" not in {pr.field for pr in c.problems}:
-        c.add("--cluster-size-cv", "needs --icc and --cluster-size (it enters the design effect through the ICC)")
-    if (
-        cluster_size is not None
-        and icc is None
-        and design_effect is None
-        and not {"--icc", "--design-effect"} & {pr.field for pr in c.problems}
-    ):
-        c.add("--cluster-size", "needs --icc (or --design-effect) to say how alike observations in a cluster are")
-    c.raise_if_any()
+def _check_numbers(c: Collector, sd, sd_b, p, p_b, population_size, design_effect, icc, cluster_size,
+                   cluster_size_cv, ratio) -> dict[str, Any]:
+    """Each optional number on its own (ranges only; combinations come after)."""
     return dict(
-        estimand=estimand, margin=margin, confidence=confidence, sd=sd, sd_b=sd_b, p=p, p_b=p_b,
-        multiplier=multiplier, population_size=population_size, design_effect=design_effect, icc=icc,
-        cluster_size=cluster_size, cluster_size_cv=cluster_size_cv, ratio=ratio,
+        sd=_opt(c, "--sd", sd, low=0, low_open=True),
+        sd_b=_opt(c, "--sd-b", sd_b, low=0, low_open=True),
+        p=_proportion(c, "--p", p),
+        p_b=_proportion(c, "--p-b", p_b),
+        population_size=_opt(c, "--population-size", population_size, low=2, integer=True),
+        design_effect=_opt(c, "--design-effect", design_effect, low=0, low_open=True),
+        icc=_opt(c, "--icc", icc, low=0, high=1, high_open=True),
+        cluster_size=_opt(c, "--cluster-size", cluster_size, low=1),
+        cluster_size_cv=_opt(c, "--cluster-size-cv", cluster_size_cv, low=0),
+        ratio=_opt(c, "--ratio", ratio, low=0, low_open=True),
     )
+
+
+def _refuse_values(c: Collector, estimand: str, v: dict[str, Any], keys: tuple[str, str],
+                   instead: tuple[str, str]) -> None:
+    """The planning values ``keys`` (group a, b) that do not apply, naming the options to give ``instead``."""
+    two = estimand in TWO_SAMPLE
+    for key, give in zip(keys, (instead[0], instead[1] if two else instead[0])):
+        if v[key] is not None:
+            c.add("--" + key.replace("_", "-"), f"does not apply to a {estimand} estimand (give {give})")
+
+
+def _check_mean_values(c: Collector, estimand: str, v: dict[str, Any]) -> None:
+    """mean, mean-diff: planned by SDs (required), not by proportions."""
+    _refuse_values(c, estimand, v, ("p", "p_b"), ("--sd", "--sd-b"))
+    if v["sd"] is None and "--sd" not in _fields(c):
+        c.add("--sd", f"is required for a {estimand} estimand: the planning standard deviation")
+    if estimand not in TWO_SAMPLE and v["sd_b"] is not None:
+        c.add("--sd-b", "applies to two-sample estimands only (mean-diff)")
+
+
+def _check_proportion_values(c: Collector, estimand: str, v: dict[str, Any]) -> None:
+    """proportion, proportion-diff: planned by proportions (default 0.5), not by SDs."""
+    _refuse_values(c, estimand, v, ("sd", "sd_b"), ("--p", "--p-b"))
+    if estimand not in TWO_SAMPLE and v["p_b"] is not None:
+        c.add("--p-b", "applies to two-sample estimands only (proportion-diff)")
+
+
+def _check_groups(c: Collector, two: bool, v: dict[str, Any]) -> None:
+    """Options that belong to one sample or to two."""
+    if not two and v["ratio"] is not None and v["ratio"] != 1.0:
+        c.add("--ratio", "applies to two-sample estimands only (mean-diff, proportion-diff)")
+    if two and v["population_size"] is not None:
+        c.add("--population-size", "applies to one-sample estimands only (mean, proportion)")
+
+
+def _check_clusters(c: Collector, v: dict[str, Any]) -> None:
+    """The design effect comes either directly or from the ICC with a cluster size."""
+    icc, m, deff = v["icc"], v["cluster_size"], v["design_effect"]
+    if deff is not None and icc is not None:
+        c.add("--design-effect", "give either --design-effect or --icc with --cluster-size, not both")
+    if icc is not None and m is None and "--cluster-size" not in _fields(c):
+        c.add("--icc", "needs --cluster-size (the mean number of observations per cluster)")
+    if v["cluster_size_cv"] is not None and icc is None and "--icc" not in _fields(c):
+        c.add("--cluster-size-cv", "needs --icc and --cluster-size (it enters the design effect through the ICC)")
+    if m is not None and icc is None and deff is None and not {"--icc", "--design-effect"} & _fields(c):
+        c.add("--cluster-size", "needs --icc (or --design-effect) to say how alike observations in a cluster are")
+
+
+def _validate(
+    estimand, margin, confidence, sd, sd_b, p, p_b, multiplier, population_size,
+    design_effect, icc, cluster_size, cluster_size_cv, ratio,
+) -> dict[str, Any]:
+    """All problems with the inputs of :func:`sample_size` at once; the checked values by name."""
+    c = Collector()
+    estimand = _check_estimand(c, estimand)
+    entry = ESTIMAND_FORMULAS.get(estimand) if estimand is not None else None
+    is_prop = entry is not None and entry.proportion
+    v = dict(estimand=estimand, margin=_check_margin(c, margin, is_prop))
+    v["confidence"] = c.number("--confidence", confidence, low=0, high=1, low_open=True, high_open=True)
+    v["multiplier"] = _check_multiplier(c, multiplier, is_prop)
+    v.update(_check_numbers(c, sd, sd_b, p, p_b, population_size, design_effect, icc, cluster_size,
+                            cluster_size_cv, ratio))
+    # combinations (only when the estimand is known)
+    if entry is not None:
+        entry.check(c, estimand, v)
+        _check_groups(c, entry.two_sample, v)
+    _check_clusters(c, v)
+    c.raise_if_any()
+    return v
 
 
 # ---------------------------------------------------------------------------
@@ -536,6 +572,316 @@ def _iterate(
         else:
             lo = mid
     return hi, need(hi), len(cache)
+
+
+@dataclass(frozen=True)
+class _Plan:
+    """Checked inputs of :func:`sample_size` and what every estimand's solver shares."""
+
+    v: dict[str, Any]  # the checked values by name (:func:`_validate`)
+    estimand: str
+    margin: float  # B
+    confidence: float
+    mconf: float  # the two-sided level of the multiple (one-sided limits: 2 c - 1)
+    kind: str  # "z" or "t"
+    bound: str
+    N: int | None  # population size
+    m: float | None  # cluster size
+    deff: float
+    deff_notes: tuple[str, ...]
+    deff_steps: tuple[str, ...]
+    K: float  # allocation ratio n_b / n_a (1 for one sample)
+    z: float
+
+
+@dataclass(frozen=True)
+class _Solution:
+    """One estimand's answer before the steps every estimand shares (clusters, dropout)."""
+
+    n: int
+    n_un: float
+    mult: float
+    notes: tuple[str, ...]  # planning values assumed
+    steps: tuple[str, ...]  # the formula up to the rounded n
+    n_b: int | None = None
+    df: float | None = None
+    iterations: int | None = None
+    n_before_fpc: float | None = None
+    sd: float | None = None
+    sd_b: float | None = None
+    p: float | None = None
+    p_b: float | None = None
+
+
+@dataclass(frozen=True)
+class EstimandFormula:
+    """How one estimand's closed-form n is checked and solved (an entry of :data:`ESTIMAND_FORMULAS`).
+
+    ``check(collector, estimand, values)`` adds the problems of the planning
+    values that do or do not apply; ``solve(plan)`` returns the n.
+    ``two_sample`` estimands are differences a - b with an allocation ratio;
+    ``proportion`` ones take margins below 1 and the z multiple only.
+    """
+
+    check: Callable[[Collector, str, dict[str, Any]], None]
+    solve: Callable[[_Plan], _Solution]
+    two_sample: bool = False
+    proportion: bool = False
+
+
+def _design_effect(v: dict[str, Any]) -> tuple[float, tuple[str, ...], tuple[str, ...]]:
+    """The design effect given, from the ICC (Kish; Eldridge, Ashby & Kerry 2006) or 1; notes and steps."""
+    if v["design_effect"] is not None:
+        deff = v["design_effect"]
+        notes = (f"design effect {_g(deff)} < 1 as given (gain over simple random sampling)",) if deff < 1 else ()
+        return deff, notes, ()
+    if v["icc"] is None:
+        return 1.0, (), ()
+    m, icc, cv = v["cluster_size"], v["icc"], v["cluster_size_cv"] or 0.0
+    deff = design_effect_from_icc(icc, m, cv)
+    if v["cluster_size_cv"] is None:
+        step = f"deff = 1 + (m - 1) ICC = 1 + ({_g(m)} - 1) * {_g(icc)} = {_g(deff)} (Kish)"
+    else:
+        step = (f"deff = 1 + ((cv^2 + 1) m - 1) ICC = 1 + (({_g(cv)}^2 + 1) * {_g(m)} - 1) * {_g(icc)}"
+                f" = {_g(deff)} (Eldridge, Ashby & Kerry 2006)")
+    return deff, (), (step,)
+
+
+def _plan(v: dict[str, Any], bound: str) -> _Plan:
+    # the multiples' level: a one-sided limit at 1 - alpha is the two-sided multiple at 1 - 2 alpha
+    mconf = multiplier_confidence(v["confidence"], bound)
+    deff, deff_notes, deff_steps = _design_effect(v)
+    two = ESTIMAND_FORMULAS[v["estimand"]].two_sample
+    return _Plan(
+        v=v, estimand=v["estimand"], margin=v["margin"], confidence=v["confidence"], mconf=mconf,
+        kind=v["multiplier"], bound=bound, N=v["population_size"], m=v["cluster_size"], deff=deff,
+        deff_notes=deff_notes, deff_steps=deff_steps,
+        K=1.0 if not two else (v["ratio"] if v["ratio"] is not None else 1.0), z=z_value(mconf),
+    )
+
+
+def _smallest_n(pl: _Plan, at_z: float, needed: Callable[[int], float],
+                n_max: int | None = None) -> tuple[int, float, int | None]:
+    """(n, unrounded n, t iterations): z rounds up the n at the z multiple; t iterates
+    ``needed(n)``, the n asked for at the t multiple of n's degrees of freedom, from there."""
+    _too_large(at_z)
+    if pl.kind == "z":
+        return max(1, ceil_robust(at_z)), at_z, None  # a margin far above the SD gives n0 near 0 (or 0 after underflow)
+    nz = ceil_robust(at_z)
+    return _iterate(needed, nz, lo=max(1, nz - 1), n_min=2, n_max=n_max)
+
+
+# --- one sample
+
+
+def _one_sample(pl: _Plan, u: float, var: float, vname: str, unit_variance: str,
+                notes: tuple[str, ...], **values: float) -> _Solution:
+    """n0 = m^2 V / B^2, times deff, then the FPC; t iterates on n - 1 df. ``u`` = sqrt(V)."""
+    B, deff, N = pl.margin, pl.deff, pl.N
+
+    # ratios of SDs to B first: sd^2 or B^2 alone may overflow or underflow
+    def base(mult: float) -> float:
+        r = mult * u / B
+        return r * r * deff
+
+    def final(mult: float) -> float:
+        x = base(mult)
+        return fpc_n(x, N, unit_variance) if N is not None else x
+
+    n, n_un, iterations = _smallest_n(pl, final(pl.z), lambda n_: final(t_value(pl.mconf, n_ - 1)), n_max=N)
+    df = None if pl.kind == "z" else float(n - 1)
+    mult = pl.z if pl.kind == "z" else t_value(pl.mconf, df)
+    x0 = base(mult) / deff
+    n_before_fpc = x0 * deff if N is not None else None
+    steps = _one_sample_steps(pl, n, n_un, mult, x0, var, vname, unit_variance)
+    return _Solution(n=n, n_un=n_un, mult=mult, notes=notes, steps=steps, df=df, iterations=iterations,
+                     n_before_fpc=n_before_fpc, **values)
+
+
+def _one_sample_steps(pl: _Plan, n: int, n_un: float, mult: float, x0: float, var: float, vname: str,
+                      unit_variance: str) -> tuple[str, ...]:
+    B, deff, N = pl.margin, pl.deff, pl.N
+    mname = "z" if pl.kind == "z" else f"t({n - 1})"
+    steps = [f"n0 = {mname}^2 {vname} / B^2 = {_g(mult)}^2 * {_g(var)} / {_g(B)}^2 = {_g(x0)}", *pl.deff_steps]
+    if deff != 1.0:
+        steps.append(f"n0 * deff = {_g(x0)} * {_g(deff)} = {_g(x0 * deff)}")
+    if N is not None:
+        nb = x0 * deff
+        if unit_variance == "S2":
+            steps.append(f"FPC: n0 / (1 + n0 / N) = {_g(nb)} / (1 + {_g(nb)} / {N})"
+                         f" = {_g(n_un)} (Cochran 1977, mean)")
+        else:
+            steps.append(f"FPC: n0 / (1 + (n0 - 1) / N) = {_g(nb)} / (1 + ({_g(nb)} - 1) / {N})"
+                         f" = {_g(n_un)} (Cochran 1977, proportion)")
+    steps.append(f"n = ceil({_g(n_un)}) = {n}" + (" (at least 1)" if n == 1 and n_un <= 0.5 else ""))
+    return tuple(steps)
+
+
+def _mean_n(pl: _Plan) -> _Solution:
+    sd = pl.v["sd"]
+    return _one_sample(pl, sd, sd * sd, "sd^2", FPC_UNIT_VARIANCE["mean"], (), sd=sd)
+
+
+def _proportion_n(pl: _Plan) -> _Solution:
+    p, notes = pl.v["p"], ()
+    if p is None:
+        p, notes = 0.5, ("p = 0.5 assumed (most conservative)",)
+    var = p * (1 - p)
+    return _one_sample(pl, math.sqrt(var), var, "p (1 - p)", FPC_UNIT_VARIANCE["proportion"], notes, p=p)
+
+
+# --- two samples (difference a - b)
+
+
+def _two_sample(pl: _Plan, u_a: float, u_b: float, var_a: float, var_b: float, vnames: tuple[str, str],
+                notes: tuple[str, ...], **values: float) -> _Solution:
+    """n_a = m^2 deff (V_a + V_b / K) / B^2, n_b = ceil(K n_a); t iterates on the Welch df."""
+    K, deff, mconf = pl.K, pl.deff, pl.mconf
+    ra, rb = u_a / pl.margin, u_b / pl.margin
+
+    def base_a(mult: float) -> float:
+        return mult * mult * deff * (ra * ra + rb * rb / K)
+
+    def needed(n_: int) -> float:
+        nb_ = ceil_robust(K * n_)
+        if nb_ < 2:
+            # group b needs two observations for an SD: not yet enough
+            return float(n_ + 1)
+        return base_a(t_value(mconf, welch_df(ra * ra, n_, rb * rb, nb_)))
+
+    n, n_un, iterations = _smallest_n(pl, base_a(pl.z), needed)
+    df = None if pl.kind == "z" else welch_df(ra * ra, n, rb * rb, ceil_robust(K * n))
+    mult = pl.z if pl.kind == "z" else t_value(mconf, df)
+    n_b = max(1, ceil_robust(K * n))
+    mname = "z" if pl.kind == "z" else f"t({_g(df)})"
+    va, vb = vnames
+    steps = (*pl.deff_steps,
+             f"n_a = {mname}^2{' deff' if deff != 1.0 else ''} ({va} + {vb} / K) / B^2 = {_g(mult)}^2"
+             + (f" * {_g(deff)}" if deff != 1.0 else "")
+             + f" * ({_g(var_a)} + {_g(var_b)} / {_g(K)}) / {_g(pl.margin)}^2 = {_g(n_un)}",
+             f"n_a = ceil({_g(n_un)}) = {n}; n_b = ceil(K n_a) = ceil({_g(K)} * {n}) = {n_b}"
+             + (" (at least 1 each)" if min(n_un, K * n) <= 0.5 else ""))
+    return _Solution(n=n, n_un=n_un, mult=mult, notes=notes, steps=steps, n_b=n_b, df=df,
+                     iterations=iterations, **values)
+
+
+def _mean_diff_n(pl: _Plan) -> _Solution:
+    sa = pl.v["sd"]
+    sb = pl.v["sd_b"] if pl.v["sd_b"] is not None else sa
+    notes = () if pl.v["sd_b"] is not None else (f"sd_b = sd_a = {_g(sa)} assumed (not given)",)
+    return _two_sample(pl, sa, sb, sa * sa, sb * sb, ("sd_a^2", "sd_b^2"), notes, sd=sa, sd_b=sb)
+
+
+def _proportion_diff_n(pl: _Plan) -> _Solution:
+    pa, pb = pl.v["p"], pl.v["p_b"]
+    if pa is None and pb is None:
+        notes, pa, pb = ("p_a = p_b = 0.5 assumed (most conservative)",), 0.5, 0.5
+    elif pa is None:
+        notes, pa = ("p_a = 0.5 assumed (most conservative)",), 0.5
+    elif pb is None:
+        notes, pb = (f"p_b = p_a = {_g(pa)} assumed (not given)",), pa
+    else:
+        notes = ()
+    var_a, var_b = pa * (1 - pa), pb * (1 - pb)
+    return _two_sample(pl, math.sqrt(var_a), math.sqrt(var_b), var_a, var_b, ("p_a (1 - p_a)", "p_b (1 - p_b)"),
+                       notes, p=pa, p_b=pb)
+
+
+#: The closed form of each estimand, in the order the options list them: adding an estimand is
+#: one entry (its check of the planning values and its solver; the shared steps come after).
+ESTIMAND_FORMULAS: dict[str, EstimandFormula] = {
+    "mean": EstimandFormula(_check_mean_values, _mean_n),
+    "proportion": EstimandFormula(_check_proportion_values, _proportion_n, proportion=True),
+    "mean-diff": EstimandFormula(_check_mean_values, _mean_diff_n, two_sample=True),
+    "proportion-diff": EstimandFormula(_check_proportion_values, _proportion_diff_n, two_sample=True,
+                                       proportion=True),
+}
+ESTIMANDS = tuple(ESTIMAND_FORMULAS)
+TWO_SAMPLE = tuple(k for k, e in ESTIMAND_FORMULAS.items() if e.two_sample)
+
+
+# --- what every estimand shares
+
+
+def _multiplier_notes(pl: _Plan) -> list[str]:
+    entry = ESTIMAND_FORMULAS[pl.estimand]
+    if pl.kind == "t":
+        notes = ["t multiple with Welch-Satterthwaite degrees of freedom from the planning SDs" if entry.two_sample
+                 else "t multiple with n - 1 degrees of freedom"]
+        if pl.deff != 1.0:
+            notes.append("degrees of freedom counted in observations, not clusters (a cluster-level "
+                         "analysis has fewer)")
+        return notes
+    if not entry.proportion:
+        return ["SD known (z multiple)"]
+    return ["normal approximation to the sampling distribution (z multiple)"]
+
+
+def _assumptions(pl: _Plan, sol: _Solution, drop: float) -> tuple[str, ...]:
+    notes = [*sol.notes, *pl.deff_notes, *_multiplier_notes(pl)]
+    if pl.v["design_effect"] is None and pl.v["icc"] is None:
+        notes.append("independent observations (simple random sampling, design effect 1)")
+    if pl.bound != "two-sided":
+        notes.append(f"one-sided {pl.bound} limit: multiple at {_g(pl.mconf)} two-sided, "
+                     f"i.e. the {_g(pl.confidence)} quantile")
+    if drop:
+        notes.append(f"a share {_g(drop)} of enrolled units is lost before analysis, independently of "
+                     "their values; n counts the units analysed")
+    return tuple(notes)
+
+
+def _clusters(m: float | None, n: int, n_b: int | None) -> tuple[int | None, int | None, list[str]]:
+    """ceil(n / m) clusters per group when the cluster size is known."""
+    if m is None:
+        return None, None, []
+    clusters = max(1, ceil_robust(n / m))
+    clusters_b = None if n_b is None else max(1, ceil_robust(n_b / m))
+    return clusters, clusters_b, [
+        f"clusters = ceil(n / m) = ceil({n} / {_g(m)}) = {clusters}"
+        + (f", group b ceil({n_b} / {_g(m)}) = {clusters_b}" if clusters_b is not None else "")]
+
+
+def _closing_steps(sol: _Solution, drop: float) -> list[str]:
+    steps = []
+    if sol.iterations is not None:
+        steps.append(f"t iteration: {sol.iterations} evaluations of the t multiple")
+    if drop:
+        nb_text = "" if sol.n_b is None else f"; n_b_enrolled = {enrolled_n(sol.n_b, drop)}"
+        steps.append(f"n_enrolled = ceil(n / (1 - dropout)) = ceil({sol.n} / {_g(1 - drop)}) = "
+                     f"{enrolled_n(sol.n, drop)}{nb_text}")
+    return steps
+
+
+def _result(pl: _Plan, sol: _Solution, drop: float) -> FormulaResult:
+    clusters, clusters_b, cluster_steps = _clusters(pl.m, sol.n, sol.n_b)
+    two = ESTIMAND_FORMULAS[pl.estimand].two_sample
+    return FormulaResult(
+        estimand=pl.estimand,
+        n=int(sol.n),
+        n_b=None if sol.n_b is None else int(sol.n_b),
+        n_unrounded=float(sol.n_un),
+        multiplier=float(sol.mult),
+        multiplier_kind=pl.kind,
+        design_effect=float(pl.deff),
+        clusters=clusters,
+        clusters_b=clusters_b,
+        confidence=float(pl.confidence),
+        margin=float(pl.margin),
+        ratio=float(pl.K) if two else None,
+        df=sol.df,
+        iterations=sol.iterations,
+        n_before_fpc=sol.n_before_fpc,
+        population_size=pl.N,
+        cluster_size=pl.m,
+        sd=sol.sd,
+        sd_b=sol.sd_b,
+        p=sol.p,
+        p_b=sol.p_b,
+        assumptions=_assumptions(pl, sol, drop),
+        formula="; ".join([*sol.steps, *cluster_steps, *_closing_steps(sol, drop)]),
+        dropout=drop,
+        bound=pl.bound,
+    )
 
 
 def sample_size(
@@ -637,208 +983,8 @@ def sample_size(
     except InputError as e:
         dc.extend(e)  # report a bad --dropout together with every other problem
     dc.raise_if_any()
-    estimand, B, conf = v["estimand"], v["margin"], v["confidence"]
-    # the multiples' level: a one-sided limit at 1 - alpha is the two-sided multiple at 1 - 2 alpha
-    mconf = multiplier_confidence(conf, bound)
-    two = estimand in TWO_SAMPLE
-    kind = v["multiplier"]
-    N = v["population_size"]
-    m = v["cluster_size"]
-    assumptions: list[str] = []
-    steps: list[str] = []
-
-    # unit variances
-    if estimand in ("mean", "mean-diff"):
-        sa = v["sd"]
-        sb = v["sd_b"] if v["sd_b"] is not None else sa
-        if two and v["sd_b"] is None:
-            assumptions.append(f"sd_b = sd_a = {_g(sa)} assumed (not given)")
-        var_a, var_b = sa * sa, sb * sb
-        pa = pb = None
-    else:
-        pa = v["p"]
-        if pa is None:
-            pa = 0.5
-            assumptions.append("p = 0.5 assumed (most conservative)" if not two else
-                               "p_a = 0.5 assumed (most conservative)")
-        pb = v["p_b"]
-        if two and pb is None:
-            pb = pa
-            if v["p"] is None:
-                assumptions[-1] = "p_a = p_b = 0.5 assumed (most conservative)"
-            else:
-                assumptions.append(f"p_b = p_a = {_g(pa)} assumed (not given)")
-        var_a = pa * (1 - pa)
-        var_b = pb * (1 - pb) if two else None
-        sa = sb = None
-
-    # design effect
-    deff = 1.0
-    if v["design_effect"] is not None:
-        deff = v["design_effect"]
-        if deff < 1:
-            assumptions.append(f"design effect {_g(deff)} < 1 as given (gain over simple random sampling)")
-    elif v["icc"] is not None:
-        cv = v["cluster_size_cv"] or 0.0
-        deff = design_effect_from_icc(v["icc"], m, cv)
-        if v["cluster_size_cv"] is None:
-            steps.append(f"deff = 1 + (m - 1) ICC = 1 + ({_g(m)} - 1) * {_g(v['icc'])} = {_g(deff)} (Kish)")
-        else:
-            steps.append(
-                f"deff = 1 + ((cv^2 + 1) m - 1) ICC = 1 + (({_g(cv)}^2 + 1) * {_g(m)} - 1) * {_g(v['icc'])}"
-                f" = {_g(deff)} (Eldridge, Ashby & Kerry 2006)"
-            )
-
-    K = 1.0 if not two else (v["ratio"] if v["ratio"] is not None else 1.0)
-    z = z_value(mconf)
-    vname = "sd^2" if estimand in ("mean", "mean-diff") else "p (1 - p)"
-
-    df = None
-    iterations = None
-    n_before_fpc = None
-    n_b = None
-
-    if not two:
-        # ratios of SDs to B first: sd^2 or B^2 alone may overflow or underflow
-        ua = math.sqrt(var_a) if sa is None else sa
-
-        def base(mult: float) -> float:
-            r = mult * ua / B
-            return r * r * deff
-
-        def final(mult: float) -> float:
-            x = base(mult)
-            return fpc_n(x, N, FPC_UNIT_VARIANCE[estimand]) if N is not None else x
-
-        nz_un = final(z)
-        _too_large(nz_un)
-        if kind == "z":
-            mult = z
-            n_un = nz_un
-            n = max(1, ceil_robust(n_un))  # a margin far above the SD gives n0 near 0 (or 0 after underflow)
-        else:
-            def needed(n_: int) -> float:
-                return final(t_value(mconf, n_ - 1))
-
-            nz = ceil_robust(nz_un)
-            n, n_un, iterations = _iterate(needed, nz, lo=max(1, nz - 1), n_min=2, n_max=N)
-            df = float(n - 1)
-            mult = t_value(mconf, df)
-        x0 = base(mult) / deff
-        mname = "z" if kind == "z" else f"t({n - 1})"
-        steps.insert(0, f"n0 = {mname}^2 {vname} / B^2 = {_g(mult)}^2 * {_g(var_a)} / {_g(B)}^2 = {_g(x0)}")
-        if deff != 1.0:
-            steps.append(f"n0 * deff = {_g(x0)} * {_g(deff)} = {_g(x0 * deff)}")
-        if N is not None:
-            n_before_fpc = x0 * deff
-            if FPC_UNIT_VARIANCE[estimand] == "S2":
-                steps.append(f"FPC: n0 / (1 + n0 / N) = {_g(n_before_fpc)} / (1 + {_g(n_before_fpc)} / {N})"
-                             f" = {_g(n_un)} (Cochran 1977, mean)")
-            else:
-                steps.append(f"FPC: n0 / (1 + (n0 - 1) / N) = {_g(n_before_fpc)} / (1 + ({_g(n_before_fpc)} - 1) / {N})"
-                             f" = {_g(n_un)} (Cochran 1977, proportion)")
-    else:
-        ra = (math.sqrt(var_a) if sa is None else sa) / B
-        rb = (math.sqrt(var_b) if sb is None else sb) / B
-
-        def base_a(mult: float) -> float:
-            return mult * mult * deff * (ra * ra + rb * rb / K)
-
-        nz_un = base_a(z)
-        _too_large(nz_un)
-        if kind == "z":
-            mult = z
-            n_un = nz_un
-            n = max(1, ceil_robust(n_un))  # a margin far above the SD gives n0 near 0 (or 0 after underflow)
-        else:
-            def needed(n_: int) -> float:
-                nb_ = ceil_robust(K * n_)
-                if nb_ < 2:
-                    # group b needs two observations for an SD: not yet enough
-                    return float(n_ + 1)
-                return base_a(t_value(mconf, welch_df(ra * ra, n_, rb * rb, nb_)))
-
-            nz = ceil_robust(nz_un)
-            n, n_un, iterations = _iterate(needed, nz, lo=max(1, nz - 1), n_min=2)
-            df = welch_df(ra * ra, n, rb * rb, ceil_robust(K * n))
-            mult = t_value(mconf, df)
-        n_b = max(1, ceil_robust(K * n))
-        mname = "z" if kind == "z" else f"t({_g(df)})"
-        vb = "sd_b^2" if estimand == "mean-diff" else "p_b (1 - p_b)"
-        va = "sd_a^2" if estimand == "mean-diff" else "p_a (1 - p_a)"
-        dtext = " deff" if deff != 1.0 else ""
-        steps.append(
-            f"n_a = {mname}^2{dtext} ({va} + {vb} / K) / B^2 = {_g(mult)}^2"
-            + (f" * {_g(deff)}" if deff != 1.0 else "")
-            + f" * ({_g(var_a)} + {_g(var_b)} / {_g(K)}) / {_g(B)}^2 = {_g(n_un)}",
-        )
-
-    if kind == "t":
-        if two:
-            assumptions.append("t multiple with Welch-Satterthwaite degrees of freedom from the planning SDs")
-        else:
-            assumptions.append("t multiple with n - 1 degrees of freedom")
-        if deff != 1.0:
-            assumptions.append("degrees of freedom counted in observations, not clusters (a cluster-level "
-                               "analysis has fewer)")
-    else:
-        if estimand in ("mean", "mean-diff"):
-            assumptions.append("SD known (z multiple)")
-        else:
-            assumptions.append("normal approximation to the sampling distribution (z multiple)")
-    if v["design_effect"] is None and v["icc"] is None:
-        assumptions.append("independent observations (simple random sampling, design effect 1)")
-
-    if bound != "two-sided":
-        assumptions.append(f"one-sided {bound} limit: multiple at {_g(mconf)} two-sided, i.e. the {_g(conf)} quantile")
-    if not two:
-        steps.append(f"n = ceil({_g(n_un)}) = {n}" + (" (at least 1)" if n == 1 and n_un <= 0.5 else ""))
-    else:
-        steps.append(f"n_a = ceil({_g(n_un)}) = {n}; n_b = ceil(K n_a) = ceil({_g(K)} * {n}) = {n_b}"
-                     + (" (at least 1 each)" if min(n_un, K * n) <= 0.5 else ""))
-    clusters = clusters_b = None
-    if m is not None:
-        clusters = max(1, ceil_robust(n / m))
-        if n_b is not None:
-            clusters_b = max(1, ceil_robust(n_b / m))
-        steps.append(f"clusters = ceil(n / m) = ceil({n} / {_g(m)}) = {clusters}"
-                     + (f", group b ceil({n_b} / {_g(m)}) = {clusters_b}" if clusters_b is not None else ""))
-    if iterations is not None:
-        steps.append(f"t iteration: {iterations} evaluations of the t multiple")
-    if drop:
-        assumptions.append(f"a share {_g(drop)} of enrolled units is lost before analysis, independently of "
-                           "their values; n counts the units analysed")
-        nb_text = "" if n_b is None else f"; n_b_enrolled = {enrolled_n(n_b, drop)}"
-        steps.append(f"n_enrolled = ceil(n / (1 - dropout)) = ceil({n} / {_g(1 - drop)}) = "
-                     f"{enrolled_n(n, drop)}{nb_text}")
-
-    return FormulaResult(
-        estimand=estimand,
-        n=int(n),
-        n_b=None if n_b is None else int(n_b),
-        n_unrounded=float(n_un),
-        multiplier=float(mult),
-        multiplier_kind=kind,
-        design_effect=float(deff),
-        clusters=clusters,
-        clusters_b=clusters_b,
-        confidence=float(conf),
-        margin=float(B),
-        ratio=float(K) if two else None,
-        df=df,
-        iterations=iterations,
-        n_before_fpc=n_before_fpc,
-        population_size=N,
-        cluster_size=m,
-        sd=sa,
-        sd_b=sb if two else None,
-        p=pa,
-        p_b=pb if two else None,
-        assumptions=tuple(assumptions),
-        formula="; ".join(steps),
-        dropout=drop,
-        bound=bound,
-    )
+    plan = _plan(v, bound)
+    return _result(plan, ESTIMAND_FORMULAS[plan.estimand].solve(plan), drop)
 
 
 def check_dropout(c: Collector, field: str, value: Any) -> float:

@@ -247,7 +247,7 @@ def run_predictive(
     over the uncertainty of the planning values).
     """
     from simcheck.scenario import scenario_from_dict
-    from simcheck.tasks import resolve_seed, run_task
+    from simcheck.tasks import resolve_seed
 
     point_table, specs = split(table, source)
     scenario = scenario_from_dict(point_table, source=source, base_dir=base_dir)
@@ -257,19 +257,11 @@ def run_predictive(
     per_draw = max(1, math.ceil(reps / k))
     values = draw_values(specs, k, root)
     designs = point_designs(point_table, specs, values, source=source, base_dir=base_dir)
-    cache: dict[int, PredictiveCheck] = {}
-
-    def evaluate(m: int) -> PredictiveCheck:
-        if m not in cache:
-            cache[m] = predictive_check(designs, m, replicates_per_draw=per_draw, root=root, path=scenario.path)
-        return cache[m]
-
+    evaluate, cache = _evaluator(designs, per_draw, root, scenario.path)
     cov_target = scenario.design.confidence - scenario.coverage_tolerance
     targets = {"confidence": scenario.design.confidence, "coverage_tolerance": scenario.coverage_tolerance,
                "coverage": cov_target, "assurance": scenario.assurance, "margin": scenario.design.margin}
-    cond = run_task(scenario, "search", seed=used_seed, method=scenario.design.method)
-    if hasattr(cond, "by_method"):  # a comparison object, should the search return one for one method
-        cond = cond.by_method[0]
+    cond = _conditional_search(scenario, used_seed)
     n_cond = cond.n
     at_cond = evaluate(n_cond) if n_cond is not None else None
     start = n_cond or scenario.n_min
@@ -280,9 +272,7 @@ def run_predictive(
     if n is not None:
         evaluate(n)
     notes = _notes(specs, used_seed if fresh else None)
-    notes.append(f"interval method: {scenario.design.method}"
-                 + (f" (the first of {', '.join(scenario.methods)}; the others are not evaluated)"
-                    if len(scenario.methods) > 1 else ""))
+    notes.append(_method_note(scenario))
     return PredictiveResult(
         title=scenario.title, uncertain=specs, targets=targets, n_conditional=n_cond, conditional=cond,
         unconditional_at_conditional_n=at_cond, n_unconditional=n_unc,
@@ -293,6 +283,34 @@ def run_predictive(
         notes=tuple(notes), checked=dict(cache), point_design=scenario.design, path=scenario.path,
         dropout=scenario.dropout,
     )
+
+
+def _evaluator(designs, per_draw: int, root, path: str):
+    """``evaluate(n)``, the predictive check at n computed once, and the cache of checks by n."""
+    cache: dict[int, PredictiveCheck] = {}
+
+    def evaluate(m: int) -> PredictiveCheck:
+        if m not in cache:
+            cache[m] = predictive_check(designs, m, replicates_per_draw=per_draw, root=root, path=path)
+        return cache[m]
+
+    return evaluate, cache
+
+
+def _conditional_search(scenario, seed: int):
+    """The usual search at the point values, with the scenario's (first) method."""
+    from simcheck.tasks import run_task
+
+    cond = run_task(scenario, "search", seed=seed, method=scenario.design.method)
+    if hasattr(cond, "by_method"):  # a comparison object, should the search return one for one method
+        cond = cond.by_method[0]
+    return cond
+
+
+def _method_note(scenario) -> str:
+    return (f"interval method: {scenario.design.method}"
+            + (f" (the first of {', '.join(scenario.methods)}; the others are not evaluated)"
+               if len(scenario.methods) > 1 else ""))
 
 
 def _arguments(scenario, specs, draws, replicates, pilot_confidence, n) -> tuple[int, int, float]:

@@ -449,18 +449,7 @@ def find_n(
     root, seed = rngmod.root_sequence(rng)
     if seed is None and not root.spawn_key and isinstance(root.entropy, int):
         seed = int(root.entropy)
-    targets = _Targets(design.confidence, tol, a_t if design.margin is not None else None)
-    targets_d = {
-        "confidence": design.confidence,
-        "coverage_tolerance": tol,
-        "coverage_target": targets.coverage,
-        "margin": design.margin,
-        "assurance": targets.assurance,
-        "bound": design.bound,
-        "window": float(window),
-    }
-    if design.relative_margin is not None:
-        targets_d["relative_margin"] = design.relative_margin
+    targets, targets_d = _targets(design, a_t, tol, window)
     nf = formula_n(design)
     start = nf if nf is not None else DEFAULT_START
     start = min(max(start, lo_n), hi_n)
@@ -473,6 +462,23 @@ def find_n(
     if exact:
         return _exact_search(run, start, **ctx)
     return _simulated_search(run, start, budget, precision, **ctx)
+
+
+def _targets(design: Design, a_t: float, tol: float, window: float) -> tuple[_Targets, dict[str, Any]]:
+    """The targets the search tests, and as the result reports them."""
+    targets = _Targets(design.confidence, tol, a_t if design.margin is not None else None)
+    targets_d = {
+        "confidence": design.confidence,
+        "coverage_tolerance": tol,
+        "coverage_target": targets.coverage,
+        "margin": design.margin,
+        "assurance": targets.assurance,
+        "bound": design.bound,
+        "window": float(window),
+    }
+    if design.relative_margin is not None:
+        targets_d["relative_margin"] = design.relative_margin
+    return targets, targets_d
 
 
 def _validate(design, assurance, coverage_tolerance, replicates, n_min, n_max, budget, precision, window):

@@ -257,6 +257,37 @@ def stratified_sample_size(estimand: str, margin: float, *, names: Sequence[str]
 
     from simcheck.formulas import StratifiedFormulaResult
 
+    _check_inputs(estimand, margin, confidence, sizes, sds, ps, rule, costs, given, minimum)
+    N = np.asarray(sizes, dtype=np.float64)
+    S = np.sqrt(np.asarray(ps) * (1 - np.asarray(ps))) if estimand == "proportion" else np.asarray(sds, dtype=np.float64)
+    z = float(stats.norm.ppf(1 - (1 - confidence) / 2))
+    b = margin / N.sum() if estimand == "total" else margin
+    w = shares(rule, sizes, S, costs, given)
+    out = formula_n(b, z, sizes, S, w, minimum)
+    deff = _design_effect(N, S, w, means if means is not None else ps)
+    return StratifiedFormulaResult(
+        estimand=estimand, n=out["n"], n_b=None, n_unrounded=float(out["n_unrounded"]), multiplier=z,
+        multiplier_kind="z", design_effect=deff, clusters=None, clusters_b=None, confidence=confidence,
+        margin=margin, ratio=None, df=None, iterations=None, n_before_fpc=None, population_size=int(N.sum()),
+        cluster_size=None, sd=None, sd_b=None, p=None, p_b=None,
+        assumptions=(f"allocation {rule}", "sampling without replacement in each stratum (finite population correction)",
+                     "each n_h rounded up, at least the minimum per stratum",
+                     "design effect: variance against a simple random sample of the same n"
+                     + ("" if means is not None else " with the same within-stratum SDs (stratum means not given)")),
+        formula=f"V = (B / z)^2; {FORMS[rule]} (Cochran 1977, eqs. 5.25-5.27)",
+        allocation={str(k): int(v) for k, v in zip(names, out["n_h"])},
+    )
+
+
+#: each allocation rule's total n, as the formula text says it (Cochran 1977, eqs. 5.25-5.27)
+FORMS = {"proportional": "n0 = sum W_h S_h^2 / V, n = n0 / (1 + n0 / N)",
+         "neyman": "n = (sum W_h S_h)^2 / (V + sum W_h S_h^2 / N)",
+         "optimum": "n = (sum W_h S_h sqrt(c_h)) (sum W_h S_h / sqrt(c_h)) / (V + sum W_h S_h^2 / N)",
+         "given": "n = sum(W_h^2 S_h^2 / w_h) / (V + sum W_h S_h^2 / N)"}
+
+
+def _check_inputs(estimand, margin, confidence, sizes, sds, ps, rule, costs, given, minimum) -> None:
+    """All problems of :func:`stratified_sample_size`'s inputs at once."""
     c = Collector()
     c.number("margin", margin, low=0, low_open=True)
     c.number("confidence", confidence, low=0, high=1, low_open=True, high_open=True)
@@ -276,29 +307,15 @@ def stratified_sample_size(estimand: str, margin: float, *, names: Sequence[str]
     else:
         c.add("estimand", f"stratified samples estimate a mean, a proportion or a total, not {estimand!r}")
     c.raise_if_any()
-    N = np.asarray(sizes, dtype=np.float64)
-    S = np.sqrt(np.asarray(ps) * (1 - np.asarray(ps))) if estimand == "proportion" else np.asarray(sds, dtype=np.float64)
-    z = float(stats.norm.ppf(1 - (1 - confidence) / 2))
-    b = margin / N.sum() if estimand == "total" else margin
-    w = shares(rule, sizes, S, costs, given)
-    out = formula_n(b, z, sizes, S, w, minimum)
+
+
+def _design_effect(N: np.ndarray, S: np.ndarray, w: np.ndarray, means) -> float:
+    """Variance of the stratified mean over that of a simple random sample of the same n.
+
+    The population variance is the within-stratum part plus the spread of the
+    stratum means (taken as equal when not given).
+    """
     W = N / N.sum()
-    mu = np.asarray(means if means is not None else (ps if ps is not None else np.zeros(len(N))), dtype=np.float64)
+    mu = np.asarray(means if means is not None else np.zeros(len(N)), dtype=np.float64)
     s2_pop = float(np.sum(W * S * S) + np.sum(W * (mu - np.sum(W * mu)) ** 2))
-    deff = float(np.sum(W[w > 0] ** 2 * S[w > 0] ** 2 / w[w > 0]) / s2_pop) if s2_pop > 0 else 1.0
-    forms = {"proportional": "n0 = sum W_h S_h^2 / V, n = n0 / (1 + n0 / N)",
-             "neyman": "n = (sum W_h S_h)^2 / (V + sum W_h S_h^2 / N)",
-             "optimum": "n = (sum W_h S_h sqrt(c_h)) (sum W_h S_h / sqrt(c_h)) / (V + sum W_h S_h^2 / N)",
-             "given": "n = sum(W_h^2 S_h^2 / w_h) / (V + sum W_h S_h^2 / N)"}
-    return StratifiedFormulaResult(
-        estimand=estimand, n=out["n"], n_b=None, n_unrounded=float(out["n_unrounded"]), multiplier=z,
-        multiplier_kind="z", design_effect=deff, clusters=None, clusters_b=None, confidence=confidence,
-        margin=margin, ratio=None, df=None, iterations=None, n_before_fpc=None, population_size=int(N.sum()),
-        cluster_size=None, sd=None, sd_b=None, p=None, p_b=None,
-        assumptions=(f"allocation {rule}", "sampling without replacement in each stratum (finite population correction)",
-                     "each n_h rounded up, at least the minimum per stratum",
-                     "design effect: variance against a simple random sample of the same n"
-                     + ("" if means is not None else " with the same within-stratum SDs (stratum means not given)")),
-        formula=f"V = (B / z)^2; {forms[rule]} (Cochran 1977, eqs. 5.25-5.27)",
-        allocation={str(k): int(v) for k, v in zip(names, out["n_h"])},
-    )
+    return float(np.sum(W[w > 0] ** 2 * S[w > 0] ** 2 / w[w > 0]) / s2_pop) if s2_pop > 0 else 1.0

@@ -115,6 +115,39 @@ def run_task(
         All problems with the arguments at once.
     """
     names = {**DEFAULT_FIELDS, **(fields or {})}
+    a = _checked_arguments(scenario, task, names, n=n, n_min=n_min, n_max=n_max, step=step, method=method,
+                           replicates=replicates, seed=seed)
+    if validate_only:
+        return None
+    root, _ = resolve_seed(scenario, seed)
+    if scenario.uncertain:
+        return conditional_note(run_task(
+            dataclasses.replace(scenario, uncertain=()), task, n=n, n_min=n_min, n_max=n_max, step=step,
+            method=method, replicates=replicates, seed=seed, progress=progress, fields=fields), scenario)
+    if task == "check":
+        out = _run_checks(scenario, a, root, progress)
+        return out[0] if isinstance(n, Integral) else out
+    if task == "curve":
+        from simcheck import engine
+
+        return engine.curve(a.design, a.n_list, replicates=a.reps, rng=root, path=scenario.path, progress=progress)
+    return _run_search(scenario, a, method, root, progress)
+
+
+@dataclasses.dataclass(frozen=True)
+class _Arguments:
+    """The checked arguments of :func:`run_task`."""
+
+    design: Design  # the scenario's, or with the method asked for
+    reps: int
+    lo: int | None  # n_min
+    hi: int | None  # n_max
+    n_list: list[int] | None  # check: the n given; curve: the n to evaluate
+
+
+def _checked_arguments(scenario: Scenario, task: str, names: Mapping[str, str], *, n, n_min, n_max, step, method,
+                       replicates, seed) -> _Arguments:
+    """All problems with the arguments at once, else the values the task runs with."""
     c = Collector()
     if task not in TASKS:
         c.add(names["task"], f"must be one of {', '.join(TASKS)}, got {task!r}")
@@ -130,7 +163,6 @@ def run_task(
     if method is not None:
         design = _method_design(c, scenario, method, names["method"])
     n_cap = _n_cap(scenario)
-
     lo = _n_arg(c, names["n_min"], n_min, n_cap - 1) if n_min is not None else scenario.n_min
     hi = _n_arg(c, names["n_max"], n_max, n_cap) if n_max is not None else min(scenario.n_max, n_cap)
     if lo is not None and hi is not None and hi <= lo and task in ("curve", "search"):
@@ -142,54 +174,53 @@ def run_task(
         else:
             n_list = _n_values(c, names["n"], n, n_cap)
     elif task == "curve":
-        if n is not None:
-            n_list = _n_values(c, names["n"], n, n_cap)
-            if n_list is not None and len(set(n_list)) > CURVE_POINTS_MAX:
-                c.add(names["n"], f"gives {len(set(n_list))} values of n, over the limit of {CURVE_POINTS_MAX} per curve")
-                n_list = None
-        st = 1
-        if step is not None:
-            st = c.number(names["step"], step, low=1, high=N_LIMIT, integer=True)
-        if n_list is None and lo is not None and hi is not None and st is not None and hi > lo:
-            count = len(range(lo, hi + 1, st)) + ((hi - lo) % st != 0)
-            if count > CURVE_POINTS_MAX:
-                c.add(names["step"], f"the curve {lo}..{hi} in steps of {st} has {count} values of n, over the limit of "
-                                     f"{CURVE_POINTS_MAX} per curve (each keeps its half-widths in memory); "
-                                     f"use a larger step or a narrower range")
-            else:
-                n_list = list(range(lo, hi + 1, st))
-                if n_list[-1] != hi:
-                    n_list.append(hi)  # the range's end is always evaluated
+        n_list = _curve_n_values(c, names, n, step, lo, hi, n_cap)
     elif task == "search" and n is not None:
         c.add(names["n"], "not used by task 'search' (it finds n); give n_min / n_max instead")
     c.raise_if_any()
-    if validate_only:
-        return None
+    return _Arguments(design=design, reps=reps, lo=lo, hi=hi, n_list=n_list)
 
-    root, _ = resolve_seed(scenario, seed)
-    if scenario.uncertain:
-        return conditional_note(run_task(
-            dataclasses.replace(scenario, uncertain=()), task, n=n, n_min=n_min, n_max=n_max, step=step,
-            method=method, replicates=replicates, seed=seed, progress=progress, fields=fields), scenario)
-    if task == "check" and scenario.random_dropout:
+
+def _curve_n_values(c: Collector, names: Mapping[str, str], n, step, lo: int | None, hi: int | None,
+                    n_cap: int) -> list[int] | None:
+    """The n of a curve: the values given, else lo..hi in steps (the end always included)."""
+    n_list = None
+    if n is not None:
+        n_list = _n_values(c, names["n"], n, n_cap)
+        if n_list is not None and len(set(n_list)) > CURVE_POINTS_MAX:
+            c.add(names["n"], f"gives {len(set(n_list))} values of n, over the limit of {CURVE_POINTS_MAX} per curve")
+            n_list = None
+    st = 1
+    if step is not None:
+        st = c.number(names["step"], step, low=1, high=N_LIMIT, integer=True)
+    if n_list is None and lo is not None and hi is not None and st is not None and hi > lo:
+        count = len(range(lo, hi + 1, st)) + ((hi - lo) % st != 0)
+        if count > CURVE_POINTS_MAX:
+            c.add(names["step"], f"the curve {lo}..{hi} in steps of {st} has {count} values of n, over the limit of "
+                                 f"{CURVE_POINTS_MAX} per curve (each keeps its half-widths in memory); "
+                                 f"use a larger step or a narrower range")
+        else:
+            n_list = list(range(lo, hi + 1, st))
+            if n_list[-1] != hi:
+                n_list.append(hi)  # the range's end is always evaluated
+    return n_list
+
+
+def _run_checks(scenario: Scenario, a: _Arguments, root: int, progress: Progress) -> list:
+    """One check per n (a binomial analysed n under simulation.random_dropout)."""
+    if scenario.random_dropout:
         from simcheck.dropout import check_random_dropout
 
-        out = [check_random_dropout(design, k, scenario.dropout, replicates=reps, rng=root, path=scenario.path)
-               for k in n_list]
-        return out[0] if isinstance(n, Integral) else out
-    if task == "check":
-        from simcheck import engine
+        return [check_random_dropout(a.design, k, scenario.dropout, replicates=a.reps, rng=root, path=scenario.path)
+                for k in a.n_list]
+    from simcheck import engine
 
-        out = [
-            engine.check(design, k, replicates=reps, rng=root, path=scenario.path, progress=progress)
-            for k in n_list
-        ]
-        return out[0] if isinstance(n, Integral) else out
-    if task == "curve":
-        from simcheck import engine
+    return [engine.check(a.design, k, replicates=a.reps, rng=root, path=scenario.path, progress=progress)
+            for k in a.n_list]
 
-        return engine.curve(design, n_list, replicates=reps, rng=root, path=scenario.path, progress=progress)
 
+def _run_search(scenario: Scenario, a: _Arguments, method: str | None, root: int, progress: Progress) -> Any:
+    """find_n for one method, compare for several; with dropout, allocation and the random-dropout note."""
     import importlib
 
     # the module: the package attribute `simcheck.search` is the API function
@@ -198,37 +229,41 @@ def run_task(
     kwargs: dict[str, Any] = dict(
         assurance=scenario.assurance,
         coverage_tolerance=scenario.coverage_tolerance,
-        replicates=reps,
+        replicates=a.reps,
         rng=root,
-        n_min=lo,
-        n_max=hi,
+        n_min=a.lo,
+        n_max=a.hi,
         budget=scenario.budget,
         progress=progress,
         window=scenario.window,
     )
     if method is None and len(scenario.methods) > 1:
         fn = search.compare
-        args: tuple = (design, list(scenario.methods))
+        args: tuple = (a.design, list(scenario.methods))
     else:
         fn = search.find_n
-        args = (design,)
+        args = (a.design,)
     # compare() forwards its keywords to find_n()
     if scenario.path != "auto" and "path" in inspect.signature(search.find_n).parameters:
         kwargs["path"] = scenario.path
-    result = with_allocation(with_dropout(fn(*args, **kwargs), scenario.dropout), design)
+    result = with_allocation(with_dropout(fn(*args, **kwargs), scenario.dropout), a.design)
     if scenario.random_dropout:
         text = ("simulation.random_dropout applies to check only: this search uses the analysed n as fixed "
                 "and reports n_enrolled = ceil(n / (1 - dropout))")
-        if hasattr(result, "by_method"):
-            return dataclasses.replace(result, by_method=tuple(
-                dataclasses.replace(r, notes=tuple(r.notes) + (text,)) for r in result.by_method))
-        return dataclasses.replace(result, notes=tuple(result.notes) + (text,))
+        return _each(result, lambda r: dataclasses.replace(r, notes=tuple(r.notes) + (text,)))
     return result
+
+
+def _each(result: Any, one: Callable[[Any], Any]) -> Any:
+    """``one`` applied to a search result, or to each method's result of a comparison."""
+    if hasattr(result, "by_method"):
+        return dataclasses.replace(result, by_method=tuple(one(r) for r in result.by_method))
+    return one(result)
 
 
 def conditional_note(result: Any, scenario: Scenario) -> Any:
     """The result(s) noting that they hold at the point values of uncertain planning values."""
-    from simcheck.results import CurveResult, MethodComparison
+    from simcheck.results import CurveResult
 
     keys = ", ".join(u.key for u in scenario.uncertain)
     text = (f"conditional on the point values of {keys} (given as distributions); "
@@ -241,17 +276,11 @@ def conditional_note(result: Any, scenario: Scenario) -> Any:
         return [one(r) for r in result]
     if isinstance(result, CurveResult):
         return dataclasses.replace(result, rows=tuple(one(r) for r in result.rows))
-    if isinstance(result, MethodComparison):
-        return dataclasses.replace(result, by_method=tuple(one(r) for r in result.by_method))
-    return one(result)
+    return _each(result, one)
 
 
 def with_allocation(result: Any, design: Design) -> Any:
     """Stratified designs: the search result(s) with the n of each stratum at the n found."""
-    import dataclasses
-
-    from simcheck.results import MethodComparison
-
     if design.strata is None:
         return result
     from simcheck.engine.stratified import allocation_for
@@ -259,17 +288,12 @@ def with_allocation(result: Any, design: Design) -> Any:
     def one(r):
         return dataclasses.replace(r, allocation=None if r.n is None else allocation_for(design, r.n))
 
-    if isinstance(result, MethodComparison):
-        return dataclasses.replace(result, by_method=tuple(one(r) for r in result.by_method))
-    return one(result)
+    return _each(result, one)
 
 
 def with_dropout(result: Any, dropout: float) -> Any:
     """The search result(s) carrying ``target.dropout`` (for ``n_enrolled``)."""
-    import dataclasses
-
     from simcheck.formulas import enrolled_n
-    from simcheck.results import MethodComparison
 
     def one(r):
         return dataclasses.replace(
@@ -280,9 +304,7 @@ def with_dropout(result: Any, dropout: float) -> Any:
 
     if not dropout:
         return result
-    if isinstance(result, MethodComparison):
-        return dataclasses.replace(result, by_method=tuple(one(r) for r in result.by_method))
-    return one(result)
+    return _each(result, one)
 
 
 def _method_design(c: Collector, scenario: Scenario, method: Any, name: str) -> Design:

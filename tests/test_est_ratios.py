@@ -230,7 +230,8 @@ def enumerate_measures(limits, na, pa, nb, pb, truth, margin):
     order = np.argsort(logs)
     cum = np.cumsum(weights[order]) / weights.sum()
     median = math.exp(logs[order][np.searchsorted(cum, 0.5 - 1e-12)])
-    gmean = math.exp(float(np.dot(logs, weights) / weights.sum()))
+    fin = np.isfinite(logs)  # the margin mean is taken over bounded intervals (README, "What a check measures")
+    gmean = math.exp(float(np.dot(logs[fin], weights[fin]) / weights[fin].sum()))
     return {"coverage": cov, "miss_low": low, "miss_high": high, "assurance": ass, "median": median, "mean": gmean}
 
 

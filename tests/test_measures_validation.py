@@ -10,6 +10,7 @@ import json
 import math
 
 import pytest
+from fixtures import write_toml
 from scipy import stats
 
 from simcheck.cli import main
@@ -24,69 +25,42 @@ def cli(capsys, *argv):
     return rc, out, err
 
 
-def _write(tmp_path, name, text):
-    f = tmp_path / name
-    f.write_text(text)
-    return f
+def _scenario(tmp_path, method: str, estimand: str, margin: float, name: str = "s.toml", **tables):
+    """An invented scenario file: the target, the method, 500 replicates, seed 1, and ``tables``."""
+    table = {"title": "invented", "method": {"interval": method}, "simulation": {"replicates": 500, "seed": 1},
+             "target": {"estimand": estimand, "margin": margin}, **tables}
+    return write_toml(tmp_path / name, table)
 
 
-BASE = """
-title = "invented"
-[method]
-interval = "{method}"
-[simulation]
-replicates = 500
-seed = 1
-"""
+BERNOULLI = {"model": "bernoulli", "p": 0.3}
+CLUSTERS = {"icc": 0.05, "size": 10, "effect": "gamma"}
 
 
 # --- clusters.effect on 0/1 data ---------------------------------------------
-def test_gamma_cluster_effect_on_0_1_data_is_refused(capsys, tmp_path):
-    f = _write(tmp_path, "s.toml", BASE.format(method="wilson") + """
-[target]
-estimand = "proportion"
-margin = 0.05
-[data]
-model = "bernoulli"
-p = 0.2
-[clusters]
-icc = 0.05
-size = 10
-effect = "gamma"
-""")
+@pytest.mark.parametrize("method,estimand,margin,data,refused", [
+    ("wilson", "proportion", 0.05, BERNOULLI, True),
+    # continuous data keep the gamma effect
+    ("cluster-t", "mean", 1.0, {"model": "lognormal", "mean": 5, "cv": 1}, False),
+])
+def test_gamma_cluster_effect_is_refused_on_0_1_data_only(capsys, tmp_path, method, estimand, margin, data, refused):
+    f = _scenario(tmp_path, method, estimand, margin, data=data, clusters=CLUSTERS)
+    if not refused:
+        assert load_scenario(f).design.clusters.effect == "gamma"
+        return
     rc, out, err = cli(capsys, "check", f, "--n", 20)
     assert rc == 2 and out == "" and err.count("\n") == 1
     assert err.startswith("simcheck: error: ") and "clusters.effect" in err and "beta-binomial" in err
-    # continuous data keep the gamma effect
-    g = _write(tmp_path, "g.toml", BASE.format(method="cluster-t") + """
-[target]
-estimand = "mean"
-margin = 1.0
-[data]
-model = "lognormal"
-mean = 5
-cv = 1
-[clusters]
-icc = 0.05
-size = 10
-effect = "gamma"
-""")
-    assert load_scenario(g).design.clusters.effect == "gamma"
 
 
 # --- a proportion margin of 10 -------------------------------------------------
 @pytest.mark.parametrize("estimand,data,margin", [
-    ("proportion", '[data]\nmodel = "bernoulli"\np = 0.3\n', 10),
-    ("proportion", '[data]\nmodel = "bernoulli"\np = 0.3\n', 1),
-    ("proportion-diff", '[data.a]\nmodel = "bernoulli"\np = 0.3\n[data.b]\nmodel = "bernoulli"\np = 0.2\n', 1.5),
+    ("proportion", BERNOULLI, 10),
+    ("proportion", BERNOULLI, 1),
+    ("proportion-diff", {"a": BERNOULLI, "b": {"model": "bernoulli", "p": 0.2}}, 1.5),
 ])
 def test_proportion_margin_of_one_or_more_is_refused_as_formula_does(capsys, tmp_path, estimand, data, margin):
     method = "wilson" if estimand == "proportion" else "newcombe"
-    f = _write(tmp_path, "s.toml", BASE.format(method=method) + f"""
-[target]
-estimand = "{estimand}"
-margin = {margin}
-""" + data)
+    f = _scenario(tmp_path, method, estimand, margin, data=data)
     rc, out, err = cli(capsys, "search", f)
     assert rc == 2 and out == "" and err.count("\n") == 1 and "target.margin: must be < 1" in err
     # the closed form refuses it too (the same rule)
@@ -96,37 +70,23 @@ margin = {margin}
 
 
 # --- implausible CVs warn --------------------------------------------------------
-def test_cv_80_and_size_cv_40_warn_on_stderr_and_in_notes(capsys, tmp_path):
-    f = _write(tmp_path, "s.toml", BASE.format(method="t") + """
-[target]
-estimand = "mean"
-margin = 50
-[data]
-model = "lognormal"
-mean = 100
-cv = 80
-[clusters]
-icc = 0.05
-size_mean = 10
-size_cv = 40
-""")
+@pytest.mark.parametrize("cv,clusters,warned", [
+    (80, {"icc": 0.05, "size_mean": 10, "size_cv": 40}, ("data.cv = 80", "clusters.size_cv = 40")),
+    (0.8, None, ()),
+])
+def test_cv_80_and_size_cv_40_warn_on_stderr_and_in_notes(capsys, tmp_path, cv, clusters, warned):
+    tables = {"data": {"model": "lognormal", "mean": 100, "cv": cv}}
+    if clusters is not None:
+        tables["clusters"] = clusters
+    f = _scenario(tmp_path, "t", "mean", 50, **tables)
     rc, out, err = cli(capsys, "check", f, "--n", 30, "--json")
     assert rc == 0
     notes = json.loads(out)["notes"]
-    for key in ("data.cv = 80", "clusters.size_cv = 40"):
+    for key in warned:
         assert any(key in t for t in notes), key
         assert any(key in line for line in err.splitlines()), key
-    ok = _write(tmp_path, "ok.toml", BASE.format(method="t") + """
-[target]
-estimand = "mean"
-margin = 50
-[data]
-model = "lognormal"
-mean = 100
-cv = 0.8
-""")
-    rc, out, err = cli(capsys, "check", ok, "--n", 30, "--json")
-    assert rc == 0 and "warning" not in err and not any("warning" in t for t in json.loads(out)["notes"])
+    if not warned:
+        assert "warning" not in err and not any("warning" in t for t in notes)
 
 
 def test_lognormal_given_sd_suggests_cv():
@@ -144,53 +104,31 @@ def _ledger(tmp_path):
     return values
 
 
-def test_population_file_without_data_table(capsys, tmp_path):
+#: a [data] table beside population.file is not used: the file gives the values (a normal SD of 400
+#: would give n = 585 of 600)
+UNUSED_DATA = {"model": "normal", "mean": 1000, "sd": 400}
+
+
+@pytest.mark.parametrize("data_table", [None, UNUSED_DATA], ids=["no-data-table", "data-table-ignored"])
+def test_population_file_supplies_the_values(capsys, tmp_path, data_table):
     values = _ledger(tmp_path)
-    f = _write(tmp_path, "s.toml", BASE.format(method="t") + """
-[target]
-estimand = "mean"
-margin = 0.5
-[population]
-file = "ledger.csv"
-column = "amount"
-""")
+    tables = {} if data_table is None else {"data": data_table}
+    f = _scenario(tmp_path, "t", "mean", 0.5, population={"file": "ledger.csv", "column": "amount"}, **tables)
     s = load_scenario(f)
-    assert "ledger.csv" in s.describe_data()
-    # the closed form from the file's values: Cochran (1977), section 4.6,
-    # n0 = (z S / B)^2 with S on divisor N - 1, n = n0 / (1 + n0 / N), rounded up
     N = len(values)
     mean = sum(values) / N
+    assert s.design.model.mean == pytest.approx(mean)
+    assert "ledger.csv" in s.describe_data() and "1000" not in s.describe_data()
+    # the closed form from the file's values: Cochran (1977), section 4.6,
+    # n0 = (z S / B)^2 with S on divisor N - 1, n = n0 / (1 + n0 / N), rounded up
     S2 = sum((v - mean) ** 2 for v in values) / (N - 1)
     n0 = stats.norm.ppf(0.975) ** 2 * S2 / 0.5**2
     assert formula_n(s.design) == math.ceil(n0 / (1 + n0 / N))
     rc, out, err = cli(capsys, "search", f, "--json", "--budget", 5000)
     assert rc == 0 and json.loads(out)["n_formula"] == math.ceil(n0 / (1 + n0 / N))
+    assert ("[data] is not used" in err) == bool(data_table)
+    rc, out, err = cli(capsys, "check", f, "--n", 40, "--json")
+    assert rc == 0 and ("[data] is not used" in err) == bool(data_table)
     # round trip of the resolved scenario (sweeps hash it)
     again = scenario_from_dict(s.to_dict(), base_dir=tmp_path)
     assert again.design.model.mean == pytest.approx(mean)
-
-
-def test_population_file_ignores_data_table_and_says_so(capsys, tmp_path):
-    values = _ledger(tmp_path)
-    f = _write(tmp_path, "s.toml", BASE.format(method="t") + """
-[target]
-estimand = "mean"
-margin = 0.5
-[data]
-model = "normal"
-mean = 1000
-sd = 400
-[population]
-file = "ledger.csv"
-column = "amount"
-""")
-    s = load_scenario(f)
-    assert s.design.model.mean == pytest.approx(sum(values) / len(values))
-    assert "1000" not in s.describe_data()
-    # the planning SD is the file's S, not the table's 400 (which gives n = 585 of 600)
-    N = len(values)
-    mean = sum(values) / N
-    n0 = stats.norm.ppf(0.975) ** 2 * sum((v - mean) ** 2 for v in values) / (N - 1) / 0.5**2
-    assert formula_n(s.design) == math.ceil(n0 / (1 + n0 / N))
-    rc, out, err = cli(capsys, "check", f, "--n", 40, "--json")
-    assert rc == 0 and "[data] is not used" in err

@@ -113,3 +113,112 @@ def test_ordered_map_keeps_order_and_bounds_work():
     assert list(ordered_map(work, range(50), 3)) == [i * i for i in range(50)]
     assert peak[0] <= 3
     assert list(ordered_map(work, range(7), 1)) == [i * i for i in range(7)]
+
+
+# --- clustered samples and finite populations on threads ---------------------
+def _cluster_designs():
+    from simcheck.design import ClusterSpec, PopulationSpec
+
+    gamma = make_model({"model": "gamma", "mean": 4.0, "cv": 0.8})
+    normal = make_model(NORMAL)
+    return [
+        ("cluster-t nested, varying sizes", Design(model=normal, method="cluster-t", margin=1.0,
+                                                   clusters=ClusterSpec(icc=0.05, size_mean=8, size_cv=0.5)),
+         range(4, 40, 3), "nested"),
+        ("cluster-t full", Design(model=gamma, method="cluster-t", margin=1.0, clusters=ClusterSpec(icc=0.05, size=6)),
+         [12], "full"),
+        ("wilson on clustered 0/1", Design(model=make_model({"model": "bernoulli", "p": 0.3}), estimand="proportion",
+                                           method="wilson", margin=0.1,
+                                           clusters=ClusterSpec(icc=0.1, size_mean=5, size_cv=0.3)),
+         range(3, 30, 3), "auto"),
+        ("finite clusters", Design(model=normal, method="cluster-t", margin=1.0,
+                                   clusters=ClusterSpec(icc=0.05, size=6, count=60)), range(4, 61, 4), "auto"),
+        ("finite clusters, total", Design(model=gamma, estimand="total", method="cluster-t", margin=400.0,
+                                          clusters=ClusterSpec(icc=0.2, size=5, count=40)), range(4, 41, 6), "auto"),
+        ("population t", Design(model=gamma, method="t", margin=0.5, population=PopulationSpec(size=500)),
+         range(5, 300, 15), "auto"),
+        ("population cox, no fpc", Design(model=make_model(LOGNORMAL), method="cox", margin=1.0,
+                                          population=PopulationSpec(size=800, fpc=False)), [40], "full"),
+        ("population bootstrap", Design(model=make_model(LOGNORMAL), method="bootstrap-percentile", resamples=99,
+                                        margin=1.0, population=PopulationSpec(size=300, fpc=False)), [12], "full"),
+    ]
+
+
+@pytest.mark.parametrize("label", [c[0] for c in _cluster_designs()])
+def test_clustered_and_population_identical_for_1_2_3_threads(label):
+    # the clustered and population paths run their random blocks on threads too;
+    # every block is reduced to counts and sums where it was drawn and merged in
+    # block order, so the thread count cannot change a bit
+    _, d, ns, path = next(c for c in _cluster_designs() if c[0] == label)
+    R = 1_500 if "bootstrap" in label else 9_000
+    runs = [engine.curve(d, ns, replicates=R, rng=21, path=path, threads=t) for t in (1, 2, 3)]
+    for other in runs[1:]:
+        for a, b in zip(runs[0].rows, other.rows):
+            _same(a, b)
+
+
+# --- measures reduced where they are computed ---------------------------------
+def test_reducing_in_slabs_gives_the_bits_of_one_reduction():
+    # A unit reduced slab by slab (``more=True``) must give exactly the float sums
+    # of reducing it at once: numpy sums the rows of a C-ordered array one after
+    # another along axis 0, and the slabs continue that order.
+    from simcheck.engine.measures import Accumulator
+
+    g = np.random.default_rng(5)
+    b, k = 203, 7
+    centre = g.normal(0.0, 1.0, (b, k))
+    half = g.gamma(2.0, 0.5, (b, k)) * 10.0 ** g.uniform(-3, 3, (b, k))
+    lo, hi = centre - half, centre + half
+    lo[17, 3] = np.nan  # an interval that could not be computed
+    half_z = half.copy()
+    half_z[40, 2] = 0.0  # a zero-width interval
+    for symmetric in (True, False):
+        whole = Accumulator(k, b, margin=1.5)
+        slabs = Accumulator(k, b, margin=1.5)
+        red = slabs.reducer(0.0)
+        if symmetric:
+            whole.add_symmetric(centre, half_z, 0.0)
+            for i in range(0, b, 29):
+                red.add_symmetric(centre[i:i + 29], half_z[i:i + 29], more=i > 0)
+        else:
+            whole.add(lo, hi, 0.0)
+            for i in range(0, b, 29):
+                red.add(lo[i:i + 29], hi[i:i + 29], more=i > 0)
+        slabs.merge(red.partial())
+        for acc in (whole, slabs):
+            acc.finish()
+        assert len(whole.block_sums) == len(slabs.block_sums) == 1
+        for name in ("hw_sum", "hw_squares", "low", "high", "nan", "degenerate", "assured", "unbounded", "covered"):
+            np.testing.assert_array_equal(getattr(whole, name), getattr(slabs, name), err_msg=name)
+        np.testing.assert_array_equal(whole.hw, slabs.hw)
+
+
+def test_slab_size_changes_no_number(monkeypatch):
+    # slabs are a cache device only: whole units give the same bits
+    from simcheck.engine import simple
+
+    d = _design(dict(model=LOGNORMAL, method="t"))
+    ns = range(2, 90)
+    monkeypatch.setattr(simple, "SLAB_VALUES", 1 << 12)  # 46 rows: about 30 slabs per unit
+    ref = engine.curve(d, ns, replicates=4_000, rng=22, threads=1)
+    monkeypatch.setattr(simple, "SLAB_VALUES", simple.UNIT_VALUES * 4)  # whole units
+    other = engine.curve(d, ns, replicates=4_000, rng=22, threads=2)
+    for a, b in zip(ref.rows, other.rows):
+        _same(a, b)
+
+
+def test_t_quantiles_of_a_curve_are_cached_but_exact():
+    # The t interval along a curve asks for the t quantile of every n once per
+    # slab; the cached row must be scipy's own quantiles (reference: scipy.stats.t.ppf
+    # called here, element by element), on the first call and on later ones.
+    from scipy import stats
+
+    from simcheck.intervals import Summary
+    from simcheck.intervals.mean import t_centre_half
+
+    n = np.arange(2, 60)
+    var = np.linspace(0.5, 3.0, n.size)
+    for _ in range(2):  # the second call is served from the cache
+        _, half = t_centre_half(Summary(n=n, mean=np.zeros(n.size), var=var.copy()), 0.9)
+        ref = np.array([stats.t.ppf(0.95, k - 1) * np.sqrt(v / k) for k, v in zip(n, var)])
+        np.testing.assert_allclose(half, ref, rtol=1e-13)

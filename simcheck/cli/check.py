@@ -12,9 +12,9 @@ import time
 from typing import Any, Sequence
 
 from simcheck import CAUTION
-from simcheck.cli.common import add_json, add_sim_overrides, emit_json, note, table
+from simcheck.cli.common import emit_json, note, table
 from simcheck.bound_text import bound_words, coverage_words, result_lines, units_text
-from simcheck.cli.options import add_allow_outside
+from simcheck.cli.options import add_closing_options, add_scenario_argument
 
 #: how run_task's arguments are called on the command line
 CLI_FIELDS = {
@@ -40,32 +40,16 @@ def add_parser(subparsers) -> None:
             "Where mathematics allows (0/1 data, normal data with z or t) the numbers are exact."
         ),
     )
-    p.add_argument("scenario", metavar="SCENARIO", help="scenario file (TOML)")
+    add_scenario_argument(p)
     p.add_argument("--n", type=int, required=True, metavar="N",
                    help="sample size to check (group a for two-sample estimands; clusters when clustered)")
-    add_method_option(p)
-    add_bound_option(p)
-    add_sim_overrides(p)
-    add_json(p)
-    add_allow_outside(p)
-    p.set_defaults(run=run)
-
-
-def add_bound_option(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--bound", choices=("two-sided", "upper", "lower"), metavar="B",
-                   help="two-sided, upper or lower: an interval or a one-sided confidence limit "
-                        "(overrides target.bound)")
+    add_closing_options(p, run, method=True, simulation=True, outside_files=True)
 
 
 def bound_overrides(args: argparse.Namespace) -> dict[str, Any]:
     """Scenario overrides from --bound (empty when not given)."""
     b = getattr(args, "bound", None)
     return {} if b is None else {"target.bound": b}
-
-
-def add_method_option(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--method", metavar="NAME",
-                   help="interval method to use (default: the first in the scenario's method.interval)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -116,16 +100,7 @@ def _p(x: Any) -> str:
 def report(scenario, rows: Sequence[Any]) -> str:
     """Scenario header, one table row per result, exactness and the caution line."""
     d = scenario.design.with_method(rows[0].method) if rows else scenario.design
-    lines = [scenario.title, ""]
-    if d.two_sample:
-        lines.append(f"data a:      {d.model.describe()}")
-        lines.append(f"data b:      {d.model_b.describe()}  (n_b = {d.ratio:g} x n)")
-    elif d.strata is not None:
-        for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models):
-            lines.append(f"stratum:     {name} (N = {size}): {m.describe()}")
-        lines.append(f"allocation:  {d.strata.rule}; n counts the whole sample")
-    else:
-        lines.append(f"data:        {d.model.describe()}")
+    lines = [scenario.title, "", *data_lines(d)]
     if d.clusters is not None:
         cl = d.clusters
         size = f"size {cl.size}" if cl.size is not None else f"size mean {cl.size_mean:g}, CV {cl.size_cv:g}"
@@ -135,6 +110,28 @@ def report(scenario, rows: Sequence[Any]) -> str:
         fpc = "with" if pop.fpc else "without"
         count = f", {pop.events} with the event (a fixed count)" if pop.events is not None else ""
         lines.append(f"population:  {pop.size} units{count}, sampled without replacement ({fpc} finite population correction)")
+    lines += _target_lines(scenario, d, rows)
+    lines.append("")
+    lines.append(_rows_table(d, rows))
+    lines.append("")
+    lines += _closing_lines(d, rows)
+    return "\n".join(lines)
+
+
+def data_lines(d) -> list[str]:
+    """The data model(s) of a design: groups a and b, each stratum, or the one model."""
+    if d.two_sample:
+        return [f"data a:      {d.model.describe()}",
+                f"data b:      {d.model_b.describe()}  (n_b = {d.ratio:g} x n)"]
+    if d.strata is not None:
+        return [*(f"stratum:     {name} (N = {size}): {m.describe()}"
+                  for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models)),
+                f"allocation:  {d.strata.rule}; n counts the whole sample"]
+    return [f"data:        {d.model.describe()}"]
+
+
+def _target_lines(scenario, d, rows: Sequence[Any]) -> list[str]:
+    """The true value, the method and its target, and how the rows were computed."""
     what = {"mean": "mean", "proportion": "proportion", "mean-diff": "difference of means a - b",
             "proportion-diff": "difference of proportions a - b", "total": "population total"}.get(d.estimand)
     if what is None:
@@ -143,7 +140,7 @@ def report(scenario, rows: Sequence[Any]) -> str:
         what = spec_for(d.estimand).label
     # the result's true value: for a finite population it is the population's mean, not the model's
     true = rows[0].true_value if rows else d.true_value
-    lines.append(f"true value:  {_g(float(true), 6)} ({what})")
+    lines = [f"true value:  {_g(float(true), 6)} ({what})"]
     for m in (d.model, d.model_b):
         if m is not None and m.true_value_note:
             lines.append(f"             note: {m.true_value_note}")
@@ -156,7 +153,10 @@ def report(scenario, rows: Sequence[Any]) -> str:
         r0 = rows[0]
         sim = "exact (no simulation)" if all(r.exact for r in rows) else f"{r0.replicates} replicates"
         lines.append(f"run:         {sim}, seed {r0.seed}")
-    lines.append("")
+    return lines
+
+
+def _rows_table(d, rows: Sequence[Any]) -> str:
     two = d.two_sample
     headers = ["n"] + (["n_b"] if two else []) + [
         "coverage", "+/- mcse", "miss low", "miss high",
@@ -172,8 +172,12 @@ def report(scenario, rows: Sequence[Any]) -> str:
         if r.exact and not all(x.exact for x in rows):
             row[0] += "*"
         body.append(row)
-    lines.append(table(headers, body))
-    lines.append("")
+    return table(headers, body)
+
+
+def _closing_lines(d, rows: Sequence[Any]) -> list[str]:
+    """What exact means, what the measures are, the results in words, the notes and the caution."""
+    lines = []
     if rows and all(r.exact for r in rows):
         lines.append("exact: computed by enumeration or exact law, not simulation (MCSE 0).")
     elif any(r.exact for r in rows):
@@ -196,7 +200,7 @@ def report(scenario, rows: Sequence[Any]) -> str:
         lines.append(f"note: {t}")
     lines.append("")
     lines.append(CAUTION)
-    return "\n".join(lines)
+    return lines
 
 
 # --- progress (stderr only) -----------------------------------------------------
@@ -216,24 +220,36 @@ class Progress:
         self.last = None
         self.bar = None
 
+    def _has_bar(self, elapsed: float, total: int | None) -> bool:
+        """Whether the terminal bar shows (it appears once the run has taken ``delay`` seconds)."""
+        if self.bar is None:
+            if elapsed < self.delay:
+                return False
+            from tqdm import tqdm
+
+            self.bar = tqdm(total=total, file=self.stream, unit="rep", leave=False, dynamic_ncols=True)
+        return True
+
+    def _line_due(self, now: float, elapsed: float) -> bool:
+        """Whether a plain progress line is due (after ``quiet`` seconds, then every ``every``)."""
+        if elapsed < self.quiet or (self.last is not None and now - self.last < self.every):
+            return False
+        self.last = now
+        return True
+
     def __call__(self, done: int, total: int) -> None:
         now = time.monotonic()
         elapsed = now - self.start
         if self.tty:
-            if self.bar is None:
-                if elapsed < self.delay:
-                    return
-                from tqdm import tqdm
-
-                self.bar = tqdm(total=total, file=self.stream, unit="rep", leave=False, dynamic_ncols=True)
+            if not self._has_bar(elapsed, total):
+                return
             if self.bar.total != total:
                 self.bar.total = total
             self.bar.n = min(done, total)
             self.bar.refresh()
             return
-        if elapsed < self.quiet or (self.last is not None and now - self.last < self.every):
+        if not self._line_due(now, elapsed):
             return
-        self.last = now
         share = 100.0 * done / total if total else 100.0
         self.stream.write(f"simcheck: {share:.0f}% done ({done} of {total}), {elapsed:.0f} s\n")
         self.stream.flush()
@@ -293,19 +309,14 @@ class SearchProgress(Progress):
         now = time.monotonic()
         elapsed = now - self.start
         if self.tty:
-            if self.bar is None:
-                if elapsed < self.delay:
-                    return
-                from tqdm import tqdm
-
-                self.bar = tqdm(total=self.budget, file=self.stream, unit="rep", leave=False, dynamic_ncols=True)
+            if not self._has_bar(elapsed, self.budget):
+                return
             self.bar.set_description(self.describe(done, total), refresh=False)
             self.bar.n = min(overall, self.budget) if self.budget else overall
             self.bar.refresh()
             return
-        if elapsed < self.quiet or (self.last is not None and now - self.last < self.every):
+        if not self._line_due(now, elapsed):
             return
-        self.last = now
         of = f" ({100.0 * overall / self.budget:.0f}% of the budget {self.budget:,})" if self.budget else ""
         self.stream.write(f"simcheck: {self.describe(done, total)}; {overall:,} replicates simulated so far{of}, "
                           f"{elapsed:.0f} s\n")

@@ -5,9 +5,9 @@ from __future__ import annotations
 import argparse
 import sys
 
-from simcheck.cli.common import UsageError, add_json, add_sim_overrides, emit_json
-from simcheck.cli.check import CLI_FIELDS, Progress, add_bound_option, add_method_option, bound_overrides, report, run_seed
-from simcheck.cli.options import add_allow_outside
+from simcheck.cli.common import UsageError, emit_json
+from simcheck.cli.check import CLI_FIELDS, Progress, bound_overrides, report, run_seed
+from simcheck.cli.options import add_closing_options, add_scenario_argument
 
 
 def add_parser(subparsers) -> None:
@@ -22,18 +22,13 @@ def add_parser(subparsers) -> None:
             "each n separately, so give them a coarse grid."
         ),
     )
-    p.add_argument("scenario", metavar="SCENARIO", help="scenario file (TOML)")
+    add_scenario_argument(p)
     p.add_argument("--n-min", dest="n_min", type=int, metavar="A", help="smallest n (default: simulation.n_min)")
     p.add_argument("--n-max", dest="n_max", type=int, metavar="B", help="largest n (default: simulation.n_max)")
     p.add_argument("--step", type=int, metavar="K", help="evaluate every K-th n of the range (default 1; B is always included)")
     p.add_argument("--n-values", dest="n_values", metavar="LIST",
                    help="comma-separated n values, e.g. 20,50,100 (instead of a range)")
-    add_method_option(p)
-    add_bound_option(p)
-    add_sim_overrides(p)
-    add_json(p)
-    add_allow_outside(p)
-    p.set_defaults(run=run)
+    add_closing_options(p, run, method=True, simulation=True, outside_files=True)
 
 
 def parse_n_values(text: str) -> list[int]:

@@ -13,7 +13,8 @@ import time
 from importlib import resources
 
 from simcheck import CAUTION
-from simcheck.cli.common import add_json, emit_json, note
+from simcheck.cli.common import emit_json, note
+from simcheck.cli.options import add_closing_options
 
 DEFAULT_OUT = "reports/demo"
 
@@ -33,8 +34,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("--replicates", type=int, metavar="R",
                    help="simulated samples per n (default: the demo's 10,000)")
     p.add_argument("--show-scenario", action="store_true", help="print the demo scenario file and exit")
-    add_json(p)
-    p.set_defaults(run=run)
+    add_closing_options(p, run)
 
 
 def scenario_text() -> str:

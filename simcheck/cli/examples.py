@@ -10,7 +10,8 @@ from __future__ import annotations
 import argparse
 import sys
 
-from simcheck.cli.common import add_json, emit_json, note, table
+from simcheck.cli.common import emit_json, note, table
+from simcheck.cli.options import add_closing_options
 
 
 def add_parser(subparsers) -> None:
@@ -24,8 +25,7 @@ def add_parser(subparsers) -> None:
         ),
     )
     p.add_argument("--copy", metavar="DIR", help="copy every example into DIR (created if missing)")
-    add_json(p)
-    p.set_defaults(run=run)
+    add_closing_options(p, run)
 
 
 def run(args: argparse.Namespace) -> int:

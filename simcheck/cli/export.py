@@ -7,7 +7,8 @@ import os
 import tempfile
 from pathlib import Path
 
-from simcheck.cli.common import add_json, emit_json, note
+from simcheck.cli.common import emit_json, note
+from simcheck.cli.options import add_closing_options
 
 
 def add_parser(subparsers) -> None:
@@ -26,8 +27,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("store", metavar="FILE.sqlite", help="sweep store written by `simcheck sweep`")
     p.add_argument("--out", required=True, metavar="FILE.csv|FILE.parquet", help="output table (.csv or .parquet)")
     p.add_argument("--force", action="store_true", help="replace --out when it exists (never the store or an input)")
-    add_json(p)
-    p.set_defaults(run=run)
+    add_closing_options(p, run)
 
 
 def _same(a: Path, b: Path) -> bool:

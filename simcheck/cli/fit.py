@@ -6,7 +6,8 @@ import argparse
 import os
 import sys
 
-from simcheck.cli.common import add_json, emit_json, table
+from simcheck.cli.common import emit_json, table
+from simcheck.cli.options import add_closing_options
 
 QQ_FORMATS = (".png", ".svg", ".pdf")
 
@@ -29,8 +30,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("--lower", type=float, metavar="L", help="lower end of a bounded range (beta candidate; with --upper)")
     p.add_argument("--upper", type=float, metavar="U", help="upper end of a bounded range (beta candidate; with --lower)")
     p.add_argument("--qq", metavar="OUT.png", help="write a Q-Q figure of the best models (.png, .svg or .pdf)")
-    add_json(p)
-    p.set_defaults(run=run)
+    add_closing_options(p, run)
 
 
 def run(args: argparse.Namespace) -> int:

@@ -6,9 +6,10 @@ import argparse
 import sys
 
 from simcheck.cli import formula_estimands
-from simcheck.cli.common import add_json, emit_json, fmt, table
+from simcheck.cli.common import emit_json, fmt, table
+from simcheck.cli.options import add_closing_options
+from simcheck.errors import Collector, InputError
 from simcheck.estimands import REGISTRY as ESTIMAND_SPECS
-from simcheck.errors import Collector
 from simcheck.formulas import BOUNDS, ESTIMANDS, demonstration_plan, relative_sample_size, sample_size
 
 
@@ -25,6 +26,16 @@ def add_parser(subparsers) -> None:
             "`simcheck check` and `simcheck search` test whether n really delivers the interval."
         ),
     )
+    _add_target_options(p)
+    _add_design_options(p)
+    _add_plan_options(p)
+    _add_strata_options(p)
+    formula_estimands.add_options(p)
+    add_closing_options(p, run)
+
+
+def _add_target_options(p: argparse.ArgumentParser) -> None:
+    """What is estimated, to what margin, and the planning values."""
     p.add_argument("--estimand", choices=ESTIMANDS + ("total",) + tuple(ESTIMAND_SPECS), metavar="E",
                    help="what is estimated: mean, proportion, mean-diff or proportion-diff (difference a - b); "
                         "total (N times the mean; with --stratum, or with --population-size and --sd or --p); "
@@ -44,6 +55,10 @@ def add_parser(subparsers) -> None:
     p.add_argument("--multiplier", choices=("z", "t"), default="z",
                    help="z (known SD, default) or t: iterate n until t(n-1) * sd / sqrt(n) <= B "
                         "(mean-diff: Welch-Satterthwaite df); means only")
+
+
+def _add_design_options(p: argparse.ArgumentParser) -> None:
+    """Finite populations, clusters, two groups and dropout."""
     p.add_argument("--population-size", dest="population_size", type=float, metavar="N",
                    help="finite population size, a whole number >= 2: applies n0 / (1 + (n0 - 1) / N) (one-sample)")
     p.add_argument("--design-effect", dest="design_effect", type=float, metavar="D",
@@ -64,6 +79,10 @@ def add_parser(subparsers) -> None:
     p.add_argument("--dropout", type=float, metavar="D",
                    help="share of enrolled units lost before analysis, in [0, 1): also reports "
                         "n_enrolled = ceil(n / (1 - D)); n stays the number analysed")
+
+
+def _add_plan_options(p: argparse.ArgumentParser) -> None:
+    """Pilot SDs, one-sided limits, relative margins and demonstration plans."""
     p.add_argument("--pilot-n", dest="pilot_n", type=float, metavar="M",
                    help="the SDs come from a pilot of M (>= 3) values: also reports the n with each SD raised "
                         "to its upper one-sided confidence limit (Browne 1995), side by side (means only)")
@@ -82,6 +101,10 @@ def add_parser(subparsers) -> None:
                         "--events-allowed events occur (c = 0: n = ln(alpha) / ln(1 - P0)); --p gives the chance of passing")
     p.add_argument("--events-allowed", dest="events_allowed", type=int, metavar="C",
                    help="demonstration plan: events allowed, whole number >= 0 (default 0)")
+
+
+def _add_strata_options(p: argparse.ArgumentParser) -> None:
+    """A stratified sample: its strata, allocation rule and least n per stratum."""
     p.add_argument("--stratum", action="append", metavar="NAME:SIZE:VALUE[:EXTRA]",
                    help="a stratum of a stratified sample (repeat for each): its name, size N_h, planning SD "
                         "(mean, total) or proportion (proportion), and with --allocation optimum its per-unit "
@@ -90,9 +113,6 @@ def add_parser(subparsers) -> None:
                    help="how the total n is shared among the strata (default proportional)")
     p.add_argument("--minimum", type=int, default=None, metavar="K",
                    help="least n per stratum, >= 2 (default 2)")
-    formula_estimands.add_options(p)
-    add_json(p)
-    p.set_defaults(run=run)
 
 
 def _plan_problems(args: argparse.Namespace) -> None:
@@ -125,6 +145,13 @@ def _plan_problems(args: argparse.Namespace) -> None:
     c.raise_if_any()
 
 
+def _not_used(c: Collector, args: argparse.Namespace, dests: tuple[str, ...], message: str) -> None:
+    """One problem for each of the options ``dests`` that was given."""
+    for dest in dests:
+        if getattr(args, dest) is not None:
+            c.add("--" + dest.replace("_", "-"), message)
+
+
 def _strata(args: argparse.Namespace):
     """The stratified closed form from repeated --stratum options."""
     from simcheck.errors import Collector
@@ -148,10 +175,8 @@ def _strata(args: argparse.Namespace):
         sizes.append(int(nums[0]) if nums[0].is_integer() else nums[0])
         values.append(nums[1])
         extras.append(nums[2] if len(nums) > 2 else None)
-    for opt in ("sd", "sd_b", "p", "p_b", "population_size", "design_effect", "icc", "cluster_size", "ratio",
-                "dropout", "pilot_n", "cluster_count"):
-        if getattr(args, opt) is not None:
-            c.add("--" + opt.replace("_", "-"), "not used with --stratum (give each stratum its own value)")
+    _not_used(c, args, ("sd", "sd_b", "p", "p_b", "population_size", "design_effect", "icc", "cluster_size", "ratio",
+                        "dropout", "pilot_n", "cluster_count"), "not used with --stratum (give each stratum its own value)")
     c.raise_if_any()
     prop = args.estimand == "proportion"
     given = [int(v) if float(v).is_integer() else v for v in extras] if rule == "given" else None
@@ -169,10 +194,9 @@ def _total(args: argparse.Namespace):
     c = Collector()
     if args.cluster_count is not None or args.icc is not None or args.cluster_size is not None:
         return _cluster_total(args)
-    for opt in ("sd_b", "p_b", "design_effect", "icc", "cluster_size", "cluster_size_cv", "ratio", "cluster_count"):
-        if getattr(args, opt) is not None:
-            c.add("--" + opt.replace("_", "-"), "not used with --estimand total without --stratum (a one-stage "
-                  "sample of a finite population: give --population-size and --sd or --p)")
+    _not_used(c, args, ("sd_b", "p_b", "design_effect", "icc", "cluster_size", "cluster_size_cv", "ratio", "cluster_count"),
+              "not used with --estimand total without --stratum (a one-stage sample of a finite population: give "
+              "--population-size and --sd or --p)")
     c.raise_if_any()
     return total_sample_size(args.margin, args.population_size, confidence=args.confidence, sd=args.sd, p=args.p,
                              multiplier=args.multiplier)
@@ -188,98 +212,105 @@ def _cluster_total(args: argparse.Namespace):
                      ("cluster_size", "the (mean) cluster size")):
         if getattr(args, opt) is None:
             c.add("--" + opt.replace("_", "-"), f"is required for a total of clusters: {why}")
-    for opt in ("sd_b", "p_b", "design_effect", "ratio", "population_size"):
-        if getattr(args, opt) is not None:
-            c.add("--" + opt.replace("_", "-"), "not used with a total of clusters (give --cluster-count, --icc, "
-                  "--cluster-size and --sd or --p)")
+    _not_used(c, args, ("sd_b", "p_b", "design_effect", "ratio", "population_size"),
+              "not used with a total of clusters (give --cluster-count, --icc, --cluster-size and --sd or --p)")
     c.raise_if_any()
     return cluster_total_sample_size(args.margin, args.cluster_count, args.cluster_size, args.icc, sd=args.sd, p=args.p,
                                      cluster_size_cv=args.cluster_size_cv, confidence=args.confidence, bound=args.bound)
 
 
 def run(args: argparse.Namespace) -> int:
+    return ANSWERS[_answer_kind(args)](args)
+
+
+def _answer_kind(args: argparse.Namespace) -> str:
+    """Which closed form the options ask for, after refusing the combinations it cannot take."""
     if args.estimand in ESTIMAND_SPECS:
-        return formula_estimands.run_registered(args)
-    if args.stratum and (args.bound != "two-sided" or args.relative_margin is not None or args.limit is not None):
-        from simcheck.errors import InputError
-
-        opt = "--bound" if args.bound != "two-sided" else ("--relative-margin" if args.relative_margin is not None else "--limit")
-        raise InputError(opt, "not available with --stratum (stratified closed forms are two-sided, absolute margins)")
+        return "registered"  # the estimand registry's closed form, with its own checks
     if args.stratum:
-        res = _strata(args)
-        if args.json:
-            emit_json(res.to_dict())
-            return 0
-        sys.stdout.write(render(res) + "\n")
-        return 0
+        if args.bound != "two-sided" or args.relative_margin is not None or args.limit is not None:
+            opt = "--bound" if args.bound != "two-sided" else ("--relative-margin" if args.relative_margin is not None else "--limit")
+            raise InputError(opt, "not available with --stratum (stratified closed forms are two-sided, absolute margins)")
+        return "strata"
     if args.allocation is not None or args.minimum is not None:
-        from simcheck.errors import InputError
-
         raise InputError("--stratum", "missing: --allocation and --minimum describe a stratified sample; give its strata with --stratum")
     _plan_problems(args)
     if (args.limit is not None or args.relative_margin is not None) and (args.dropout is not None or args.pilot_n is not None):
-        from simcheck.errors import InputError
-
         raise InputError("--dropout" if args.dropout is not None else "--pilot-n",
                          "not available with --limit or --relative-margin")
     if args.estimand == "total":
-        res = _total(args)
-        if args.json:
-            emit_json(res.to_dict())
-            return 0
-        sys.stdout.write(render(res) + "\n")
-        return 0
+        return "total"
     if args.limit is not None:
-        plan = demonstration_plan(args.limit, args.events_allowed or 0, confidence=args.confidence, p=args.p)
-        if args.json:
-            emit_json(plan.to_dict())
-        else:
-            sys.stdout.write(render_plan(plan) + "\n")
-        return 0
+        return "plan"
     if args.relative_margin is not None:
-        res = relative_sample_size(args.relative_margin, args.cv, confidence=args.confidence,
-                                   multiplier=args.multiplier, bound=args.bound,
-                                   population_size=args.population_size, design_effect=args.design_effect)
-        if args.json:
-            emit_json(res.to_dict())
-        else:
-            sys.stdout.write(render(res) + "\n")
-        return 0
-    _clusters_and_population(args)
-    res = sample_size(
-        args.estimand,
-        args.margin,
-        confidence=args.confidence,
-        sd=args.sd,
-        sd_b=args.sd_b,
-        p=args.p,
-        p_b=args.p_b,
-        multiplier=args.multiplier,
-        population_size=args.population_size,
-        design_effect=args.design_effect,
-        icc=args.icc,
-        cluster_size=args.cluster_size,
-        cluster_size_cv=args.cluster_size_cv,
-        ratio=args.ratio,
-        dropout=args.dropout,
-        bound=args.bound,
+        return "relative"
+    return "margin"
+
+
+def _show(args: argparse.Namespace, payload: dict, text) -> int:
+    """The JSON object, or the text (``text()``, drawn only when printed)."""
+    if args.json:
+        emit_json(payload)
+    else:
+        sys.stdout.write(text() + "\n")
+    return 0
+
+
+def _run_strata(args: argparse.Namespace) -> int:
+    res = _strata(args)
+    return _show(args, res.to_dict(), lambda: render(res))
+
+
+def _run_total(args: argparse.Namespace) -> int:
+    res = _total(args)
+    return _show(args, res.to_dict(), lambda: render(res))
+
+
+def _run_plan(args: argparse.Namespace) -> int:
+    plan = demonstration_plan(args.limit, args.events_allowed or 0, confidence=args.confidence, p=args.p)
+    return _show(args, plan.to_dict(), lambda: render_plan(plan))
+
+
+def _run_relative(args: argparse.Namespace) -> int:
+    res = relative_sample_size(args.relative_margin, args.cv, confidence=args.confidence,
+                               multiplier=args.multiplier, bound=args.bound,
+                               population_size=args.population_size, design_effect=args.design_effect)
+    return _show(args, res.to_dict(), lambda: render(res))
+
+
+def _formula_options(args: argparse.Namespace) -> dict:
+    """The options of :func:`sample_size` other than the planning values (SDs, proportions)."""
+    return dict(
+        confidence=args.confidence, multiplier=args.multiplier, population_size=args.population_size,
+        design_effect=args.design_effect, icc=args.icc, cluster_size=args.cluster_size,
+        cluster_size_cv=args.cluster_size_cv, ratio=args.ratio, dropout=args.dropout, bound=args.bound,
     )
+
+
+def _run_margin(args: argparse.Namespace) -> int:
+    _clusters_and_population(args)
+    res = sample_size(args.estimand, args.margin, sd=args.sd, sd_b=args.sd_b, p=args.p, p_b=args.p_b,
+                      **_formula_options(args))
     if args.cluster_count is not None:
         from simcheck.formulas import finite_clusters
 
         res = finite_clusters(res, args.cluster_count)
     browne = None if args.pilot_n is None else _browne(args, res)
-    if args.json:
-        d = res.to_dict()
-        if browne is not None:
-            d["browne"] = browne
-        emit_json(d)
-        return 0
-    text = render(res)
+    d = res.to_dict()
     if browne is not None:
-        text += "\n\n" + _browne_text(res, browne)
-    sys.stdout.write(text + "\n")
-    return 0
+        d["browne"] = browne
+    return _show(args, d, lambda: render(res) + ("" if browne is None else "\n\n" + _browne_text(res, browne)))
+
+
+#: One function per kind of answer (:func:`_answer_kind`); each prints its JSON object or text.
+ANSWERS = {
+    "registered": formula_estimands.run_registered,
+    "strata": _run_strata,
+    "total": _run_total,
+    "plan": _run_plan,
+    "relative": _run_relative,
+    "margin": _run_margin,
+}
 
 
 def _browne(args: argparse.Namespace, res) -> dict:
@@ -295,12 +326,7 @@ def _browne(args: argparse.Namespace, res) -> dict:
     c.raise_if_any()
     sd_up = upper_sd_limit(res.sd, m, level)
     sd_b_up = None if res.sd_b is None else upper_sd_limit(res.sd_b, m, level)
-    up = sample_size(
-        args.estimand, args.margin, confidence=args.confidence, sd=sd_up, sd_b=sd_b_up,
-        multiplier=args.multiplier, population_size=args.population_size, design_effect=args.design_effect,
-        icc=args.icc, cluster_size=args.cluster_size, cluster_size_cv=args.cluster_size_cv, ratio=args.ratio,
-        dropout=args.dropout, bound=args.bound,
-    )
+    up = sample_size(args.estimand, args.margin, sd=sd_up, sd_b=sd_b_up, **_formula_options(args))
     return {"n": up.n, "n_b": up.n_b, "n_enrolled": up.n_enrolled, "sd_upper": sd_up, "sd_b_upper": sd_b_up,
             "pilot_n": m, "level": level,
             "formula": f"sd_upper = sd sqrt((m - 1) / chi2_{{1 - L}}(m - 1)) = {res.sd:g} sqrt({m - 1} / "

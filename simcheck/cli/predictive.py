@@ -6,7 +6,8 @@ import argparse
 import sys
 
 from simcheck import CAUTION
-from simcheck.cli.common import add_json, emit_json, note, table
+from simcheck.cli.common import emit_json, note, table
+from simcheck.cli.options import add_closing_options, add_scenario_argument
 
 
 def add_parser(subparsers) -> None:
@@ -22,7 +23,7 @@ def add_parser(subparsers) -> None:
             "with the SD at its upper confidence limit. Results hold only under the assumed data model."
         ),
     )
-    p.add_argument("scenario", metavar="SCENARIO", help="scenario file (TOML)")
+    add_scenario_argument(p)
     p.add_argument("--n", type=int, metavar="N", help="also evaluate this n, conditionally and unconditionally")
     p.add_argument("--draws", type=int, metavar="K", help="parameter draws (default 400, at least 20)")
     p.add_argument("--replicates", type=int, metavar="R",
@@ -31,8 +32,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("--pilot-confidence", dest="pilot_confidence", type=float, default=0.8, metavar="L",
                    help="level of the SD's upper confidence limit in Browne's method, in (0, 1) (default 0.8)")
     p.add_argument("--out", metavar="DIR", help="write a Markdown report with a figure to DIR")
-    add_json(p)
-    p.set_defaults(run=run)
+    add_closing_options(p, run)
 
 
 def run(args: argparse.Namespace) -> int:

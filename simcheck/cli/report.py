@@ -7,8 +7,8 @@ import sys
 from pathlib import Path
 
 from simcheck import CAUTION
-from simcheck.cli.common import add_json, add_sim_overrides, emit_json, note
-from simcheck.cli.options import add_allow_outside
+from simcheck.cli.common import emit_json, note
+from simcheck.cli.options import add_closing_options
 
 
 #: file kinds people hand to `report` by mistake (pilot data, exported tables)
@@ -29,10 +29,7 @@ def add_parser(subparsers) -> None:
     )
     p.add_argument("source", metavar="SCENARIO|STORE", help="scenario file (TOML) or sweep store (.sqlite)")
     p.add_argument("--out", required=True, metavar="DIR", help="output folder (created when missing)")
-    add_sim_overrides(p)
-    add_json(p)
-    add_allow_outside(p)
-    p.set_defaults(run=run)
+    add_closing_options(p, run, simulation=True, outside_files=True)
 
 
 def overrides(args: argparse.Namespace) -> dict[str, object]:

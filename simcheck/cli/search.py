@@ -7,10 +7,10 @@ import sys
 from typing import Any
 
 from simcheck import CAUTION
-from simcheck.cli.common import add_json, add_sim_overrides, emit_json, table
+from simcheck.cli.common import emit_json, table
 from simcheck.bound_text import bound_words, coverage_words
-from simcheck.cli.check import CLI_FIELDS, SearchProgress, add_bound_option, add_method_option, bound_overrides, run_seed
-from simcheck.cli.options import add_allow_outside
+from simcheck.cli.check import CLI_FIELDS, SearchProgress, bound_overrides, data_lines, run_seed
+from simcheck.cli.options import add_closing_options, add_scenario_argument
 from simcheck.errors import Collector
 
 BUDGET_MIN, BUDGET_MAX = 100, 10**12
@@ -33,7 +33,7 @@ def add_parser(subparsers) -> None:
             "names its criterion and its decision (clear or undecided)."
         ),
     )
-    p.add_argument("scenario", metavar="SCENARIO", help="scenario file (TOML)")
+    add_scenario_argument(p)
     p.add_argument("--budget", type=int, metavar="B",
                    help="cap on the replicates the search may simulate (overrides simulation.budget; "
                         "default 20 x replicates; 6 x for bootstrap methods)")
@@ -43,12 +43,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("--n-min", dest="n_min", type=int, metavar="A", help="smallest n considered (default: simulation.n_min)")
     p.add_argument("--n-max", dest="n_max", type=int, metavar="B",
                    help="search ceiling (default: simulation.n_max)")
-    add_method_option(p)
-    add_bound_option(p)
-    add_sim_overrides(p)
-    add_json(p)
-    add_allow_outside(p)
-    p.set_defaults(run=run)
+    add_closing_options(p, run, method=True, simulation=True, outside_files=True)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -109,16 +104,7 @@ def _range(r) -> str:
 
 def _header(scenario, design) -> list[str]:
     d = design
-    lines = [scenario.title, ""]
-    if d.two_sample:
-        lines.append(f"data a:      {d.model.describe()}")
-        lines.append(f"data b:      {d.model_b.describe()}  (n_b = {d.ratio:g} x n)")
-    elif d.strata is not None:
-        for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models):
-            lines.append(f"stratum:     {name} (N = {size}): {m.describe()}")
-        lines.append(f"allocation:  {d.strata.rule}; n counts the whole sample")
-    else:
-        lines.append(f"data:        {d.model.describe()}")
+    lines = [scenario.title, "", *data_lines(d)]
     if d.clusters is not None:
         lines.append(f"clusters:    ICC {d.clusters.icc:g} (n counts clusters)")
     if d.population is not None:

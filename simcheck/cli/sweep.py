@@ -7,8 +7,8 @@ import signal
 import sys
 import time
 
-from simcheck.cli.common import add_json, emit_json, error_line, note
-from simcheck.cli.options import add_allow_outside
+from simcheck.cli.common import emit_json, error_line, note
+from simcheck.cli.options import add_closing_options
 
 # Plain progress lines (stderr not a terminal) at most this often, in seconds.
 PLAIN_EVERY = 30.0
@@ -33,9 +33,7 @@ def add_parser(subparsers) -> None:
                    help="local processes (default) or an existing Dask cluster (needs --scheduler)")
     p.add_argument("--scheduler", metavar="ADDR",
                    help="Dask scheduler address, e.g. tcp://10.0.0.5:8786 (implies --backend dask)")
-    add_json(p)
-    add_allow_outside(p)
-    p.set_defaults(run=run)
+    add_closing_options(p, run, outside_files=True)
 
 
 class _Progress:
@@ -177,20 +175,15 @@ def run(args: argparse.Namespace) -> int:
             on_start=progress.start, on_cell=on_cell,
             on_notice=lambda line: note(f"sweep: note: {line}"), on_validate=_Checking(),
         )
-    except SweepInterrupted as exc:
+    except (SweepInterrupted, SweepAborted) as exc:
         progress.close()
         s = exc.summary
-        note(error_line(f"interrupted: {s.stored_ok} of {s.cells_total} cells are stored in {s.store}; {resume}"))
+        interrupted = isinstance(exc, SweepInterrupted)
+        what = "interrupted:" if interrupted else f"sweep stopped: {exc};"
+        note(error_line(f"{what} {s.stored_ok} of {s.cells_total} cells are stored in {s.store}; {resume}"))
         if args.json:
             emit_json(s.to_dict())
-        return 130
-    except SweepAborted as exc:
-        progress.close()
-        s = exc.summary
-        note(error_line(f"sweep stopped: {exc}; {s.stored_ok} of {s.cells_total} cells are stored in {s.store}; {resume}"))
-        if args.json:
-            emit_json(s.to_dict())
-        return 1
+        return 130 if interrupted else 1
     finally:
         progress.close()
         signal.signal(signal.SIGTERM, old)

@@ -41,7 +41,8 @@ Finite populations (``design.population``)
 
 Randomness follows :mod:`simcheck.engine`: block ``i`` of replicates draws
 from the stream ``(STAGE_MAIN, i)`` (bootstrap resampling
-``(STAGE_BOOTSTRAP, i)``), consumed in fixed pieces (:func:`_pieces`);
+``(STAGE_BOOTSTRAP, i)``), consumed in fixed pieces (:func:`_run_blocks`,
+which runs the blocks on the engine's threads);
 block and piece sizes depend only on the design and n, so ``chunk_bytes``
 (accepted for the engine's signature) never changes results: memory is
 bounded by the pieces.
@@ -94,6 +95,7 @@ from simcheck.models.population import (
     sample_indices,
 )
 from simcheck.results import CheckResult
+from simcheck.threads import ordered_map
 
 #: largest pooled count k m enumerated exactly for clustered 0/1 data
 EXACT_COUNT_MAX = 2_000_000
@@ -113,7 +115,8 @@ def _pieces(root: np.random.SeedSequence, replicates: int, columns: int):
 
     Block ``i`` owns the stream ``(STAGE_MAIN, i)``; its generator is consumed
     piece by piece in order, so memory stays bounded by PIECE_VALUES values
-    (times a small factor) whatever the number of replicates.
+    (times a small factor) whatever the number of replicates. The same pieces
+    as :func:`_run_blocks`, one after another in the calling thread.
     """
     pr = max(1, PIECE_VALUES // max(int(columns), 1))
     for bi, (s, e) in enumerate(rngmod.blocks(replicates, pr * PIECES_PER_BLOCK)):
@@ -121,6 +124,39 @@ def _pieces(root: np.random.SeedSequence, replicates: int, columns: int):
         for ps in range(s, e, pr):
             pe = min(ps + pr, e)
             yield bi, g, ps, pe, pe == e
+
+
+def _run_blocks(root: np.random.SeedSequence, replicates: int, columns: int, acc: msr.Accumulator, truth,
+                piece, threads: int, progress, bootstrap: bool = False) -> None:
+    """Evaluate every random block on ``threads`` threads and merge the measures into ``acc``.
+
+    Block ``i`` owns the stream ``(STAGE_MAIN, i)`` (and ``(STAGE_BOOTSTRAP, i)``
+    for resampling); its generator is consumed piece by piece in order, so
+    memory stays bounded by PIECE_VALUES values (times a small factor) whatever
+    the number of replicates. ``piece(g, rows, g_boot)`` returns the limits
+    ``(lo, hi, degenerate)`` of the next ``rows`` replicates drawn from ``g``;
+    each piece is reduced to counts and sums in the worker thread, and the
+    blocks' measures are merged in block order, so no number depends on the
+    thread count.
+    """
+    pr = max(1, PIECE_VALUES // max(int(columns), 1))
+    items = list(enumerate(rngmod.blocks(replicates, pr * PIECES_PER_BLOCK)))
+
+    def work(item) -> msr.Partial:
+        bi, (s, e) = item
+        g = rngmod.generator(root, rngmod.STAGE_MAIN, bi)
+        g_boot = rngmod.generator(root, rngmod.STAGE_BOOTSTRAP, bi) if bootstrap else None
+        red = acc.reducer(truth, s)
+        for ps in range(s, e, pr):
+            lo, hi, deg = piece(g, min(ps + pr, e) - ps, g_boot)
+            red.add(lo, hi, deg)
+        return red.partial()
+
+    # bootstrap intervals run their own thread pool inside each call
+    for (_, (_, e)), part in zip(items, ordered_map(work, items, 1 if bootstrap else threads)):
+        acc.merge(part)
+        if progress:
+            progress(e, replicates)
 
 
 # --------------------------------------------------------------------------
@@ -136,15 +172,15 @@ def evaluate(design: Design, ns: Sequence[int], replicates: int, rng, path: str,
     """
     if design.estimand == "total" and design.strata is None and design.clusters is None:
         inner = total_inner(design)
-        rows = evaluate(inner, ns, replicates, rng, path, progress, chunk_bytes, curve)
+        rows = evaluate(inner, ns, replicates, rng, path, progress, chunk_bytes, curve, threads)
         return [_total_row(r, design) for r in rows]
     method = get_method(design.estimand, design.method)
     validate_design(design, method, ns, path)
     root, seed = rngmod.root_sequence(rng)
     curve = len(ns) > 1
     if design.clusters is not None:
-        return _clusters(design, method, list(ns), replicates, root, seed, path, curve, progress, chunk_bytes)
-    return _population(design, method, list(ns), replicates, root, seed, path, curve, progress, chunk_bytes)
+        return _clusters(design, method, list(ns), replicates, root, seed, path, curve, progress, chunk_bytes, threads)
+    return _population(design, method, list(ns), replicates, root, seed, path, curve, progress, chunk_bytes, threads)
 
 
 def applies(design: Design) -> bool:
@@ -289,10 +325,10 @@ def _observations(k: int, law: SizeLaw) -> int:
     return int(k * int(law.a)) if law.fixed else int(round(k * law.mean))
 
 
-def _clusters(design, method, ns, replicates, root, seed, path, curve, progress, chunk_bytes) -> list[CheckResult]:
+def _clusters(design, method, ns, replicates, root, seed, path, curve, progress, chunk_bytes, threads=1) -> list[CheckResult]:
     cm, law = cluster_model_for(design)
     if design.clusters.count is not None:
-        return _finite_clusters(design, method, ns, replicates, root, seed, path, curve, progress, cm, law)
+        return _finite_clusters(design, method, ns, replicates, root, seed, path, curve, progress, cm, law, threads)
     powers = 3 if method.needs_m3 else 2
     notes = _cluster_notes(design, cm, law, method)
     exact_kind = _cluster_exact_kind(design, method, cm, law)
@@ -315,13 +351,13 @@ def _clusters(design, method, ns, replicates, root, seed, path, curve, progress,
         K = max(group)
         per_rep = K * (2 if fast else max(1, math.ceil(law.mean)))
         acc = msr.Accumulator(len(group), replicates, design.margin)
-        for bi, g, ps, pe, last in _pieces(root, replicates, per_rep):
-            m = law.draw(g, (pe - ps, K))
+
+        def piece(g, rows, _boot, K=K, group=group):
+            m = law.draw(g, (rows, K))
             s1, s2, s3 = cm.cluster_sums(g, m, centre=centre, powers=powers, fast=fast)
-            lo, hi = _cluster_intervals(design, method, m, s1, s2, s3, group, law.fixed)
-            acc.add(lo, hi, truth)
-            if progress and last:
-                progress(pe, replicates)
+            return (*_cluster_intervals(design, method, m, s1, s2, s3, group, law.fixed), None)
+
+        _run_blocks(root, replicates, per_rep, acc, truth, piece, threads, progress)
         acc.finish()
         for j, k in enumerate(group):
             r = acc.row(j, design, k, replicates, seed, label)
@@ -357,7 +393,7 @@ def cluster_population_for(design: Design, root: np.random.SeedSequence) -> tupl
     return sizes, totals, float(totals.sum() / sizes.sum())
 
 
-def _finite_clusters(design, method, ns, replicates, root, seed, path, curve, progress, cm, law) -> list[CheckResult]:
+def _finite_clusters(design, method, ns, replicates, root, seed, path, curve, progress, cm, law, threads=1) -> list[CheckResult]:
     """cluster-t on n of M clusters drawn without replacement, first-stage FPC sqrt(1 - n/M).
 
     A mean (proportion) is the ratio estimator; a total is M times the mean
@@ -381,12 +417,12 @@ def _finite_clusters(design, method, ns, replicates, root, seed, path, curve, pr
         K = max(group)
         f = np.sqrt(fpc_variance_factor(np.asarray(group, dtype=np.float64), M, "S2"))
         acc = msr.Accumulator(len(group), replicates, design.margin)
-        for bi, g, ps, pe, last in _pieces(root, replicates, block_columns(M, K)):
-            idx = sample_indices(g, M, (pe - ps, K), ordered=nested)
-            lo, hi = _finite_cluster_limits(design, plain, sizes[idx], totals[idx], group, law, f, shift, truth)
-            acc.add(lo, hi, truth)
-            if progress and last:
-                progress(pe, replicates)
+
+        def piece(g, rows, _boot, K=K, group=group, f=f):
+            idx = sample_indices(g, M, (rows, K), ordered=nested)
+            return (*_finite_cluster_limits(design, plain, sizes[idx], totals[idx], group, law, f, shift, truth), None)
+
+        _run_blocks(root, replicates, block_columns(M, K), acc, truth, piece, threads, progress)
         acc.finish()
         for j, k in enumerate(group):
             r = acc.row(j, design, k, replicates, seed, "nested" if nested else "simulation")
@@ -644,7 +680,7 @@ def _population_exact(design, method, ns, N: int, K: int, seed, notes) -> list[C
     return rows
 
 
-def _population(design, method, ns, replicates, root, seed, path, curve, progress, chunk_bytes) -> list[CheckResult]:
+def _population(design, method, ns, replicates, root, seed, path, curve, progress, chunk_bytes, threads=1) -> list[CheckResult]:
     pop = design.population
     if pop.events is not None and method.kind == "count" and path in ("auto", "exact"):
         # a fixed count is exact without forming its N values (N may be large)
@@ -683,22 +719,18 @@ def _population(design, method, ns, replicates, root, seed, path, curve, progres
         n_eval = np.asarray(group, dtype=np.int64)
         # the interval's variance is estimated from the sample: factor 1 - n/N
         f = np.sqrt(fpc_variance_factor(n_eval, N, "S2"))
-        boot = None
-        for bi, g, ps, pe, last in _pieces(root, replicates, cols_per_rep):
-            if kind == "sample" and (boot is None or boot[0] != bi):
-                # resampling draws from its own stream per block, consumed piece by piece
-                boot = (bi, rngmod.generator(root, rngmod.STAGE_BOOTSTRAP, bi))
-            x = values[sample_indices(g, N, (pe - ps, nmax), ordered=nested)]
+
+        def piece(g, b, g_boot, group=group, nmax=nmax, n_eval=n_eval, f=f):
+            # resampling draws from its own stream per block, consumed piece by piece
+            x = values[sample_indices(g, N, (b, nmax), ordered=nested)]
             if centre:
                 x -= centre
-            lo, hi, deg = _population_intervals(design, method, x, group, nested, n_eval, f, fpc, fp,
-                                                None if boot is None else boot[1])
-            b = pe - ps
+            lo, hi, deg = _population_intervals(design, method, x, group, nested, n_eval, f, fpc, fp, g_boot)
             lo = np.broadcast_to(np.asarray(lo, dtype=np.float64).reshape(b, -1), (b, len(group)))
             hi = np.broadcast_to(np.asarray(hi, dtype=np.float64).reshape(b, -1), (b, len(group)))
-            acc.add(lo, hi, truth, None if deg is None else np.asarray(deg).reshape(-1, 1))
-            if progress and last:
-                progress(pe, replicates)
+            return lo, hi, None if deg is None else np.asarray(deg).reshape(-1, 1)
+
+        _run_blocks(root, replicates, cols_per_rep, acc, truth, piece, threads, progress, bootstrap=kind == "sample")
         acc.finish()
         label = "nested" if nested else "simulation"
         for j, n in enumerate(group):

@@ -48,7 +48,7 @@ from __future__ import annotations
 
 import functools
 from numbers import Integral, Real
-from typing import Callable, Iterable
+from typing import Callable, Iterable, Iterator, NamedTuple
 
 import numpy as np
 from scipy import stats
@@ -211,29 +211,50 @@ def binomial_curve(
     margin = None if margin is None else float(margin)
 
     out: list[dict] = []
+    ns_arr = np.asarray(ns, dtype=np.int64)
+    x_lo, x_hi, omitted = _binomial_support(ns_arr, p)
+    # grouped by the full support n + 1, the trimmed tails still count against a chunk
+    for ch in _support_chunks(func, ns_arr, x_lo, x_hi - x_lo + 1, confidence, cost=ns_arr + 1):
+        w = stats.binom.pmf(ch.x_cells, ch.n_cells, p)
+        for j, n in enumerate(ch.group):
+            sl = slice(ch.offsets[j], ch.offsets[j + 1])
+            out.append({"n": int(n), "omitted_weight": float(omitted[ch.start + j]),
+                        **weighted_measures(ch.lo[sl], ch.hi[sl], w[sl], p, margin)})
+    return out
+
+
+class _Chunk(NamedTuple):
+    """Interval limits on the support cells of consecutive n (``group`` = ns[start:stop])."""
+
+    start: int
+    group: np.ndarray
+    x_lo: np.ndarray  # first x of each n's support
+    offsets: np.ndarray  # n j's cells are offsets[j]:offsets[j + 1]
+    n_cells: np.ndarray
+    x_cells: np.ndarray
+    lo: np.ndarray
+    hi: np.ndarray
+
+
+def _support_chunks(func, ns: np.ndarray, x_lo: np.ndarray, sizes: np.ndarray, confidence: float,
+                    cost: np.ndarray) -> Iterator[_Chunk]:
+    """One vectorised interval call per group of consecutive n, each group at most
+    :data:`CHUNK_CELLS` by ``cost`` (or one n alone), on every x of each n's support."""
     start = 0
-    while start < len(ns):
-        # group consecutive n values into one vectorised call
+    while start < ns.size:
         stop, cells = start, 0
-        while stop < len(ns) and (stop == start or cells + ns[stop] + 1 <= CHUNK_CELLS):
-            cells += ns[stop] + 1
+        while stop < ns.size and (stop == start or cells + cost[stop] <= CHUNK_CELLS):
+            cells += int(cost[stop])
             stop += 1
-        group = np.asarray(ns[start:stop], dtype=np.int64)
-        x_lo, x_hi, omitted = _binomial_support(group, p)
-        sizes = x_hi - x_lo + 1
-        offsets = np.concatenate(([0], np.cumsum(sizes)))
-        n_cells = np.repeat(group, sizes)
-        x_cells = np.arange(offsets[-1], dtype=np.int64) - np.repeat(offsets[:-1] - x_lo, sizes)
+        group, lo_g, sz = ns[start:stop], x_lo[start:stop], sizes[start:stop]
+        offsets = np.concatenate(([0], np.cumsum(sz)))
+        n_cells = np.repeat(group, sz)
+        x_cells = np.arange(offsets[-1], dtype=np.int64) - np.repeat(offsets[:-1] - lo_g, sz)
         lo, hi = func(x_cells, n_cells, confidence)
         lo = np.broadcast_to(np.asarray(lo, dtype=float), x_cells.shape)
         hi = np.broadcast_to(np.asarray(hi, dtype=float), x_cells.shape)
-        w = stats.binom.pmf(x_cells, n_cells, p)
-        for j, n in enumerate(group):
-            sl = slice(offsets[j], offsets[j + 1])
-            out.append({"n": int(n), "omitted_weight": float(omitted[j]),
-                        **weighted_measures(lo[sl], hi[sl], w[sl], p, margin)})
+        yield _Chunk(start, group, lo_g, offsets, n_cells, x_cells, lo, hi)
         start = stop
-    return out
 
 
 def binomial_measures(
@@ -335,29 +356,15 @@ def binomial_targets(
     ass = None if margin is None else np.empty(ns.size)
     x_lo_all, x_hi_all, _ = _binomial_support(ns, float(p))
     sizes_all = x_hi_all - x_lo_all + 1
-    start = 0
-    while start < ns.size:
-        # consecutive n values share one vectorised call of at most CHUNK_CELLS cells
-        stop, cells = start, 0
-        while stop < ns.size and (stop == start or cells + sizes_all[stop] <= CHUNK_CELLS):
-            cells += int(sizes_all[stop])
-            stop += 1
-        group = ns[start:stop]
-        x_lo, sizes = x_lo_all[start:stop], sizes_all[start:stop]
-        offsets = np.concatenate(([0], np.cumsum(sizes)))
-        n_cells = np.repeat(group, sizes)
-        x_cells = np.arange(offsets[-1], dtype=np.int64) - np.repeat(offsets[:-1] - x_lo, sizes)
-        lo, hi = func(x_cells, n_cells, confidence)
-        lo = np.broadcast_to(np.asarray(lo, dtype=float), x_cells.shape)
-        hi = np.broadcast_to(np.asarray(hi, dtype=float), x_cells.shape)
-        starts = offsets[:-1]
-        w = _binomial_block_pmf(x_cells, n_cells, group, x_lo, starts, float(p))
+    for ch in _support_chunks(func, ns, x_lo_all, sizes_all, confidence, cost=sizes_all):
+        stop = ch.start + ch.group.size
+        starts = ch.offsets[:-1]
+        w = _binomial_block_pmf(ch.x_cells, ch.n_cells, ch.group, ch.x_lo, starts, float(p))
         total = np.add.reduceat(w, starts)
-        covered = (lo <= p) & (p <= hi)
-        cov[start:stop] = np.add.reduceat(covered * w, starts) / total
+        covered = (ch.lo <= p) & (p <= ch.hi)
+        cov[ch.start:stop] = np.add.reduceat(covered * w, starts) / total
         if ass is not None:
-            ass[start:stop] = np.add.reduceat(_assured(lo, hi, covered, margin) * w, starts) / total
-        start = stop
+            ass[ch.start:stop] = np.add.reduceat(_assured(ch.lo, ch.hi, covered, margin) * w, starts) / total
     return cov, ass
 
 

@@ -119,15 +119,19 @@ def _simulate(design, method, ns, replicates, root, seed, progress, threads, pat
     acc_truth = math.log(truth) if ratio else truth
 
     def work(item):
+        # limits are reduced to measures in the worker; the calling thread only merges
         bi, block = item
-        return _block_limits(design, method, ns, root, bi, block, rows_per_unit, n_max, nb_max, ratio)
+        red = acc.reducer(acc_truth, first_row=block[0])
+        for lo, hi, deg in _block_limits(design, method, ns, root, bi, block, rows_per_unit, n_max, nb_max, ratio):
+            red.add(lo, hi, deg, starts=[0])
+        return red.partial(), block[1]
 
-    # every block has its own streams (resampling included): threads do not change results
-    for out in ordered_map(work, list(enumerate(blocks)), threads):
-        for lo, hi, deg, stop in out:
-            acc.add(lo, hi, acc_truth, deg, starts=[0])
-            if progress:
-                progress(stop, replicates)
+    # every block has its own streams (resampling included) and partials merge in
+    # replicate order: threads do not change results
+    for part, stop in ordered_map(work, list(enumerate(blocks)), threads):
+        acc.merge(part)
+        if progress:
+            progress(stop, replicates)
     acc.finish()
     rows = []
     at = None if design.assurance in (0.5, 0.9) else acc.quantiles(design.assurance)
@@ -140,12 +144,11 @@ def _simulate(design, method, ns, replicates, root, seed, progress, threads, pat
 
 
 def _block_limits(design, method, ns, root, bi, block, rows_per_unit, n_max, nb_max, ratio):
-    """Limits of one random block, unit by unit: a list of (lo, hi, degenerate, stop)."""
+    """Limits of one random block, unit by unit: yields (lo, hi, degenerate) of shape (rows, len(ns))."""
     g_a = rngmod.generator(root, rngmod.STAGE_MAIN, bi)
     g_b = rngmod.generator(root, rngmod.STAGE_GROUP_B, bi) if design.two_sample else None
     g_boot = rngmod.generator(root, rngmod.STAGE_BOOTSTRAP, bi) if method.resampling else None
     params = {k: getattr(design, k) for k in ("quantile", "exposure") if getattr(design, k) is not None}
-    out = []
     s, e = block
     for us in range(s, e, rows_per_unit):
         ue = min(us + rows_per_unit, e)
@@ -169,8 +172,7 @@ def _block_limits(design, method, ns, root, bi, block, rows_per_unit, n_max, nb_
             los.append(lo.reshape(r))
             his.append(hi.reshape(r))
             degs.append(deg.reshape(r))
-        out.append((np.stack(los, axis=1), np.stack(his, axis=1), np.stack(degs, axis=1), ue))
-    return out
+        yield np.stack(los, axis=1), np.stack(his, axis=1), np.stack(degs, axis=1)
 
 
 def to_factor_scale(r: CheckResult) -> CheckResult:

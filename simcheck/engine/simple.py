@@ -51,7 +51,7 @@ from simcheck.design import Design
 from simcheck.errors import InputError
 from simcheck.intervals import Summary, get_method
 from simcheck.intervals.base import Method
-from simcheck.engine.measures import Accumulator, block_starts, row_from_measures
+from simcheck.engine.measures import Accumulator, Partial, Reducer, block_starts, row_from_measures
 from simcheck.results import CheckResult
 from simcheck.threads import ordered_map
 
@@ -220,6 +220,15 @@ PIECE_VALUES = 1 << 15
 PIECES_PER_BLOCK = 4
 #: values per work unit on buffered paths
 UNIT_VALUES = 1 << 17
+#: values per slab of a nested unit: a slab's running sums, limits and counts
+#: stay in cache between passes. Measured on the work after the draw of one
+#: 324 x 400 unit (t interval), quiet machine: slabs of 24-128 rows took
+#: 2.1-3.1 ms against 3.8-5.7 ms for the whole unit; whole curve n = 2..400 /
+#: one check at load average 9 (best of 8, alternating): 2.53 with 32 Ki
+#: values, 2.42 with 64 Ki and 2.42 with 128 Ki (whole units). Smaller slabs
+#: lose to Python's overhead per slab (about 60 microseconds). No number
+#: depends on it.
+SLAB_VALUES = 1 << 16
 
 
 def piece_rows(columns: int) -> int:
@@ -236,6 +245,11 @@ def block_size(columns: int) -> int:
     on the root, the block index and ``columns`` -- never on chunking.
     """
     return piece_rows(columns) * PIECES_PER_BLOCK
+
+
+def slab_rows(columns: int) -> int:
+    """Rows per slab when a nested unit is reduced (does not affect any number)."""
+    return int(max(1, SLAB_VALUES // max(columns, 1)))
 
 
 def unit_rows(columns: int) -> int:
@@ -324,24 +338,29 @@ def _sufficient(design, method, n, replicates, root, seed, progress, chunk_bytes
     per = max(1, (1 << 17) // block_size(2))
     items = [(i, blocks[i : i + per]) for i in range(0, len(blocks), per)]
 
-    def work(item) -> _Limits:
+    def work(item) -> Partial:
+        # the measures are reduced here, in the worker thread; the calling thread only merges
         i, grp = item
-        starts, stop = [s - grp[0][0] for s, _ in grp], grp[-1][1]
+        starts = [s - grp[0][0] for s, _ in grp]
         a = _suff_draw(design.model, n, root, rngmod.STAGE_MAIN, i, grp)
         if method.kind == "summary" and method.centre_half is not None:
             c, h = method.centre_half(a, design.confidence)
-            return _Limits(np.broadcast_to(c, a.mean.shape), np.broadcast_to(h, a.mean.shape), None, starts, stop, symmetric=True)
-        if method.kind == "summary":
-            lo, hi = method.func(a, design.confidence)
+            lim = _Limits(np.broadcast_to(c, a.mean.shape), np.broadcast_to(h, a.mean.shape), None, starts, symmetric=True)
         else:
-            b = _suff_draw(design.model_b, design.n_b(n), root, rngmod.STAGE_GROUP_B, i, grp)
-            lo, hi = method.func(a, b, design.confidence)
-        return _Limits(np.asarray(lo).reshape(-1, 1), np.asarray(hi).reshape(-1, 1), None, starts, stop)
+            if method.kind == "summary":
+                lo, hi = method.func(a, design.confidence)
+            else:
+                b = _suff_draw(design.model_b, design.n_b(n), root, rngmod.STAGE_GROUP_B, i, grp)
+                lo, hi = method.func(a, b, design.confidence)
+            lim = _Limits(np.asarray(lo).reshape(-1, 1), np.asarray(hi).reshape(-1, 1), None, starts)
+        red = acc.reducer(0.0, grp[0][0])
+        lim.reduce_into(red)
+        return red.partial()
 
-    for lim in ordered_map(work, items, threads):
-        lim.feed(acc, 0.0)
+    for (_, grp), part in zip(items, ordered_map(work, items, threads)):
+        acc.merge(part)
         if progress:
-            progress(lim.stop, replicates)
+            progress(grp[-1][1], replicates)
     acc.finish()
     r = acc.row(0, design, n, replicates, seed, "sufficient")
     if design.assurance in (0.5, 0.9):  # the median / 90th percentile already computed
@@ -352,22 +371,38 @@ def _sufficient(design, method, n, replicates, root, seed, progress, chunk_bytes
 # --------------------------------------------------------------------------
 # simulation (full and nested)
 # --------------------------------------------------------------------------
-def prefix_moments(d: np.ndarray, ns: Sequence[int], nested: bool, need_m3: bool):
-    """Prefix sums of d, d^2 (and d^3) at each n in ns; d is (b, n_max)."""
+def prefix_moments(d: np.ndarray, ns: Sequence[int], nested: bool, need_m3: bool, cols=None, shift: float = 0.0):
+    """Prefix sums of d - shift, (d - shift)^2 (and cubes) at each n in ns; d is (b, n_max).
+
+    ``cols``: :func:`prefix_columns` of ``ns``, when the caller has it already.
+    ``d`` may be overwritten.
+    """
     if not nested:
+        if shift:
+            d -= shift
         s1 = d.sum(axis=1, keepdims=True)
         s2 = np.einsum("ij,ij->i", d, d)[:, None]
         s3 = np.einsum("ij,ij,ij->i", d, d, d)[:, None] if need_m3 else None
         return s1, s2, s3
-    cols = prefix_columns(ns)
-    sq = d * d
-    cube = sq * d if need_m3 else None
-    # running sums in place (the draws are not needed afterwards); the columns
-    # kept are copied to contiguous arrays, on which the many element-wise
-    # passes that follow run two to three times faster than on strided views
-    s1 = np.ascontiguousarray(np.cumsum(d, axis=1, out=d)[:, cols])
-    s2 = np.ascontiguousarray(np.cumsum(sq, axis=1, out=sq)[:, cols])
-    s3 = np.ascontiguousarray(np.cumsum(cube, axis=1, out=cube)[:, cols]) if need_m3 else None
+    cols = prefix_columns(ns) if cols is None else cols
+    # Both running sums in one pass: d in the real and d^2 in the imaginary
+    # part of a complex array. A complex add is two independent IEEE double
+    # adds, so the sums are the very bits of two real running sums, while a
+    # running sum's speed is set by the chain from one element to the next
+    # (about 3.3 ns per element on the project machine): the pair costs about
+    # 60% of two real cumsums (measured on 81 x 400 slabs, packing included).
+    z = np.empty(d.shape, dtype=np.complex128)
+    np.subtract(d, shift, out=z.real)  # centring and packing in one pass
+    np.multiply(z.real, z.real, out=z.imag)
+    cube = np.multiply(z.imag, z.real) if need_m3 else None
+    np.cumsum(z, axis=1, out=z)
+    # columns kept with gaps between them are copied to contiguous arrays, on
+    # which the many element-wise passes that follow run two to three times
+    # faster than on strided views; consecutive columns are read in place
+    keep = (lambda a: a) if isinstance(cols, slice) and cols.step == 1 else np.ascontiguousarray
+    s1 = keep(z.real[:, cols])
+    s2 = keep(z.imag[:, cols])
+    s3 = keep(np.cumsum(cube, axis=1, out=cube)[:, cols]) if need_m3 else None
     return s1, s2, s3
 
 
@@ -384,16 +419,21 @@ def prefix_columns(ns) -> slice | np.ndarray:
 
 
 def summary_from_sums(s1, s2, s3, n, sd_true) -> Summary:
-    """Summary from power sums (centred data); overwrites s1 and s2 in place."""
-    inv_n = 1.0 / np.asarray(n, dtype=np.float64)
-    mean = np.multiply(s1, inv_n, out=s1)
+    """Summary from power sums (centred data); may overwrite s1 in place.
+
+    Strided views (the running sums of :func:`prefix_moments`) are read, not
+    written: the results go to new contiguous arrays in as many passes.
+    """
+    nf = np.asarray(n, dtype=np.float64)
+    inv_n = 1.0 / nf
+    mean = np.multiply(s1, inv_n, out=s1 if s1.flags.c_contiguous and s1.flags.writeable else None)
     m3 = None
     if s3 is not None:
         m3 = s3 * inv_n - 3.0 * mean * (s2 * inv_n) + 2.0 * mean**3
     tmp = mean * mean
-    tmp *= np.asarray(n, dtype=np.float64)
-    var = np.subtract(s2, tmp, out=s2)
-    var *= 1.0 / (np.asarray(n, dtype=np.float64) - 1.0)
+    tmp *= nf
+    var = np.subtract(s2, tmp, out=tmp)
+    var *= 1.0 / (nf - 1.0)
     # rounding can leave a tiny negative variance; every method clips it
     return Summary(n=n, mean=mean, var=var, m3=m3, sd_true=sd_true)
 
@@ -413,6 +453,17 @@ class _SimPlan:
     root: np.random.SeedSequence
     log_shift: float
     threads: int = 1
+    #: the true value the limits are compared with (0 for shift-equivariant methods on centred data)
+    truth: float = 0.0
+    #: replicates (from the first) whose half-widths the accumulator keeps
+    keep: int = 0
+    #: prefix_columns of ns and nbs, and ns as an array (computed once, not per slab)
+    cols_a: object = None
+    cols_b: object = None
+    n_eval: np.ndarray | None = None
+
+    def reducer(self, first_row: int) -> Reducer:
+        return Reducer(len(self.ns), self.truth, self.design.margin, self.keep - first_row)
 
     @property
     def two(self) -> bool:
@@ -430,14 +481,14 @@ class _Limits:
     hi: np.ndarray
     degenerate: np.ndarray | None
     starts: list
-    stop: int
     symmetric: bool = False
 
-    def feed(self, acc: Accumulator, truth: float) -> None:
+    def reduce_into(self, red: Reducer, more: bool = False) -> None:
+        """Counts and sums of these limits into ``red`` (``more``: they continue its last unit)."""
         if self.symmetric:
-            acc.add_symmetric(self.lo, self.hi, truth, starts=self.starts)
+            red.add_symmetric(self.lo, self.hi, starts=self.starts, more=more)
         else:
-            acc.add(self.lo, self.hi, truth, self.degenerate, starts=self.starts)
+            red.add(self.lo, self.hi, self.degenerate, starts=self.starts, more=more)
 
 
 _FUSED_KINDS = ("summary", "summary2", "log", "count", "count2")
@@ -452,24 +503,27 @@ def _simulate(design, method, ns, replicates, root, seed, progress, chunk_bytes,
     columns = ncol_a + ncol_b
     fused = not nested and method.kind in _FUSED_KINDS
     mu_a = design.model.mean
+    acc = Accumulator(len(ns), replicates, design.margin)
     plan = _SimPlan(design, method, list(ns), nbs, ncol_a, ncol_b, nested, fused, root,
-                    math.log(mu_a) if method.kind == "log" and mu_a > 0 else 0.0, threads)
+                    math.log(mu_a) if method.kind == "log" and mu_a > 0 else 0.0, threads,
+                    truth=0.0 if method.shift_equivariant else design.true_value, keep=acc.keep,
+                    cols_a=prefix_columns(ns), cols_b=prefix_columns(nbs) if two else None,
+                    n_eval=np.asarray(ns, dtype=np.int64))
     all_blocks, per_chunk, _ = _plan(replicates, columns, chunk_bytes, 4 if nested else 1)
     if fused:
         items = [(first, blocks) for first, blocks in _chunks(all_blocks, per_chunk)]
-        work = lambda item: [_fused_item(plan, *item)]  # noqa: E731
+        work = lambda item: _fused_item(plan, *item)  # noqa: E731
     else:
-        items = list(enumerate(all_blocks))
-        work = lambda item: _block_item(plan, *item, unit_rows(columns))  # noqa: E731
+        items = [(bi, [block]) for bi, block in enumerate(all_blocks)]
+        work = lambda item: _block_item(plan, item[0], item[1][0], unit_rows(columns))  # noqa: E731
     # bootstrap methods run their own thread pool inside each call
     n_threads = 1 if method.kind in ("sample", "sample2") else threads
-    acc = Accumulator(len(ns), replicates, design.margin)
-    truth = 0.0 if method.shift_equivariant else design.true_value
-    for limits in ordered_map(work, items, n_threads):
-        for lim in limits:
-            lim.feed(acc, truth)
+    # every work item reduces its limits to counts and sums in its own thread;
+    # here they are only merged, in item order (so the thread count changes no bit)
+    for (_, blocks), part in zip(items, ordered_map(work, items, n_threads)):
+        acc.merge(part)
         if progress:
-            progress(limits[-1].stop, replicates)
+            progress(blocks[-1][1], replicates)
     acc.finish()
     path = "nested" if nested else "simulation"
     rows = []
@@ -506,8 +560,8 @@ def summary_shift(design: Design, method: Method) -> float:
     return design.model.mean if method.shift_equivariant else 0.0
 
 
-def _fused_item(plan: _SimPlan, first: int, blocks) -> _Limits:
-    """A chunk of whole blocks, each piece reduced to power sums as it is drawn."""
+def _fused_item(plan: _SimPlan, first: int, blocks) -> Partial:
+    """A chunk of whole blocks, each piece reduced to power sums as it is drawn, then to measures."""
     d, kind = plan.design, plan.method.kind
     tr_a = {"summary": _centre_by(summary_shift(d, plan.method)), "summary2": _centre_by(d.model.mean),
             "log": _log_transform(plan)}.get(kind)
@@ -516,11 +570,20 @@ def _fused_item(plan: _SimPlan, first: int, blocks) -> _Limits:
     if plan.two:
         tr_b = _centre_by(d.model_b.mean) if kind == "summary2" else None
         mb = _piece_sums(d.model_b, plan.root, rngmod.STAGE_GROUP_B, first, blocks, plan.ncol_b, tr_b, False)
-    return _limits(plan, ma, mb, None, None, None, block_starts(blocks), blocks[-1][1])
+    red = plan.reducer(blocks[0][0])
+    _limits(plan, ma, mb, None, None, None, block_starts(blocks)).reduce_into(red)
+    return red.partial()
 
 
-def _block_item(plan: _SimPlan, bi: int, block: tuple[int, int], rows: int) -> list[_Limits]:
-    """One random block drawn unit by unit from its own generators (nested curves, bootstrap)."""
+def _block_item(plan: _SimPlan, bi: int, block: tuple[int, int], rows: int) -> Partial:
+    """One random block drawn unit by unit from its own generators (nested curves, bootstrap).
+
+    Each unit is reduced to measures right after its draw; nested curves work
+    through a unit in slabs of rows small enough to stay in the core's cache
+    (the draws, running sums, limits and counts of a slab), and the float sums
+    continue from slab to slab in row order, so the unit's sums are the same
+    bits as if it were reduced at once.
+    """
     d = plan.design
     g_a = rngmod.generator(plan.root, rngmod.STAGE_MAIN, bi)
     g_b = rngmod.generator(plan.root, rngmod.STAGE_GROUP_B, bi) if plan.two else None
@@ -529,50 +592,57 @@ def _block_item(plan: _SimPlan, bi: int, block: tuple[int, int], rows: int) -> l
     ur = min(rows, e - s)
     buf_a = np.empty((ur, plan.ncol_a))
     buf_b = np.empty((ur, plan.ncol_b)) if plan.two else None
-    out = []
+    red = plan.reducer(s)
+    # slabs only where rows are independent (not bootstrap: its resampling stream is consumed per call)
+    # and with two or more n (one column's float sums are pairwise, not row by row)
+    slab = slab_rows(plan.ncol_a + plan.ncol_b) if plan.nested and len(plan.ns) > 1 else ur
     for us in range(s, e, rows):
         ue = min(us + rows, e)
         xa = d.model.draw(g_a, (ue - us, plan.ncol_a), out=buf_a[: ue - us])
         xb = d.model_b.draw(g_b, (ue - us, plan.ncol_b), out=buf_b[: ue - us]) if plan.two else None
-        out.append(_limits(plan, None, None, xa, xb, g_boot, [0], ue))
-    return out
+        for i in range(0, ue - us, slab):
+            j = min(i + slab, ue - us)
+            lim = _limits(plan, None, None, xa[i:j], None if xb is None else xb[i:j], g_boot, [0])
+            lim.reduce_into(red, more=i > 0)
+    return red.partial()
 
 
-def _limits(plan: _SimPlan, ma, mb, xa, xb, g_boot, starts, stop) -> _Limits:
+def _limits(plan: _SimPlan, ma, mb, xa, xb, g_boot, starts) -> _Limits:
     """Interval limits from power sums (``ma``/``mb``, fused) or raw draws (``xa``/``xb``)."""
     d, method, kind = plan.design, plan.method, plan.method.kind
     conf, nested = d.confidence, plan.nested
-    n_eval = np.asarray(plan.ns, dtype=np.int64)
+    n_eval = plan.n_eval
     degenerate = None
     if kind in ("summary", "summary2"):
         if ma is None:
-            xa -= summary_shift(d, method) if kind == "summary" else d.model.mean
-            ma = prefix_moments(xa, plan.ns, nested, method.needs_m3)
+            shift = summary_shift(d, method) if kind == "summary" else d.model.mean
+            ma = prefix_moments(xa, plan.ns, nested, method.needs_m3, plan.cols_a, shift=shift)
         sa = summary_from_sums(*ma, n_eval, d.model.sd)
         if kind == "summary" and method.centre_half is not None:
             c, h = method.centre_half(sa, conf)
             shape = np.shape(sa.mean)
-            return _Limits(np.broadcast_to(c, shape), np.broadcast_to(h, shape), None, starts, stop, symmetric=True)
+            if np.shape(c) != shape or np.shape(h) != shape:  # e.g. z: one half-width per n
+                c, h = np.broadcast_to(c, shape), np.broadcast_to(h, shape)
+            return _Limits(c, h, None, starts, symmetric=True)
         if kind == "summary":
             lo, hi = method.func(sa, conf)
         else:
             if mb is None:
-                xb -= d.model_b.mean
-                mb = prefix_moments(xb, plan.nbs, nested, False)
+                mb = prefix_moments(xb, plan.nbs, nested, False, plan.cols_b, shift=d.model_b.mean)
             sb = summary_from_sums(*mb, np.asarray(plan.nbs), d.model_b.sd)
             lo, hi = method.func(sa, sb, conf)
     elif kind == "log":
         if ma is None:
             _log_transform(plan)(xa)
-            ma = prefix_moments(xa, plan.ns, nested, False)
+            ma = prefix_moments(xa, plan.ns, nested, False, plan.cols_a)
         s = summary_from_sums(*ma, n_eval, None)
         lo, hi = method.func(Summary(n=s.n, mean=s.mean + plan.log_shift, var=s.var), conf)
     elif kind in ("count", "count2"):
-        ca = ma[0] if ma is not None else prefix_counts(xa, plan.ns, nested)
+        ca = ma[0] if ma is not None else prefix_counts(xa, plan.ns, nested, plan.cols_a)
         if kind == "count":
             lo, hi = method.func(ca, n_eval, conf)
         else:
-            cb = mb[0] if mb is not None else prefix_counts(xb, plan.nbs, nested)
+            cb = mb[0] if mb is not None else prefix_counts(xb, plan.nbs, nested, plan.cols_b)
             lo, hi = method.func(ca, n_eval, cb, np.asarray(plan.nbs), conf)
     elif kind in ("sample", "sample2"):
         xa -= d.model.mean
@@ -588,11 +658,11 @@ def _limits(plan: _SimPlan, ma, mb, xa, xb, g_boot, starts, stop) -> _Limits:
     if lo.ndim == 1:
         lo, hi = lo[:, None], hi[:, None]
     deg = None if degenerate is None else np.asarray(degenerate).reshape(-1, 1)
-    return _Limits(lo, hi, deg, starts, stop)
+    return _Limits(lo, hi, deg, starts)
 
 
-def prefix_counts(x: np.ndarray, ns, nested: bool) -> np.ndarray:
+def prefix_counts(x: np.ndarray, ns, nested: bool, cols=None) -> np.ndarray:
     if not nested:
         return x.sum(axis=1, keepdims=True)
-    return np.cumsum(x, axis=1, out=x)[:, prefix_columns(ns)]
+    return np.cumsum(x, axis=1, out=x)[:, prefix_columns(ns) if cols is None else cols]
 

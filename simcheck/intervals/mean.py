@@ -32,10 +32,32 @@ def t_ppf(q, df):
 
 def _t_quantile(q: float, df) -> np.ndarray | float:
     """t quantile; scalar degrees of freedom are cached (scipy's ppf costs far
-    more than the interval arithmetic on a chunk of replicates)."""
+    more than the interval arithmetic on a chunk of replicates), and so are
+    the short rows of degrees of freedom of a whole curve (one per n), which
+    the engine asks for once per slab of replicates."""
     if np.ndim(df) == 0:
         return _t_scalar(float(q), float(df))
-    return t_ppf(q, df)
+    df = np.asarray(df, dtype=float)
+    if df.size > _T_ROW_MAX or np.ndim(q) != 0 or (df.ndim > 1 and df.shape[0] > 1):  # per-replicate df (Welch): not cached
+        return t_ppf(q, df)
+    key = (float(q), df.shape, df.tobytes())
+    with _T_ROW_LOCK:
+        hit = _T_ROWS.get(key)
+    if hit is None:
+        hit = np.asarray(t_ppf(q, df), dtype=float)
+        hit.flags.writeable = False  # shared by every caller
+        with _T_ROW_LOCK:
+            if len(_T_ROWS) >= _T_ROW_ENTRIES:
+                _T_ROWS.pop(next(iter(_T_ROWS)))
+            _T_ROWS[key] = hit
+    return hit
+
+
+#: rows of degrees of freedom cached by _t_quantile: at most this many values each, this many rows
+_T_ROW_MAX = 20_000
+_T_ROW_ENTRIES = 32
+_T_ROWS: dict = {}
+_T_ROW_LOCK = threading.Lock()
 
 
 @functools.lru_cache(maxsize=4096)

@@ -133,7 +133,11 @@ def log_scale_measures(lo, hi, w, truth: float, margin: float | None, assurance:
     order = np.argsort(hw_ok, kind="stable")
     hw_s, w_s = hw_ok[order], w_ok[order]
     ok_total = float(w_ok.sum())
-    mean = float(np.dot(w_ok, np.where(w_ok > 0, hw_ok, 0.0)) / ok_total) if ok_total > 0 else math.nan
+    # the mean over bounded intervals: an unbounded one (probability often 1e-17) would make it infinite
+    finite = np.isfinite(hw_ok)
+    fin_total = float(w_ok[finite].sum())
+    mean = (float(np.dot(w_ok[finite], np.where(w_ok[finite] > 0, hw_ok[finite], 0.0)) / fin_total)
+            if fin_total > 0 else math.nan)
     assured = None
     if margin is not None:
         assured = float(w[(hw <= math.log(margin) * MARGIN_RTOL) & ~zero].sum() / total)
@@ -145,7 +149,7 @@ def log_scale_measures(lo, hi, w, truth: float, margin: float | None, assurance:
     unbounded = float(w_ok[np.isinf(hw_ok)].sum() / total)
     if unbounded > 0:
         notes.append(f"probability {unbounded:.4g} of an unbounded interval (limit 0 or infinity): its margin "
-                     "factor is infinite, and so is the margin mean")
+                     "factor is infinite; it never meets the margin and is left out of the margin mean")
     return {
         "true_value": truth,
         "coverage": float(w[covered].sum() / total),

@@ -356,10 +356,6 @@ def run_study(scenario, *, seed: int | None = None, progress: Progress = None, p
     units : str, optional
         The data's units, for the half-width axis.
     """
-    import importlib
-
-    # the module: the package attribute `simcheck.search` is the API function
-    search = importlib.import_module("simcheck.search")
     from simcheck.tasks import resolve_seed
 
     say = progress or (lambda _msg: None)
@@ -377,16 +373,7 @@ def run_study(scenario, *, seed: int | None = None, progress: Progress = None, p
     common = dict(assurance=scenario.assurance, coverage_tolerance=scenario.coverage_tolerance, replicates=R,
                   rng=seed, n_min=scenario.n_min, n_max=scenario.n_max, budget=getattr(scenario, "budget", None), path=path,
                   window=getattr(scenario, "window", 1.25))
-    searches: dict[str, SearchResult] = {}
-    best = None
-    if len(methods) > 1:
-        comp = search.compare(design, list(methods), **common)
-        for r in comp.by_method:
-            searches[r.method] = r
-        best = comp.best
-    else:
-        searches[methods[0]] = search.find_n(design.with_method(methods[0]), **common)
-        best = methods[0] if searches[methods[0]].reached else None
+    searches, best = _search_each(design, methods, common)
     if n_formula is None:
         n_formula = next((r.n_formula for r in searches.values() if r.n_formula is not None), None)
     # one grid for every method, so their lines can be compared point by point
@@ -420,6 +407,19 @@ def run_study(scenario, *, seed: int | None = None, progress: Progress = None, p
         value_label=value_axis_label(scenario, units),
         scenario=scenario.to_dict() if hasattr(scenario, "to_dict") else None,
     )
+
+
+def _search_each(design, methods: tuple[str, ...], common: dict[str, Any]) -> tuple[dict[str, SearchResult], str | None]:
+    """The search of every method (a comparison when several) and the best method, if any reaches."""
+    import importlib
+
+    # the module: the package attribute `simcheck.search` is the API function
+    search = importlib.import_module("simcheck.search")
+    if len(methods) > 1:
+        comp = search.compare(design, list(methods), **common)
+        return {r.method: r for r in comp.by_method}, comp.best
+    only = search.find_n(design.with_method(methods[0]), **common)
+    return {methods[0]: only}, methods[0] if only.reached else None
 
 
 def _study_evaluations(design, methods, searches, grid, n_formula, *, R, seed, path, say):

@@ -205,102 +205,20 @@ def read_sweep(path: str | Path, *, allow_outside_files: bool = False) -> SweepS
     table = parse_toml(text, label=source)
 
     c = Collector()
-    for k in table:
-        if k not in SWEEP_KEYS:
-            close = difflib.get_close_matches(k, SWEEP_KEYS, n=1)
-            hint = f" (did you mean '{close[0]}'?)" if close else f" (known: {', '.join(SWEEP_KEYS)})"
-            c.add(k, f"unknown key{hint}")
-
+    _check_keys(c, table)
     title = table.get("title")
     if title is not None and not isinstance(title, str):
         c.add("title", f"must be a string, got {title!r}")
-
-    task = table.get("task")
-    if task is None:
-        c.add("task", f"required: one of {', '.join(TASKS)}")
-    elif task not in TASKS:
-        close = difflib.get_close_matches(str(task), TASKS, n=1)
-        hint = f" (did you mean '{close[0]}'?)" if close else ""
-        c.add("task", f"must be one of {', '.join(TASKS)}, got {task!r}{hint}")
-
-    n_values: tuple[int, ...] | None = None
-    if "n" in table:
-        raw = table["n"]
-        if task is not None and task != "check":
-            c.add("n", "only for task = 'check'")
-        elif not isinstance(raw, list) or not raw:
-            c.add("n", f"must be a non-empty list of sample sizes, got {raw!r}")
-        else:
-            got = [c.number(f"n[{i}]", v, low=2, high=N_LIMIT, integer=True) for i, v in enumerate(raw)]
-            if all(v is not None for v in got):
-                if len(set(got)) != len(got):
-                    c.add("n", f"each sample size at most once, got {raw!r}")
-                n_values = tuple(sorted(got))  # type: ignore[arg-type]
-    elif task == "check":
-        c.add("n", "required for task = 'check': a list of sample sizes, e.g. n = [50, 100]")
-
-    bounds: dict[str, int | None] = {"n_min": None, "n_max": None}
-    for name in bounds:
-        if name in table:
-            if task is not None and task != "curve":
-                c.add(name, "only for task = 'curve' (for search, set simulation." + name + " in the scenario)")
-            else:
-                high = N_LIMIT - 1 if name == "n_min" else N_LIMIT
-                bounds[name] = c.number(name, table[name], low=2, high=high, integer=True)  # type: ignore[assignment]
-    if bounds["n_min"] is not None and bounds["n_max"] is not None and bounds["n_min"] >= bounds["n_max"]:
-        c.add("n_max", f"must be > n_min ({bounds['n_min']}), got {bounds['n_max']}")
-
-    seed = None
-    if "seed" in table:
-        seed = c.number("seed", table["seed"], low=0, high=SEED_MAX, integer=True)
-
-    vary: list[tuple[str, tuple[Any, ...]]] = []
-    raw_vary = table.get("vary", {})
-    if not isinstance(raw_vary, dict):
-        c.add("vary", "must be a table of dotted scenario keys with lists of values")
-    else:
-        flat: dict[str, Any] = {}
-        _flatten_vary(raw_vary, "", flat)
-        for k, values in flat.items():
-            if not isinstance(values, list) or not values:
-                c.add(f"vary.{k}", f"must be a non-empty list of values, got {values!r}")
-                continue
-            try:
-                json.dumps(values, allow_nan=False)
-            except (TypeError, ValueError):
-                c.add(f"vary.{k}", "values must be numbers, strings, booleans, lists or tables (no dates, nan or inf)")
-                continue
-            seen = [_canonical(v) for v in values]
-            if len(set(seen)) != len(seen):
-                dup = sorted({repr(v) for v, t in zip(values, seen) if seen.count(t) > 1})
-                c.add(f"vary.{k}", f"each value at most once ({' and '.join(dup)} are the same value), got {values!r}")
-                continue
-            vary.append((k, tuple(values)))
-        size = math.prod(len(v) for _, v in vary)
-        if size > MAX_CELLS:
-            c.add("vary", f"the grid has {size:,} cells; one sweep may have at most {MAX_CELLS:,} "
-                  "(split it into several sweep files, each with its own store)")
-
+    task = _read_task(c, table)
+    n_values = _read_n(c, table, task)
+    bounds = _read_bounds(c, table, task)
+    seed = c.number("seed", table["seed"], low=0, high=SEED_MAX, integer=True) if "seed" in table else None
+    vary = _read_vary(c, table.get("vary", {}))
     zipped = _read_zip(c, table.get("zip", {}), {k for k, _ in vary})
     if zipped and len(zipped[0][1]) * math.prod(len(v) for _, v in vary) > MAX_CELLS:
         c.add("zip", f"the grid has {len(zipped[0][1]) * math.prod(len(v) for _, v in vary):,} cells "
               f"(zip rows x vary combinations); one sweep may have at most {MAX_CELLS:,}")
-
-    base_path = None
-    base_text = ""
-    base = table.get("base")
-    if base is None:
-        c.add("base", "required: the scenario file, relative to the sweep file")
-    elif not isinstance(base, str) or not base:
-        c.add("base", f"must be a file name, got {base!r}")
-    else:
-        try:
-            base_path = resolve_data_path(base, path.parent, field="base", allow_outside=allow_outside_files,
-                                          folder="the sweep file's folder")
-            base_text = read_text(base_path, field="base", what="base scenario")
-        except InputError as exc:
-            for p in exc.problems:
-                c.add("base", p.message if base in p.message else f"{base}: {p.message}")
+    base_path, base_text = _read_base(c, table, path, allow_outside_files)
     c.raise_if_any(source)
 
     if seed is None:
@@ -322,6 +240,115 @@ def read_sweep(path: str | Path, *, allow_outside_files: bool = False) -> SweepS
     )
 
 
+def _check_keys(c: Collector, table: dict[str, Any]) -> None:
+    for k in table:
+        if k not in SWEEP_KEYS:
+            close = difflib.get_close_matches(k, SWEEP_KEYS, n=1)
+            hint = f" (did you mean '{close[0]}'?)" if close else f" (known: {', '.join(SWEEP_KEYS)})"
+            c.add(k, f"unknown key{hint}")
+
+
+def _read_task(c: Collector, table: dict[str, Any]) -> Any:
+    task = table.get("task")
+    if task is None:
+        c.add("task", f"required: one of {', '.join(TASKS)}")
+    elif task not in TASKS:
+        close = difflib.get_close_matches(str(task), TASKS, n=1)
+        hint = f" (did you mean '{close[0]}'?)" if close else ""
+        c.add("task", f"must be one of {', '.join(TASKS)}, got {task!r}{hint}")
+    return task
+
+
+def _read_n(c: Collector, table: dict[str, Any], task: Any) -> tuple[int, ...] | None:
+    """``n``: the sample sizes a check task checks (sorted, each once)."""
+    if "n" not in table:
+        if task == "check":
+            c.add("n", "required for task = 'check': a list of sample sizes, e.g. n = [50, 100]")
+        return None
+    raw = table["n"]
+    if task is not None and task != "check":
+        c.add("n", "only for task = 'check'")
+    elif not isinstance(raw, list) or not raw:
+        c.add("n", f"must be a non-empty list of sample sizes, got {raw!r}")
+    else:
+        got = [c.number(f"n[{i}]", v, low=2, high=N_LIMIT, integer=True) for i, v in enumerate(raw)]
+        if all(v is not None for v in got):
+            if len(set(got)) != len(got):
+                c.add("n", f"each sample size at most once, got {raw!r}")
+            return tuple(sorted(got))  # type: ignore[arg-type]
+    return None
+
+
+def _read_bounds(c: Collector, table: dict[str, Any], task: Any) -> dict[str, int | None]:
+    """``n_min`` and ``n_max`` of a curve task."""
+    bounds: dict[str, int | None] = {"n_min": None, "n_max": None}
+    for name in bounds:
+        if name in table:
+            if task is not None and task != "curve":
+                c.add(name, "only for task = 'curve' (for search, set simulation." + name + " in the scenario)")
+            else:
+                high = N_LIMIT - 1 if name == "n_min" else N_LIMIT
+                bounds[name] = c.number(name, table[name], low=2, high=high, integer=True)  # type: ignore[assignment]
+    if bounds["n_min"] is not None and bounds["n_max"] is not None and bounds["n_min"] >= bounds["n_max"]:
+        c.add("n_max", f"must be > n_min ({bounds['n_min']}), got {bounds['n_max']}")
+    return bounds
+
+
+def _plain_values(c: Collector, field: str, values: Any) -> bool:
+    """Whether ``values`` can be hashed into a cell key (JSON without dates, nan or inf)."""
+    try:
+        json.dumps(values, allow_nan=False)
+    except (TypeError, ValueError):
+        c.add(field, "values must be numbers, strings, booleans, lists or tables (no dates, nan or inf)")
+        return False
+    return True
+
+
+def _read_vary(c: Collector, raw_vary: Any) -> list[tuple[str, tuple[Any, ...]]]:
+    """The ``[vary]`` table: dotted keys -> lists of distinct values, crossed."""
+    vary: list[tuple[str, tuple[Any, ...]]] = []
+    if not isinstance(raw_vary, dict):
+        c.add("vary", "must be a table of dotted scenario keys with lists of values")
+        return vary
+    flat: dict[str, Any] = {}
+    _flatten_vary(raw_vary, "", flat)
+    for k, values in flat.items():
+        if not isinstance(values, list) or not values:
+            c.add(f"vary.{k}", f"must be a non-empty list of values, got {values!r}")
+            continue
+        if not _plain_values(c, f"vary.{k}", values):
+            continue
+        seen = [_canonical(v) for v in values]
+        if len(set(seen)) != len(seen):
+            dup = sorted({repr(v) for v, t in zip(values, seen) if seen.count(t) > 1})
+            c.add(f"vary.{k}", f"each value at most once ({' and '.join(dup)} are the same value), got {values!r}")
+            continue
+        vary.append((k, tuple(values)))
+    size = math.prod(len(v) for _, v in vary)
+    if size > MAX_CELLS:
+        c.add("vary", f"the grid has {size:,} cells; one sweep may have at most {MAX_CELLS:,} "
+              "(split it into several sweep files, each with its own store)")
+    return vary
+
+
+def _read_base(c: Collector, table: dict[str, Any], path: Path, allow_outside_files: bool) -> tuple[Path | None, str]:
+    """``base``: the scenario file's path (inside the sweep's folder unless allowed) and text."""
+    base = table.get("base")
+    if base is None:
+        c.add("base", "required: the scenario file, relative to the sweep file")
+    elif not isinstance(base, str) or not base:
+        c.add("base", f"must be a file name, got {base!r}")
+    else:
+        try:
+            base_path = resolve_data_path(base, path.parent, field="base", allow_outside=allow_outside_files,
+                                          folder="the sweep file's folder")
+            return base_path, read_text(base_path, field="base", what="base scenario")
+        except InputError as exc:
+            for p in exc.problems:
+                c.add("base", p.message if base in p.message else f"{base}: {p.message}")
+    return None, ""
+
+
 def _read_zip(c: Collector, raw: Any, varied: set[str]) -> tuple[tuple[str, tuple[Any, ...]], ...]:
     """The ``[zip]`` table: dotted keys -> lists of one common length, taken together per cell."""
     if not isinstance(raw, dict):
@@ -335,12 +362,7 @@ def _read_zip(c: Collector, raw: Any, varied: set[str]) -> tuple[tuple[str, tupl
             c.add(f"zip.{k}", f"must be a non-empty list of values, got {values!r}")
         elif k in varied:
             c.add(f"zip.{k}", "is also in [vary]; a key either varies on its own or together with others")
-        else:
-            try:
-                json.dumps(values, allow_nan=False)
-            except (TypeError, ValueError):
-                c.add(f"zip.{k}", "values must be numbers, strings, booleans, lists or tables (no dates, nan or inf)")
-                continue
+        elif _plain_values(c, f"zip.{k}", values):
             out.append((k, tuple(values)))
     lengths = {k: len(v) for k, v in out}
     if len(set(lengths.values())) > 1:

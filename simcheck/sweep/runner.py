@@ -312,12 +312,7 @@ def run_sweep(
     """
     from simcheck.sweep.grid import sweep_binding
 
-    if isinstance(jobs, bool) or not isinstance(jobs, int) or not 1 <= jobs <= MAX_JOBS:
-        raise InputError("--jobs", f"must be a whole number in [1, {MAX_JOBS}], got {jobs!r}")
-    if backend not in BACKENDS:
-        raise InputError("--backend", f"must be one of {', '.join(BACKENDS)}, got {backend!r}")
-    if backend == "local" and scheduler:
-        raise InputError("--scheduler", "only with --backend dask")
+    _check_options(jobs, backend, scheduler)
     spec = sweep if isinstance(sweep, SweepSpec) else read_sweep(sweep)
     cells = expand(spec, progress=on_validate)
     sweep_id, binding = sweep_binding(spec)
@@ -327,14 +322,8 @@ def run_sweep(
     client = connect_dask(scheduler) if backend == "dask" else None
     try:
         with SweepStore(store) as st:
-            for line in st.notices:
-                notice(line)
-            st.notices.clear()
             try:
-                st.acquire()
-                for line in st.notices:
-                    notice(line)
-                st.bind(sweep_id, binding)
+                _open_store(st, sweep_id, binding, notice)
                 return _drive(spec, cells, st, func, jobs, backend, on_start, on_cell, notice)
             except sqlite3.DatabaseError as exc:
                 err = store_write_error(st.path, exc)
@@ -345,6 +334,26 @@ def run_sweep(
     finally:
         if client is not None:
             client.close()
+
+
+def _check_options(jobs: Any, backend: Any, scheduler: str | None) -> None:
+    if isinstance(jobs, bool) or not isinstance(jobs, int) or not 1 <= jobs <= MAX_JOBS:
+        raise InputError("--jobs", f"must be a whole number in [1, {MAX_JOBS}], got {jobs!r}")
+    if backend not in BACKENDS:
+        raise InputError("--backend", f"must be one of {', '.join(BACKENDS)}, got {backend!r}")
+    if backend == "local" and scheduler:
+        raise InputError("--scheduler", "only with --backend dask")
+
+
+def _open_store(st: SweepStore, sweep_id: str, binding: dict[str, Any], notice: Callable[[str], None]) -> None:
+    """Take the store for this sweep: its notices said, the writer's lock taken, the sweep bound."""
+    for line in st.notices:
+        notice(line)
+    st.notices.clear()
+    st.acquire()
+    for line in st.notices:
+        notice(line)
+    st.bind(sweep_id, binding)
 
 
 class _Run:
