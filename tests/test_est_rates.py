@@ -260,7 +260,8 @@ def test_published_worked_example_blind_cohort():
 
 
 def _double_enumeration(d, n, limits):
-    """Coverage and median log half-width (as a factor) by summing over both Poisson totals (own code)."""
+    """Coverage, median and mean (over bounded intervals) log half-width as factors, by summing over
+    both Poisson totals (own code)."""
     t, nb = d.exposure, d.n_b(n)
     la, lb = n * d.model.mean, nb * d.model_b.mean
     xa = np.arange(0, int(la + 12 * math.sqrt(la) + 30))  # tails left out: below 1e-20
@@ -274,7 +275,9 @@ def _double_enumeration(d, n, limits):
         hw = (np.log(hi) - np.log(lo)) / 2
     order = np.argsort(hw)
     cum = np.cumsum(w[order]) / w.sum()
-    return cov, math.exp(hw[order][np.searchsorted(cum, 0.5 - 1e-12)])
+    fin = np.isfinite(hw)  # the margin mean over bounded intervals, as a factor (geometric mean)
+    mean = math.exp(np.dot(w[fin], hw[fin]) / w[fin].sum())
+    return cov, math.exp(hw[order][np.searchsorted(cum, 0.5 - 1e-12)]), mean
 
 
 def _cp_mapped(xa, ea, xb, eb):
@@ -290,10 +293,11 @@ def test_rate_ratio_exact_path_equals_own_double_enumeration():
     d = design_of(ratio_table())
     for n in (4, 30):
         r = engine.check(d, n, path="exact")
-        cov, med = _double_enumeration(d, n, _cp_mapped)
+        cov, med, mean = _double_enumeration(d, n, _cp_mapped)
         assert r.exact and r.n_b == d.n_b(n)
         assert r.coverage == pytest.approx(cov, abs=1e-11)
         assert r.margin_median == pytest.approx(med, rel=1e-9)
+        assert r.margin_mean == pytest.approx(mean, rel=1e-9)
         assert r.coverage >= 0.95  # conditional exact: conservative
 
 
@@ -309,7 +313,7 @@ def test_conditional_limits_kept_between_n_are_the_limits_of_each_n(cap, monkeyp
     d = design_of(ratio_table())
     for n in (30, 8, 31, 29, 60):
         r = engine.check(d, n, path="exact")
-        cov, med = _double_enumeration(d, n, _cp_mapped)
+        cov, med, _ = _double_enumeration(d, n, _cp_mapped)
         assert r.coverage == pytest.approx(cov, abs=1e-11)
         assert r.margin_median == pytest.approx(med, rel=1e-9)
 
@@ -324,7 +328,7 @@ def test_wald_ratio_zero_counts_count_as_misses_on_the_exact_path():
             ok = (xa > 0) & (xb > 0)
             return np.where(ok, np.exp(c - h), np.nan), np.where(ok, np.exp(c + h), np.nan)
 
-    cov, _ = _double_enumeration(d, n, wald)
+    cov, _, _ = _double_enumeration(d, n, wald)
     r = engine.check(d, n, path="exact")
     assert r.coverage == pytest.approx(cov, abs=1e-12)
     p_zero = 1 - (1 - math.exp(-n * 1.0)) * (1 - math.exp(-d.n_b(n) * 1.5))  # P(X_a = 0 or X_b = 0)

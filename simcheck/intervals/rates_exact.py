@@ -14,7 +14,7 @@ total, below the rounding of sums near 1. Supports beyond
 refused with one line pointing to the simulated paths.
 
 Measures follow :func:`simcheck.engine.exact.weighted_measures` (the same
-definitions as simulation); intervals with a NaN limit (the Wald rate ratio
+definitions as simulation; the margin mean over bounded intervals); intervals with a NaN limit (the Wald rate ratio
 with a zero count) count as not covering and are left out of the half-width
 summaries, as on the simulated paths. Ratio-scale estimands are measured on
 the log scale and their margins reported as factors exp(half-width).
@@ -111,6 +111,11 @@ def measures(lo, hi, w, truth: float, margin: float | None, assurance: float, ra
     m = weighted_measures(lo[ok], hi[ok], w[ok], truth, margin)
     share = float(w[ok].sum()) / total
     m["notes"] = _notes(1.0 - share, float(w[ok][np.isinf(hi[ok] - lo[ok])].sum()) / total)
+    # the mean over bounded intervals, as the simulated paths: an unbounded one (no events in a
+    # group, often of probability 1e-17) would make it infinite
+    hw, wv = m["margin_values"], m["margin_weights"]
+    fin = np.isfinite(hw)
+    m["margin_mean"] = float(np.dot(wv[fin], hw[fin]) / wv[fin].sum()) if wv[fin].sum() > 0 else math.nan
     for key in ("coverage", "miss_low", "miss_high", "degenerate_share"):
         m[key] *= share
     if m["assurance"] is not None:
@@ -126,8 +131,8 @@ def measures(lo, hi, w, truth: float, margin: float | None, assurance: float, ra
 def _notes(nan_share: float, unbounded: float) -> list[str]:
     out = []
     if unbounded > 0:
-        out.append(f"probability {unbounded:.4g} of an unbounded interval (infinite half-width, e.g. no events "
-                   "in a group), so the margin mean is infinite")
+        out.append(f"probability {unbounded:.4g} of an unbounded interval (an infinite limit, e.g. no events "
+                   "in a group): it never meets the margin and is left out of the margin mean")
     if nan_share > 1e-15:
         out.append(f"probability {nan_share:.4g} of an interval that cannot be computed (e.g. a zero count for the "
                    "Wald rate ratio): it counts as not covering and is left out of the half-width summaries")
