@@ -262,7 +262,7 @@ class Scenario:
             target["event_above"] = float(self.event_above)
         if self.dropout:  # only when given, so scenarios without it hash as before
             target["dropout"] = float(self.dropout)
-        for key, attr in ESTIMAND_PARAMS.items():  # target.quantile, target.exposure (data.* are in the data table)
+        for key, attr in ESTIMAND_PARAMS.items():  # target.quantile, target.exposure (data.correlation is in data)
             section, name = key.split(".")
             if section == "target" and getattr(d, attr) is not None:
                 target[name] = float(getattr(d, attr))
@@ -1042,7 +1042,7 @@ def _strata_model(c: Collector, table: dict[str, Any], files: _Files, values, ab
 
 def _group(c: Collector, data: dict[str, Any], g: str, files: _Files):
     if g not in data:
-        c.add(f"data.{g}", f"missing: a two-sample estimand needs [data.a] and [data.b]; [data.{g}] is not given")
+        c.add(f"data.{g}", f"missing: a two-sample or paired estimand needs [data.a] and [data.b]; [data.{g}] is not given")
         return None
     return _model(c, data[g], f"data.{g}", files)
 

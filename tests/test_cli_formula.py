@@ -119,7 +119,7 @@ BAD = [
     (["--estimand", "proportion"], "--margin"),
     (["--estimand", "proportion", "--margin", "abc"], "--margin"),
     (["--margin", "0.05"], "--estimand"),
-    (["--estimand", "median", "--margin", "0.05"], "--estimand"),
+    (["--estimand", "mode", "--margin", "0.05"], "--estimand"),
     (["--estimand", "proportion", "--margin", "0.05", "--confidence", "95"], "--confidence"),
     (["--estimand", "proportion", "--margin", "0.05", "--p", "0"], "--p"),
     (["--estimand", "proportion", "--margin", "0.05", "--p", "1"], "--p"),

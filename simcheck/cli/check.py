@@ -12,7 +12,7 @@ import time
 from typing import Any, Sequence
 
 from simcheck import CAUTION
-from simcheck.cli.common import emit_json, note, table
+from simcheck.cli.common import emit_json, note, paired_lines, table
 from simcheck.bound_text import bound_words, coverage_words, result_lines, units_text
 from simcheck.cli.options import add_closing_options, add_scenario_argument
 
@@ -123,6 +123,8 @@ def data_lines(d) -> list[str]:
     if d.two_sample:
         return [f"data a:      {d.model.describe()}",
                 f"data b:      {d.model_b.describe()}  (n_b = {d.ratio:g} x n)"]
+    if d.paired:
+        return paired_lines(d)
     if d.strata is not None:
         return [*(f"stratum:     {name} (N = {size}): {m.describe()}"
                   for name, size, m in zip(d.strata.names, d.strata.sizes, d.strata.models)),

@@ -102,3 +102,10 @@ def table(headers: list[str], rows: list[list[Any]]) -> str:
     lines = ["  ".join(c.rjust(w) for c, w in zip(r, widths)) for r in cells]
     lines.insert(1, "  ".join("-" * w for w in widths))
     return "\n".join(lines)
+
+
+def paired_lines(d) -> list[str]:
+    """Header lines of a paired design: both measurements' models and their correlation."""
+    return [f"data a:      {d.model.describe()}  (first measurement of each pair)",
+            f"data b:      {d.model_b.describe()}  (second measurement; n counts pairs)",
+            f"correlation: {d.correlation:g} between the measurements' normal scores (Gaussian copula)"]

@@ -54,6 +54,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from simcheck.design import Design
+from simcheck.estimands import spec_for
 from simcheck.results import CheckResult
 
 __all__ = [
@@ -122,11 +123,15 @@ def design_fields(design: Design, n: int, seed, path: str, notes) -> dict:
 
 
 def design_notes(design: Design) -> tuple[str, ...]:
-    """Notes every result of ``design`` carries: true-value notes and :func:`plausibility_notes`."""
+    """Notes every result of ``design`` carries: true-value notes, the estimand's own notes
+    (:attr:`simcheck.estimands.EstimandSpec.notes`) and :func:`plausibility_notes`."""
     out = []
     for m in (design.model, design.model_b):
         if m is not None and m.true_value_note:
             out.append(m.true_value_note)
+    spec = spec_for(design.estimand)
+    if spec is not None and spec.notes is not None:
+        out += list(spec.notes(design))
     return tuple(out) + plausibility_notes(design)
 
 

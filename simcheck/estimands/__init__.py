@@ -13,6 +13,9 @@ from simcheck.estimands.base import (
 from simcheck.estimands import spread as _spread  # noqa: F401,E402
 from simcheck.estimands import rates as _rates  # noqa: F401,E402
 from simcheck.estimands import ratios as _ratios  # noqa: F401,E402
+from simcheck.estimands import geometric as _geometric  # noqa: F401,E402
+from simcheck.estimands import quantile as _quantile  # noqa: F401,E402
+from simcheck.estimands import pairs as _pairs  # noqa: F401,E402
 
 __all__ = [
     "DATA_KINDS", "PLANNING_VALUES", "REGISTRY", "SCALES", "EstimandFormula", "EstimandSpec", "formula_for",

@@ -100,6 +100,10 @@ class EstimandSpec:
     params : tuple of str
         Design attributes it uses (``quantile``, ``exposure``,
         ``correlation``); the design refuses them for other estimands.
+    notes : callable, optional
+        ``notes(design) -> tuple of str``: sentences every result of the
+        design carries (e.g. that ties in discrete data make an exact
+        interval conservative).
     """
 
     name: str
@@ -117,6 +121,7 @@ class EstimandSpec:
     references: tuple[str, ...] = ()
     #: design attributes the estimand uses: ``quantile``, ``exposure``, ``correlation``
     params: tuple[str, ...] = ()
+    notes: Callable[[Any], tuple[str, ...]] | None = field(default=None, repr=False)
 
     def __post_init__(self) -> None:
         if self.data not in DATA_KINDS:

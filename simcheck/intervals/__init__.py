@@ -14,5 +14,8 @@ from simcheck.intervals import spread as _spread  # noqa: F401
 from simcheck.intervals import rates as _rates  # noqa: F401
 from simcheck.intervals import rate_diff as _rate_diff  # noqa: F401
 from simcheck.intervals import ratios as _ratios  # noqa: F401
+from simcheck.intervals import geometric as _geometric  # noqa: F401
+from simcheck.intervals import quantile as _quantile  # noqa: F401
+from simcheck.intervals import pairs as _pairs  # noqa: F401
 
 __all__ = ["ESTIMANDS", "REGISTRY", "Method", "Summary", "get_method", "methods_for", "register"]

@@ -109,6 +109,8 @@ METHOD_STYLES: dict[str, dict[str, Any]] = {
     "hypergeometric": _style(_S, "*", (0, (3, 1))),
     "newcombe": _style(_B, "o", "-"),
     "agresti-caffo": _style(_G, "^", "-."),
+    # correlation (with bootstrap-percentile)
+    "fisher-z": _style(_B, "o", "-"),
 }
 
 

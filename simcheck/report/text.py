@@ -249,9 +249,18 @@ def strata_text(data: Mapping[str, Any]) -> str:
             f"{rule} allocation: " + "; ".join(parts))
 
 
+def _paired(data: Mapping[str, Any]) -> bool:
+    """Pairs of two measurements (paired estimands): two margins and no group-size ratio."""
+    return "data_a" in data and "ratio" not in data
+
+
 def model_text(data: Mapping[str, Any]) -> str:
     if "strata" in data:
         return strata_text(data)
+    if _paired(data):
+        return (f"{describe_model(data['data_a'])} for the first measurement (a) and "
+                f"{describe_model(data['data_b'])} for the second (b) of each pair, the two joined by a Gaussian "
+                f"copula whose normal scores have correlation {fmt_g(data.get('correlation', 0.0))}")
     if "data_a" in data:
         return (f"{describe_model(data['data_a'])} in group a and {describe_model(data['data_b'])} in group b "
                 f"({ratio_text(data.get('ratio', 1.0))})")
@@ -344,7 +353,7 @@ def wiggle_sentence(n_first: int, n: int, discrete: bool, exact: bool) -> str:
 # the methods paragraph, sentence group by sentence group
 # ---------------------------------------------------------------------------
 def _n_unit(s: StudyResults) -> str:
-    return "clusters" if "clusters" in s.data else "observations"
+    return "clusters" if "clusters" in s.data else "pairs" if _paired(s.data) else "observations"
 
 
 def _bound(s: StudyResults) -> str:
@@ -383,7 +392,7 @@ def _simulation_sentences(s: StudyResults) -> list[str]:
         how = _exact_how(s)
         return [f"For each candidate sample size n, coverage of {interval_text(s.methods, s.confidence, 'strata' in s.data, _bound(s))} for {est} "
                 f"was computed exactly {how} instead of by simulation, so it carries no Monte Carlo error."]
-    if "data_a" in s.data:
+    if "data_a" in s.data and not _paired(s.data):
         ratio = float(s.data.get("ratio", 1.0) or 1.0)
         what = ("n observations in each of two groups of equal size" if ratio_text(ratio) == "groups of equal size"
                 else f"n observations in group a and {fmt_g(ratio)} × n (rounded up) in group b")
@@ -548,7 +557,7 @@ def _fewest_sentence(s: StudyResults) -> str | None:
     fewest = [m for n, m in found if n == n_min]
     names = join_words([f"the {method_text(m)} {_lim(s)}" for m in fewest])
     per = ""
-    if "data_a" in s.data:
+    if "data_a" in s.data and not _paired(s.data):
         per = " per group" if ratio_text(s.data.get("ratio", 1.0)) == "groups of equal size" else " in group a"
     txt = f"Of the methods compared, {names} needed the fewest {_n_unit(s)} (n = {n_min:,}{per})"
     if any(decision_status(s.searches[m]) == "undecided" for m in fewest):
@@ -648,6 +657,8 @@ def n_axis_label(design) -> str:
         return "Sample size n (clusters)"
     if design.two_sample:
         return "Sample size n (observations in group a)"
+    if design.paired:
+        return "Sample size n (pairs)"
     return "Sample size n (observations)"
 
 
