@@ -111,7 +111,7 @@ KNOWN_KEYS: dict[str, str] = {
     "target.limit": "demonstration plan: the proportion in (0, 1) the upper limit must stay below (bound = upper)",
     "target.events_allowed": "demonstration plan: events allowed while the plan still passes, whole number >= 0; default 0",
     "target.quantile": "estimand quantile: the quantile estimated, in (0, 1) (0.5 = the median)",
-    "target.exposure": "estimands rate and rate-ratio: exposure of each observation unit (person-years, litres, m^2), > 0; default 1",
+    "target.exposure": "estimands rate, rate-ratio and rate-diff: exposure of each observation unit (person-years, litres, m^2), > 0; default 1",
     "data": "one-sample model table: model = \"...\" and its parameters",
     "data.a": "two-sample: model table of group a (the difference is a - b); paired: the first measurement",
     "data.b": "two-sample: model table of group b; paired: the second measurement",

@@ -86,6 +86,7 @@ def row_from_measures(design, n, m, seed, path) -> CheckResult:
     if deg > 0:
         notes.append(f"probability {deg:.4g} of a zero-width (degenerate) interval, which never counts as "
                      "meeting the margin")
+    notes.extend(m.get("notes", ()))  # an exact path's own remarks (unbounded or uncomputable intervals)
     return CheckResult(
         n=int(n),
         replicates=0,

@@ -11,6 +11,7 @@ from simcheck.estimands.base import (
 
 # Importing the family modules fills REGISTRY.
 from simcheck.estimands import spread as _spread  # noqa: F401,E402
+from simcheck.estimands import rates as _rates  # noqa: F401,E402
 from simcheck.estimands import ratios as _ratios  # noqa: F401,E402
 from simcheck.estimands import geometric as _geometric  # noqa: F401,E402
 from simcheck.estimands import quantile as _quantile  # noqa: F401,E402

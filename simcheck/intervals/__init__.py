@@ -11,6 +11,8 @@ from simcheck.intervals import upper as _upper  # noqa: F401
 from simcheck.intervals import hypergeometric as _hypergeometric  # noqa: F401
 from simcheck.intervals import total as _total  # noqa: F401  (after the mean and proportion methods)
 from simcheck.intervals import spread as _spread  # noqa: F401
+from simcheck.intervals import rates as _rates  # noqa: F401
+from simcheck.intervals import rate_diff as _rate_diff  # noqa: F401
 from simcheck.intervals import ratios as _ratios  # noqa: F401
 from simcheck.intervals import pps as _pps  # noqa: F401  (monetary-unit limits: selection designs only)
 from simcheck.intervals import geometric as _geometric  # noqa: F401
