@@ -162,6 +162,7 @@ def _check(design, c: Collector) -> None:
 RATE = register_estimand(EstimandSpec(
     name="rate",
     label="the event rate per unit of exposure",
+    margin_words="in events per unit of exposure",
     data="one",
     true_value=lambda d: d.model.mean / _exposure(d),
     counts=True,
@@ -193,6 +194,7 @@ RATE_RATIO = register_estimand(EstimandSpec(
 RATE_DIFF = register_estimand(EstimandSpec(
     name="rate-diff",
     label="the difference of two event rates (a - b)",
+    margin_words="in events per unit of exposure",
     data="two",
     true_value=lambda d: (d.model.mean - d.model_b.mean) / _exposure(d),
     counts=True,

@@ -389,6 +389,11 @@ def _design_sentences(s: StudyResults) -> list[str]:
     lead = ("The population was assumed to consist of" if "strata" in s.data or "selection" in s.data
             else "Data were assumed to follow")
     parts = [f"{lead} {model_text(s.data)}."]
+    if s.estimand in ("rate", "rate-ratio", "rate-diff"):
+        # the data model is the count of one unit; the rate divides by its exposure
+        expo = s.data.get("exposure") or 1.0
+        parts.append(f"Each unit contributed an event count from that model over an exposure of {fmt_g(expo)}; "
+                     f"the rate is the total count divided by the total exposure.")
     parts += target_sentences(s.data, s.confidence, s.margin)
     if "clusters" in s.data:
         cl = s.data["clusters"]
