@@ -55,6 +55,8 @@ from scipy import stats
 
 from simcheck.errors import Collector
 from simcheck.intervals.base import Method
+from simcheck.intervals.law_measures import MARGIN_RTOL, weighted_measures
+from simcheck.intervals.law_measures import weighted_quantile as _weighted_quantile
 
 #: Largest number of (x, n) or (xa, xb) cells evaluated at once; bounds memory.
 CHUNK_CELLS = 1 << 21
@@ -65,7 +67,6 @@ TAIL_TRIM = 1e-17
 
 #: A half-width equal to the margin up to rounding meets it (same rule as the
 #: simulation path of the engine).
-MARGIN_RTOL = 1.0 + 1e-12
 
 Interval = Callable[..., tuple[np.ndarray, np.ndarray]]
 
@@ -95,43 +96,6 @@ def _check_n(c: Collector, field: str, n, low: int = 1) -> None:
         c.add(field, f"must be a whole number, got {n!r}")
         return
     c.number(field, n, low=low, integer=True)
-
-
-def _weighted_quantile(sorted_values: np.ndarray, sorted_weights: np.ndarray, q: float) -> float:
-    """Smallest value whose normalised cumulative weight is >= q."""
-    cum = np.cumsum(sorted_weights)
-    total = cum[-1]
-    if total <= 0:
-        return float("nan")
-    # the allowance keeps a cumulative probability equal to q up to rounding at q,
-    # as the rank ceil(m q) does on the simulated paths (one definition)
-    idx = int(np.searchsorted(cum / total, q - 1e-12, side="left"))
-    return float(sorted_values[min(idx, sorted_values.size - 1)])
-
-
-def weighted_measures(lo: np.ndarray, hi: np.ndarray, w: np.ndarray, true: float, margin: float | None) -> dict:
-    """All measures for one enumerated support with probabilities ``w``."""
-    hw = (hi - lo) / 2.0
-    total = float(w.sum())
-    covered = (lo <= true) & (true <= hi)
-    order = np.argsort(hw, kind="stable")
-    hw_s, w_s = hw[order], w[order]
-    # a zero-width interval that misses (Wald at x = 0 or x = n) does not
-    # deliver the promised precision: counted apart, never within the margin
-    zero = (hw <= 0) & ~covered
-    return {
-        "true_value": float(true),
-        "coverage": float(w[covered].sum() / total),
-        "miss_low": float(w[hi < true].sum() / total),
-        "miss_high": float(w[lo > true].sum() / total),
-        "margin_mean": float(np.dot(w, hw) / total),
-        "margin_median": _weighted_quantile(hw_s, w_s, 0.5),
-        "margin_p90": _weighted_quantile(hw_s, w_s, 0.9),
-        "assurance": None if margin is None else float(w[(hw <= margin * MARGIN_RTOL) & ~zero].sum() / total),
-        "degenerate_share": float(w[zero].sum() / total),
-        "margin_values": hw_s,
-        "margin_weights": w_s,
-    }
 
 
 def _binomial_support(n: np.ndarray, p: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

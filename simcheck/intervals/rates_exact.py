@@ -13,7 +13,7 @@ total, below the rounding of sums near 1. Supports beyond
 :data:`SUPPORT_MAX` values (one total) or :data:`PAIRS_MAX` pairs (two) are
 refused with one line pointing to the simulated paths.
 
-Measures follow :func:`simcheck.engine.exact.weighted_measures` (the same
+Measures follow :func:`simcheck.intervals.law_measures.weighted_measures` (the same
 definitions as simulation; the margin mean over bounded intervals); intervals with a NaN limit (the Wald rate ratio
 with a zero count) count as not covering and are left out of the half-width
 summaries, as on the simulated paths. Ratio-scale estimands are measured on
@@ -29,6 +29,7 @@ import numpy as np
 from scipy import stats
 
 from simcheck.errors import InputError
+from simcheck.intervals.law_measures import weighted_measures, weighted_quantile
 
 #: each tail of a total's law with less probability than this is not enumerated
 TAIL_TRIM = 1e-17
@@ -84,19 +85,8 @@ def exposure(design) -> float:
     return 1.0 if design.exposure is None else float(design.exposure)
 
 
-def _weighted_quantile(values: np.ndarray, weights: np.ndarray, q: float) -> float:
-    """Smallest sorted value whose cumulative probability is >= q (as the engine's exact paths)."""
-    if values.size == 0:
-        return math.nan
-    cum = np.cumsum(weights)
-    i = int(np.searchsorted(cum / cum[-1], q - 1e-12, side="left"))
-    return float(values[min(i, values.size - 1)])
-
-
 def measures(lo, hi, w, truth: float, margin: float | None, assurance: float, ratio: bool) -> dict:
     """Measures of intervals (lo, hi) with probabilities w; NaN limits count as not covering."""
-    from simcheck.engine.exact import weighted_measures
-
     if ratio:
         with np.errstate(divide="ignore", invalid="ignore"):
             lo, hi = np.log(lo), np.log(hi)
@@ -120,7 +110,7 @@ def measures(lo, hi, w, truth: float, margin: float | None, assurance: float, ra
         m[key] *= share
     if m["assurance"] is not None:
         m["assurance"] *= share
-    m["margin_at_assurance"] = _weighted_quantile(m["margin_values"], m["margin_weights"], assurance)
+    m["margin_at_assurance"] = weighted_quantile(m["margin_values"], m["margin_weights"], assurance)
     if ratio:
         for key in ("margin_mean", "margin_median", "margin_p90", "margin_at_assurance"):
             m[key] = math.exp(m[key]) if math.isfinite(m[key]) else m[key]

@@ -39,6 +39,7 @@ import numpy as np
 from scipy import stats
 
 from simcheck.errors import InputError
+from simcheck.intervals.law_measures import MARGIN_RTOL
 
 #: each binomial tail below this probability is not enumerated (as in engine.exact)
 TAIL_TRIM = 1e-17
@@ -48,7 +49,6 @@ PAIRS_MAX = 5_000_000
 #: outcome pairs evaluated per call of the interval function
 CHUNK_CELLS = 1 << 21
 #: a half-width equal to the margin up to rounding meets it (engine.measures)
-MARGIN_RTOL = 1.0 + 1e-12
 
 
 def exact_applies(design) -> bool:
