@@ -80,11 +80,10 @@ def rate_formula(margin: float, confidence: float, *, rate: float, exposure: flo
     )
 
 
-def rate_ratio_formula(margin: float, confidence: float, *, rate: float, rate_b: float,
-                       exposure: float | None = None, ratio: float | None = None, dispersion: float | None = None):
-    """n units in group a for a log-scale half-width ln(``margin``) of the rate ratio a / b."""
+def _two_group_inputs(margin_low, margin, confidence, rate, rate_b, exposure, ratio, dispersion):
+    """Check the planning values of two groups (all problems at once); (exposure, ratio, z)."""
     c = Collector()
-    check_finite_in(c, "--margin", margin, 1, _INF)
+    check_finite_in(c, "--margin", margin, margin_low, _INF)
     check_finite_in(c, "--rate", rate, 0, _INF)
     check_finite_in(c, "--rate-b", rate_b, 0, _INF)
     if ratio is not None:
@@ -93,7 +92,13 @@ def rate_ratio_formula(margin: float, confidence: float, *, rate: float, rate_b:
     c.raise_if_any()
     t = 1.0 if exposure is None else float(exposure)
     r = 1.0 if ratio is None else float(ratio)
-    z = z_two_sided(confidence)
+    return t, r, z_two_sided(confidence)
+
+
+def rate_ratio_formula(margin: float, confidence: float, *, rate: float, rate_b: float,
+                       exposure: float | None = None, ratio: float | None = None, dispersion: float | None = None):
+    """n units in group a for a log-scale half-width ln(``margin``) of the rate ratio a / b."""
+    t, r, z = _two_group_inputs(1, margin, confidence, rate, rate_b, exposure, ratio, dispersion)
     mu_a, mu_b = rate * t, rate_b * t
     v1 = _inflation(mu_a, dispersion) / mu_a + _inflation(mu_b, dispersion) / (r * mu_b)
     n0 = z * z * v1 / math.log(margin) ** 2
@@ -111,17 +116,7 @@ def rate_ratio_formula(margin: float, confidence: float, *, rate: float, rate_b:
 def rate_diff_formula(margin: float, confidence: float, *, rate: float, rate_b: float,
                       exposure: float | None = None, ratio: float | None = None, dispersion: float | None = None):
     """n units in group a for a half-width ``margin`` of the rate difference a - b."""
-    c = Collector()
-    check_finite_in(c, "--margin", margin, 0, _INF)
-    check_finite_in(c, "--rate", rate, 0, _INF)
-    check_finite_in(c, "--rate-b", rate_b, 0, _INF)
-    if ratio is not None:
-        check_finite_in(c, "--ratio", ratio, 0, _INF)
-    _check_common(c, margin, confidence, exposure, dispersion)
-    c.raise_if_any()
-    t = 1.0 if exposure is None else float(exposure)
-    r = 1.0 if ratio is None else float(ratio)
-    z = z_two_sided(confidence)
+    t, r, z = _two_group_inputs(0, margin, confidence, rate, rate_b, exposure, ratio, dispersion)
     v1 = rate * _inflation(rate * t, dispersion) + rate_b * _inflation(rate_b * t, dispersion) / r
     n0 = z * z * v1 / (t * margin * margin)
     law = "Poisson counts" if dispersion is None else f"negative-binomial counts, dispersion k = {dispersion:g}"

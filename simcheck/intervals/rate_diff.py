@@ -27,8 +27,8 @@ from __future__ import annotations
 import numpy as np
 from scipy import stats
 
-from simcheck.intervals.base import Method, Sample, register
-from simcheck.intervals.rates import EXACT_TEXT_TWO, exposure_of
+from simcheck.intervals.base import Method, register
+from simcheck.intervals.rates import EXACT_TEXT_TWO, exposure_of, from_group_totals
 from simcheck.intervals.rates_exact import two_totals_exact_path, totals_law_applies
 
 #: Illinois (modified regula falsi) steps for each score limit
@@ -119,18 +119,8 @@ def score_diff_totals(xa, ea, xb, eb, confidence: float):
     return _score_limit(xa, ea, xb, eb, d, z, -1.0), _score_limit(xa, ea, xb, eb, d, z, 1.0)
 
 
-def _diff(totals_func):
-    def func(s: Sample, confidence: float):
-        t = exposure_of(s.params)
-        return totals_func(s.x.sum(axis=1), s.n * t, s.xb.sum(axis=1), s.n_b * t, confidence)
-
-    func.__name__ = totals_func.__name__.replace("_totals", "")
-    func.__doc__ = f"{totals_func.__doc__} The raw-sample form: totals of the rows of ``s.x`` and ``s.xb``."
-    return func
-
-
-wald_diff = _diff(wald_diff_totals)
-score_diff = _diff(score_diff_totals)
+wald_diff = from_group_totals(wald_diff_totals)
+score_diff = from_group_totals(score_diff_totals)
 
 register(Method(
     "wald", "rate-diff", "raw", wald_diff,

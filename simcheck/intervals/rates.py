@@ -255,7 +255,8 @@ def wald_ratio_totals(xa, ea, xb, eb, confidence: float):
     return lo, hi
 
 
-def _ratio(totals_func):
+def from_group_totals(totals_func):
+    """A ``raw`` method of two groups from ``totals_func(x_a, exposure_a, x_b, exposure_b, confidence)``."""
     def func(s: Sample, confidence: float):
         t = exposure_of(s.params)
         return totals_func(s.x.sum(axis=1), s.n * t, s.xb.sum(axis=1), s.n_b * t, confidence)
@@ -265,9 +266,9 @@ def _ratio(totals_func):
     return func
 
 
-conditional_exact = _ratio(conditional_exact_totals)
-score_ratio = _ratio(score_ratio_totals)
-wald_ratio = _ratio(wald_ratio_totals)
+conditional_exact = from_group_totals(conditional_exact_totals)
+score_ratio = from_group_totals(score_ratio_totals)
+wald_ratio = from_group_totals(wald_ratio_totals)
 
 
 # --------------------------------------------------------------------------
