@@ -280,7 +280,7 @@ EXACT_TEXT_ONE = ("by summing over the law of the total count (Poisson with mean
 EXACT_TEXT_TWO = "by summing over the laws of the two groups' total counts (Poisson, or negative binomial)"
 # the conditional-exact limits depend on the counts only: its exact path keeps them between n
 _CONDITIONAL = {"conditional-exact": (clopper_pearson_pi, pi_to_ratio)}
-_PROSE = {"garwood": "Garwood's exact", "mid-p": "mid-p exact", "byar": "Byar's", "score": "score",
+_PROSE = {"garwood": "Garwood exact", "mid-p": "mid-p exact", "byar": "Byar", "score": "score",
           "conditional-exact": "conditional exact (Clopper–Pearson)"}
 
 for _name, _func, _total, _summary, _refs in (

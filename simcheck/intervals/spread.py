@@ -114,5 +114,5 @@ register(Method(
 register(Method(
     "bonett", "sd", "raw", bonett,
     summary="Bonett's log-scale interval with a kurtosis estimate; robust to non-normal data",
-    references=(_BONETT,), prose="Bonett's",
+    references=(_BONETT,), prose="Bonett",
 ))
